@@ -1,0 +1,244 @@
+"""The public boundary: DataArrays in and out, argument checks, unit handling.
+
+Every public physics function in beltkit is a plain numpy kernel wrapped by
+:func:`array_api`. The wrapper
+
+* lets scalars, numpy arrays and :class:`xarray.DataArray` be mixed freely
+  (numpy broadcasting; DataArrays are aligned and broadcast by name),
+* checks the ``units`` attribute of DataArray arguments against the unit the
+  argument name promises, converting the few unambiguous cases (MeV to keV,
+  T to nT, rad to deg) and refusing anything else with a message that says
+  how to fix the call,
+* runs the kernel on numpy blocks (dask-backed DataArrays stay lazy), and
+* returns a float for all-scalar input, an ndarray for array input, and a
+  DataArray with ``units`` and ``long_name`` set for DataArray input.
+
+The check helpers (:func:`check_range`, :func:`as_float_array`) ignore NaN:
+NaN propagates as NaN and never raises.
+"""
+
+from __future__ import annotations
+
+import functools
+import inspect
+from collections.abc import Callable
+
+import numpy as np
+
+from .errors import PhysicsError
+
+__all__ = ["array_api", "as_float_array", "check_range", "to_output"]
+
+# unit attribute spellings accepted for an argument that promises `unit`, with
+# the factor that converts a value in that spelling to `unit`.
+_EQUIVALENT = {
+    "keV": {"keV": 1.0, "kev": 1.0, "MeV": 1e3, "mev": 1e3, "eV": 1e-3, "ev": 1e-3},
+    "nT": {"nT": 1.0, "nt": 1.0, "T": 1e9, "tesla": 1e9, "G": 1e5, "gauss": 1e5},
+    "deg": {"deg": 1.0, "degree": 1.0, "degrees": 1.0, "rad": 180.0 / np.pi, "radian": 180.0 / np.pi},
+    "km": {"km": 1.0, "m": 1e-3},
+    "1": {"1": 1.0, "": 1.0, "R_E": 1.0, "Re": 1.0},
+    "s": {"s": 1.0, "second": 1.0, "seconds": 1.0},
+}
+
+
+def _unit_of_argument(name: str) -> str | None:
+    """Return the unit that an argument name promises, or None."""
+    if name.endswith("_kev"):
+        return "keV"
+    if name.endswith("_nt"):
+        return "nT"
+    if name.endswith("_deg"):
+        return "deg"
+    if name.endswith("_km"):
+        return "km"
+    if name == "L":
+        return "1"
+    return None
+
+
+def _convert_dataarray(name, value):
+    """Return the numpy-compatible data of DataArray `value`, in the unit `name` promises."""
+    want = _unit_of_argument(name)
+    have = value.attrs.get("units")
+    if want is None or have is None:
+        return value
+    table = _EQUIVALENT[want]
+    if have not in table:
+        raise PhysicsError(
+            f"argument {name!r} must be in {want!r}, but its DataArray has units {have!r}; "
+            f"convert it first (for example `{name}=da * factor` with "
+            f"`da.attrs['units'] = {want!r}`)"
+        )
+    factor = table[have]
+    if factor == 1.0:
+        return value
+    out = value * factor
+    out.attrs = {**value.attrs, "units": want}
+    return out
+
+
+def as_float_array(value, name: str) -> np.ndarray:
+    """Convert `value` to a float64 ndarray, with an error naming the argument.
+
+    Parameters
+    ----------
+    value : array_like
+        Scalar or array.
+    name : str
+        Argument name, for the error message.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``value`` as float64 (a view where possible; never modified in place).
+    """
+    try:
+        arr = np.asarray(value, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise PhysicsError(f"argument {name!r} must be numeric, got {value!r}") from exc
+    return arr
+
+
+def check_range(
+    value,
+    name: str,
+    *,
+    lo: float | None = None,
+    hi: float | None = None,
+    lo_open: bool = False,
+    hi_open: bool = False,
+    hint: str = "",
+) -> np.ndarray:
+    """Check that every non-NaN element of `value` lies in a range.
+
+    Parameters
+    ----------
+    value : array_like
+        The values to check.
+    name : str
+        Argument name used in the message.
+    lo, hi : float, optional
+        Bounds; None means unbounded.
+    lo_open, hi_open : bool
+        Whether the bound itself is excluded.
+    hint : str
+        Extra sentence appended to the message.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``value`` as a float64 array.
+
+    Raises
+    ------
+    PhysicsError
+        If any non-NaN element is out of range; the message names the argument,
+        the allowed range and the worst offending value.
+    """
+    arr = as_float_array(value, name)
+    finite = arr.ravel()
+    finite = finite[~np.isnan(finite)]
+    if finite.size == 0:
+        return arr
+    bad = np.zeros(finite.shape, dtype=bool)
+    if lo is not None:
+        bad |= (finite <= lo) if lo_open else (finite < lo)
+    if hi is not None:
+        bad |= (finite >= hi) if hi_open else (finite > hi)
+    if np.any(bad):
+        worst = finite[bad][0]
+        left = "(" if lo_open else "["
+        right = ")" if hi_open else "]"
+        rng = f"{left}{'-inf' if lo is None else lo:g}, {'inf' if hi is None else hi:g}{right}"
+        msg = f"argument {name!r} must lie in {rng}; got {worst:g}"
+        if np.sum(bad) > 1:
+            msg += f" (and {int(np.sum(bad)) - 1} more out-of-range values)"
+        if hint:
+            msg += f". {hint}"
+        raise PhysicsError(msg)
+    return arr
+
+
+def to_output(result):
+    """Return a Python float for a 0-d result, the array otherwise."""
+    if isinstance(result, tuple):
+        return tuple(to_output(r) for r in result)
+    if isinstance(result, np.ndarray) and result.ndim == 0:
+        return float(result)
+    if isinstance(result, np.generic):
+        return float(result)
+    return result
+
+
+def array_api(units: str | tuple[str, ...], long_name: str | tuple[str, ...] | None = None,
+              name: str | tuple[str, ...] | None = None) -> Callable:
+    """Decorate a numpy kernel so that it accepts and returns DataArrays.
+
+    Parameters
+    ----------
+    units : str or tuple of str
+        UDUNITS unit string of the output (one per output for tuple results).
+    long_name : str or tuple of str, optional
+        CF ``long_name`` of the output(s).
+    name : str or tuple of str, optional
+        Name given to the output DataArray(s).
+
+    Returns
+    -------
+    callable
+        The decorator.
+
+    Notes
+    -----
+    The kernel must be elementwise in its array arguments (it may broadcast
+    them). Keyword arguments that are not DataArrays (species names, method
+    switches, scalars) are passed through unchanged.
+    """
+    multi = isinstance(units, tuple)
+
+    def decorate(func):
+        sig = inspect.signature(func)
+
+        @functools.wraps(func)
+        def wrapper(*args, **kwargs):
+            import xarray as xr
+
+            bound = sig.bind(*args, **kwargs)
+            bound.apply_defaults()
+            arguments = dict(bound.arguments)
+            da_names = [k for k, v in arguments.items() if isinstance(v, xr.DataArray)]
+            if not da_names:
+                return to_output(func(**arguments))
+            das = [_convert_dataarray(k, arguments[k]) for k in da_names]
+
+            def core(*values):
+                call = dict(arguments)
+                call.update(zip(da_names, values))
+                out = func(**call)
+                if multi:
+                    return tuple(np.asarray(o, dtype=float) for o in out)
+                return np.asarray(out, dtype=float)
+
+            nout = len(units) if multi else 1
+            out = xr.apply_ufunc(
+                core,
+                *das,
+                dask="parallelized",
+                output_dtypes=[float] * nout,
+                keep_attrs=False,
+            )
+            outs = out if multi else (out,)
+            unit_t = units if multi else (units,)
+            ln_t = long_name if isinstance(long_name, tuple) else (long_name,) * nout
+            nm_t = name if isinstance(name, tuple) else (name,) * nout
+            for o, u, ln, nm in zip(outs, unit_t, ln_t, nm_t):
+                o.attrs = {"units": u}
+                if ln:
+                    o.attrs["long_name"] = ln
+                if nm:
+                    o.name = nm
+            return outs if multi else outs[0]
+
+        return wrapper
+
+    return decorate
