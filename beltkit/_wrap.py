@@ -34,7 +34,10 @@ __all__ = ["array_api", "as_float_array", "check_range", "to_output"]
 _EQUIVALENT = {
     "keV": {"keV": 1.0, "kev": 1.0, "MeV": 1e3, "mev": 1e3, "eV": 1e-3, "ev": 1e-3},
     "nT": {"nT": 1.0, "nt": 1.0, "T": 1e9, "tesla": 1e9, "G": 1e5, "gauss": 1e5},
-    "deg": {"deg": 1.0, "degree": 1.0, "degrees": 1.0, "rad": 180.0 / np.pi, "radian": 180.0 / np.pi},
+    "deg": {
+        "deg": 1.0, "degree": 1.0, "degrees": 1.0,
+        "rad": 180.0 / np.pi, "radian": 180.0 / np.pi,
+    },
     "km": {"km": 1.0, "m": 1e-3},
     "1": {"1": 1.0, "": 1.0, "R_E": 1.0, "Re": 1.0},
     "s": {"s": 1.0, "second": 1.0, "seconds": 1.0},

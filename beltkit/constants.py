@@ -1,4 +1,4 @@
-"""Physical constants and reference values that :mod:`scipy.constants` does not hold.
+r"""Physical constants and reference values that :mod:`scipy.constants` does not hold.
 
 Everything else (speed of light, elementary charge, particle masses) is taken
 from :mod:`scipy.constants` (CODATA) where it is used; nothing here retypes a
@@ -21,7 +21,7 @@ G10_NT, G11_NT, H11_NT : float
     (a test checks the two agree).
 B0_NT : float
     Default equatorial surface field of the centred dipole,
-    :math:`B_0 = \\sqrt{g_{10}^2 + g_{11}^2 + h_{11}^2}` (about 29,804 nT).
+    :math:`B_0 = \sqrt{g_{10}^2 + g_{11}^2 + h_{11}^2}` (about 29,804 nT).
     This is the single place where the default ``b0_nt`` of every function
     in beltkit is defined.
 NT : float
