@@ -152,7 +152,9 @@ def check_range(
         worst = finite[bad][0]
         left = "(" if lo_open else "["
         right = ")" if hi_open else "]"
-        rng = f"{left}{'-inf' if lo is None else lo:g}, {'inf' if hi is None else hi:g}{right}"
+        lo_s = "-inf" if lo is None else f"{lo:g}"
+        hi_s = "inf" if hi is None else f"{hi:g}"
+        rng = f"{left}{lo_s}, {hi_s}{right}"
         msg = f"argument {name!r} must lie in {rng}; got {worst:g}"
         if np.sum(bad) > 1:
             msg += f" (and {int(np.sum(bad)) - 1} more out-of-range values)"
@@ -218,9 +220,11 @@ def array_api(units: str | tuple[str, ...], long_name: str | tuple[str, ...] | N
                 call = dict(arguments)
                 call.update(zip(da_names, values))
                 out = func(**call)
+                shape = np.broadcast_shapes(*(np.shape(v) for v in values))
                 if multi:
-                    return tuple(np.asarray(o, dtype=float) for o in out)
-                return np.asarray(out, dtype=float)
+                    return tuple(np.broadcast_to(np.asarray(o, dtype=float), shape)
+                                 for o in out)
+                return np.broadcast_to(np.asarray(out, dtype=float), shape)
 
             nout = len(units) if multi else 1
             out = xr.apply_ufunc(
@@ -228,6 +232,7 @@ def array_api(units: str | tuple[str, ...], long_name: str | tuple[str, ...] | N
                 *das,
                 dask="parallelized",
                 output_dtypes=[float] * nout,
+                output_core_dims=[()] * nout,
                 keep_attrs=False,
             )
             outs = out if multi else (out,)
