@@ -1,0 +1,652 @@
+r"""Closed forms of the centred dipole field and of pitch-angle mapping along its lines.
+
+A dipole field line of McIlwain parameter :math:`L` is
+:math:`r = L R_E \cos^2\lambda` (:math:`\lambda` the magnetic latitude,
+:math:`R_E` = 6371.2 km, the IGRF reference radius), and along it
+
+.. math::
+
+    B(L, \lambda) = \frac{B_0}{L^3}\, b(\lambda), \qquad
+    b(\lambda) = \frac{\sqrt{1 + 3 \sin^2\lambda}}{\cos^6\lambda}.
+
+With the first adiabatic invariant conserved and the energy constant,
+:math:`\sin^2\alpha / B` is the same everywhere along the line, which gives
+the mirror points, the mapping of pitch angles between latitudes, and the
+mirror-ratio loss cones.
+
+The default ``b0_nt`` everywhere is :data:`beltkit.constants.B0_NT`, the
+IGRF-14 epoch-2020 dipole term :math:`\sqrt{g_{10}^2 + g_{11}^2 + h_{11}^2}`.
+
+Latitudes are magnetic latitudes in degrees, in (-90, 90); the dipole is
+symmetric about the equator, so the functions that return a latitude return
+the northern (positive) one. Pitch angles are in degrees, 0-180; where the
+physics is symmetric an angle above 90 is treated as its supplement and the
+returned angle keeps the caller's side of 90.
+
+References
+----------
+J. G. Roederer, *Dynamics of Geomagnetically Trapped Radiation*
+(Springer, 1970), ch. 1-2.
+M. Walt, *Introduction to Geomagnetically Trapped Radiation* (Cambridge
+University Press, 1994), ch. 2-4.
+
+Examples
+--------
+>>> from beltkit import dipole
+>>> round(dipole.bounce_loss_cone(6.6), 2)
+2.52
+>>> round(dipole.mirror_mlat(45.0), 3)
+23.132
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._wrap import array_api, check_range
+from .constants import B0_NT, R_E_KM
+from .errors import PhysicsError
+
+__all__ = [
+    "arc_length",
+    "bounce_loss_cone",
+    "equatorial_field",
+    "equatorial_pitch_angle",
+    "field_magnitude",
+    "footpoint_field",
+    "footpoint_mlat",
+    "l_from_position",
+    "local_loss_cone",
+    "local_pitch_angle",
+    "mirror_altitude",
+    "mirror_mlat",
+    "radius",
+]
+
+
+# ---------------------------------------------------------------- checks
+
+
+def _L(L):
+    return check_range(L, "L", lo=1.0,
+                       hint="L is the equatorial distance of the field line in Earth radii")
+
+
+def _mlat(mlat_deg, name="mlat_deg"):
+    return check_range(mlat_deg, name, lo=-90.0, hi=90.0, lo_open=True, hi_open=True,
+                       hint="Magnetic latitude is in degrees; the poles are excluded")
+
+
+def _pitch(alpha_deg, name):
+    return check_range(alpha_deg, name, lo=0.0, hi=180.0,
+                       hint="Pitch angles are in degrees, 0-180")
+
+
+def _b0(b0_nt):
+    return check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True,
+                       hint="b0_nt is the dipole's equatorial surface field in nT")
+
+
+def _altitude(altitude_km):
+    return check_range(altitude_km, "altitude_km", lo=-R_E_KM, lo_open=True,
+                       hint="Altitude is in km above the reference sphere R_E = 6371.2 km")
+
+
+def _foot_cos2(L, altitude_km):
+    """Return cos^2 of the footpoint latitude, checking the line reaches the altitude."""
+    L = _L(L)
+    h = _altitude(altitude_km)
+    rf = 1.0 + h / R_E_KM
+    cos2 = rf / L
+    with np.errstate(invalid="ignore"):
+        bad = cos2 > 1.0
+    if np.any(bad):
+        Lb, hb = np.broadcast_arrays(L, h)
+        i = np.flatnonzero(np.broadcast_to(bad, Lb.shape))[0]
+        raise PhysicsError(
+            f"argument 'L' must be at least 1 + altitude_km / R_E so that the field line "
+            f"reaches the footpoint altitude; got L={Lb.flat[i]:g} with "
+            f"altitude_km={hb.flat[i]:g} (needs L >= {1.0 + hb.flat[i] / R_E_KM:.6g}). "
+            "Lower altitude_km or drop samples on lines whose apex is below it"
+        )
+    return cos2
+
+
+# ---------------------------------------------------------------- kernels
+
+
+def _b_ratio(mlat_rad):
+    """Return b(lambda) = B(lambda) / B_eq on a dipole line."""
+    s = np.sin(mlat_rad)
+    c2 = np.cos(mlat_rad) ** 2
+    return np.sqrt(1.0 + 3.0 * s * s) / (c2 * c2 * c2)
+
+
+def _b_ratio_cos2(c2):
+    """Return b as a function of cos^2(lambda)."""
+    return np.sqrt(4.0 - 3.0 * c2) / (c2 * c2 * c2)
+
+
+def _fold(alpha_deg):
+    """Return the pitch angle folded into [0, 90] and a mask of angles above 90."""
+    upper = alpha_deg > 90.0
+    return np.where(upper, 180.0 - alpha_deg, alpha_deg), upper
+
+
+def _asin_deg(s2):
+    """Return arcsin(sqrt(s2)) in degrees, s2 in [0, 1] (NaN kept)."""
+    return np.rad2deg(np.arcsin(np.sqrt(np.clip(s2, 0.0, 1.0))))
+
+
+def _mirror_mlat_rad(alpha_eq_deg):
+    """Return the mirror latitude (rad) of equatorial pitch angles in [0, 90] deg.
+
+    Solves u^6 + 3 s^2 u - 4 s^2 = 0 with u = cos^2(lambda_m), s = sin^2(alpha_eq).
+    Two well-conditioned branches, both by Newton's method started on the side of
+    the root where the iteration is monotone (the function is convex there):
+
+    * s < 1/2 (far from the equator): in u, from the upper bound u0 = (4 s^2)^(1/6).
+    * s >= 1/2 (near the equator): in w = sin^2(lambda_m) = 1 - u, from w0 = 0, with
+      the residual written without cancellation,
+      g(w) = (c - w (3 - 3w + w^2)) ((1 - w)^3 + s) - 3 s^2 w, c = cos^2(alpha_eq),
+      so that lambda_m keeps full relative precision as alpha_eq -> 90 deg.
+    """
+    a = np.deg2rad(np.asarray(alpha_eq_deg, dtype=float))
+    s = np.sin(a) ** 2
+    # cos^2(alpha) as sin^2(90 deg - alpha): exactly 0 at 90 deg, full precision near it
+    c = np.sin(np.deg2rad(90.0 - np.asarray(alpha_eq_deg, dtype=float))) ** 2
+    out = np.full(s.shape, np.nan)
+    nan = np.isnan(s)
+    far = ~nan & (s < 0.5)
+    near = ~nan & ~far
+
+    if np.any(far):
+        sf = s[far]
+        s2 = sf * sf
+        u = np.cbrt(2.0 * sf)  # (4 s^2)^(1/6), above the root: f(u0) = 3 s^2 u0 > 0
+        pos = u > 0.0
+        for _ in range(60):
+            u3 = u * u * u
+            f = u3 * u3 + 3.0 * s2 * u - 4.0 * s2
+            fp = 6.0 * u3 * u * u + 3.0 * s2
+            step = np.divide(f, fp, out=np.zeros_like(f), where=pos)
+            u = u - step
+            if not np.any(np.abs(step) > 1e-16 * u):
+                break
+        out[far] = np.arccos(np.sqrt(np.clip(u, 0.0, 1.0)))
+
+    if np.any(near):
+        sn = s[near]
+        cn = c[near]
+        w = np.zeros_like(sn)
+        for _ in range(60):
+            om = 1.0 - w
+            om3 = om * om * om
+            g = (cn - w * (3.0 - 3.0 * w + w * w)) * (om3 + sn) - 3.0 * sn * sn * w
+            gp = 6.0 * om3 * om * om + 3.0 * sn * sn  # -dg/dw > 0
+            step = g / gp
+            w = w + step
+            if not np.any(np.abs(step) > 1e-16 * w):
+                break
+        out[near] = np.arcsin(np.sqrt(np.clip(w, 0.0, 1.0)))
+    return out
+
+
+# ---------------------------------------------------------------- public API
+
+
+@array_api("nT", long_name="equatorial magnetic field magnitude")
+def equatorial_field(L, b0_nt=B0_NT):
+    r"""Field magnitude at the equator of a dipole line.
+
+    .. math:: B_{eq} = B_0 / L^3
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    b0_nt : float or array_like
+        Equatorial surface field in nT (default :data:`beltkit.constants.B0_NT`).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`B_{eq}` in nT.
+
+    Notes
+    -----
+    Roederer (1970) eq. 1.8; Walt (1994) ch. 2.
+
+    Examples
+    --------
+    >>> round(equatorial_field(2.0, b0_nt=30000.0), 1)
+    3750.0
+    """
+    return _b0(b0_nt) / _L(L) ** 3
+
+
+@array_api("nT", long_name="magnetic field magnitude")
+def field_magnitude(L, mlat_deg, b0_nt=B0_NT):
+    r"""Field magnitude along a dipole line.
+
+    .. math:: B(L, \lambda) = \frac{B_0}{L^3} \frac{\sqrt{1 + 3\sin^2\lambda}}{\cos^6\lambda}
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude in degrees, in (-90, 90).
+    b0_nt : float or array_like
+        Equatorial surface field in nT.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`B` in nT.
+
+    Notes
+    -----
+    Roederer (1970) eq. 1.8; Walt (1994) eq. 2.8.
+
+    Examples
+    --------
+    >>> round(field_magnitude(1.0, 60.0, b0_nt=30000.0) / 30000.0, 3)
+    115.378
+    """
+    lam = np.deg2rad(_mlat(mlat_deg))
+    return _b0(b0_nt) / _L(L) ** 3 * _b_ratio(lam)
+
+
+@array_api("deg", long_name="footpoint magnetic latitude")
+def footpoint_mlat(L, altitude_km=100.0):
+    r"""Magnetic latitude where a dipole line reaches an altitude (northern footpoint).
+
+    .. math:: \cos^2\lambda_f = \frac{R_E + h}{L R_E}
+
+    With ``altitude_km=0`` this is the invariant latitude.
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L, at least ``1 + altitude_km / R_E``.
+    altitude_km : float or array_like
+        Footpoint altitude in km above R_E = 6371.2 km (default 100 km).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\lambda_f` in degrees, in [0, 90).
+
+    Raises
+    ------
+    PhysicsError
+        If L < 1 or the line's apex lies below ``altitude_km``.
+
+    Notes
+    -----
+    From the field-line equation :math:`r = L R_E \cos^2\lambda` (Roederer 1970, eq. 1.7).
+
+    Examples
+    --------
+    >>> round(footpoint_mlat(4.0, altitude_km=0.0), 4)
+    60.0
+    """
+    cos2 = _foot_cos2(L, altitude_km)
+    return np.rad2deg(np.arccos(np.sqrt(cos2)))
+
+
+@array_api("nT", long_name="footpoint magnetic field magnitude")
+def footpoint_field(L, altitude_km=100.0, b0_nt=B0_NT):
+    r"""Field magnitude at the footpoint of a dipole line.
+
+    .. math:: B_f = \frac{B_0}{L^3}\frac{\sqrt{4 - 3\cos^2\lambda_f}}{\cos^6\lambda_f},
+       \quad \cos^2\lambda_f = \frac{R_E + h}{L R_E}
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L, at least ``1 + altitude_km / R_E``.
+    altitude_km : float or array_like
+        Footpoint altitude in km (default 100).
+    b0_nt : float or array_like
+        Equatorial surface field in nT.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`B_f` in nT.
+
+    Notes
+    -----
+    Roederer (1970) eqs. 1.7-1.8.
+
+    Examples
+    --------
+    >>> round(footpoint_field(1.0, altitude_km=0.0, b0_nt=30000.0), 1)
+    30000.0
+    """
+    cos2 = _foot_cos2(L, altitude_km)
+    return _b0(b0_nt) / np.asarray(L, dtype=float) ** 3 * _b_ratio_cos2(cos2)
+
+
+@array_api("R_E", long_name="field-line arc length from the equator to the footpoint")
+def arc_length(L, altitude_km=100.0):
+    r"""Length of a dipole line from the equator to its footpoint, in Earth radii.
+
+    .. math::
+
+        s = \frac{L}{2\sqrt3}\left[x\sqrt{1 + x^2} + \operatorname{asinh} x\right],
+        \qquad x = \sqrt3 \sin\lambda_f
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L, at least ``1 + altitude_km / R_E``.
+    altitude_km : float or array_like
+        Footpoint altitude in km (default 100).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Arc length in R_E (multiply by :data:`beltkit.constants.R_E_KM` for km).
+
+    Notes
+    -----
+    Integral of :math:`ds = L \cos\lambda \sqrt{1 + 3\sin^2\lambda}\, d\lambda`
+    (Roederer 1970, ch. 1; Walt 1994, ch. 2).
+
+    Examples
+    --------
+    >>> round(arc_length(4.0, altitude_km=0.0), 4)
+    4.5021
+    """
+    cos2 = _foot_cos2(L, altitude_km)
+    x = np.sqrt(3.0) * np.sqrt(1.0 - cos2)
+    return np.asarray(L, dtype=float) / (2.0 * np.sqrt(3.0)) * (
+        x * np.sqrt(1.0 + x * x) + np.arcsinh(x)
+    )
+
+
+@array_api("deg", long_name="mirror magnetic latitude")
+def mirror_mlat(alpha_eq_deg):
+    r"""Magnetic latitude of the mirror point of a given equatorial pitch angle.
+
+    Solves the mirror condition
+    :math:`\sin^2\alpha_{eq} = \cos^6\lambda_m / \sqrt{1 + 3\sin^2\lambda_m}`,
+    which with :math:`u = \cos^2\lambda_m`, :math:`s = \sin^2\alpha_{eq}` is
+
+    .. math:: u^6 + 3 s^2 u - 4 s^2 = 0,
+
+    a sextic with exactly one root in (0, 1]. Newton's method on a convex,
+    monotone branch (two cancellation-free formulations, one near the equator
+    and one near the pole) converges to machine precision in a few vectorised
+    iterations. The result does not depend on L.
+
+    Parameters
+    ----------
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180 (angles above 90 are folded).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\lambda_m` in degrees, in [0, 90]: 0 for 90 deg, 90 for 0 deg.
+
+    Notes
+    -----
+    Roederer (1970) ch. 1; Walt (1994) eq. 4.12.
+
+    Examples
+    --------
+    >>> mirror_mlat(90.0)
+    0.0
+    >>> round(mirror_mlat(10.0), 3)
+    52.453
+    """
+    a, _ = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    return np.rad2deg(_mirror_mlat_rad(a))
+
+
+@array_api("km", long_name="mirror point altitude")
+def mirror_altitude(L, alpha_eq_deg):
+    r"""Altitude of the mirror point above the reference sphere.
+
+    .. math:: h_m = R_E (L \cos^2\lambda_m - 1)
+
+    Negative values mean the particle would mirror below the surface of the
+    reference sphere: it is in the loss cone.
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Mirror altitude in km.
+
+    Notes
+    -----
+    Field-line equation (Roederer 1970, eq. 1.7) at the mirror latitude
+    (:func:`mirror_mlat`).
+
+    Examples
+    --------
+    >>> round(mirror_altitude(2.0, 90.0), 1)
+    6371.2
+    """
+    L = _L(L)
+    a, _ = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    lam = _mirror_mlat_rad(a)
+    return R_E_KM * (L * np.cos(lam) ** 2 - 1.0)
+
+
+@array_api("deg", long_name="local pitch angle")
+def local_pitch_angle(alpha_eq_deg, mlat_deg):
+    r"""Map an equatorial pitch angle to a latitude along the same dipole line.
+
+    .. math:: \sin^2\alpha = \sin^2\alpha_{eq}\, \frac{B(\lambda)}{B_{eq}}
+
+    Parameters
+    ----------
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180.
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude in degrees, in (-90, 90).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Local pitch angle in degrees, on the same side of 90 as the input. NaN
+        where the particle mirrors before it reaches ``mlat_deg``
+        (:math:`\sin^2\alpha_{eq}\, b(\lambda) > 1`): no such particle is there.
+
+    Notes
+    -----
+    Conservation of the first invariant in a static field (Roederer 1970,
+    eq. 1.24; Walt 1994, eq. 4.10).
+
+    Examples
+    --------
+    >>> round(local_pitch_angle(30.0, 20.0), 3)
+    40.514
+    """
+    a, upper = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    lam = np.deg2rad(_mlat(mlat_deg))
+    s2 = np.sin(np.deg2rad(a)) ** 2 * _b_ratio(lam)
+    with np.errstate(invalid="ignore"):
+        out = np.where(s2 > 1.0, np.nan, _asin_deg(s2))
+    return np.where(upper, 180.0 - out, out)
+
+
+@array_api("deg", long_name="equatorial pitch angle")
+def equatorial_pitch_angle(alpha_local_deg, mlat_deg):
+    r"""Map a local pitch angle at a latitude to the equator of its dipole line.
+
+    .. math:: \sin^2\alpha_{eq} = \sin^2\alpha\, \frac{B_{eq}}{B(\lambda)}
+
+    Parameters
+    ----------
+    alpha_local_deg : array_like or xarray.DataArray
+        Local pitch angle in degrees, 0-180.
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude of the measurement in degrees, in (-90, 90).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Equatorial pitch angle in degrees, on the same side of 90 as the input.
+
+    Notes
+    -----
+    Conservation of the first invariant (Roederer 1970, eq. 1.24; Walt 1994, eq. 4.10).
+
+    Examples
+    --------
+    >>> round(equatorial_pitch_angle(90.0, 20.0), 3)
+    50.323
+    """
+    a, upper = _fold(_pitch(alpha_local_deg, "alpha_local_deg"))
+    lam = np.deg2rad(_mlat(mlat_deg))
+    out = _asin_deg(np.sin(np.deg2rad(a)) ** 2 / _b_ratio(lam))
+    return np.where(upper, 180.0 - out, out)
+
+
+@array_api("deg", long_name="equatorial bounce loss cone")
+def bounce_loss_cone(L, altitude_km=100.0):
+    r"""Equatorial bounce loss cone of a dipole line (mirror-ratio condition).
+
+    .. math:: \sin^2\alpha_{LC} = \frac{B_{eq}}{B_f}
+       = \frac{\cos^6\lambda_f}{\sqrt{4 - 3\cos^2\lambda_f}}
+
+    Particles with smaller equatorial pitch angles mirror below ``altitude_km``
+    and are lost within a bounce (common practice).
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L, at least ``1 + altitude_km / R_E``.
+    altitude_km : float or array_like
+        Altitude in km at which particles are taken as lost (default 100).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Loss-cone half angle in degrees, in (0, 90].
+
+    Notes
+    -----
+    Roederer (1970) ch. 1; Walt (1994) eq. 4.14.
+
+    Examples
+    --------
+    >>> round(bounce_loss_cone(4.0, altitude_km=0.0), 3)
+    5.342
+    """
+    cos2 = _foot_cos2(L, altitude_km)
+    return _asin_deg(1.0 / _b_ratio_cos2(cos2))
+
+
+@array_api("deg", long_name="local bounce loss cone")
+def local_loss_cone(L, mlat_deg, altitude_km=100.0):
+    r"""Bounce loss cone at a latitude along a dipole line.
+
+    .. math:: \sin^2\alpha_{LC}(\lambda) = \frac{B(\lambda)}{B_f}
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L, at least ``1 + altitude_km / R_E``.
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude in degrees, in (-90, 90).
+    altitude_km : float or array_like
+        Altitude in km at which particles are taken as lost (default 100).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Local loss-cone half angle in degrees; 90 at and beyond the footpoint
+        latitude (every particle there is lost).
+
+    Notes
+    -----
+    Mirror-ratio condition with first-invariant mapping (Roederer 1970, ch. 1;
+    Walt 1994, ch. 4). Common practice.
+
+    Examples
+    --------
+    >>> round(local_loss_cone(4.0, 0.0, altitude_km=0.0), 3)
+    5.342
+    """
+    cos2 = _foot_cos2(L, altitude_km)
+    lam = np.deg2rad(_mlat(mlat_deg))
+    return _asin_deg(_b_ratio(lam) / _b_ratio_cos2(cos2))
+
+
+@array_api("R_E", long_name="geocentric distance")
+def radius(L, mlat_deg):
+    r"""Geocentric distance of a point on a dipole line, in Earth radii.
+
+    .. math:: r = L \cos^2\lambda
+
+    Parameters
+    ----------
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude in degrees, in (-90, 90).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Distance in R_E.
+
+    Notes
+    -----
+    Roederer (1970) eq. 1.7.
+
+    Examples
+    --------
+    >>> round(radius(4.0, 60.0), 6)
+    1.0
+    """
+    lam = np.deg2rad(_mlat(mlat_deg))
+    return _L(L) * np.cos(lam) ** 2
+
+
+@array_api("1", long_name="dipole L")
+def l_from_position(r_re, mlat_deg):
+    r"""Dipole L of the line through a point.
+
+    .. math:: L = \frac{r}{\cos^2\lambda}
+
+    Parameters
+    ----------
+    r_re : array_like or xarray.DataArray
+        Geocentric distance in Earth radii (> 0).
+    mlat_deg : array_like or xarray.DataArray
+        Magnetic latitude in degrees, in (-90, 90).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        L (dimensionless; below 1 for points inside the reference sphere near
+        the equator).
+
+    Notes
+    -----
+    Inverse of the field-line equation (Roederer 1970, eq. 1.7).
+
+    Examples
+    --------
+    >>> round(l_from_position(1.0, 60.0), 6)
+    4.0
+    """
+    r = check_range(r_re, "r_re", lo=0.0, lo_open=True,
+                    hint="r_re is the geocentric distance in Earth radii")
+    lam = np.deg2rad(_mlat(mlat_deg))
+    return r / np.cos(lam) ** 2

@@ -1,0 +1,528 @@
+r"""Particle species and relativistic kinematics from kinetic energy.
+
+Every quantity here follows from a species' rest mass and charge (CODATA
+values from :mod:`scipy.constants`) and the kinetic energy :math:`E_k` in keV:
+
+.. math::
+
+    \gamma = 1 + \frac{E_k}{m_0 c^2}, \qquad
+    \beta = \frac{\sqrt{E_k (E_k + 2 m_0 c^2)}}{E_k + m_0 c^2}, \qquad
+    p c = \sqrt{E_k (E_k + 2 m_0 c^2)}, \qquad
+    p v = \frac{E_k (E_k + 2 m_0 c^2)}{E_k + m_0 c^2}.
+
+The gyration quantities use the magnitude of the charge; the sense of gyration
+and of drift is a separate matter (:func:`beltkit.motion.drift_direction`).
+
+References
+----------
+J. D. Jackson, *Classical Electrodynamics*, 3rd ed. (Wiley, 1999), ch. 11-12
+(relativistic kinematics, motion in a uniform magnetic field).
+M. Walt, *Introduction to Geomagnetically Trapped Radiation* (Cambridge
+University Press, 1994), ch. 3 (gyration and the first adiabatic invariant).
+
+Examples
+--------
+>>> from beltkit import particles
+>>> round(particles.lorentz_factor(511.0, "electron"), 4)
+2.0
+>>> particles.get_species("O+").name
+'oxygen+'
+"""
+
+from __future__ import annotations
+
+import types
+from typing import NamedTuple
+
+import numpy as np
+import scipy.constants as _sc
+
+from ._wrap import array_api, check_range
+from .constants import GAUSS_PER_NT, KEV_J, MEV_J, NT
+from .errors import PhysicsError
+
+__all__ = [
+    "SPECIES",
+    "Species",
+    "beta",
+    "first_invariant",
+    "first_invariant_si",
+    "get_species",
+    "gyrofrequency",
+    "gyroperiod",
+    "gyroradius",
+    "lorentz_factor",
+    "momentum",
+    "pv",
+    "speed",
+]
+
+# Atomic mass of the oxygen-16 atom in unified atomic mass units.
+# From memory (Atomic Mass Evaluation AME2020: 15.994 914 619 57 u); scipy's
+# CODATA table has no isotope masses. Checked in tests/test_particles.py
+# against PlasmaPy's isotope table (`Particle("O-16 1+").mass`) and against
+# the route 8 m_p + 8 m_n + 8 m_e - (binding energy 127.619 MeV)/c^2.
+_O16_ATOM_MASS_U = 15.99491461957
+
+
+class Species(NamedTuple):
+    """A charged-particle species.
+
+    Attributes
+    ----------
+    name : str
+        Canonical name ("electron", "proton", "alpha", "oxygen+").
+    mass_kg : float
+        Rest mass in kg.
+    charge_c : float
+        Signed charge in coulombs (negative for the electron).
+    rest_energy_kev : float
+        Rest energy :math:`m_0 c^2` in keV.
+    """
+
+    name: str
+    mass_kg: float
+    charge_c: float
+    rest_energy_kev: float
+
+
+def _make(name, mass_kg, charge_number):
+    return Species(
+        name=name,
+        mass_kg=float(mass_kg),
+        charge_c=float(charge_number * _sc.elementary_charge),
+        rest_energy_kev=float(mass_kg * _sc.speed_of_light**2 / KEV_J),
+    )
+
+
+#: Known species by canonical name (read-only mapping).
+SPECIES = types.MappingProxyType(
+    {
+        "electron": _make("electron", _sc.electron_mass, -1),
+        "proton": _make("proton", _sc.proton_mass, +1),
+        # The bare helium-4 nucleus, CODATA "alpha particle mass".
+        "alpha": _make("alpha", _sc.physical_constants["alpha particle mass"][0], +2),
+        # Singly charged O-16 ion: the neutral atom's mass less one electron
+        # (the 13.6 eV ionisation energy, ~1e-9 of the mass, is neglected).
+        "oxygen+": _make(
+            "oxygen+", _O16_ATOM_MASS_U * _sc.atomic_mass - _sc.electron_mass, +1
+        ),
+    }
+)
+
+_ALIASES = {
+    "electron": "electron", "electrons": "electron", "e": "electron", "e-": "electron",
+    "proton": "proton", "protons": "proton", "p": "proton", "p+": "proton", "h+": "proton",
+    "alpha": "alpha", "alphas": "alpha", "he++": "alpha", "he2+": "alpha",
+    "alpha particle": "alpha",
+    "oxygen+": "oxygen+", "o+": "oxygen+", "o1+": "oxygen+", "oxygen": "oxygen+",
+}
+
+
+def get_species(name) -> Species:
+    """Return the :class:`Species` for a name or alias.
+
+    Parameters
+    ----------
+    name : str or Species
+        A canonical name ("electron", "proton", "alpha", "oxygen+") or an alias
+        ("e-", "p+", "H+", "He++", "O+"; case-insensitive). A :class:`Species`
+        is returned unchanged, so user-defined species can be passed anywhere.
+
+    Returns
+    -------
+    Species
+
+    Raises
+    ------
+    PhysicsError
+        If the name is unknown; the message lists the known names.
+
+    Examples
+    --------
+    >>> get_species("p+").name
+    'proton'
+    """
+    if isinstance(name, Species):
+        return name
+    key = str(name).strip().lower()
+    if key in _ALIASES:
+        return SPECIES[_ALIASES[key]]
+    known = ", ".join(repr(k) for k in SPECIES)
+    aliases = ", ".join(repr(k) for k in sorted(_ALIASES) if k not in SPECIES)
+    raise PhysicsError(
+        f"argument 'species' is {name!r}, which is not a known species; "
+        f"use one of {known} (aliases: {aliases}) or pass a beltkit.particles.Species"
+    )
+
+
+def _energy(energy_kev):
+    return check_range(energy_kev, "energy_kev", lo=0.0,
+                       hint="Kinetic energy is in keV and cannot be negative")
+
+
+def _pitch(pitch_angle_deg):
+    return check_range(pitch_angle_deg, "pitch_angle_deg", lo=0.0, hi=180.0,
+                       hint="Pitch angles are in degrees, 0-180")
+
+
+def _field(b_nt):
+    return check_range(b_nt, "b_nt", lo=0.0, lo_open=True,
+                       hint="The field magnitude is in nT and must be positive")
+
+
+def _pc_kev(e, e0):
+    """Return p c in keV for kinetic energy `e` and rest energy `e0` (keV)."""
+    return np.sqrt(e * (e + 2.0 * e0))
+
+
+@array_api("1", long_name="Lorentz factor")
+def lorentz_factor(energy_kev, species="electron"):
+    r"""Lorentz factor from kinetic energy.
+
+    .. math:: \gamma = 1 + E_k / (m_0 c^2)
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species (see :func:`get_species`).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\gamma` (dimensionless).
+
+    Notes
+    -----
+    Special relativity, e.g. Jackson (1999) section 11.5.
+
+    Examples
+    --------
+    >>> round(lorentz_factor(1000.0, "proton"), 6)
+    1.001066
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    return 1.0 + e / sp.rest_energy_kev
+
+
+@array_api("1", long_name="speed over speed of light")
+def beta(energy_kev, species="electron"):
+    r"""Speed in units of the speed of light.
+
+    .. math:: \beta = \frac{\sqrt{E_k (E_k + 2 m_0 c^2)}}{E_k + m_0 c^2}
+
+    This form keeps full relative precision at low energy (no
+    :math:`1 - 1/\gamma^2` cancellation).
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\beta = v/c` in [0, 1).
+
+    Notes
+    -----
+    Jackson (1999) section 11.5.
+
+    Examples
+    --------
+    >>> round(beta(1000.0, "electron"), 4)
+    0.9411
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    return _pc_kev(e, sp.rest_energy_kev) / (e + sp.rest_energy_kev)
+
+
+@array_api("m s-1", long_name="particle speed")
+def speed(energy_kev, species="electron"):
+    r"""Particle speed from kinetic energy.
+
+    .. math:: v = \beta c
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Speed in m/s.
+
+    Notes
+    -----
+    Jackson (1999) section 11.5; ``c`` from :mod:`scipy.constants`.
+
+    Examples
+    --------
+    >>> f"{speed(1.0, 'proton'):.4e}"
+    '4.3769e+05'
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    return _pc_kev(e, sp.rest_energy_kev) / (e + sp.rest_energy_kev) * _sc.speed_of_light
+
+
+@array_api("kg m s-1", long_name="particle momentum")
+def momentum(energy_kev, species="electron"):
+    r"""Relativistic momentum from kinetic energy.
+
+    .. math:: p = \frac{\sqrt{E_k (E_k + 2 m_0 c^2)}}{c}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Momentum in kg m/s.
+
+    Notes
+    -----
+    Jackson (1999) section 11.5.
+
+    Examples
+    --------
+    >>> f"{momentum(1000.0, 'electron'):.4e}"
+    '7.5994e-22'
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    return _pc_kev(e, sp.rest_energy_kev) * KEV_J / _sc.speed_of_light
+
+
+@array_api("keV", long_name="momentum times speed")
+def pv(energy_kev, species="electron"):
+    r"""Momentum times speed, the energy that sets gradient-curvature drifts.
+
+    .. math:: p v = \gamma m_0 v^2 = \frac{E_k (E_k + 2 m_0 c^2)}{E_k + m_0 c^2}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`p v` in keV (``2 E_k`` non-relativistically, ``E_k`` ultra-relativistically).
+
+    Notes
+    -----
+    Schulz & Lanzerotti (1974), *Particle Diffusion in the Radiation Belts*, ch. 1.
+
+    Examples
+    --------
+    >>> round(pv(511.0, "electron"), 1)
+    766.5
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    return e * (e + 2.0 * sp.rest_energy_kev) / (e + sp.rest_energy_kev)
+
+
+def _gyrofrequency(b_nt, energy_kev, sp):
+    e = _energy(energy_kev)
+    b = _field(b_nt)
+    gamma = 1.0 + e / sp.rest_energy_kev
+    return abs(sp.charge_c) * b * NT / (2.0 * np.pi * gamma * sp.mass_kg)
+
+
+@array_api("Hz", long_name="relativistic gyrofrequency")
+def gyrofrequency(b_nt, energy_kev, species="electron"):
+    r"""Relativistic gyrofrequency (cycles per second).
+
+    .. math:: f_g = \frac{|q| B}{2 \pi \gamma m_0}
+
+    Parameters
+    ----------
+    b_nt : array_like or xarray.DataArray
+        Field magnitude in nT (> 0).
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Gyrofrequency in Hz (not rad/s).
+
+    Notes
+    -----
+    Jackson (1999) section 12.2; Walt (1994) ch. 3.
+
+    Examples
+    --------
+    >>> round(gyrofrequency(1000.0, 0.0, "electron"), 1)
+    27992.5
+    """
+    return _gyrofrequency(b_nt, energy_kev, get_species(species))
+
+
+@array_api("s", long_name="gyroperiod")
+def gyroperiod(b_nt, energy_kev, species="electron"):
+    r"""Relativistic gyroperiod.
+
+    .. math:: \tau_g = \frac{2 \pi \gamma m_0}{|q| B}
+
+    Parameters
+    ----------
+    b_nt : array_like or xarray.DataArray
+        Field magnitude in nT (> 0).
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Gyroperiod in s.
+
+    Notes
+    -----
+    Jackson (1999) section 12.2.
+
+    Examples
+    --------
+    >>> f"{gyroperiod(100.0, 1000.0, 'proton'):.4f}"
+    '0.6566'
+    """
+    return 1.0 / _gyrofrequency(b_nt, energy_kev, get_species(species))
+
+
+@array_api("km", long_name="gyroradius")
+def gyroradius(b_nt, energy_kev, pitch_angle_deg=90.0, species="electron"):
+    r"""Relativistic gyroradius.
+
+    .. math:: r_g = \frac{p \sin\alpha}{|q| B}
+
+    Parameters
+    ----------
+    b_nt : array_like or xarray.DataArray
+        Field magnitude in nT (> 0).
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    pitch_angle_deg : array_like or xarray.DataArray
+        Local pitch angle in degrees, 0-180 (default 90).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Gyroradius in km.
+
+    Notes
+    -----
+    Jackson (1999) section 12.2; Walt (1994) ch. 3.
+
+    Examples
+    --------
+    >>> round(gyroradius(100.0, 1000.0, 90.0, "electron"), 2)
+    47.43
+    """
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    b = _field(b_nt)
+    a = _pitch(pitch_angle_deg)
+    p = _pc_kev(e, sp.rest_energy_kev) * KEV_J / _sc.speed_of_light
+    return p * np.sin(np.deg2rad(a)) / (abs(sp.charge_c) * b * NT) / 1e3
+
+
+def _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, sp):
+    e = _energy(energy_kev)
+    a = _pitch(pitch_angle_deg)
+    b = _field(b_nt)
+    pc_mev = _pc_kev(e, sp.rest_energy_kev) * 1e-3
+    pperp2 = (pc_mev * np.sin(np.deg2rad(a))) ** 2
+    return pperp2 / (2.0 * sp.rest_energy_kev * 1e-3 * b * GAUSS_PER_NT)
+
+
+@array_api("MeV G-1", long_name="first adiabatic invariant")
+def first_invariant(energy_kev, pitch_angle_deg, b_nt, species="electron"):
+    r"""Relativistic first adiabatic invariant in MeV/G, the unit the trade quotes.
+
+    .. math:: \mu = \frac{p_\perp^2}{2 m_0 B} = \frac{(p c)^2 \sin^2\alpha}{2\, m_0 c^2\, B}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    pitch_angle_deg : array_like or xarray.DataArray
+        Local pitch angle in degrees, 0-180.
+    b_nt : array_like or xarray.DataArray
+        Local field magnitude in nT (> 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\mu` in MeV/G.
+
+    Notes
+    -----
+    Walt (1994) ch. 3; Roederer (1970), *Dynamics of Geomagnetically Trapped
+    Radiation*, ch. 1. Same quantity as :func:`first_invariant_si`, in other units.
+
+    Examples
+    --------
+    >>> round(first_invariant(1000.0, 90.0, 100.0, "electron"), 1)
+    1978.5
+    """
+    return _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, get_species(species))
+
+
+@array_api("J T-1", long_name="first adiabatic invariant")
+def first_invariant_si(energy_kev, pitch_angle_deg, b_nt, species="electron"):
+    r"""Relativistic first adiabatic invariant in SI units (J/T).
+
+    .. math:: \mu = \frac{p_\perp^2}{2 m_0 B}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    pitch_angle_deg : array_like or xarray.DataArray
+        Local pitch angle in degrees, 0-180.
+    b_nt : array_like or xarray.DataArray
+        Local field magnitude in nT (> 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`\mu` in J/T (1 MeV/G = 1.602e-9 J/T).
+
+    Notes
+    -----
+    Walt (1994) ch. 3.
+
+    Examples
+    --------
+    >>> f"{first_invariant_si(1000.0, 90.0, 100.0, 'electron'):.4e}"
+    '3.1699e-06'
+    """
+    mu = _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, get_species(species))
+    return mu * MEV_J / 1e-4  # MeV -> J, per gauss -> per tesla (1 G = 1e-4 T)
