@@ -1,0 +1,811 @@
+"""Many flux files to loss-cone summaries, and summaries to a binned survey.
+
+:func:`summarize` turns every input flux file into one summary file
+(``<stem>.summary.nc``: the outputs of :func:`beltkit.pad.partition` per time
+and energy, with the position carried along) in an output folder, and appends
+one JSON line per file to ``run-report.jsonl`` there. It is safe to stop and
+rerun:
+
+* inputs are opened read-only and never written;
+* each output is written to a temporary file in the output folder and renamed
+  into place only when complete; temporary files left by a killed run are
+  removed when the next run starts;
+* an output whose recorded input checksum (SHA-256) and settings match the
+  present ones is skipped as up to date; any other is redone
+  (``overwrite=True`` redoes all);
+* one bad file is reported (status ``"failed"`` with a one-line reason) and
+  the others go on, unless ``fail_fast=True``.
+
+Files run one after another in this process (``workers=1``), in parallel in
+``workers`` local processes, or as tasks on an existing dask.distributed
+cluster (``scheduler=`` address or Client). Each file is one task, computed
+with dask's synchronous scheduler inside that task, so the result does not
+depend on where it ran; the file itself is streamed in chunks along ``time``,
+so memory does not grow with its length.
+
+:func:`survey` bins the summaries' fractions and integrated fluxes onto an
+L x MLT (x time-window) grid and writes count, mean, median, standard
+deviation and interquartile range per cell and energy, as CF-1.8 netCDF with
+bounds for every binned coordinate.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import glob
+import json
+import os
+import sys
+import threading
+import time as _time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from . import __version__
+from .errors import BeltkitError, ConventionError
+from .io import (
+    load_mapping,
+    open_flux,
+    read_attributes,
+    remove_stale_temporaries,
+    sha256,
+    write_dataset,
+)
+
+__all__ = [
+    "FileResult",
+    "SUMMARY_SUFFIX",
+    "REPORT_NAME",
+    "SURVEY_VARIABLES",
+    "SurveyError",
+    "expand_inputs",
+    "one_line",
+    "summarize",
+    "summarize_dataset",
+    "survey",
+]
+
+#: Suffix of summary files (the input's stem goes in front).
+SUMMARY_SUFFIX = ".summary.nc"
+#: Name of the run report written beside the outputs.
+REPORT_NAME = "run-report.jsonl"
+#: Variables of a summary that :func:`survey` bins (those present are used).
+SURVEY_VARIABLES = (
+    "fraction_precipitating",
+    "fraction_quasi_trapped",
+    "fraction_trapped",
+    "flux_precipitating",
+    "flux_quasi_trapped",
+    "flux_trapped",
+    "omni_flux",
+    "loss_cone_filling",
+)
+_INPUT_SUFFIXES = (".nc", ".nc4", ".cdf", ".h5", ".hdf5")
+_TIME_CHUNK = 16384
+_POSITION = ("L", "mlat", "mlt")
+
+
+class SurveyError(BeltkitError, ValueError):
+    """Summaries that cannot be surveyed; ``problems`` holds one line per file."""
+
+    def __init__(self, problems):
+        self.problems = list(problems)
+        super().__init__("; ".join(self.problems))
+
+
+@dataclass
+class FileResult:
+    """What happened to one input file.
+
+    Attributes
+    ----------
+    input : str
+        The input path.
+    output : str or None
+        The summary path (None when no output name could be formed).
+    status : str
+        ``"ok"`` (written), ``"skipped"`` (up to date, or not attempted after
+        an earlier failure with ``fail_fast``) or ``"failed"``.
+    reason : str
+        One line: why it failed or was skipped; empty when ok.
+    seconds : float
+        Wall time spent on the file.
+    """
+
+    input: str
+    output: str | None
+    status: str
+    reason: str = ""
+    seconds: float = 0.0
+
+    def to_dict(self) -> dict:
+        """Return the result as a JSON-ready dict (``file`` is the input)."""
+        d = asdict(self)
+        d["file"] = d.pop("input")
+        d["seconds"] = round(float(d["seconds"]), 3)
+        return d
+
+
+# ------------------------------------------------------------------------ helpers
+
+
+def one_line(exc: BaseException) -> str:
+    """Return an exception as one line of text (problems joined by ``; ``)."""
+    if isinstance(exc, ConventionError):
+        text = "; ".join(exc.problems) or str(exc)
+    else:
+        text = str(exc) or type(exc).__name__
+    text = " ".join(text.split())
+    if isinstance(exc, (KeyError, TypeError, AttributeError, IndexError, ZeroDivisionError)):
+        text = f"{type(exc).__name__}: {text}"
+    return text
+
+
+def expand_inputs(inputs, *, suffixes=_INPUT_SUFFIXES) -> list[Path]:
+    """Expand files, folders and glob patterns into a sorted, de-duplicated list of files.
+
+    A folder contributes its files with one of `suffixes` (not hidden ones,
+    not summaries); a pattern with ``*``, ``?`` or ``[`` is globbed; any other
+    entry is kept as given (a missing file then fails on its own line).
+    """
+    if isinstance(inputs, (str, os.PathLike)):
+        inputs = [inputs]
+    seen, out = set(), []
+    for item in inputs:
+        text = str(item)
+        if any(ch in text for ch in "*?["):
+            found = [Path(p) for p in sorted(glob.glob(text))]
+        elif Path(text).is_dir():
+            found = sorted(
+                p for p in Path(text).iterdir()
+                if p.is_file() and not p.name.startswith(".") and p.suffix.lower() in suffixes
+                and not p.name.endswith(SUMMARY_SUFFIX)
+            )
+        else:
+            found = [Path(text)]
+        for p in found:
+            key = os.path.abspath(p)
+            if key not in seen:
+                seen.add(key)
+                out.append(p)
+    return out
+
+
+def _output_name(path: Path) -> str:
+    name = path.name
+    for suffix in (".nc4", ".nc", ".cdf", ".hdf5", ".h5"):
+        if name.lower().endswith(suffix):
+            name = name[: -len(suffix)]
+            break
+    else:
+        name = path.stem
+    return name + SUMMARY_SUFFIX
+
+
+_sync_lock = threading.Lock()
+_sync_depth = 0
+_sync_saved = None
+
+
+@contextlib.contextmanager
+def _single_threaded():
+    """Run dask computations in this block with the synchronous scheduler.
+
+    Safe when several threads of one process (a threaded dask.distributed
+    worker) enter at once: the setting is made by the first and undone by
+    the last.
+    """
+    import dask
+
+    global _sync_depth, _sync_saved
+    with _sync_lock:
+        if _sync_depth == 0:
+            _sync_saved = dask.config.set(scheduler="synchronous")
+        _sync_depth += 1
+    try:
+        yield
+    finally:
+        with _sync_lock:
+            _sync_depth -= 1
+            if _sync_depth == 0:
+                _sync_saved.__exit__(None, None, None)
+                _sync_saved = None
+
+
+def _field_model(field, epoch, ds):
+    """Return the ``model`` argument for :func:`beltkit.pad.partition`."""
+    name = field if isinstance(field, str) else getattr(field, "name", None)
+    if not isinstance(field, str):
+        return field
+    if name not in ("dipole", "igrf"):
+        raise ValueError(f"field model must be 'dipole' or 'igrf', got {field!r}")
+    if name == "dipole":
+        if epoch is None or "position_geo" not in ds.variables:
+            # closed forms from L and mlat; the dipole's strength cancels in the loss cones
+            return "dipole"
+        from .field import CenteredDipole
+
+        return CenteredDipole(epoch=epoch)
+    if epoch is not None:
+        raise ValueError("an epoch override applies to the dipole model only; the IGRF is "
+                         "evaluated at each sample's time (drop --epoch, or use --field dipole)")
+    from .field import as_model
+
+    return as_model("igrf")
+
+
+def _epoch_text(field, epoch) -> str:
+    if epoch is not None:
+        return str(epoch)
+    if field == "igrf":
+        return "time of each sample"
+    from .constants import B0_EPOCH
+
+    return f"{B0_EPOCH:g} (default dipole of beltkit.constants)"
+
+
+def _settings(field, altitude_km, epoch, mapping, compress) -> dict:
+    if mapping is None:
+        mapping_key = None
+    elif isinstance(mapping, dict):
+        mapping_key = {k: mapping.get(k, {}) for k in ("variables", "units", "dimensions")}
+    else:
+        mapping_key = sha256(mapping)
+    return {
+        "field": field if isinstance(field, str) else getattr(field, "name", repr(field)),
+        "altitude_km": float(altitude_km),
+        "epoch": None if epoch is None else str(epoch),
+        "mapping": mapping_key,
+        "compress": int(4 if compress is True else 0 if not compress else compress),
+        "beltkit_version": __version__,
+    }
+
+
+def _settings_text(settings: dict) -> str:
+    return json.dumps(settings, sort_keys=True, separators=(",", ":"))
+
+
+# ---------------------------------------------------------------------- one file
+
+
+def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
+                      epoch=None) -> xr.Dataset:
+    """Partition one flux dataset and keep the position for the survey.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Convention-following flux dataset (lazy or not; not modified).
+    field : {"dipole", "igrf"} or FieldModel
+        Field model for the loss cones.
+    altitude_km : float
+        Footpoint altitude of the loss cones.
+    epoch : float or str, optional
+        Epoch of the dipole (decimal year); used when the dataset gives its
+        position in GEO coordinates.
+
+    Returns
+    -------
+    xarray.Dataset
+        :func:`beltkit.pad.partition`'s result plus ``L``, ``mlat`` and ``mlt``
+        per time when the input has them.
+    """
+    from . import pad
+
+    model = _field_model(field, epoch, ds)
+    out = pad.partition(ds, model=model, altitude_km=altitude_km)
+    for name in _POSITION:
+        if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
+            out[name] = ds[name]
+    return out
+
+
+def _summary_attrs(source: Path, digest: str, settings: dict, field, epoch) -> dict:
+    return {
+        "title": f"beltkit loss-cone summary of {source.name}",
+        "source": source.name,
+        "source_sha256": digest,
+        "beltkit_version": __version__,
+        "field_model": settings["field"],
+        "field_epoch": _epoch_text(settings["field"], epoch),
+        "footpoint_altitude_km": float(settings["altitude_km"]),
+        "beltkit_settings": _settings_text(settings),
+        "comment": "precipitating / quasi-trapped / trapped populations as defined in "
+                   "beltkit's docs/conventions.md (bounce and drift loss cones)",
+    }
+
+
+def _process_file(task: dict) -> FileResult:
+    """Summarize one file (runs in this process, a worker process or a dask worker)."""
+    t0 = _time.perf_counter()
+    src = Path(task["input"])
+    out = Path(task["output"])
+    settings = task["settings"]
+    ds = None
+    try:
+        digest = sha256(src) if src.is_file() else None
+        if digest is None:
+            raise FileNotFoundError(f"{src}: no such file")
+        if not task["overwrite"] and out.exists():
+            attrs = read_attributes(out)
+            if (attrs.get("source_sha256") == digest
+                    and attrs.get("beltkit_settings") == _settings_text(settings)):
+                return FileResult(str(src), str(out), "skipped", "up to date",
+                                  _time.perf_counter() - t0)
+        with _single_threaded():
+            ds = open_flux(src, mapping=task["mapping"], chunks={"time": _TIME_CHUNK})
+            summary = summarize_dataset(ds, field=task["field"],
+                                        altitude_km=settings["altitude_km"],
+                                        epoch=task["epoch"])
+            write_dataset(summary, out, compress=settings["compress"],
+                          history=task["command"],
+                          attrs=_summary_attrs(src, digest, settings, task["field"],
+                                               task["epoch"]))
+        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0)
+    except Exception as exc:  # one file's failure is reported, never fatal to the run
+        if task.get("debug"):
+            import traceback
+
+            traceback.print_exc()
+        return FileResult(str(src), str(out), "failed", one_line(exc),
+                          _time.perf_counter() - t0)
+    finally:
+        if ds is not None:
+            ds.close()
+
+
+# --------------------------------------------------------------------- many files
+
+
+def _default_command(inputs, out_dir, **options) -> str:
+    shown = ", ".join(f"{k}={v!r}" for k, v in options.items())
+    return f"beltkit.batch.summarize({len(inputs)} file(s), {str(out_dir)!r}, {shown})"
+
+
+def _format_line(r: FileResult) -> str:
+    if r.status == "ok":
+        return f"ok  {r.input} -> {r.output} ({r.seconds:.1f} s)"
+    if r.status == "skipped":
+        return f"skipped  {r.input}: {r.reason}"
+    return f"FAILED  {r.input}: {r.reason}"
+
+
+def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
+              mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
+              scheduler=None, command=None, log=None, progress=None,
+              debug=False) -> list[FileResult]:
+    """Summarize flux files into loss-cone summary files, safely and resumably.
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Files, folders (their ``.nc``/``.cdf`` files) or glob patterns.
+    out_dir : str or path
+        Output folder (created if needed); gets ``<stem>.summary.nc`` per input
+        and ``run-report.jsonl``.
+    field : {"dipole", "igrf"}
+        Field model of the loss cones.
+    altitude_km : float
+        Footpoint altitude of the loss cones (km).
+    epoch : float or str, optional
+        Dipole epoch override (decimal year), used for GEO positions.
+    mapping : str, path or dict, optional
+        Variable-name mapping for non-conventional files (see :mod:`beltkit.io`).
+    compress : bool or int
+        zlib compression of the outputs (True = level 4, 0/False = none).
+    overwrite : bool
+        Redo every output even if up to date.
+    fail_fast : bool
+        Stop at the first failed file (files not yet started are reported as
+        skipped, "not attempted").
+    workers : int
+        Local worker processes (1: in this process).
+    scheduler : str or distributed.Client, optional
+        Address of a running dask.distributed scheduler (or a Client); each
+        file becomes one task there.
+    command : str, optional
+        Command line recorded in the outputs' ``history``.
+    log : callable, optional
+        Called with one line per file (``ok  in -> out (1.2 s)``,
+        ``skipped  in: up to date``, ``FAILED  in: reason``).
+    progress : bool, optional
+        Show a tqdm progress bar on stderr (default: when stderr is a terminal).
+    debug : bool
+        Print the traceback of each failure to stderr.
+
+    Returns
+    -------
+    list of FileResult
+        One per input, in input order.
+
+    Raises
+    ------
+    beltkit.io.MappingError
+        If the mapping file itself is malformed (nothing is run).
+    """
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    if workers is None or int(workers) < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    settings = _settings(field, altitude_km, epoch, mapping, compress)
+    if command is None:
+        command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
+                                   epoch=epoch, overwrite=overwrite)
+    tasks, results = [], {}
+    by_output = {}
+    for i, src in enumerate(files):
+        target = out_dir / _output_name(src)
+        key = os.path.abspath(target)
+        if key in by_output:
+            results[i] = FileResult(str(src), str(target), "failed",
+                                    f"its output name {target.name} is also the output of "
+                                    f"{files[by_output[key]]}; rename one of the inputs")
+            continue
+        by_output[key] = i
+        tasks.append((i, {"input": str(src), "output": str(target), "settings": settings,
+                          "field": field, "epoch": epoch, "mapping": mapping_checked,
+                          "overwrite": bool(overwrite), "command": command,
+                          "debug": bool(debug)}))
+    started = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    report = out_dir / "run-report.jsonl"
+    if progress is None:
+        progress = sys.stderr.isatty()
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(files), file=sys.stderr, unit="file", desc="summarize")
+
+    def emit(r: FileResult):
+        with open(report, "a", encoding="utf-8") as fh:
+            fh.write(json.dumps({"run_started": started, **r.to_dict()}) + "\n")
+        if log is not None:
+            if bar is not None:
+                bar.clear()
+            log(_format_line(r))
+        if bar is not None:
+            bar.update(1)
+
+    for r in results.values():
+        emit(r)
+    stop = fail_fast and any(r.status == "failed" for r in results.values())
+    try:
+        if stop:
+            pass
+        elif scheduler is not None:
+            _run_distributed(tasks, results, scheduler, fail_fast, emit)
+        elif int(workers) > 1:
+            _run_processes(tasks, results, int(workers), fail_fast, emit)
+        else:
+            for i, task in tasks:
+                r = _process_file(task)
+                results[i] = r
+                emit(r)
+                if fail_fast and r.status == "failed":
+                    break
+    finally:
+        for i, task in tasks:
+            if i not in results:
+                r = FileResult(task["input"], task["output"], "skipped",
+                               "not attempted: an earlier file failed (fail-fast)")
+                results[i] = r
+                emit(r)
+        if bar is not None:
+            bar.close()
+    return [results[i] for i in sorted(results)]
+
+
+def _run_processes(tasks, results, workers, fail_fast, emit):
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    ctx = mp.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        futures = {pool.submit(_process_file, task): i for i, task in tasks}
+        for fut in as_completed(futures):
+            i = futures[fut]
+            try:
+                r = fut.result()
+            except Exception as exc:  # a worker died (killed, out of memory)
+                task = dict(tasks)[i]
+                r = FileResult(task["input"], task["output"], "failed",
+                               f"worker process failed: {one_line(exc)}")
+            results[i] = r
+            emit(r)
+            if fail_fast and r.status == "failed":
+                for other in futures:
+                    other.cancel()
+                break
+
+
+def _run_distributed(tasks, results, scheduler, fail_fast, emit):
+    from distributed import Client, as_completed
+
+    own = not isinstance(scheduler, Client)
+    client = Client(scheduler) if own else scheduler
+    try:
+        futures = {}
+        for i, task in tasks:
+            fut = client.submit(_process_file, task, pure=False,
+                                key=f"beltkit-summarize-{i}-{os.getpid()}-{_time.time_ns()}")
+            futures[fut] = i
+        for fut in as_completed(list(futures)):
+            i = futures[fut]
+            try:
+                r = fut.result()
+            except Exception as exc:  # the task itself died on the cluster
+                task = dict(tasks)[i]
+                r = FileResult(task["input"], task["output"], "failed",
+                               f"cluster task failed: {one_line(exc)}")
+            results[i] = r
+            emit(r)
+            if fail_fast and r.status == "failed":
+                client.cancel([f for f in futures if futures[f] not in results])
+                break
+    finally:
+        if own:
+            client.close()
+
+
+# ------------------------------------------------------------------------- survey
+
+
+def _edges(values, default, name):
+    edges = np.asarray(default if values is None else values, dtype=float)
+    if edges.ndim != 1 or edges.size < 2 or not np.all(np.diff(edges) > 0):
+        raise ValueError(f"{name} must be at least two strictly increasing bin edges, "
+                         f"got {values!r}")
+    return edges
+
+
+def _window_ns(time_window):
+    if time_window is None:
+        return None
+    import pandas as pd
+
+    try:
+        w = pd.to_timedelta(time_window)
+    except (ValueError, TypeError) as exc:
+        raise ValueError(f"time_window {time_window!r} is not a duration (e.g. '1D', '6h', "
+                         f"'90min')") from exc
+    if w <= pd.Timedelta(0):
+        raise ValueError(f"time_window must be positive, got {time_window!r}")
+    return int(w.value)
+
+
+def _grouped_stats(cell, values, n_cells):
+    """Count, mean, median, std (ddof=1), IQR per cell; NaN where a cell has too few."""
+    count = np.bincount(cell, minlength=n_cells)
+    total = np.bincount(cell, weights=values, minlength=n_cells)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = total / count
+        dev2 = np.bincount(cell, weights=(values - mean[cell]) ** 2, minlength=n_cells)
+        std = np.sqrt(dev2 / (count - 1))
+    std[count < 2] = np.nan
+    order = np.lexsort((values, cell))
+    sorted_v = values[order]
+    start = np.concatenate([[0], np.cumsum(count)[:-1]])
+
+    def quantile(q):
+        pos = start + (count - 1) * q
+        lo = np.floor(pos).astype(np.int64)
+        hi = np.ceil(pos).astype(np.int64)
+        ok = count > 0
+        res = np.full(n_cells, np.nan)
+        frac = pos[ok] - lo[ok]
+        res[ok] = sorted_v[lo[ok]] * (1 - frac) + sorted_v[hi[ok]] * frac
+        return res
+
+    median = quantile(0.5)
+    iqr = quantile(0.75) - quantile(0.25)
+    return count, mean, median, std, iqr
+
+
+def _read_summary(path: Path, names):
+    with xr.open_dataset(path, engine="netcdf4", chunks=None) as ds:
+        problems = [f"has no {v}" for v in ("L", "mlt") if v not in ds.variables]
+        if "energy" not in ds.dims:
+            problems.append("has no energy dimension")
+        if problems:
+            raise ValueError(", ".join(problems) + " (is it a beltkit summary file?)")
+        present = [n for n in names if n in ds.variables]
+        info = {
+            "time": ds["time"].values.astype("datetime64[ns]"),
+            "L": ds["L"].values.astype(float),
+            "mlt": ds["mlt"].values.astype(float),
+            "energy": ds["energy"].values.astype(float),
+            "energy_attrs": dict(ds["energy"].attrs),
+            "energy_bnds": (ds["energy_bnds"].values if "energy_bnds" in ds.variables
+                            else None),
+            "vars": {n: ds[n].transpose("time", "energy").values.astype(float)
+                     for n in present if set(ds[n].dims) == {"time", "energy"}},
+            "attrs": {n: dict(ds[n].attrs) for n in present},
+            "global": dict(ds.attrs),
+        }
+    return info
+
+
+def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=None,
+           compress=True, command=None) -> Path:
+    """Bin summaries onto an L x MLT (x time-window) grid and write the survey file.
+
+    Parameters
+    ----------
+    summaries : str, path or sequence of them
+        Summary files, folders (their ``*.summary.nc``) or glob patterns.
+    out_file : str or path
+        The survey netCDF file to write (atomically).
+    l_edges : array_like, optional
+        L bin edges (default 1 to 8 in steps of 0.5). Samples outside are dropped.
+    mlt_edges : array_like, optional
+        MLT bin edges in hours within 0-24 (default hourly).
+    time_window : str or timedelta, optional
+        Length of the time windows (``"1D"``, ``"6h"``; windows aligned on
+        1970-01-01 UTC). None: one window spanning all samples.
+    compress : bool or int
+        zlib compression.
+    command : str, optional
+        Command line recorded in ``history``.
+
+    Returns
+    -------
+    pathlib.Path
+        `out_file`.
+
+    Raises
+    ------
+    SurveyError
+        If any summary cannot be read or does not match the others (energies,
+        field model, footpoint altitude); every bad file is listed and nothing
+        is written.
+
+    Notes
+    -----
+    For each variable ``v`` of :data:`SURVEY_VARIABLES` present in the
+    summaries, the survey holds ``v_count``, ``v_mean``, ``v_median``,
+    ``v_std`` (sample standard deviation) and ``v_iqr`` (75th minus 25th
+    percentile, linear interpolation), dims ``(time, energy, L, mlt)``. Only
+    finite values count. The statistics are exact, so all binned values are
+    held in memory at once (16 bytes per finite value).
+    """
+    l_edges = _edges(l_edges, np.arange(1.0, 8.01, 0.5), "l_edges")
+    mlt_edges = _edges(mlt_edges, np.arange(0.0, 24.01, 1.0), "mlt_edges")
+    if mlt_edges[0] < 0 or mlt_edges[-1] > 24:
+        raise ValueError(f"mlt_edges must lie within 0-24 h, got {mlt_edges[0]}-{mlt_edges[-1]}")
+    w_ns = _window_ns(time_window)
+    if isinstance(summaries, (str, os.PathLike)):
+        summaries = [summaries]
+    files = []
+    for item in summaries:
+        if Path(str(item)).is_dir():
+            files += sorted(Path(str(item)).glob("*" + SUMMARY_SUFFIX))
+        else:
+            files += expand_inputs([item])
+    if not files:
+        raise SurveyError(["no summary files given (or the folder holds none)"])
+    problems, infos = [], []
+    for p in files:
+        try:
+            infos.append((p, _read_summary(p, SURVEY_VARIABLES)))
+        except Exception as exc:  # every bad file is listed, then the survey is refused
+            problems.append(f"{p}: {one_line(exc)}")
+    if infos:
+        ref_path, ref = infos[0]
+        for p, info in infos[1:]:
+            if info["energy"].shape != ref["energy"].shape or not np.allclose(
+                    info["energy"], ref["energy"], rtol=1e-6):
+                problems.append(f"{p}: its energies differ from those of {ref_path}; survey "
+                                f"files of one instrument setting at a time")
+            for key in ("field_model", "footpoint_altitude_km"):
+                if str(info["global"].get(key)) != str(ref["global"].get(key)):
+                    problems.append(f"{p}: {key} {info['global'].get(key)!r} differs from "
+                                    f"{ref['global'].get(key)!r} in {ref_path}")
+        names = [n for n in SURVEY_VARIABLES if all(n in i["vars"] for _, i in infos)]
+        if not names:
+            problems.append("the summaries share none of the variables "
+                            + ", ".join(SURVEY_VARIABLES))
+    if problems:
+        raise SurveyError(problems)
+
+    n_e = ref["energy"].size
+    n_l, n_m = l_edges.size - 1, mlt_edges.size - 1
+    all_t = np.concatenate([i["time"] for _, i in infos]).astype("int64")
+    if w_ns is None:
+        t_lo, t_hi = int(all_t.min()), int(all_t.max())
+        win_starts = np.array([t_lo])
+        win_ends = np.array([max(t_hi, t_lo + 1)])
+    else:
+        idx = np.unique(all_t // w_ns)
+        win_starts = idx * w_ns
+        win_ends = win_starts + w_ns
+    n_t = win_starts.size
+    n_cells = n_t * n_e * n_l * n_m
+    cells = {n: [] for n in names}
+    values = {n: [] for n in names}
+    for _, info in infos:
+        t = info["time"].astype("int64")
+        it = (np.zeros(t.size, dtype=np.int64) if w_ns is None
+              else np.searchsorted(win_starts, (t // w_ns) * w_ns))
+        iL = np.searchsorted(l_edges, info["L"], side="right") - 1
+        iL[info["L"] == l_edges[-1]] = n_l - 1
+        mlt = info["mlt"]
+        iM = np.searchsorted(mlt_edges, mlt, side="right") - 1
+        iM[mlt == mlt_edges[-1]] = n_m - 1
+        ok = (iL >= 0) & (iL < n_l) & (iM >= 0) & (iM < n_m) & np.isfinite(info["L"]) \
+            & np.isfinite(mlt)
+        base = ((it * n_e)[:, None] + np.arange(n_e)[None, :]) * n_l
+        cell = (base + iL[:, None]) * n_m + iM[:, None]
+        for n in names:
+            v = info["vars"][n]
+            good = ok[:, None] & np.isfinite(v)
+            cells[n].append(cell[good])
+            values[n].append(v[good])
+
+    mid_l = 0.5 * (l_edges[:-1] + l_edges[1:])
+    mid_m = 0.5 * (mlt_edges[:-1] + mlt_edges[1:])
+    t_mid = (win_starts + (win_ends - win_starts) // 2).astype("datetime64[ns]")
+    t_bnds = np.stack([win_starts, win_ends], -1).astype("datetime64[ns]")
+    dims = ("time", "energy", "L", "mlt")
+    shape = (n_t, n_e, n_l, n_m)
+    data_vars = {
+        "time_bnds": (("time", "nv"), t_bnds),
+        "L_bnds": (("L", "nv"), np.stack([l_edges[:-1], l_edges[1:]], -1), {"units": "1"}),
+        "mlt_bnds": (("mlt", "nv"), np.stack([mlt_edges[:-1], mlt_edges[1:]], -1),
+                     {"units": "h"}),
+    }
+    energy_attrs = {k: v for k, v in ref["energy_attrs"].items()
+                    if k in ("units", "long_name", "standard_name")}
+    energy_attrs.setdefault("units", "keV")
+    energy_attrs.setdefault("long_name", "kinetic energy")
+    if ref["energy_bnds"] is not None and np.shape(ref["energy_bnds"]) == (n_e, 2):
+        data_vars["energy_bnds"] = (("energy", "nv"), np.asarray(ref["energy_bnds"], float),
+                                    {"units": energy_attrs["units"]})
+        energy_attrs["bounds"] = "energy_bnds"
+    methods = "time: L: mlt:"
+    for n in names:
+        count, mean, median, std, iqr = _grouped_stats(
+            np.concatenate(cells[n]).astype(np.int64), np.concatenate(values[n]), n_cells)
+        units = str(infos[0][1]["attrs"][n].get("units", "1"))
+        label = infos[0][1]["attrs"][n].get("long_name", n.replace("_", " "))
+        data_vars[f"{n}_count"] = (dims, count.reshape(shape).astype(np.int32),
+                                   {"units": "1",
+                                    "long_name": f"number of finite samples of {label}"})
+        for stat, arr, text, method in (
+                ("mean", mean, "mean", "mean"), ("median", median, "median", "median"),
+                ("std", std, "sample standard deviation", "standard_deviation"),
+                ("iqr", iqr, "interquartile range (75th - 25th percentile)", None)):
+            attrs = {"units": units, "long_name": f"{text} of {label} per cell"}
+            if method:
+                attrs["cell_methods"] = f"{methods} {method}"
+            data_vars[f"{n}_{stat}"] = (dims, arr.reshape(shape), attrs)
+    coords = {
+        "time": ("time", t_mid, {"standard_name": "time", "long_name": "time window centre",
+                                 "bounds": "time_bnds"}),
+        "energy": ("energy", ref["energy"], energy_attrs),
+        "L": ("L", mid_l, {"units": "1", "long_name": "L-shell bin centre",
+                           "bounds": "L_bnds"}),
+        "mlt": ("mlt", mid_m, {"units": "h", "long_name": "magnetic local time bin centre",
+                               "bounds": "mlt_bnds"}),
+    }
+    g = ref["global"]
+    attrs = {
+        "title": "beltkit survey: loss-cone populations binned by L, MLT and time",
+        "source": ", ".join(p.name for p, _ in infos),
+        "source_sha256": json.dumps({p.name: sha256(p) for p, _ in infos}),
+        "beltkit_version": __version__,
+        "field_model": g.get("field_model", "unknown"),
+        "field_epoch": g.get("field_epoch", "unknown"),
+        "footpoint_altitude_km": g.get("footpoint_altitude_km", np.nan),
+        "time_window": "all samples" if time_window is None else str(time_window),
+    }
+    ds = xr.Dataset(data_vars, coords=coords, attrs=attrs)
+    if command is None:
+        command = f"beltkit.batch.survey({len(infos)} file(s), {str(out_file)!r})"
+    return write_dataset(ds, out_file, compress=compress, history=command, time_chunk=64)
