@@ -90,6 +90,7 @@ MAPPING_NAMES = (
     "flux",
     "flux_err",
     "counts",
+    "counts_to_flux",
     "energy",
     "energy_bnds",
     "pitch_angle",
@@ -280,12 +281,11 @@ def apply_mapping(ds: xr.Dataset, mapping, *, source=None) -> xr.Dataset:
     out = ds.copy()
     if dim_renames:
         out = out.rename_dims(dim_renames)
-    if var_renames:
-        out = out.rename_vars(var_renames)
-        # a renamed 1-D variable whose dimension carries its old name becomes the index
-        for old, new in var_renames.items():
-            if old in out.dims and out[new].dims == (old,):
-                out = out.swap_dims({old: new})
+    for old, new in var_renames.items():
+        if old in out.dims and out[old].dims == (old,):
+            out = out.rename({old: new})  # a dimension coordinate: rename its dimension too
+        else:
+            out = out.rename_vars({old: new})
     for name, unit in m["units"].items():
         out.variables[name].attrs = {**out.variables[name].attrs, "units": unit}
     return out

@@ -14,7 +14,7 @@ Layout (see docs/conventions.md)::
     pitch_angle  deg, bin centres, bounds pitch_angle_bnds (pitch_angle, nv), 0-180
     flux      (time, energy, pitch_angle) cm-2 s-1 sr-1 keV-1, float32
     flux_err  same units, from the Poisson counts
-    counts    (time, energy, pitch_angle) counts
+    counts    (time, energy, pitch_angle) counts; counts_to_flux (energy,) flux per count
     L         (time,) 1        mlat (time,) degrees_north-like deg     mlt (time,) h
 """
 
@@ -82,6 +82,8 @@ def flux_dataset(n_time=120, n_energy=4, n_pitch=12, *, start="2026-03-01T00:00:
                          {"units": FLUX_UNITS, "long_name": "flux uncertainty (1 sigma)"}),
             "counts": (("time", "energy", "pitch_angle"), counts.astype("int32"),
                        {"units": "1", "long_name": "detector counts per sample"}),
+            "counts_to_flux": ("energy", factor,
+                               {"units": FLUX_UNITS, "long_name": "flux per count"}),
             "energy_bnds": (("energy", "nv"), np.stack([e_edges[:-1], e_edges[1:]], -1),
                             {"units": "keV"}),
             "pitch_angle_bnds": (("pitch_angle", "nv"),
