@@ -1,0 +1,670 @@
+"""beltkit's data conventions for pitch-angle flux datasets, and the one validator.
+
+The conventions are written out in ``docs/conventions.md``; this module
+enforces them. :func:`validate` lists every problem at once (each naming the
+variable and what is wrong); :func:`check` raises one
+:class:`~beltkit.errors.ConventionError` holding that list, or returns a
+:class:`Prepared` description that the engines use.
+
+Nothing here modifies the caller's dataset. Unit conversions and fill-value
+masks of the large flux arrays are not applied here: they are recorded in
+:class:`Prepared` (a scale factor and a mask) and applied block by block by
+the engines, so that no full-size copy of the data is made.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import xarray as xr
+
+from ..errors import ConventionError
+
+__all__ = [
+    "FLUX_UNITS",
+    "INTEGRATED_FLUX_UNITS",
+    "Prepared",
+    "ValueMask",
+    "check",
+    "flux_unit_factor",
+    "validate",
+]
+
+#: Canonical unit of differential directional flux.
+FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
+#: Canonical unit of solid-angle-integrated (or omnidirectional) flux.
+INTEGRATED_FLUX_UNITS = "cm-2 s-1 keV-1"
+
+# size of each unit in the canonical base unit of its kind (cm, s, sr, keV)
+_BASE = {
+    "cm": ("length", 1.0), "m": ("length", 100.0), "mm": ("length", 0.1),
+    "km": ("length", 1e5),
+    "s": ("time", 1.0), "sec": ("time", 1.0), "ms": ("time", 1e-3),
+    "sr": ("solid_angle", 1.0), "ster": ("solid_angle", 1.0),
+    "eV": ("energy", 1e-3), "keV": ("energy", 1.0), "MeV": ("energy", 1e3),
+    "GeV": ("energy", 1e6),
+}
+_FLUX_DIMENSIONS = {"length": -2, "time": -1, "solid_angle": -1, "energy": -1}
+_TOKEN = re.compile(r"^([A-Za-z]+)\^?(?:\*\*)?(-?\d+)?$")
+
+_ANGLE = {"degree": 1.0, "degrees": 1.0, "deg": 1.0, "rad": 180.0 / np.pi,
+          "radian": 180.0 / np.pi, "radians": 180.0 / np.pi}
+_ENERGY = {"keV": 1.0, "MeV": 1e3, "eV": 1e-3, "GeV": 1e6}
+_FIELD = {"nT": 1.0, "T": 1e9, "tesla": 1e9, "G": 1e5, "gauss": 1e5}
+_DISTANCE = {"km": 1.0, "m": 1e-3}
+_HOURS = {"h": 1.0, "hour": 1.0, "hours": 1.0, "hr": 1.0}
+_DIMENSIONLESS = {"1": 1.0, "": 1.0, "R_E": 1.0, "Re": 1.0, "RE": 1.0}
+
+_BLOCK = 65536
+
+
+def _parse_units(text):
+    """Return {kind: exponent} and the factor to canonical units, or None."""
+    s = str(text).strip()
+    if not s:
+        return None
+    s = s.replace("**", "^").replace("(", " ").replace(")", " ")
+    parts = s.split("/")
+    dims: dict[str, int] = {}
+    factor = 1.0
+    for k, part in enumerate(parts):
+        sign = 1 if k == 0 else -1
+        for tok in re.split(r"[\s.*]+", part.strip()):
+            if not tok or tok in ("1", "#"):
+                continue
+            m = _TOKEN.match(tok.replace("^", ""))
+            if m is None or m.group(1) not in _BASE:
+                return None
+            kind, size = _BASE[m.group(1)]
+            exp = sign * (int(m.group(2)) if m.group(2) else 1)
+            dims[kind] = dims.get(kind, 0) + exp
+            factor *= size**exp
+    dims = {k: v for k, v in dims.items() if v != 0}
+    return dims, factor
+
+
+def flux_unit_factor(units):
+    """Factor converting a differential directional flux to ``cm-2 s-1 sr-1 keV-1``.
+
+    Parameters
+    ----------
+    units : str
+        A UDUNITS-style unit string, e.g. ``"cm-2 s-1 sr-1 MeV-1"``,
+        ``"cm^-2 s^-1 sr^-1 keV^-1"`` or ``"1/(cm2 s sr keV)"``.
+
+    Returns
+    -------
+    float or None
+        The factor (multiply values by it), or None when the string is not a
+        known spelling of a directional differential flux.
+
+    Examples
+    --------
+    >>> flux_unit_factor("cm-2 s-1 sr-1 MeV-1")
+    0.001
+    >>> flux_unit_factor("counts") is None
+    True
+    """
+    parsed = _parse_units(units)
+    if parsed is None:
+        return None
+    dims, factor = parsed
+    if dims != _FLUX_DIMENSIONS:
+        return None
+    return factor
+
+
+@dataclass(frozen=True)
+class ValueMask:
+    """Fill-value handling and unit scaling of one data variable (applied per block).
+
+    Attributes
+    ----------
+    scale : float
+        Multiply raw values by this to reach canonical units.
+    fill : tuple of float
+        Raw values that mean "missing" (``_FillValue``, ``missing_value``).
+    vmin, vmax : float
+        Valid range of raw values (``valid_range``/``valid_min``/``valid_max``);
+        values outside are missing.
+    """
+
+    scale: float = 1.0
+    fill: tuple = ()
+    vmin: float = -np.inf
+    vmax: float = np.inf
+
+    @property
+    def trivial(self):
+        """Whether applying the mask changes nothing."""
+        return (self.scale == 1.0 and not self.fill and self.vmin == -np.inf
+                and self.vmax == np.inf)
+
+    def apply(self, raw, dtype=None):
+        """Return a masked, scaled float copy (or the input itself if nothing to do).
+
+        Parameters
+        ----------
+        raw : numpy.ndarray
+            One block of raw values.
+        dtype : numpy dtype, optional
+            Floating dtype of the result (default: float32 for float32 input,
+            float64 otherwise).
+
+        Returns
+        -------
+        numpy.ndarray
+            Values in canonical units with missing values as NaN.
+        """
+        raw = np.asarray(raw)
+        if dtype is None:
+            dtype = np.float32 if raw.dtype == np.float32 else np.float64
+        if self.trivial and raw.dtype == dtype:
+            return raw
+        out = raw.astype(dtype, copy=True)
+        bad = None
+        for f in self.fill:
+            b = raw == f
+            bad = b if bad is None else (bad | b)
+        if self.vmin != -np.inf:
+            b = raw < self.vmin
+            bad = b if bad is None else (bad | b)
+        if self.vmax != np.inf:
+            b = raw > self.vmax
+            bad = b if bad is None else (bad | b)
+        if bad is not None:
+            out[bad] = np.nan
+        if self.scale != 1.0:
+            out *= dtype(self.scale) if isinstance(dtype, type) else self.scale
+        return out
+
+
+@dataclass
+class Prepared:
+    """What the engines need to know about a dataset that passed :func:`check`.
+
+    Attributes
+    ----------
+    kind : str
+        ``"bins"`` (pitch-angle bins) or ``"telescope"`` (look directions).
+    edges : numpy.ndarray or None
+        Pitch-angle bin edges (n_bins, 2) in degrees, for ``kind == "bins"``.
+    folded : bool
+        Whether the bins are folded to 0-90 (each also stands for its mirror).
+    flux_mask, err_mask, counts_mask : ValueMask
+        Scaling and fill handling of ``flux``, ``flux_err`` and ``counts``.
+    error_source : str or None
+        ``"flux_err"``, ``"counts"`` or None (no uncertainties available).
+    energy_kev : numpy.ndarray
+        Energy channel centres in keV.
+    energy_bnds_kev : numpy.ndarray
+        Energy channel edges (n_energy, 2) in keV.
+    angle_scale : dict
+        Factor to degrees of each angle variable that is not in degrees.
+    other_scale : dict
+        Factor to the canonical unit of position variables (b_local, position_geo, mlt).
+    n_negative : int
+        Number of negative flux values found.
+    """
+
+    kind: str
+    edges: np.ndarray | None
+    folded: bool
+    flux_mask: ValueMask
+    err_mask: ValueMask | None
+    counts_mask: ValueMask | None
+    error_source: str | None
+    energy_kev: np.ndarray
+    energy_bnds_kev: np.ndarray
+    angle_scale: dict = field(default_factory=dict)
+    other_scale: dict = field(default_factory=dict)
+    n_negative: int = 0
+
+
+def _mask_of(var, problems, name):
+    attrs = var.attrs
+    fills = []
+    for key in ("_FillValue", "missing_value"):
+        if key in attrs:
+            vals = np.atleast_1d(np.asarray(attrs[key], dtype=float))
+            fills.extend(float(v) for v in vals if not np.isnan(v))
+    vmin, vmax = -np.inf, np.inf
+    if "valid_range" in attrs:
+        vr = np.atleast_1d(np.asarray(attrs["valid_range"], dtype=float))
+        if vr.size != 2 or not vr[0] < vr[1]:
+            problems.append(f"{name}: attribute valid_range must be two increasing numbers, "
+                            f"got {attrs['valid_range']!r}")
+        else:
+            vmin, vmax = float(vr[0]), float(vr[1])
+    if "valid_min" in attrs:
+        vmin = float(attrs["valid_min"])
+    if "valid_max" in attrs:
+        vmax = float(attrs["valid_max"])
+    return tuple(fills), vmin, vmax
+
+
+def _unit_factor(var, name, table, problems, what, required=True):
+    units = var.attrs.get("units")
+    if units is None:
+        if required:
+            problems.append(f"{name}: missing 'units' attribute; set it to {next(iter(table))!r} "
+                            f"({what})")
+        return 1.0
+    if str(units) not in table:
+        problems.append(f"{name}: units {units!r} not recognised for {what}; "
+                        f"use one of {sorted(k for k in table if k)}")
+        return 1.0
+    return table[str(units)]
+
+
+def _is_true(value):
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return value == 1
+    return str(value).strip().lower() in ("true", "yes", "1")
+
+
+def _blocks(n):
+    for start in range(0, n, _BLOCK):
+        yield slice(start, min(start + _BLOCK, n))
+
+
+def _value_summary(da, mask, energy_axis):
+    """Per-energy NaN-ignoring min and max of masked values, without full-size temporaries."""
+    data = da.data
+    tax = da.dims.index("time")
+    other = tuple(i for i in range(da.ndim) if i != energy_axis)
+    if hasattr(data, "dask"):
+        import dask.array as dsa
+
+        masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
+        lo = dsa.nanmin(masked, axis=other)
+        hi = dsa.nanmax(masked, axis=other)
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            lo, hi = dsa.compute(lo, hi)
+        return np.asarray(lo), np.asarray(hi)
+    data = np.asarray(data)
+    n_e = data.shape[energy_axis]
+    lo = np.full(n_e, np.nan)
+    hi = np.full(n_e, np.nan)
+    for sl in _blocks(data.shape[tax]):
+        idx = [slice(None)] * data.ndim
+        idx[tax] = sl
+        block = mask.apply(data[tuple(idx)])
+        if block.size == 0:
+            continue
+        lo = np.fmin(lo, np.fmin.reduce(block, axis=other))
+        hi = np.fmax(hi, np.fmax.reduce(block, axis=other))
+    return lo, hi
+
+
+def _count_negative(da, mask):
+    data = da.data
+    if hasattr(data, "dask"):
+        import dask.array as dsa
+
+        masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
+        return int((masked < 0).sum().compute())
+    data = np.asarray(data)
+    tax = da.dims.index("time")
+    n = 0
+    for sl in _blocks(data.shape[tax]):
+        idx = [slice(None)] * data.ndim
+        idx[tax] = sl
+        n += int(np.count_nonzero(mask.apply(data[tuple(idx)]) < 0))
+    return n
+
+
+def _check_edges(ds, problems, folded):
+    """Check pitch_angle and pitch_angle_bnds; return edges (n, 2) in degrees or None."""
+    pa = ds["pitch_angle"]
+    scale = _unit_factor(pa, "pitch_angle", _ANGLE, problems, "an angle")
+    centres = np.asarray(pa.values, dtype=float) * scale
+    if "pitch_angle_bnds" not in ds.variables:
+        problems.append("pitch_angle_bnds: missing; give the bin edges as a (pitch_angle, 2) "
+                        "bounds variable and set pitch_angle.attrs['bounds'] = "
+                        "'pitch_angle_bnds'")
+        return None
+    bnds = ds["pitch_angle_bnds"]
+    if bnds.ndim != 2 or bnds.dims[0] != "pitch_angle" or bnds.shape[1] != 2:
+        problems.append(f"pitch_angle_bnds: must have dims (pitch_angle, 2), got {bnds.dims} "
+                        f"with shape {bnds.shape}")
+        return None
+    bscale = scale
+    if "units" in bnds.attrs:
+        bscale = _unit_factor(bnds, "pitch_angle_bnds", _ANGLE, problems, "an angle")
+    edges = np.asarray(bnds.values, dtype=float) * bscale
+    if not np.all(np.isfinite(edges)):
+        problems.append("pitch_angle_bnds: contains NaN or infinite edges")
+        return None
+    if np.any(edges < 0) or np.any(edges > 180):
+        problems.append(f"pitch_angle_bnds: edges must lie in 0-180 degree, got "
+                        f"{edges.min():g} to {edges.max():g}")
+    if np.any(np.isnan(centres)) or np.any(centres < 0) or np.any(centres > 180):
+        problems.append("pitch_angle: centres must lie in 0-180 degree")
+    if np.any(edges[:, 1] <= edges[:, 0]):
+        problems.append("pitch_angle_bnds: each bin needs lower edge < upper edge")
+    if np.any(np.diff(centres) <= 0):
+        problems.append("pitch_angle: centres must be strictly increasing")
+    elif np.any(edges[1:, 0] < edges[:-1, 1] - 1e-9):
+        k = int(np.argmax(edges[1:, 0] < edges[:-1, 1] - 1e-9))
+        problems.append(f"pitch_angle_bnds: bins overlap ({edges[k].tolist()} and "
+                        f"{edges[k + 1].tolist()}); bins must be disjoint")
+    if np.any((centres < edges[:, 0] - 1e-9) | (centres > edges[:, 1] + 1e-9)):
+        problems.append("pitch_angle: centres must lie inside their bins (pitch_angle_bnds)")
+    if folded and np.any(edges > 90 + 1e-9):
+        problems.append("pitch_angle: attribute folded='true' but bins extend beyond 90 degree; "
+                        "folded data must lie in 0-90")
+    return edges
+
+
+def _check_time(ds, problems):
+    if "time" not in ds.variables:
+        problems.append("time: missing coordinate variable; add a 'time' coordinate "
+                        "(datetime64 UTC or seconds)")
+        return
+    t = ds["time"].values
+    if t.ndim != 1:
+        problems.append("time: must be one-dimensional")
+        return
+    if np.issubdtype(t.dtype, np.datetime64):
+        bad_nat = np.isnat(t)
+        tv = t.astype("datetime64[ns]").astype(np.int64)
+    else:
+        try:
+            tv = np.asarray(t, dtype=float)
+        except (TypeError, ValueError):
+            problems.append(f"time: values must be datetime64 or numbers, got dtype {t.dtype}")
+            return
+        bad_nat = np.isnan(tv)
+    if np.any(bad_nat):
+        problems.append(f"time: {int(np.sum(bad_nat))} missing (NaT/NaN) time values")
+    elif t.size > 1 and np.any(np.diff(tv) <= 0):
+        k = int(np.argmax(np.diff(tv) <= 0))
+        problems.append(f"time: not strictly increasing (at index {k + 1}); sort the dataset "
+                        "by time and drop duplicates")
+
+
+def _check_range(ds, name, lo, hi, problems, scale=1.0):
+    v = ds[name].data
+    if hasattr(v, "dask"):
+        import dask.array as dsa
+
+        vmin, vmax = dsa.compute(dsa.nanmin(v), dsa.nanmax(v))
+    else:
+        v = np.asarray(v, dtype=float)
+        if v.size == 0 or np.all(np.isnan(v)):
+            return
+        vmin, vmax = np.nanmin(v), np.nanmax(v)
+    vmin, vmax = float(vmin) * scale, float(vmax) * scale
+    if (lo is not None and vmin < lo) or (hi is not None and vmax > hi):
+        problems.append(f"{name}: values must lie in [{lo}, {hi}], got {vmin:g} to {vmax:g}")
+
+
+def _inspect(ds, model=None, allow_negative=False, check_values=True):
+    """Run every check; return (problems, Prepared or None)."""
+    problems: list[str] = []
+    if not isinstance(ds, xr.Dataset):
+        return [f"dataset: expected an xarray.Dataset, got {type(ds).__name__}"], None
+    if "flux" not in ds.data_vars:
+        problems.append("flux: missing data variable (differential directional flux, "
+                        f"dims (time, energy, pitch_angle), units {FLUX_UNITS!r})")
+        return problems, None
+    flux = ds["flux"]
+    kind = "telescope" if "look" in flux.dims else "bins"
+    angle_dim = "look" if kind == "telescope" else "pitch_angle"
+    want = {"time", "energy", angle_dim}
+    missing = [d for d in ("time", "energy", angle_dim) if d not in flux.dims]
+    if "pitch_angle" not in flux.dims and "look" not in flux.dims:
+        missing = [d for d in ("time", "energy") if d not in flux.dims]
+        problems.append("flux: needs a 'pitch_angle' dimension (pitch-angle bins) or a 'look' "
+                        "dimension (telescopes)")
+    if missing:
+        problems.append(f"flux: missing dimension(s) {missing}; dims are {flux.dims}")
+    extra = [d for d in flux.dims if d not in want]
+    if extra and "pitch_angle" in flux.dims and "look" in flux.dims:
+        problems.append("flux: has both 'pitch_angle' and 'look' dimensions; use one")
+    elif extra:
+        problems.append(f"flux: unexpected dimension(s) {extra}; expected (time, energy, "
+                        f"{angle_dim})")
+    if not np.issubdtype(flux.dtype, np.number):
+        problems.append(f"flux: must be numeric, got dtype {flux.dtype}")
+    # units
+    fu = flux.attrs.get("units")
+    scale = 1.0
+    if fu is None:
+        problems.append(f"flux: missing 'units' attribute; expected {FLUX_UNITS!r}")
+    else:
+        f = flux_unit_factor(fu)
+        if f is None:
+            problems.append(f"flux: units {fu!r} are not a differential directional flux "
+                            f"beltkit knows how to convert; expected {FLUX_UNITS!r} "
+                            "(per MeV, per eV and m-2 spellings are converted)")
+        else:
+            scale = f
+    fills, vmin, vmax = _mask_of(flux, problems, "flux")
+    flux_mask = ValueMask(scale, fills, vmin, vmax)
+    _check_time(ds, problems)
+    # energy
+    energy_kev = np.array([])
+    ebnds = np.zeros((0, 2))
+    if "energy" not in ds.variables:
+        problems.append("energy: missing coordinate variable (channel centres in keV)")
+    else:
+        es = _unit_factor(ds["energy"], "energy", _ENERGY, problems, "an energy")
+        energy_kev = np.asarray(ds["energy"].values, dtype=float) * es
+        if energy_kev.ndim != 1 or np.any(~np.isfinite(energy_kev)) or np.any(energy_kev <= 0):
+            problems.append("energy: values must be finite and positive")
+        if "energy_bnds" not in ds.variables:
+            problems.append("energy_bnds: missing; give the channel edges as an (energy, 2) "
+                            "bounds variable and set energy.attrs['bounds'] = 'energy_bnds'")
+        else:
+            eb = ds["energy_bnds"]
+            if eb.ndim != 2 or eb.dims[0] != "energy" or eb.shape[1] != 2:
+                problems.append(f"energy_bnds: must have dims (energy, 2), got {eb.dims}")
+            else:
+                bs = es
+                if "units" in eb.attrs:
+                    bs = _unit_factor(eb, "energy_bnds", _ENERGY, problems, "an energy")
+                ebnds = np.asarray(eb.values, dtype=float) * bs
+                if np.any(~(ebnds[:, 0] < ebnds[:, 1])):
+                    problems.append("energy_bnds: each channel needs lower edge < upper edge")
+                elif energy_kev.shape == ebnds[:, 0].shape and np.any(
+                    (energy_kev < ebnds[:, 0]) | (energy_kev > ebnds[:, 1])
+                ):
+                    problems.append("energy: channel centres must lie inside energy_bnds")
+    # angle geometry
+    edges = None
+    folded = False
+    angle_scale: dict = {}
+    if kind == "bins" and "pitch_angle" in flux.dims:
+        if "pitch_angle" not in ds.variables:
+            problems.append("pitch_angle: missing coordinate variable (bin centres, degree)")
+        else:
+            folded = _is_true(ds["pitch_angle"].attrs.get("folded", False))
+            edges = _check_edges(ds, problems, folded)
+    elif kind == "telescope":
+        for name, dims in (("look_pitch_angle", ("time", "look")), ("look_half_angle", ("look",))):
+            if name not in ds.variables:
+                problems.append(f"{name}: missing (telescope data need look_pitch_angle (time, "
+                                "look) and look_half_angle (look), in degree)")
+                continue
+            if set(ds[name].dims) != set(dims):
+                problems.append(f"{name}: must have dims {dims}, got {ds[name].dims}")
+            angle_scale[name] = _unit_factor(ds[name], name, _ANGLE, problems, "an angle")
+        if "look_pitch_angle" in ds.variables:
+            _check_range(ds, "look_pitch_angle", 0, 180, problems,
+                         angle_scale.get("look_pitch_angle", 1.0))
+        if "look_half_angle" in ds.variables:
+            h = np.asarray(ds["look_half_angle"].values, dtype=float) * angle_scale.get(
+                "look_half_angle", 1.0)
+            if np.any(~np.isfinite(h)) or np.any(h <= 0) or np.any(h > 90):
+                problems.append("look_half_angle: must be finite and in (0, 90] degree")
+    # position
+    other_scale: dict = {}
+    has_lm = "L" in ds.variables and "mlat" in ds.variables
+    has_geo = "position_geo" in ds.variables
+    if not has_lm and not has_geo:
+        problems.append("position: need either 'L' and 'mlat' (degree) per time, or "
+                        "'position_geo' (time, 3) in km")
+    if "L" in ds.variables and "mlat" not in ds.variables and not has_geo:
+        problems.append("mlat: missing (magnetic latitude in degree, per time, next to L)")
+    if "mlat" in ds.variables and "L" not in ds.variables and not has_geo:
+        problems.append("L: missing (L-shell per time, next to mlat)")
+    for name, table, what, lo, hi, required in (
+        ("L", _DIMENSIONLESS, "the dimensionless L-shell", 1.0, None, False),
+        ("mlat", _ANGLE, "an angle", -90.0, 90.0, True),
+        ("mlt", _HOURS, "magnetic local time in hours", 0.0, 24.0, True),
+        ("b_local", _FIELD, "a magnetic field", 0.0, None, True),
+    ):
+        if name in ds.variables:
+            v = ds[name]
+            if v.dims != ("time",):
+                problems.append(f"{name}: must have dims ('time',), got {v.dims}")
+                continue
+            f = _unit_factor(v, name, table, problems, what, required=required)
+            other_scale[name] = f
+            _check_range(ds, name, lo, hi, problems, f)
+    if has_geo:
+        pg = ds["position_geo"]
+        if pg.ndim != 2 or pg.dims[0] != "time" or pg.shape[1] != 3:
+            problems.append(f"position_geo: must have dims (time, 3) (GEO x, y, z), got "
+                            f"{pg.dims} with shape {pg.shape}")
+        other_scale["position_geo"] = _unit_factor(pg, "position_geo", _DISTANCE, problems,
+                                                   "a distance")
+    if not (model is None or (isinstance(model, str) and model == "dipole")):
+        if not has_geo and "mlt" not in ds.variables:
+            problems.append("mlt: a field model needs the sample's position: give "
+                            "'position_geo' (time, 3) km, or 'mlt' (hours) next to L and mlat")
+    # uncertainties
+    error_source = None
+    err_mask = counts_mask = None
+    if "flux_err" in ds.data_vars:
+        fe = ds["flux_err"]
+        error_source = "flux_err"
+        if fe.dims != flux.dims:
+            problems.append(f"flux_err: must have the same dims as flux {flux.dims}, "
+                            f"got {fe.dims}")
+        f = flux_unit_factor(fe.attrs.get("units", ""))
+        if f is None:
+            problems.append(f"flux_err: units {fe.attrs.get('units')!r} must be a directional "
+                            f"flux like flux ({FLUX_UNITS!r})")
+            f = 1.0
+        fills, vmin, vmax = _mask_of(fe, problems, "flux_err")
+        err_mask = ValueMask(f, fills, vmin, vmax)
+    elif "counts" in ds.data_vars:
+        error_source = "counts"
+        ct = ds["counts"]
+        if ct.dims != flux.dims:
+            problems.append(f"counts: must have the same dims as flux {flux.dims}, got {ct.dims}")
+        if "counts_to_flux" not in ds.variables:
+            problems.append("counts_to_flux: missing; Poisson errors from 'counts' need the "
+                            "factor converting counts to flux (flux = counts_to_flux * counts)")
+        else:
+            c2f = ds["counts_to_flux"]
+            if not set(c2f.dims) <= set(flux.dims):
+                problems.append(f"counts_to_flux: dims {c2f.dims} must be a subset of flux's")
+            if flux_unit_factor(c2f.attrs.get("units", "")) is None:
+                problems.append("counts_to_flux: units must be a directional flux per count "
+                                f"({FLUX_UNITS!r})")
+        fills, vmin, vmax = _mask_of(ct, problems, "counts")
+        counts_mask = ValueMask(1.0, fills, vmin, vmax)
+    # values (only when the structure is sound)
+    n_negative = 0
+    if check_values and not problems:
+        eax = flux.dims.index("energy")
+        lo, _ = _value_summary(flux, flux_mask, eax)
+        dead = np.isnan(lo)
+        if np.any(dead):
+            problems.append(f"flux: all values NaN (or fill) at energies "
+                            f"{energy_kev[dead].tolist()} keV; drop those channels "
+                            "(ds.drop_isel(energy=...)) or check the fill-value attributes")
+        if np.any(lo[~dead] < 0):
+            n_negative = _count_negative(flux, flux_mask)
+            if not allow_negative:
+                problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
+                                "allow_negative=True to keep them (they are then flagged in "
+                                "partition_flag)")
+        if error_source == "flux_err":
+            elo, _ = _value_summary(ds["flux_err"], err_mask, eax)
+            if np.any(elo[~np.isnan(elo)] < 0):
+                problems.append("flux_err: negative uncertainties")
+        if error_source == "counts":
+            clo, _ = _value_summary(ds["counts"], counts_mask, eax)
+            if np.any(clo[~np.isnan(clo)] < 0):
+                problems.append("counts: negative counts")
+    prepared = None
+    if not problems:
+        prepared = Prepared(kind=kind, edges=edges, folded=folded, flux_mask=flux_mask,
+                            err_mask=err_mask, counts_mask=counts_mask,
+                            error_source=error_source, energy_kev=energy_kev,
+                            energy_bnds_kev=ebnds, angle_scale=angle_scale,
+                            other_scale=other_scale, n_negative=n_negative)
+    return problems, prepared
+
+
+def validate(ds, *, model=None, allow_negative=False, check_values=True):
+    """List every way a dataset departs from beltkit's pitch-angle conventions.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The flux dataset (see ``docs/conventions.md``). Not modified.
+    model : None, str or FieldModel, optional
+        The field model the dataset will be used with (a model other than the
+        dipole needs ``position_geo`` or ``mlt``).
+    allow_negative : bool
+        Accept negative flux values (background-subtracted data); they are then
+        flagged by the engines instead of reported here.
+    check_values : bool
+        Also scan the data values (negative flux, all-NaN channels); on dask
+        data this streams once through the file.
+
+    Returns
+    -------
+    list of str
+        The problems, each naming the variable and what is wrong; empty if
+        the dataset follows the conventions.
+    """
+    problems, _ = _inspect(ds, model=model, allow_negative=allow_negative,
+                           check_values=check_values)
+    return problems
+
+
+def check(ds, *, model=None, allow_negative=False, source=None):
+    """Validate `ds` and return its :class:`Prepared` description.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The flux dataset. Not modified.
+    model : None, str or FieldModel, optional
+        Field model to be used (see :func:`validate`).
+    allow_negative : bool
+        Accept negative flux values.
+    source : str, optional
+        Where the dataset came from (file name), for the error message;
+        defaults to ``ds.encoding['source']`` when present.
+
+    Returns
+    -------
+    Prepared
+        Scale factors, masks and geometry for the engines.
+
+    Raises
+    ------
+    ConventionError
+        Listing every problem at once.
+    """
+    problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative)
+    if problems:
+        if source is None and isinstance(ds, xr.Dataset):
+            source = ds.encoding.get("source")
+        raise ConventionError(problems, source)
+    return prepared

@@ -1,0 +1,250 @@
+r"""Per-sample loss cones of a flux dataset, from its position.
+
+Definitions (common practice). A particle of local pitch angle
+:math:`\alpha` at field :math:`B_\mathrm{loc}` mirrors where
+:math:`B_m = B_\mathrm{loc}/\sin^2\alpha` (first invariant conserved). With
+:math:`B_N, B_S` the footpoint fields (default 100 km altitude) of the
+sample's field line and :math:`B_d` the minimum footpoint field over its
+drift shell:
+
+* bounce loss cone (lost within one bounce, whichever way it moves):
+  :math:`B_m \ge \min(B_N, B_S)`, i.e. local half-angle
+  :math:`\alpha_{BLC} = \arcsin\sqrt{B_\mathrm{loc}/\min(B_N, B_S)}` on both
+  sides (around 0 and 180 deg);
+* drift loss cone: :math:`B_m \ge B_d`,
+  :math:`\alpha_{DLC} = \arcsin\sqrt{B_\mathrm{loc}/B_d} \ge \alpha_{BLC}`;
+* direction-resolved local cones
+  :math:`\sin^2\alpha_N = B_\mathrm{loc}/B_N`,
+  :math:`\sin^2\alpha_S = B_\mathrm{loc}/B_S` (pitch angles below 90 deg move
+  along B toward the northern footpoint, above 90 deg toward the southern).
+
+Equatorial cones use the line's minimum field :math:`B_\mathrm{min}` in place
+of :math:`B_\mathrm{loc}`. Where :math:`B_\mathrm{loc}` exceeds the mirror
+field (a sample below the footpoint altitude) the cone is 90 deg.
+
+Two paths:
+
+* centred dipole closed forms of :mod:`beltkit.dipole` from ``L`` and
+  ``mlat`` (``model=None`` or ``"dipole"``); there :math:`B_N = B_S = B_d`,
+  so the drift loss cone equals the bounce loss cone;
+* any field model through :func:`beltkit.field.loss_cones`, at
+  ``position_geo`` or at the position rebuilt from ``L``, ``mlat``, ``mlt``
+  (dipole field line in SM coordinates, converted to GEO).
+
+A measured ``b_local`` in the dataset replaces the model's local field in the
+local cones on both paths.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from .. import dipole
+from ..constants import R_E_KM
+from .conventions import Prepared
+
+__all__ = ["cone_from_fields", "sample_loss_cones"]
+
+_DEG = {"units": "degree"}
+
+
+def cone_from_fields(b_here, b_mirror):
+    r"""Loss-cone half-angle (deg) from the local and the mirror field.
+
+    .. math:: \alpha = \arcsin\sqrt{\min(1, B_\mathrm{here}/B_\mathrm{mirror})}
+
+    (the mirror-ratio loss cone, common practice). NaN propagates.
+
+    Parameters
+    ----------
+    b_here : array_like or xarray.DataArray
+        Field at the point (nT).
+    b_mirror : array_like or xarray.DataArray
+        Field at which particles are lost (nT).
+
+    Returns
+    -------
+    array_like or xarray.DataArray
+        Half-angle in degrees (DataArray in, DataArray out).
+
+    Examples
+    --------
+    >>> float(cone_from_fields(1.0, 2.0))
+    45.0
+    """
+    ratio = b_here / b_mirror
+    if isinstance(ratio, xr.DataArray):
+        out = np.degrees(np.arcsin(np.sqrt(ratio.clip(0.0, 1.0))))
+        out.attrs = dict(_DEG)
+        return out
+    return np.degrees(np.arcsin(np.sqrt(np.clip(ratio, 0.0, 1.0))))
+
+
+def _is_dipole_closed_form(model):
+    return model is None or (isinstance(model, str) and model == "dipole")
+
+
+def _attrs(long_name, units="degree"):
+    return {"units": units, "long_name": long_name}
+
+
+def _finish(out):
+    names = {
+        "blc_local": ("local bounce loss cone half-angle", "degree"),
+        "dlc_local": ("local drift loss cone half-angle", "degree"),
+        "blc_equatorial": ("equatorial bounce loss cone half-angle", "degree"),
+        "dlc_equatorial": ("equatorial drift loss cone half-angle", "degree"),
+        "loss_cone_north": ("local loss cone toward the northern footpoint "
+                            "(pitch angles below 90 degree)", "degree"),
+        "loss_cone_south": ("local loss cone toward the southern footpoint "
+                            "(pitch angles above 90 degree, measured from 180)", "degree"),
+        "b_local": ("magnetic field magnitude at the sample", "nT"),
+        "b_min": ("minimum magnetic field magnitude on the field line", "nT"),
+        "L": ("L-shell", "1"),
+        "mlat": ("magnetic latitude", "degree"),
+        "mlt": ("magnetic local time", "hour"),
+    }
+    for k, v in out.items():
+        ln, u = names[k]
+        v.attrs = _attrs(ln, u)
+    return xr.Dataset(out)
+
+
+def _var(ds, name, scale):
+    v = ds[name]
+    f = scale.get(name, 1.0)
+    v = v.astype(float) if f == 1.0 else v.astype(float) * f
+    return v.reset_coords(drop=True) if hasattr(v, "reset_coords") else v
+
+
+def _dipole_path(ds, prep: Prepared, altitude_km):
+    L = _var(ds, "L", prep.other_scale)
+    mlat = _var(ds, "mlat", prep.other_scale)
+    L.attrs = {"units": "1"}
+    mlat.attrs = {"units": "degree"}
+    b_foot = dipole.footpoint_field(L, altitude_km=altitude_km)
+    b_eq = dipole.equatorial_field(L)
+    if "b_local" in ds.variables:
+        b_loc = _var(ds, "b_local", prep.other_scale)
+    else:
+        b_loc = dipole.field_magnitude(L, mlat)
+    blc = cone_from_fields(b_loc, b_foot)
+    blc_eq = cone_from_fields(b_eq, b_foot)
+    out = {
+        "blc_local": blc, "dlc_local": blc.copy(), "blc_equatorial": blc_eq,
+        "dlc_equatorial": blc_eq.copy(), "loss_cone_north": blc.copy(),
+        "loss_cone_south": blc.copy(), "b_local": b_loc, "b_min": b_eq, "L": L, "mlat": mlat,
+    }
+    if "mlt" in ds.variables:
+        out["mlt"] = _var(ds, "mlt", prep.other_scale)
+    return _finish(out)
+
+
+_MODEL_FIELDS = ("b_local", "b_min", "b_foot_north", "b_foot_south", "b_foot_drift_min",
+                 "L", "mlat", "mlt")
+
+
+def _positions_geo(xyz_or_lm, time, from_magnetic):
+    """Return GEO positions (n, 3) km for one block."""
+    if not from_magnetic:
+        return xyz_or_lm
+    from ..field import convert
+
+    L, mlat, mlt = xyz_or_lm[:, 0], xyz_or_lm[:, 1], xyz_or_lm[:, 2]
+    r_km = np.asarray(dipole.radius(L, mlat), dtype=float) * R_E_KM
+    lam = np.radians(mlat)
+    phi = np.radians((mlt - 12.0) * 15.0)  # MLT 12 h = sunward (+x of SM)
+    xyz_sm = np.stack([r_km * np.cos(lam) * np.cos(phi), r_km * np.cos(lam) * np.sin(phi),
+                       r_km * np.sin(lam)], axis=-1)
+    return np.asarray(convert(xyz_sm, time, "SM", "GEO"), dtype=float)
+
+
+def _model_block(pos, time, *, model, altitude_km, from_magnetic):
+    """Loss-cone inputs of one time block from the field model, stacked (n, 8)."""
+    from ..field import loss_cones
+
+    n = pos.shape[0]
+    out = np.full((n, len(_MODEL_FIELDS)), np.nan)
+    if n == 0:
+        return out
+    xyz = _positions_geo(pos, time, from_magnetic)
+    res = loss_cones(model, xyz, time, altitude_km=altitude_km, dim="time")
+    rename = {"mlat": ("mlat", "mlat_deg"), "mlt": ("mlt", "mlt_hours")}
+    for k, name in enumerate(_MODEL_FIELDS):
+        for cand in rename.get(name, (name,)):
+            if cand in res.variables:
+                out[:, k] = np.asarray(res[cand].values, dtype=float).reshape(n)
+                break
+    return out
+
+
+def _model_path(ds, prep: Prepared, model, altitude_km):
+    from ..field import as_model
+
+    model = as_model(model if model is not None else "dipole")
+    if "position_geo" in ds.variables:
+        pos = ds["position_geo"].astype(float) * prep.other_scale.get("position_geo", 1.0)
+        pos = pos.reset_coords(drop=True)
+        pos = pos.rename({pos.dims[1]: "_xyz"})
+        from_magnetic = False
+    else:
+        pos = xr.concat([_var(ds, n, prep.other_scale) for n in ("L", "mlat", "mlt")],
+                        dim="_xyz").transpose("time", "_xyz")
+        from_magnetic = True
+    time = ds["time"].reset_coords(drop=True)
+    if pos.chunks is not None and time.chunks is None:
+        time = time.chunk({"time": pos.chunks[0]})
+    stacked = xr.apply_ufunc(
+        _model_block, pos, time,
+        input_core_dims=[["_xyz"], []], output_core_dims=[["_field"]],
+        kwargs={"model": model, "altitude_km": altitude_km, "from_magnetic": from_magnetic},
+        dask="parallelized", output_dtypes=[float],
+        dask_gufunc_kwargs={"output_sizes": {"_field": len(_MODEL_FIELDS)}},
+    )
+    f = {name: stacked.isel(_field=k, drop=True) for k, name in enumerate(_MODEL_FIELDS)}
+    b_loc = _var(ds, "b_local", prep.other_scale) if "b_local" in ds.variables else f["b_local"]
+    b_bounce = np.minimum(f["b_foot_north"], f["b_foot_south"])
+    out = {
+        "blc_local": cone_from_fields(b_loc, b_bounce),
+        "dlc_local": cone_from_fields(b_loc, f["b_foot_drift_min"]),
+        "blc_equatorial": cone_from_fields(f["b_min"], b_bounce),
+        "dlc_equatorial": cone_from_fields(f["b_min"], f["b_foot_drift_min"]),
+        "loss_cone_north": cone_from_fields(b_loc, f["b_foot_north"]),
+        "loss_cone_south": cone_from_fields(b_loc, f["b_foot_south"]),
+        "b_local": b_loc, "b_min": f["b_min"],
+    }
+    # L, mlat, mlt: the dataset's own when present, else the model's
+    for name in ("L", "mlat", "mlt"):
+        out[name] = _var(ds, name, prep.other_scale) if name in ds.variables else f[name]
+    return _finish(out)
+
+
+def sample_loss_cones(ds, prep: Prepared, model=None, altitude_km=100.0):
+    """Loss cones and field values per time sample of a validated dataset.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Dataset that passed :func:`beltkit.pad.conventions.check`.
+    prep : Prepared
+        Its description (unit factors of the position variables).
+    model : None, "dipole", "igrf" or FieldModel
+        None or "dipole" with ``L``/``mlat`` uses the dipole closed forms;
+        anything else (or a dataset with only ``position_geo``) uses
+        :func:`beltkit.field.loss_cones`.
+    altitude_km : float
+        Footpoint altitude at which particles count as lost (km).
+
+    Returns
+    -------
+    xarray.Dataset
+        Per-time ``blc_local``, ``dlc_local``, ``blc_equatorial``,
+        ``dlc_equatorial``, ``loss_cone_north``, ``loss_cone_south`` (degree),
+        ``b_local``, ``b_min`` (nT), ``L``, ``mlat`` and, when known, ``mlt``.
+        Lazy when the dataset is dask-backed.
+    """
+    has_lm = "L" in ds.variables and "mlat" in ds.variables
+    if _is_dipole_closed_form(model) and has_lm:
+        return _dipole_path(ds, prep, altitude_km)
+    return _model_path(ds, prep, model, altitude_km)
