@@ -1,0 +1,745 @@
+r"""A synthetic demonstration scenario with ground truth, and the whole pipeline run on it.
+
+Everything in this module is **invented**: the "Marram" mission, its two
+spacecraft, their instruments, the orbits and the storm are a scenario made
+up for beltkit's demonstration and tests. No real mission's data, names or
+formats are used.
+
+The scenario
+------------
+Three days, 2027-03-08 to 2027-03-10 (UTC), quiet at first; an invented storm
+begins on 2027-03-09 at 04:30 UTC with an injection of 50-300 keV electrons
+into the outer zone and a rise of pitch-angle diffusion that fills the loss
+cones, decaying over the following day while MeV electrons build up.
+
+* **Marram-Swift**, a small satellite in a 650 km circular orbit of 97.9 deg
+  inclination, carries the **Quill** pair of electron telescopes: ``up`` looks
+  at the local zenith and ``side`` horizontally across the track, both with a
+  15 deg half-angle field of view, 1 s cadence, 4 energy channels
+  (about 70 keV to 2.3 MeV). Each day-file holds two orbits.
+* **Marram-Tern**, a probe on a near-equatorial elliptical orbit (perigee
+  600 km altitude, apogee 5.8 R_E geocentric, 10 deg inclination, period 9 h)
+  carries the **Fan** pitch-angle spectrometer: 8 energies 50 keV-3 MeV and 12
+  pitch-angle bins of 15 deg covering 0-180 deg, one spectrum every 120 s, 10 s
+  of accumulation per bin.
+
+The flux model
+--------------
+At the magnetic equator the directional flux of electrons of energy E on
+shell L outside the bounce loss cone (equatorial half-angle
+:math:`\alpha_c`, from :func:`beltkit.dipole.bounce_loss_cone`) is
+
+.. math::
+
+    j(\alpha_{eq}) = A(E, L, t)\,\sin^{n}\alpha_{eq}\,
+        \left[1 - (1 - F)\, e^{-(\alpha_{eq} - \alpha_c)/w}\right],
+    \qquad
+    j(\alpha_{eq} < \alpha_c) = A\,\sin^{n}\alpha_c\,F,
+
+with a two-zone amplitude A (inner zone near L = 1.6, a slot at L ~ 2-3, an
+outer zone near L = 4.7 that moves inward during the injection), spectra
+falling with energy as power laws, an index n that is larger in the slot and
+smaller when diffusion is strong, an edge width :math:`w = 0.5\,\alpha_c + 1`
+deg, and a loss-cone filling :math:`F = \zeta / (1 + \zeta)` set by a
+dimensionless diffusion strength :math:`\zeta(E, L, MLT, t)` that rises
+during the storm (strongest at L ~ 5 on the dawn side). The flux anywhere on
+the field line follows from Liouville's theorem and the first invariant
+(:func:`beltkit.dipole.equatorial_pitch_angle`). All invented.
+
+Counts are Poisson with mean :math:`j\,G\,\Delta t\,\Delta E` plus an
+isotropic instrument background (a fixed count rate), where j is the
+instrument's expected flux (the model averaged over the pitch-angle bin or
+the telescope's circular field of view), G the stated geometric factor,
+:math:`\Delta t` the accumulation time and :math:`\Delta E` the channel
+width; ``flux = counts / (G Δt ΔE)`` and ``flux_err = sqrt(max(counts, 1)) /
+(G Δt ΔE)``.
+
+Ground truth
+------------
+Every file stores ``true_fraction_precipitating``,
+``true_fraction_quasi_trapped`` and ``true_fraction_trapped`` per time and
+energy, with the populations defined as the pipeline defines them (common
+practice): precipitating inside the bounce loss cone (mirror field above the
+weaker footpoint field at 100 km), quasi-trapped between the bounce and the
+drift loss cones, trapped outside the drift loss cone. In the centred dipole
+every field line of a drift shell has the same footpoint field, so the two
+loss cones coincide and the true quasi-trapped fraction is exactly zero:
+that is physics, not an omission. Quasi-trapped flux appears only in a
+non-dipole field (run the pipeline with ``field="igrf"`` on ``position_geo``).
+
+* Spectrometer (Marram-Tern): the truth is what the pipeline estimates from
+  the *expected* measured flux: the solid-angle-weighted share of each
+  population in the bins' expected fluxes (background included), split
+  exactly at the loss-cone edges, so an unbiased pipeline recovers it to
+  within its Poisson uncertainty.
+* Telescopes (Marram-Swift): two looks cannot cover the sphere, so the truth
+  there is the fraction of the model's omnidirectional flux (background
+  excluded) in each population at the satellite.
+
+Orbit geometry uses low-precision formulas (Greenwich mean sidereal time and
+the Sun's direction, both from the Astronomical Almanac's low-precision
+series) and the centred dipole of IGRF-14 2020 (:mod:`beltkit.constants`);
+``L``, ``mlat`` and ``b_local`` are the dipole values that beltkit's default
+field model uses.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from . import __version__, dipole
+from .constants import G10_NT, G11_NT, H11_NT, R_E_KM
+
+__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo"]
+
+FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
+
+#: The invented scenario's parameters (documentation of what `generate` does).
+SCENARIO = {
+    "mission": "Marram (invented, synthetic)",
+    "start": "2027-03-08T00:00:00",
+    "n_days": 3,
+    "storm_onset": "2027-03-09T04:30:00",
+    # Marram-Swift: circular low orbit. The period follows Kepler's third law
+    # for a = R_E + 650 km (tests check it against astropy's GM_earth).
+    "swift": {
+        "altitude_km": 650.0,
+        "inclination_deg": 97.9,
+        "period_s": 5855.0,
+        "ascending_node_local_time_h": 21.5,
+        "first_orbit_utc_h": 6.0,
+        "orbits_per_day": 2,
+        "cadence_s": 1.0,
+        "energy_edges_kev": (50.0, 120.0, 300.0, 800.0, 2300.0),
+        "half_angle_deg": 15.0,
+        "geometric_factor_cm2_sr": 1e-2,
+        "accumulation_s": 1.0,
+        "background_counts_per_s": 0.5,
+    },
+    # Marram-Tern: elliptical near-equatorial orbit, apogee 5.8 R_E geocentric.
+    "tern": {
+        "perigee_altitude_km": 600.0,
+        "apogee_re": 5.8,
+        "inclination_deg": 10.0,
+        "period_s": 32391.0,
+        "apogee_local_time_h": 4.0,
+        "cadence_s": 120.0,
+        "n_energy": 8,
+        "energy_range_kev": (50.0, 3000.0),
+        "n_pitch": 12,
+        "geometric_factor_cm2_sr": 1e-3,
+        "accumulation_s": 10.0,
+        "background_counts_per_s": 2.5,
+    },
+}
+
+_J2000 = np.datetime64("2000-01-01T12:00:00", "ns")
+
+
+# --------------------------------------------------------------------------- geometry
+def _days_since_j2000(time):
+    return (time - _J2000) / np.timedelta64(86_400_000_000_000, "ns")
+
+
+def _gmst_rad(time):
+    """Greenwich mean sidereal time (low-precision linear series, degrees per day)."""
+    d = _days_since_j2000(time)
+    return np.radians((280.46061837 + 360.98564736629 * d) % 360.0)
+
+
+def _sun_direction_gei(time):
+    """Return the unit vector to the Sun in the inertial equatorial frame (~0.01 deg).
+
+    Astronomical Almanac low-precision solar coordinates (from memory; a test
+    compares them with astropy's ``get_sun``).
+    """
+    d = _days_since_j2000(time)
+    mean_lon = np.radians((280.460 + 0.9856474 * d) % 360.0)
+    anomaly = np.radians((357.528 + 0.9856003 * d) % 360.0)
+    ecl_lon = mean_lon + np.radians(1.915 * np.sin(anomaly) + 0.020 * np.sin(2 * anomaly))
+    obliquity = np.radians(23.439 - 4e-7 * d)
+    return np.stack([np.cos(ecl_lon), np.cos(obliquity) * np.sin(ecl_lon),
+                     np.sin(obliquity) * np.sin(ecl_lon)], axis=-1)
+
+
+def _gei_to_geo(xyz, time):
+    theta = _gmst_rad(time)
+    c, s = np.cos(theta), np.sin(theta)
+    x, y, z = xyz[..., 0], xyz[..., 1], xyz[..., 2]
+    return np.stack([c * x + s * y, -s * x + c * y, z], axis=-1)
+
+
+def _mag_axes():
+    """Rows: the MAG frame's x, y, z axes in GEO (z = northern dipole pole)."""
+    z = -np.array([G11_NT, H11_NT, G10_NT])
+    z = z / np.linalg.norm(z)
+    y = np.cross([0.0, 0.0, 1.0], z)
+    y = y / np.linalg.norm(y)
+    x = np.cross(y, z)
+    return np.stack([x, y, z])
+
+
+def _magnetic(xyz_geo_km, time):
+    """Return MAG-frame position, magnetic latitude (deg), MLT (h) and r (R_E)."""
+    axes = _mag_axes()
+    xyz_mag = xyz_geo_km @ axes.T
+    r = np.linalg.norm(xyz_mag, axis=-1)
+    mlat = np.degrees(np.arcsin(xyz_mag[..., 2] / r))
+    mlon = np.degrees(np.arctan2(xyz_mag[..., 1], xyz_mag[..., 0]))
+    sun_mag = _gei_to_geo(_sun_direction_gei(time), time) @ axes.T
+    sun_lon = np.degrees(np.arctan2(sun_mag[..., 1], sun_mag[..., 0]))
+    mlt = (12.0 + (mlon - sun_lon) / 15.0) % 24.0
+    return xyz_mag, mlat, mlt, r / R_E_KM
+
+
+def _orbit_gei(time, t0, *, a_km, ecc, inc_deg, raan_rad, argp_rad, period_s):
+    """Keplerian positions (GEI km) and velocities' directions at `time`."""
+    mean_anom = 2 * np.pi * ((time - t0) / np.timedelta64(1, "s")) / period_s
+    ecc_anom = mean_anom.copy()
+    for _ in range(12):  # Newton iterations on Kepler's equation E - e sin E = M
+        ecc_anom = ecc_anom - (ecc_anom - ecc * np.sin(ecc_anom) - mean_anom) / (
+            1 - ecc * np.cos(ecc_anom))
+    p = a_km * (np.cos(ecc_anom) - ecc)
+    q = a_km * np.sqrt(1 - ecc**2) * np.sin(ecc_anom)
+    dp = -np.sin(ecc_anom)
+    dq = np.sqrt(1 - ecc**2) * np.cos(ecc_anom)
+    inc = np.radians(inc_deg)
+    co, so = np.cos(raan_rad), np.sin(raan_rad)
+    cw, sw = np.cos(argp_rad), np.sin(argp_rad)
+    ci, si = np.cos(inc), np.sin(inc)
+    p_hat = np.array([co * cw - so * sw * ci, so * cw + co * sw * ci, sw * si])
+    q_hat = np.array([-co * sw - so * cw * ci, -so * sw + co * cw * ci, cw * si])
+    pos = p[:, None] * p_hat + q[:, None] * q_hat
+    vel = dp[:, None] * p_hat + dq[:, None] * q_hat
+    normal = np.cross(p_hat, q_hat)
+    return pos, vel / np.linalg.norm(vel, axis=-1, keepdims=True), normal
+
+
+def _sun_right_ascension(time):
+    s = _sun_direction_gei(time)
+    return np.arctan2(s[..., 1], s[..., 0])
+
+
+# --------------------------------------------------------------------------- flux model
+def _f32(values):
+    """Round to float32 (the stored precision) so truth and files use identical positions."""
+    return np.asarray(values, dtype=np.float32).astype(float)
+
+
+def _hours(time, ref):
+    return (time - ref) / np.timedelta64(3600, "s")
+
+
+def _storm_profiles(time):
+    """Injection, diffusion and build-up profiles (0-1) of the invented storm."""
+    dt_h = _hours(time, np.datetime64(SCENARIO["storm_onset"], "ns"))
+    after = np.clip(dt_h, 0.0, None)
+    on = (dt_h > 0).astype(float)
+    rise = 1.0 - np.exp(-after / 0.5)
+    injection = on * rise * np.exp(-after / 10.0)
+    diffusion = on * rise * np.exp(-after / 14.0)
+    buildup = on * (1.0 - np.exp(-after / 20.0))
+    return injection, diffusion, buildup
+
+
+def _belt(energy_kev, L, mlt, time):
+    """Amplitude A, index n and filling F on (time, energy) grids; and the BLC (time,)."""
+    E = np.asarray(energy_kev, float)[None, :]
+    Lc = L[:, None]
+    inj, dif, bld = (p[:, None] for p in _storm_profiles(time))
+    inner = 4e5 * np.exp(-0.5 * ((Lc - 1.6) / 0.28) ** 2) * (E / 100.0) ** -2.6 * np.exp(
+        -E / 1500.0)
+    centre = 4.7 - 0.9 * inj
+    width = np.where(Lc < centre, 0.55 + 0.25 * inj, 1.1)
+    outer = 2e6 * (E / 100.0) ** -2.1 * np.exp(-0.5 * ((Lc - centre) / width) ** 2)
+    outer = outer * (1.0 + 6.0 * inj * np.exp(-E / 200.0)) * (
+        1.0 + 2.0 * bld * (E / 1000.0) ** 0.7)
+    boundary = np.exp(-np.clip(Lc - 7.0, 0.0, None) ** 2 / 0.5)
+    amplitude = (inner + outer) * boundary
+    dawn = 1.0 + 0.7 * np.cos(2 * np.pi * (mlt[:, None] - 7.0) / 24.0)
+    zeta = 0.1 + 3.0 * dif * np.exp(-0.5 * ((Lc - 5.0) / 1.3) ** 2) * dawn * (E / 200.0) ** -0.3
+    index = (1.0 + 1.4 * np.exp(-0.5 * ((Lc - 2.6) / 0.7) ** 2)
+             + 0.4 * (E / 1000.0) ** 0.5) / (1.0 + 0.4 * zeta)
+    filling = zeta / (1.0 + zeta)
+    blc = np.asarray(dipole.bounce_loss_cone(L, altitude_km=100.0), float)
+    return amplitude, index, filling, blc
+
+
+def _model_flux(alpha_local_deg, mlat, amplitude, index, filling, blc):
+    """Directional flux at local pitch angles (time, energy, *nodes) on the field line.
+
+    `alpha_local_deg` has shape (time, 1, ...); `amplitude`, `index`, `filling`
+    (time, energy); `mlat`, `blc` (time,).
+    """
+    extra = alpha_local_deg.ndim - 2
+    expand = (slice(None), slice(None)) + (None,) * extra
+    folded = np.where(alpha_local_deg > 90.0, 180.0 - alpha_local_deg, alpha_local_deg)
+    mlat_b = mlat.reshape((-1,) + (1,) * (alpha_local_deg.ndim - 1))
+    alpha_eq = np.asarray(dipole.equatorial_pitch_angle(folded, mlat_b), float)
+    c = blc.reshape(mlat_b.shape)
+    width = 0.5 * c + 1.0
+    A, n, F = amplitude[expand], index[expand], filling[expand]
+    sin_c = np.sin(np.radians(c))
+    outside = np.sin(np.radians(alpha_eq)) ** n * (
+        1.0 - (1.0 - F) * np.exp(-(alpha_eq - c) / width))
+    inside = sin_c**n * F
+    return A * np.where(alpha_eq >= c, outside, inside)
+
+
+def _energy_grid(lo, hi, n):
+    ratio = (hi / lo) ** (1.0 / (n - 1))
+    centres = lo * ratio ** np.arange(n)
+    edges = np.concatenate([[lo / np.sqrt(ratio)], centres * np.sqrt(ratio)])
+    return centres, np.stack([edges[:-1], edges[1:]], axis=-1)
+
+
+def _overlap(a1, a2, r1, r2):
+    """Solid-angle fraction of the pitch-angle band [a1, a2] inside [r1, r2] (degrees)."""
+    lo = np.maximum(a1, r1)
+    hi = np.minimum(a2, r2)
+    cos = np.cos(np.radians([a1, a2]))
+    part = np.where(hi > lo, np.cos(np.radians(lo)) - np.cos(np.radians(hi)), 0.0)
+    return part / (cos[0] - cos[1])
+
+
+def _counts_to_flux(rng, mean_flux, factor, background_flux):
+    """Poisson counts of mean (flux + background) / factor; flux and its error."""
+    expected = (mean_flux + background_flux) / factor
+    counts = rng.poisson(expected)
+    flux = counts * factor
+    flux_err = np.sqrt(np.maximum(counts, 1)) * factor
+    return counts, flux, flux_err
+
+
+def _common_attrs(name, instrument, day, comment):
+    return {
+        "title": f"SYNTHETIC DATA: invented {name} {instrument} electron flux, {day}",
+        "comment": ("Synthetic, invented scenario generated by beltkit.demo for demonstration "
+                    "and tests; not a real mission or measurement. " + comment),
+        "source": f"beltkit {__version__} beltkit.demo.generate",
+        "mission": "Marram (invented)",
+        "spacecraft": name,
+        "instrument": instrument,
+        "references": "beltkit documentation, demo scenario",
+    }
+
+
+def _position_vars(time, xyz_geo, mlat, mlt, L, b_local):
+    f32 = "float32"
+    return {
+        "L": ("time", L.astype(f32), {"units": "1", "long_name": "dipole L-shell"}),
+        "mlat": ("time", mlat.astype(f32),
+                 {"units": "degree", "long_name": "magnetic latitude (dipole)"}),
+        "mlt": ("time", mlt.astype(f32), {"units": "hour", "long_name": "magnetic local time"}),
+        "b_local": ("time", b_local.astype(f32),
+                    {"units": "nT", "long_name": "field magnitude at the spacecraft (dipole)"}),
+        "position_geo": (("time", "xyz"), xyz_geo.astype(f32),
+                         {"units": "km", "long_name": "spacecraft position, GEO Cartesian"}),
+    }
+
+
+def _truth_vars(dims, prec, quasi, trapped, filling, comment):
+    attrs = {"units": "1", "comment": comment}
+    return {
+        "true_fraction_precipitating": (
+            dims, prec.astype("float32"),
+            {**attrs, "long_name": "generator truth: precipitating fraction"}),
+        "true_fraction_quasi_trapped": (
+            dims, quasi.astype("float32"),
+            {**attrs, "long_name": "generator truth: quasi-trapped fraction"}),
+        "true_fraction_trapped": (
+            dims, trapped.astype("float32"),
+            {**attrs, "long_name": "generator truth: trapped fraction"}),
+        "true_loss_cone_filling": (
+            dims, filling.astype("float32"),
+            {"units": "1", "long_name": "generator parameter: loss-cone filling F"}),
+    }
+
+
+# --------------------------------------------------------------------------- spacecraft
+def _tern_day(day_start, rng):
+    p = SCENARIO["tern"]
+    t_start = np.datetime64(SCENARIO["start"], "ns")
+    n = int(round(86_400 / p["cadence_s"]))
+    time = day_start + (np.arange(n) * p["cadence_s"] * 1e9).astype("timedelta64[ns]")
+    r_p = R_E_KM + p["perigee_altitude_km"]
+    r_a = p["apogee_re"] * R_E_KM
+    a, ecc = 0.5 * (r_p + r_a), (r_a - r_p) / (r_a + r_p)
+    # apogee towards the chosen local time at the scenario's start (orbit fixed in space)
+    ra_sun = _sun_right_ascension(t_start)
+    argp_apogee = ra_sun + np.radians((p["apogee_local_time_h"] - 12.0) * 15.0)
+    pos, _, _ = _orbit_gei(time, t_start, a_km=a, ecc=ecc, inc_deg=p["inclination_deg"],
+                           raan_rad=0.0, argp_rad=argp_apogee + np.pi,
+                           period_s=p["period_s"])
+    xyz_geo = _gei_to_geo(pos, time)
+    _, mlat, mlt, r_re = _magnetic(xyz_geo, time)
+    L, mlat, mlt = (_f32(v) for v in (dipole.l_from_position(r_re, mlat), mlat, mlt))
+    b_local = np.asarray(dipole.field_magnitude(L, mlat), float)
+
+    energy, e_bnds = _energy_grid(*p["energy_range_kev"], p["n_energy"])
+    a_edges = np.linspace(0.0, 180.0, p["n_pitch"] + 1)
+    alpha = 0.5 * (a_edges[:-1] + a_edges[1:])
+    A, n_idx, F, blc = _belt(energy, L, mlt, time)
+
+    # expected bin flux: solid-angle average over each bin (Gauss-Legendre in cos alpha)
+    x, w = np.polynomial.legendre.leggauss(24)
+    mu1, mu2 = np.cos(np.radians(a_edges[:-1])), np.cos(np.radians(a_edges[1:]))
+    mu = 0.5 * (mu1 + mu2)[:, None] + 0.5 * (mu1 - mu2)[:, None] * x[None, :]
+    nodes = np.degrees(np.arccos(np.clip(mu, -1.0, 1.0)))  # (pitch, node)
+    j = _model_flux(nodes[None, None], mlat, A, n_idx, F, blc)  # (time, energy, pitch, node)
+    mean_flux = np.einsum("tepn,n->tep", j, w) / w.sum()
+
+    d_e = e_bnds[:, 1] - e_bnds[:, 0]
+    factor = 1.0 / (p["geometric_factor_cm2_sr"] * p["accumulation_s"] * d_e)  # flux per count
+    bg_flux = p["background_counts_per_s"] * p["accumulation_s"] * factor
+    factor_b = factor[None, :, None]
+    counts, flux, flux_err = _counts_to_flux(rng, mean_flux, factor_b, bg_flux[None, :, None])
+
+    # truth: the populations' shares of the expected measured flux, split exactly in the bins
+    llc = np.asarray(dipole.local_loss_cone(L, mlat, altitude_km=100.0), float)  # (time,)
+    a1, a2 = a_edges[:-1][None, :], a_edges[1:][None, :]
+    in_cone = (_overlap(a1, a2, 0.0, llc[:, None])
+               + _overlap(a1, a2, 180.0 - llc[:, None], 180.0))  # (time, pitch)
+    omega = 2 * np.pi * (mu1 - mu2)
+    expected = (mean_flux + bg_flux[None, :, None]) * omega
+    total = expected.sum(axis=-1)
+    prec = (expected * in_cone[:, None, :]).sum(axis=-1) / total
+    quasi = np.zeros_like(prec)
+    trapped = 1.0 - prec
+
+    comment = ("Populations as in beltkit.pad.partition with the centred dipole at 100 km: "
+               "the solid-angle-weighted share of the expected measured flux (instrument "
+               "background included) in each population, each pitch-angle bin split exactly at "
+               "the loss-cone edge. Bounce and drift loss cones coincide in a dipole, so the "
+               "true quasi-trapped fraction is 0.")
+    data_vars = {
+        "flux": (("time", "energy", "pitch_angle"), flux.astype("float32"),
+                 {"units": FLUX_UNITS, "long_name": "differential directional electron flux",
+                  "ancillary_variables": "flux_err"}),
+        "flux_err": (("time", "energy", "pitch_angle"), flux_err.astype("float32"),
+                     {"units": FLUX_UNITS, "long_name": "flux uncertainty (1 sigma, Poisson)"}),
+        "counts": (("time", "energy", "pitch_angle"), counts.astype("int32"),
+                   {"units": "1", "long_name": "detector counts per sample and bin"}),
+        "energy_bnds": (("energy", "nv"), e_bnds, {"units": "keV"}),
+        "pitch_angle_bnds": (("pitch_angle", "nv"),
+                             np.stack([a_edges[:-1], a_edges[1:]], -1), {"units": "degree"}),
+        "counts_to_flux": ("energy", factor, {"units": FLUX_UNITS,
+                                              "long_name": "flux per count (flux = "
+                                                           "counts_to_flux * counts)"}),
+        "geometric_factor": ((), p["geometric_factor_cm2_sr"],
+                             {"units": "cm2 sr", "long_name": "geometric factor per bin"}),
+        "accumulation_time": ((), p["accumulation_s"],
+                              {"units": "s", "long_name": "accumulation time per bin"}),
+        **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
+        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, comment),
+    }
+    day = str(day_start)[:10]
+    ds = xr.Dataset(
+        data_vars,
+        coords={
+            "time": ("time", time, {"standard_name": "time", "long_name": "time (UTC)"}),
+            "energy": ("energy", energy, {"units": "keV", "long_name": "electron kinetic energy",
+                                          "bounds": "energy_bnds"}),
+            "pitch_angle": ("pitch_angle", alpha, {"units": "degree",
+                                                   "long_name": "local pitch angle",
+                                                   "bounds": "pitch_angle_bnds"}),
+        },
+        attrs=_common_attrs("Marram-Tern", "Fan pitch-angle spectrometer", day,
+                            "Flux = counts / (geometric_factor * accumulation_time * channel "
+                            "width); flux_err = sqrt(max(counts, 1)) likewise."),
+    )
+    return ds
+
+
+def _cap_nodes(half_angle_deg, n_theta=6, n_phi=16):
+    """Quadrature of a circular cap: polar angles, azimuths and weights (sum 1)."""
+    x, w = np.polynomial.legendre.leggauss(n_theta)
+    cos_h = np.cos(np.radians(half_angle_deg))
+    mu = 0.5 * (1 + cos_h) + 0.5 * (1 - cos_h) * x
+    phi = (np.arange(n_phi) + 0.5) * 2 * np.pi / n_phi
+    theta = np.arccos(mu)
+    weights = np.repeat(w, n_phi) / (w.sum() * n_phi)
+    return np.repeat(theta, n_phi), np.tile(phi, n_theta), weights
+
+
+def _swift_day(day_start, rng):
+    p = SCENARIO["swift"]
+    t_start = np.datetime64(SCENARIO["start"], "ns")
+    first = day_start + np.timedelta64(int(p["first_orbit_utc_h"] * 3600), "s")
+    n = int(round(p["orbits_per_day"] * p["period_s"] / p["cadence_s"]))
+    time = first + (np.arange(n) * p["cadence_s"] * 1e9).astype("timedelta64[ns]")
+    ra_sun = _sun_right_ascension(t_start)
+    raan = ra_sun + np.radians((p["ascending_node_local_time_h"] - 12.0) * 15.0)
+    pos, vel, normal = _orbit_gei(time, t_start, a_km=R_E_KM + p["altitude_km"], ecc=0.0,
+                                  inc_deg=p["inclination_deg"], raan_rad=raan, argp_rad=0.0,
+                                  period_s=p["period_s"])
+    xyz_geo = _gei_to_geo(pos, time)
+    normal_geo = _gei_to_geo(np.broadcast_to(normal, pos.shape), time)
+    xyz_mag, mlat, mlt, r_re = _magnetic(xyz_geo, time)
+    L, mlat, mlt = (_f32(v) for v in (dipole.l_from_position(r_re, mlat), mlat, mlt))
+    b_local = np.asarray(dipole.field_magnitude(L, mlat), float)
+
+    # field direction of the dipole (moment along -z_MAG): b ~ z - 3 (z.r) r
+    axes = _mag_axes()
+    r_hat = xyz_mag / np.linalg.norm(xyz_mag, axis=-1, keepdims=True)
+    b_vec = np.array([0.0, 0.0, 1.0]) - 3 * r_hat[:, 2:3] * r_hat
+    b_hat = b_vec / np.linalg.norm(b_vec, axis=-1, keepdims=True)
+    side_mag = normal_geo @ axes.T
+    side_mag = side_mag - (side_mag * r_hat).sum(-1, keepdims=True) * r_hat
+    side_mag /= np.linalg.norm(side_mag, axis=-1, keepdims=True)
+    looks = np.stack([r_hat, side_mag], axis=1)  # (time, look, 3): up, side
+    # pitch angle of the particles entering a telescope: velocity = -look direction
+    look_pa = np.degrees(np.arccos(np.clip(-(looks * b_hat[:, None, :]).sum(-1), -1, 1)))
+
+    e_bnds = np.asarray(p["energy_edges_kev"])
+    e_bnds = np.stack([e_bnds[:-1], e_bnds[1:]], axis=-1)
+    energy = np.sqrt(e_bnds[:, 0] * e_bnds[:, 1])
+    A, n_idx, F, blc = _belt(energy, L, mlt, time)
+
+    # expected telescope flux: average of the model over the circular field of view
+    theta, phi, wts = _cap_nodes(p["half_angle_deg"])
+    a0 = np.radians(look_pa)[..., None]  # (time, look, 1)
+    cos_node = np.cos(a0) * np.cos(theta) + np.sin(a0) * np.sin(theta) * np.cos(phi)
+    nodes = np.degrees(np.arccos(np.clip(cos_node, -1.0, 1.0)))  # (time, look, node)
+    j = _model_flux(nodes[:, None], mlat, A, n_idx, F, blc)  # (time, energy, look, node)
+    mean_flux = (j * wts).sum(-1)
+
+    d_e = e_bnds[:, 1] - e_bnds[:, 0]
+    factor = 1.0 / (p["geometric_factor_cm2_sr"] * p["accumulation_s"] * d_e)
+    bg_flux = p["background_counts_per_s"] * p["accumulation_s"] * factor
+    counts, flux, flux_err = _counts_to_flux(rng, mean_flux, factor[None, :, None],
+                                             bg_flux[None, :, None])
+
+    # truth: shares of the model's omnidirectional flux (fine quadrature, both hemispheres)
+    llc = np.asarray(dipole.local_loss_cone(L, mlat, altitude_km=100.0), float)
+    x, w = np.polynomial.legendre.leggauss(48)
+    cos_c = np.cos(np.radians(llc))[:, None]
+    mu_in = 0.5 * (1 + cos_c) + 0.5 * (1 - cos_c) * x  # (time, node) inside the cone
+    mu_out = 0.5 * cos_c + 0.5 * cos_c * x  # between 90 deg and the cone edge
+    j_in = _model_flux(np.degrees(np.arccos(mu_in))[:, None], mlat, A, n_idx, F, blc)
+    j_out = _model_flux(np.degrees(np.arccos(mu_out))[:, None], mlat, A, n_idx, F, blc)
+    flux_in = (j_in * w).sum(-1) * 0.5 * (1 - cos_c)
+    flux_out = (j_out * w).sum(-1) * 0.5 * cos_c
+    with np.errstate(invalid="ignore", divide="ignore"):
+        prec = flux_in / (flux_in + flux_out)
+    quasi = np.where(np.isfinite(prec), 0.0, np.nan)
+    trapped = 1.0 - prec
+
+    comment = ("Populations as in beltkit.pad.partition with the centred dipole at 100 km, as "
+               "shares of the model's omnidirectional flux at the satellite (instrument "
+               "background excluded); two telescopes cannot sample the whole sphere. Bounce "
+               "and drift loss cones coincide in a dipole, so the true quasi-trapped fraction "
+               "is 0.")
+    look = np.array(["up", "side"])
+    data_vars = {
+        "flux": (("time", "energy", "look"), flux.astype("float32"),
+                 {"units": FLUX_UNITS, "long_name": "differential directional electron flux",
+                  "ancillary_variables": "flux_err"}),
+        "flux_err": (("time", "energy", "look"), flux_err.astype("float32"),
+                     {"units": FLUX_UNITS, "long_name": "flux uncertainty (1 sigma, Poisson)"}),
+        "counts": (("time", "energy", "look"), counts.astype("int32"),
+                   {"units": "1", "long_name": "detector counts per sample"}),
+        "energy_bnds": (("energy", "nv"), e_bnds, {"units": "keV"}),
+        "look_pitch_angle": (("time", "look"), look_pa.astype("float32"),
+                             {"units": "degree",
+                              "long_name": "pitch angle of the electrons entering the "
+                                           "telescope along its axis"}),
+        "look_half_angle": ("look", np.full(2, p["half_angle_deg"]),
+                            {"units": "degree", "long_name": "field-of-view half-angle"}),
+        "counts_to_flux": ("energy", factor, {"units": FLUX_UNITS,
+                                              "long_name": "flux per count (flux = "
+                                                           "counts_to_flux * counts)"}),
+        "geometric_factor": ((), p["geometric_factor_cm2_sr"],
+                             {"units": "cm2 sr", "long_name": "geometric factor per telescope"}),
+        "accumulation_time": ((), p["accumulation_s"],
+                              {"units": "s", "long_name": "accumulation time per sample"}),
+        **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
+        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, comment),
+    }
+    day = str(day_start)[:10]
+    ds = xr.Dataset(
+        data_vars,
+        coords={
+            "time": ("time", time, {"standard_name": "time", "long_name": "time (UTC)"}),
+            "energy": ("energy", energy, {"units": "keV", "long_name": "electron kinetic energy",
+                                          "bounds": "energy_bnds"}),
+            "look": ("look", look, {"long_name": "telescope: up = local zenith, "
+                                                 "side = horizontal, across the track"}),
+        },
+        attrs=_common_attrs("Marram-Swift", "Quill electron telescope pair", day,
+                            "Flux = counts / (geometric_factor * accumulation_time * channel "
+                            "width); flux_err = sqrt(max(counts, 1)) likewise."),
+    )
+    return ds
+
+
+# --------------------------------------------------------------------------- public API
+def generate(out_dir, *, seed=20261201, n_days=None, spacecraft=("tern", "swift")) -> list[Path]:
+    """Write the synthetic Marram scenario as day-files of netCDF.
+
+    Parameters
+    ----------
+    out_dir : str or os.PathLike
+        Folder for the files (created if missing).
+    seed : int
+        Seed of the Poisson counts; the same seed gives the same data values.
+    n_days : int, optional
+        Number of days from the scenario's start (default 3, the whole storm).
+    spacecraft : sequence of {"tern", "swift"}
+        Which spacecraft to write.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, ``marram_tern_fan_synthetic_YYYYMMDD.nc`` and
+        ``marram_swift_quill_synthetic_YYYYMMDD.nc``, in time order per
+        spacecraft.
+
+    Notes
+    -----
+    Every file carries the ground truth (``true_fraction_*``) of the samples;
+    see the module docstring for the model and the truth's definition.
+
+    Examples
+    --------
+    >>> import tempfile, xarray as xr
+    >>> files = generate(tempfile.mkdtemp(), n_days=1, spacecraft=("tern",))
+    >>> ds = xr.open_dataset(files[0])
+    >>> dict(ds.sizes)["pitch_angle"], ds.attrs["title"].startswith("SYNTHETIC")
+    (12, True)
+    """
+    from .io import write_dataset
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    n_days = SCENARIO["n_days"] if n_days is None else int(n_days)
+    if not 1 <= n_days <= SCENARIO["n_days"]:
+        raise ValueError(f"n_days must be 1-{SCENARIO['n_days']}, got {n_days}")
+    unknown = set(spacecraft) - {"tern", "swift"}
+    if unknown:
+        raise ValueError(f"unknown spacecraft {sorted(unknown)}; choose from 'tern', 'swift'")
+    start = np.datetime64(SCENARIO["start"], "ns")
+    builders = {"tern": (_tern_day, "marram_tern_fan"),
+                "swift": (_swift_day, "marram_swift_quill")}
+    written = []
+    for k, name in enumerate(("tern", "swift")):
+        if name not in spacecraft:
+            continue
+        build, stem = builders[name]
+        for day in range(n_days):
+            rng = np.random.default_rng([seed, k, day])
+            day_start = start + np.timedelta64(day, "D")
+            ds = build(day_start, rng)
+            tag = str(day_start)[:10].replace("-", "")
+            path = out / f"{stem}_synthetic_{tag}.nc"
+            written.append(write_dataset(ds, path, compress=True))
+    return written
+
+
+def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
+    """Draw the demonstration figures as PNG files.
+
+    Parameters
+    ----------
+    data_files : sequence of path
+        The synthetic day-files from :func:`generate`.
+    summaries : sequence of path
+        Their summaries (same order).
+    surveys : dict of str to path
+        Survey files keyed by spacecraft (``"tern"``, ``"swift"``).
+    fig_dir : str or os.PathLike
+        Folder for the PNG files.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The PNG files written.
+    """
+    from matplotlib.figure import Figure
+
+    from . import plot
+
+    fig_dir = Path(fig_dir)
+    fig_dir.mkdir(parents=True, exist_ok=True)
+    pairs = {Path(d).name: (Path(d), Path(s)) for d, s in zip(data_files, summaries)}
+    storm_day = SCENARIO["storm_onset"][:10].replace("-", "")
+    written = []
+
+    def save(fig, name):
+        path = fig_dir / name
+        tmp = fig_dir / f".{name}.tmp.png"
+        fig.savefig(tmp, dpi=120)
+        tmp.replace(path)
+        written.append(path)
+
+    tern = pairs.get(f"marram_tern_fan_synthetic_{storm_day}.nc")
+    if tern is not None:
+        with xr.open_dataset(tern[0]) as ds, xr.open_dataset(tern[1]) as summary:
+            ds, summary = ds.load(), summary.load()
+        save(plot.pitch_angle_distribution(ds, summary, "2027-03-09T07:00",
+                                           energies=[50, 160, 520, 1700, 3000]),
+             "tern_pitch_angle_distribution.png")
+        save(plot.spectrogram(ds, summary, energy=300.0), "tern_spectrogram.png")
+    swift = pairs.get(f"marram_swift_quill_synthetic_{storm_day}.nc")
+    if swift is not None:
+        with xr.open_dataset(swift[0]) as ds, xr.open_dataset(swift[1]) as summary:
+            ds, summary = ds.load(), summary.load()
+        save(plot.spectrogram(ds, summary, energy=300.0), "swift_spectrogram.png")
+    if "tern" in surveys:
+        fig = Figure(figsize=(9.0, 6.4), layout="constrained")
+        axes = fig.subplots(2, 1, sharex=True)
+        for ax, quantity in zip(axes, ("fraction_precipitating", "fraction_quasi_trapped")):
+            plot.survey_map(surveys["tern"], quantity, energy=160.0, kind="L-time", ax=ax)
+        save(fig, "tern_survey_L_time.png")
+        save(plot.survey_map(surveys["tern"], "fraction_precipitating", energy=160.0,
+                             kind="L-MLT"), "tern_survey_L_MLT.png")
+    if "swift" in surveys:
+        save(plot.survey_map(surveys["swift"], "omni_flux", energy=190.0, kind="L-MLT"),
+             "swift_survey_L_MLT.png")
+    save(plot.loss_cone_longitude(1.5, SCENARIO["storm_onset"], n_lon=48),
+         "loss_cones_vs_longitude.png")
+    return written
+
+
+def run_demo(out_dir) -> list[Path]:
+    """Generate the scenario, run the pipeline on it and draw the figures.
+
+    Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
+    summary per file (``summaries/``, :func:`beltkit.batch.summarize`, centred
+    dipole), one survey per spacecraft (``survey_tern.nc``, 3-hour windows, and
+    ``survey_swift.nc``, daily windows; :func:`beltkit.batch.survey`) and PNG
+    figures (``figures/``, :func:`demo_figures`).
+
+    Parameters
+    ----------
+    out_dir : str or os.PathLike
+        Target folder (created if missing).
+
+    Returns
+    -------
+    list of pathlib.Path
+        Every file written.
+    """
+    from . import batch
+
+    out = Path(out_dir)
+    data_files = generate(out / "data")
+    results = batch.summarize(data_files, out / "summaries", field="dipole", overwrite=True)
+    bad = [r for r in results if r.status == "failed"]
+    if bad:
+        raise RuntimeError("demo summaries failed: " + "; ".join(
+            f"{r.input}: {r.reason}" for r in bad))
+    summaries = [Path(r.output) for r in results]
+    surveys = {}
+    for craft, window in (("tern", "3h"), ("swift", "1D")):
+        files = [s for s in summaries if f"_{craft}_" in s.name]
+        if files:
+            surveys[craft] = Path(batch.survey(files, out / f"survey_{craft}.nc",
+                                               time_window=window))
+    figures = demo_figures(data_files, summaries, surveys, out / "figures")
+    report = sorted(p for p in (out / "summaries").iterdir()
+                    if p.is_file() and not p.name.endswith(".nc"))
+    return [*data_files, *summaries, *report, *surveys.values(), *figures]

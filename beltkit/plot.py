@@ -1,0 +1,590 @@
+"""Figures of pitch-angle data, loss-cone summaries, surveys and field models.
+
+Every function draws with matplotlib's object interface (no pyplot state,
+so it runs headless under any backend), returns the
+:class:`matplotlib.figure.Figure` it drew on, and takes an ``ax`` (or
+``axes``) to draw into an existing figure. Flux colour scales are
+logarithmic; colour maps are perceptually uniform and readable in greyscale
+and by colour-blind readers (``viridis``, ``cividis``); lines differ by style
+and marker as well as by colour; every axis and colour bar names its quantity
+and unit.
+
+Inputs follow beltkit's conventions: a flux dataset (``flux`` on ``time``,
+``energy`` and ``pitch_angle`` or ``look``), its summary from
+:func:`beltkit.pad.partition` or :func:`beltkit.batch.summarize`, a survey
+file from :func:`beltkit.batch.survey`, and the per-longitude loss cones of
+:func:`beltkit.field.loss_cones_vs_longitude`.
+
+Examples
+--------
+>>> import tempfile, beltkit.demo, beltkit.pad, xarray as xr
+>>> path = beltkit.demo.generate(tempfile.mkdtemp(), n_days=1, spacecraft=("tern",))[0]
+>>> ds = xr.open_dataset(path)
+>>> fig = pitch_angle_distribution(ds, beltkit.pad.partition(ds), "2027-03-08T03:00")
+>>> fig.axes[0].get_xlabel()
+'local pitch angle (degree)'
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+from matplotlib.colors import LogNorm, Normalize
+from matplotlib.figure import Figure
+
+__all__ = [
+    "FLUX_LABEL",
+    "energy_time",
+    "loss_cone_longitude",
+    "pitch_angle_distribution",
+    "pitch_angle_time",
+    "spectrogram",
+    "survey_map",
+]
+
+FLUX_LABEL = "flux (cm$^{-2}$ s$^{-1}$ sr$^{-1}$ keV$^{-1}$)"
+_INTEGRATED_LABEL = "flux (cm$^{-2}$ s$^{-1}$ keV$^{-1}$)"
+_LINESTYLES = ("-", "--", "-.", ":")
+_MARKERS = ("o", "s", "^", "v", "D", "P", "X", "*")
+_FLUX_CMAP = "viridis"
+_FRACTION_CMAP = "cividis"
+_LABELS = {
+    "fraction_precipitating": "precipitating fraction",
+    "fraction_quasi_trapped": "quasi-trapped fraction",
+    "fraction_trapped": "trapped fraction",
+    "loss_cone_filling": "loss-cone filling ratio",
+    "omni_flux": "omnidirectional " + _INTEGRATED_LABEL,
+    "flux_precipitating": "precipitating " + _INTEGRATED_LABEL,
+    "flux_quasi_trapped": "quasi-trapped " + _INTEGRATED_LABEL,
+    "flux_trapped": "trapped " + _INTEGRATED_LABEL,
+}
+
+
+# --------------------------------------------------------------------------- helpers
+def _new_axes(ax, figsize, nrows=1, ncols=1, **kwargs):
+    """Return (fig, axes): the caller's axes' figure, or a new constrained figure."""
+    if ax is not None:
+        return ax.figure, ax
+    fig = Figure(figsize=figsize, layout="constrained")
+    axes = fig.subplots(nrows, ncols, squeeze=True, **kwargs)
+    return fig, axes
+
+
+def _energy_style(k, n):
+    """Colour (viridis sample), line style and marker of energy channel k of n."""
+    from matplotlib import colormaps
+
+    colour = colormaps[_FLUX_CMAP](0.9 * k / max(n - 1, 1))
+    return colour, _LINESTYLES[k % len(_LINESTYLES)], _MARKERS[k % len(_MARKERS)]
+
+
+def _energy_text(e_kev):
+    return f"{e_kev / 1000:.2g} MeV" if e_kev >= 1000 else f"{e_kev:.3g} keV"
+
+
+def _time_text(t):
+    return str(np.datetime64(t, "s")).replace("T", " ") + " UTC"
+
+
+def _edges_from(ds, name):
+    """Cell edges of coordinate `name` from its CF bounds, else from mid-points."""
+    bounds = ds[name].attrs.get("bounds")
+    if bounds and bounds in ds.variables:
+        b = np.asarray(ds[bounds].values, dtype=float)
+        return np.concatenate([b[:, 0], b[-1:, 1]])
+    c = np.asarray(ds[name].values, dtype=float)
+    if c.size == 1:
+        return np.array([c[0] * 0.9, c[0] * 1.1])
+    mid = 0.5 * (c[:-1] + c[1:])
+    return np.concatenate([[2 * c[0] - mid[0]], mid, [2 * c[-1] - mid[-1]]])
+
+
+def _time_edges(times):
+    t = np.asarray(times, dtype="datetime64[ns]").astype("int64").astype(float)
+    if t.size == 1:
+        return np.array([t[0] - 30e9, t[0] + 30e9]).astype("int64").astype("datetime64[ns]")
+    step = np.diff(t)
+    edges = np.concatenate([[t[0] - step[0] / 2], t[:-1] + step / 2, [t[-1] + step[-1] / 2]])
+    return edges.astype("int64").astype("datetime64[ns]")
+
+
+def _positive_norm(values):
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v) & (v > 0)]
+    if v.size == 0:
+        return LogNorm(1e-1, 1e1)
+    lo, hi = np.percentile(v, [1, 99.9])
+    return LogNorm(max(lo, hi * 1e-7), hi)
+
+
+def _loss_cones_at(ds, summary, time=None):
+    """Return the loss-cone angles (deg) for one time (or all times) as a dict.
+
+    Keys: north, south (direction-resolved local bounce loss cones), blc and
+    dlc (local bounce and drift loss cones). From the summary when given,
+    else from the dataset's dipole position (beltkit.dipole).
+    """
+    sel = {} if time is None else {"time": time}
+    if summary is not None and "blc_local" in summary:
+        s = summary.sel(sel, method="nearest") if sel else summary
+        blc = np.asarray(s["blc_local"].values, float)
+        out = {"blc": blc,
+               "dlc": np.asarray(s["dlc_local"].values, float) if "dlc_local" in s else blc}
+        out["north"] = (np.asarray(s["loss_cone_north"].values, float)
+                        if "loss_cone_north" in s else blc)
+        out["south"] = (np.asarray(s["loss_cone_south"].values, float)
+                        if "loss_cone_south" in s else blc)
+        return out
+    if "L" in ds and "mlat" in ds:
+        from . import dipole
+
+        d = ds.sel(sel, method="nearest") if sel else ds
+        blc = np.asarray(dipole.local_loss_cone(np.asarray(d["L"].values, float),
+                                                np.asarray(d["mlat"].values, float)), float)
+        return {"blc": blc, "dlc": blc, "north": blc, "south": blc}
+    return None
+
+
+def _title(ds, sample=None):
+    craft = ds.attrs.get("spacecraft", "")
+    text = craft
+    if sample is not None:
+        parts = [_time_text(sample["time"].values)]
+        if "L" in sample:
+            parts.append(f"L = {float(sample['L']):.2f}")
+        if "mlt" in sample:
+            parts.append(f"MLT = {float(sample['mlt']):.1f} h")
+        if "mlat" in sample:
+            parts.append(f"MLAT = {float(sample['mlat']):.1f}°")
+        text = (craft + "  " if craft else "") + ", ".join(parts)
+    return text
+
+
+# --------------------------------------------------------------------------- PAD
+def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=None,
+                             errorbars=True):
+    """Plot the pitch-angle distribution at one time, one curve per energy.
+
+    The bounce loss cones (towards the northern footpoint below 90 deg, the
+    southern above) are shaded and hatched; the band between the bounce and
+    drift loss cones (where quasi-trapped particles are) is shaded lighter.
+    Pitch-angle bins are drawn at their centres with their widths as
+    horizontal bars; telescope looks at their axis pitch angle with the
+    field-of-view half-angle as bar.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset (``flux`` with ``pitch_angle`` or ``look``).
+    summary : xarray.Dataset, optional
+        Its summary (loss cones ``blc_local``, ``dlc_local``,
+        ``loss_cone_north``, ``loss_cone_south``); without one, the dipole
+        loss cone of the dataset's ``L`` and ``mlat`` is drawn.
+    time : str or numpy.datetime64, optional
+        Time of the sample (nearest is taken); default the first.
+    energies : sequence of float, optional
+        Energies in keV to draw (nearest channels); default all.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into.
+    errorbars : bool
+        Draw ``flux_err`` as vertical bars.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    fig, ax = _new_axes(ax, (7.0, 4.6))
+    time = ds["time"].values[0] if time is None else np.datetime64(time, "ns")
+    sample = ds.sel(time=time, method="nearest")
+    e_all = np.asarray(ds["energy"].values, float)
+    idx = (range(e_all.size) if energies is None else
+           sorted({int(np.argmin(np.abs(e_all - e))) for e in np.atleast_1d(energies)}))
+    telescope = "look" in ds["flux"].dims
+    if telescope:
+        x = np.asarray(sample["look_pitch_angle"].values, float)
+        xerr = np.asarray(ds["look_half_angle"].values, float)
+        order = np.argsort(x)
+        angle_dim = "look"
+    else:
+        x = np.asarray(ds["pitch_angle"].values, float)
+        edges = _edges_from(ds, "pitch_angle")
+        xerr = np.vstack([x - edges[:-1], edges[1:] - x])
+        order = np.arange(x.size)
+        angle_dim = "pitch_angle"
+    cones = _loss_cones_at(ds, summary, time)
+    if cones is not None:
+        north, south = float(cones["north"]), float(cones["south"])
+        dlc = float(cones["dlc"])
+        ax.axvspan(0, north, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
+                   label="bounce loss cone", zorder=0)
+        ax.axvspan(180 - south, 180, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
+                   zorder=0)
+        if dlc > max(north, south) + 1e-6:
+            ax.axvspan(north, dlc, facecolor="0.9", edgecolor="0.55", hatch="..", lw=0,
+                       label="drift loss cone (quasi-trapped)", zorder=0)
+            ax.axvspan(180 - dlc, 180 - south, facecolor="0.9", edgecolor="0.55",
+                       hatch="..", lw=0, zorder=0)
+    for rank, k in enumerate(idx):
+        colour, ls, marker = _energy_style(rank, len(idx))
+        y = np.asarray(sample["flux"].isel(energy=k).transpose(angle_dim).values, float)
+        yerr = None
+        if errorbars and "flux_err" in sample:
+            yerr = np.asarray(sample["flux_err"].isel(energy=k).transpose(angle_dim).values,
+                              float)
+        xe = xerr if telescope else xerr
+        ax.errorbar(x[order], y[order], yerr=None if yerr is None else yerr[order],
+                    xerr=xe[order] if telescope else xe[:, order], color=colour, ls=ls,
+                    marker=marker, ms=4, lw=1.3, capsize=0, elinewidth=0.7,
+                    label=_energy_text(e_all[k]))
+    ax.set_yscale("log")
+    ax.set_xlim(0, 180)
+    ax.set_xticks(np.arange(0, 181, 30))
+    ax.set_xlabel("local pitch angle (degree)")
+    ax.set_ylabel("directional " + FLUX_LABEL)
+    ax.set_title(_title(ds, sample), fontsize="medium")
+    ax.legend(fontsize="small", ncols=2 if len(idx) > 4 else 1, loc="best", framealpha=0.85)
+    return fig
+
+
+# --------------------------------------------------------------------------- spectrograms
+def energy_time(ds, *, pitch_angle=None, summary=None, ax=None, cmap=_FLUX_CMAP):
+    """Energy-time spectrogram of the flux.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset.
+    pitch_angle : float, optional
+        Local pitch angle in degrees: the bin (or telescope look) nearest to
+        it is drawn. Default: the summary's omnidirectional flux when a
+        summary is given, else the bin nearest 90 deg (the ``side`` look).
+    summary : xarray.Dataset, optional
+        Summary holding ``omni_flux``.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into.
+    cmap : str
+        Colour map (log scale).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    fig, ax = _new_axes(ax, (8.0, 3.4))
+    if pitch_angle is None and summary is not None and "omni_flux" in summary:
+        values = summary["omni_flux"].transpose("time", "energy")
+        label, what = "omnidirectional " + _INTEGRATED_LABEL, "omnidirectional"
+    else:
+        target = 90.0 if pitch_angle is None else float(pitch_angle)
+        if "look" in ds["flux"].dims:
+            mean_pa = ds["look_pitch_angle"].mean("time").values
+            k = int(np.argmin(np.abs(mean_pa - target)))
+            values = ds["flux"].isel(look=k).transpose("time", "energy")
+            what = f"look '{ds['look'].values[k]}' (mean pitch angle {mean_pa[k]:.0f}°)"
+        else:
+            k = int(np.argmin(np.abs(ds["pitch_angle"].values - target)))
+            values = ds["flux"].isel(pitch_angle=k).transpose("time", "energy")
+            what = f"pitch angle {float(ds['pitch_angle'][k]):.1f}°"
+        label = "directional " + FLUX_LABEL
+    v = np.asarray(values.values, float)
+    mesh = ax.pcolormesh(_time_edges(ds["time"].values), _edges_from(ds, "energy"),
+                         np.ma.masked_invalid(np.where(v > 0, v, np.nan)).T,
+                         norm=_positive_norm(v), cmap=cmap, shading="flat", rasterized=True)
+    ax.set_yscale("log")
+    ax.set_ylabel("energy (keV)")
+    ax.set_xlabel("time (UTC)")
+    ax.set_title(f"{ds.attrs.get('spacecraft', '')} energy-time, {what}".strip(),
+                 fontsize="medium")
+    fig.colorbar(mesh, ax=ax, label=label, pad=0.01)
+    return fig
+
+
+def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
+    """Pitch-angle-time spectrogram at one energy with the loss cones drawn over it.
+
+    Loss-cone edges: solid white-edged lines for the bounce loss cones
+    (north below 90 deg, south above), dashed for the drift loss cone. For
+    telescope data each look is a band of points at its axis pitch angle.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset.
+    energy : float
+        Energy in keV (nearest channel).
+    summary : xarray.Dataset, optional
+        Summary with the loss cones; default the dipole loss cone.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into.
+    cmap : str
+        Colour map (log scale).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    fig, ax = _new_axes(ax, (8.0, 3.4))
+    k = int(np.argmin(np.abs(ds["energy"].values - float(energy))))
+    e_kev = float(ds["energy"].values[k])
+    times = ds["time"].values
+    if "look" in ds["flux"].dims:
+        flux = np.asarray(ds["flux"].isel(energy=k).transpose("time", "look").values, float)
+        pa = np.asarray(ds["look_pitch_angle"].transpose("time", "look").values, float)
+        tt = np.broadcast_to(times[:, None], pa.shape)
+        good = np.isfinite(flux) & (flux > 0)
+        mesh = ax.scatter(tt[good], pa[good], c=flux[good], s=4, marker="s", lw=0,
+                          norm=_positive_norm(flux), cmap=cmap, rasterized=True)
+    else:
+        v = np.asarray(ds["flux"].isel(energy=k).transpose("time", "pitch_angle").values, float)
+        mesh = ax.pcolormesh(_time_edges(times), _edges_from(ds, "pitch_angle"),
+                             np.ma.masked_invalid(np.where(v > 0, v, np.nan)).T,
+                             norm=_positive_norm(v), cmap=cmap, shading="flat", rasterized=True)
+    cones = _loss_cones_at(ds, summary)
+    if cones is not None:
+        for y, style, label in (
+                (cones["north"], "-", "bounce loss cone"), (180 - cones["south"], "-", None),
+                (cones["dlc"], "--", "drift loss cone"), (180 - cones["dlc"], "--", None)):
+            ax.plot(times, y, color="white", lw=2.6, ls="-", zorder=3)
+            ax.plot(times, y, color="black", lw=1.1, ls=style, zorder=4, label=label)
+        ax.legend(loc="upper right", fontsize="small", framealpha=0.85)
+    ax.set_ylim(0, 180)
+    ax.set_yticks(np.arange(0, 181, 45))
+    ax.set_ylabel("local pitch angle (degree)")
+    ax.set_xlabel("time (UTC)")
+    ax.set_title(f"{ds.attrs.get('spacecraft', '')} pitch-angle-time at "
+                 f"{_energy_text(e_kev)}".strip(), fontsize="medium")
+    fig.colorbar(mesh, ax=ax, label="directional " + FLUX_LABEL, pad=0.01)
+    return fig
+
+
+def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, axes=None):
+    """Three stacked panels over time: energy-time, pitch-angle-time and fractions.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset.
+    summary : xarray.Dataset, optional
+        Its summary; adds the loss cones to the middle panel and the
+        precipitating fraction per energy (with its uncertainty band) to the
+        bottom one, which also shows L on a second axis.
+    energy : float, optional
+        Energy of the middle panel in keV (default: the channel nearest 300 keV).
+    pitch_angle : float, optional
+        Pitch angle of the top panel (default: omnidirectional flux when a
+        summary is given, else nearest 90 deg).
+    axes : sequence of 3 matplotlib.axes.Axes, optional
+        Axes to draw into.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if axes is None:
+        fig = Figure(figsize=(9.0, 8.4), layout="constrained")
+        axes = fig.subplots(3, 1, sharex=True)
+    else:
+        fig = axes[0].figure
+    energy = 300.0 if energy is None else energy
+    energy_time(ds, pitch_angle=pitch_angle, summary=summary, ax=axes[0])
+    pitch_angle_time(ds, energy, summary=summary, ax=axes[1])
+    ax = axes[2]
+    times = ds["time"].values
+    if summary is not None and "fraction_precipitating" in summary:
+        e_all = np.asarray(summary["energy"].values, float)
+        for k, e in enumerate(e_all):
+            colour, ls, _ = _energy_style(k, e_all.size)
+            f = summary["fraction_precipitating"].isel(energy=k)
+            ax.plot(summary["time"].values, f.values, color=colour, ls=ls, lw=1.1,
+                    label=_energy_text(e))
+            if "fraction_precipitating_err" in summary:
+                err = summary["fraction_precipitating_err"].isel(energy=k).values
+                ax.fill_between(summary["time"].values, f.values - err, f.values + err,
+                                color=colour, alpha=0.25, lw=0)
+        ax.set_yscale("log")
+        ax.set_ylabel("precipitating fraction")
+        ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
+    if "L" in ds:
+        twin = ax.twinx() if summary is not None else ax
+        twin.plot(times, ds["L"].values, color="0.2", lw=1.0, ls=(0, (1, 1)), label="L")
+        twin.set_ylabel("L-shell (dipole)")
+        if twin is not ax:
+            twin.legend(loc="upper right", fontsize="x-small")
+    ax.set_xlabel("time (UTC)")
+    for a in axes[:2]:
+        a.set_xlabel("")
+    return fig
+
+
+# --------------------------------------------------------------------------- survey
+def _combine_cells(survey, quantity, dims):
+    """Mean of `quantity` over `dims`, weighting each cell's mean by its sample count."""
+    mean = survey[f"{quantity}_mean"]
+    count = survey[f"{quantity}_count"].where(np.isfinite(mean), 0)
+    total = count.sum(dims)
+    combined = (mean.fillna(0) * count).sum(dims) / total.where(total > 0)
+    return combined, total
+
+
+def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="L-time",
+               ax=None, vmin=None, vmax=None, log=None, min_count=1):
+    """Map a survey quantity over L and time (or over L and MLT).
+
+    Cells hold the sample-count-weighted mean of the survey's per-cell means
+    (over MLT for an L-time map, over time windows for an L-MLT map, which is
+    drawn as a polar dial: noon at the top, dusk to the left, radius L).
+
+    Parameters
+    ----------
+    survey : xarray.Dataset or str or os.PathLike
+        Survey dataset (or file) from :func:`beltkit.batch.survey`.
+    quantity : str
+        Survey variable stem, e.g. ``"fraction_precipitating"``,
+        ``"fraction_quasi_trapped"``, ``"omni_flux"``.
+    energy : float, optional
+        Energy in keV (nearest channel); default the lowest.
+    kind : {"L-time", "L-MLT"}
+        Map type.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into (polar axes for ``"L-MLT"``).
+    vmin, vmax : float, optional
+        Colour limits.
+    log : bool, optional
+        Log colour scale (default: True for fluxes and fractions).
+    min_count : int
+        Cells with fewer samples are left blank.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if not isinstance(survey, xr.Dataset):
+        survey = xr.load_dataset(survey)
+    if f"{quantity}_mean" not in survey:
+        have = sorted(n[:-5] for n in survey.data_vars if n.endswith("_mean"))
+        raise KeyError(f"survey has no {quantity!r}; it has {have}")
+    e_all = np.asarray(survey["energy"].values, float)
+    k = 0 if energy is None else int(np.argmin(np.abs(e_all - float(energy))))
+    s = survey.isel(energy=k)
+    label = _LABELS.get(quantity, quantity.replace("_", " "))
+    if kind == "L-time":
+        values, total = _combine_cells(s, quantity, "mlt")
+        values = values.where(total >= min_count).transpose("L", "time")
+        fig, ax = _new_axes(ax, (8.0, 3.6))
+        t_edges = (np.concatenate([s["time_bnds"].values[:, 0], s["time_bnds"].values[-1:, 1]])
+                   if "time_bnds" in s else _time_edges(s["time"].values))
+        x, xlabel = t_edges, "time (UTC)"
+    elif kind == "L-MLT":
+        values, total = _combine_cells(s, quantity, "time")
+        values = values.where(total >= min_count).transpose("L", "mlt")
+        if ax is None:
+            fig = Figure(figsize=(5.6, 5.0), layout="constrained")
+            ax = fig.add_subplot(projection="polar")
+        fig = ax.figure
+        m_edges = _edges_from(s, "mlt")
+        x = m_edges / 24.0 * 2 * np.pi
+        ax.set_theta_zero_location("S")  # midnight at the bottom, noon at the top
+        ax.set_theta_direction(1)  # anticlockwise: dawn (06) to the right
+        ax.set_xticks(np.arange(0, 24, 6) / 24 * 2 * np.pi)
+        ax.set_xticklabels(["00 MLT", "06", "12", "18"])
+        xlabel = None
+    else:
+        raise ValueError(f"kind must be 'L-time' or 'L-MLT', got {kind!r}")
+    v = np.asarray(values.values, float)
+    finite = v[np.isfinite(v)]
+    if log is None:
+        log = quantity.startswith(("fraction", "flux", "omni"))
+    if log:
+        pos = finite[finite > 0]
+        lo = vmin if vmin is not None else (np.percentile(pos, 2) if pos.size else 1e-4)
+        hi = vmax if vmax is not None else (pos.max() if pos.size else 1.0)
+        norm = LogNorm(lo, max(hi, lo * 10))
+        v = np.where(v > 0, v, np.nan)
+    else:
+        norm = Normalize(vmin if vmin is not None else (finite.min() if finite.size else 0),
+                         vmax if vmax is not None else (finite.max() if finite.size else 1))
+    cmap = _FLUX_CMAP if quantity.endswith("flux") or "flux_" in quantity else _FRACTION_CMAP
+    mesh = ax.pcolormesh(x, _edges_from(s, "L"), np.ma.masked_invalid(v), norm=norm,
+                         cmap=cmap, shading="flat")
+    if xlabel:
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel("L-shell")
+    else:
+        ax.set_rlabel_position(100)
+        ax.set_ylabel("L-shell", labelpad=22)
+        ax.set_xlabel("magnetic local time (h)")
+    ax.set_title(f"{label} at {_energy_text(e_all[k])} ({kind})", fontsize="medium")
+    fig.colorbar(mesh, ax=ax, label=label + (" (1)" if quantity.startswith("fraction") else ""),
+                 pad=0.08 if kind == "L-MLT" else 0.01, shrink=0.85)
+    return fig
+
+
+# --------------------------------------------------------------------------- field models
+def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf"),
+                        altitude_km=100.0, n_lon=72, ax=None):
+    """Equatorial bounce and drift loss cones versus magnetic longitude at one L.
+
+    Each model is one colour and marker; the bounce loss cone is a solid
+    line, the drift loss cone (the largest bounce loss cone on the drift
+    shell) dashed.
+
+    Parameters
+    ----------
+    L : float, optional
+        L-shell (needed unless `data` is given).
+    time : str or numpy.datetime64, optional
+        Epoch of the field models (needed unless `data` is given).
+    data : dict of str to xarray.Dataset, optional
+        Precomputed results of :func:`beltkit.field.loss_cones_vs_longitude`
+        keyed by model name (then `L`, `time`, `models` are not used).
+    models : sequence of str or FieldModel
+        Models to compute (``"dipole"``, ``"igrf"``).
+    altitude_km : float
+        Footpoint altitude in km.
+    n_lon : int
+        Number of magnetic longitudes.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if data is None:
+        if L is None or time is None:
+            raise ValueError("loss_cone_longitude needs L and time, or data=")
+        from . import field
+
+        data = {}
+        for m in models:
+            model = field.as_model(m)
+            data[getattr(model, "name", str(m))] = field.loss_cones_vs_longitude(
+                model, L, np.datetime64(time, "ns"), altitude_km=altitude_km, n_lon=n_lon)
+    fig, ax = _new_axes(ax, (7.0, 4.0))
+    from matplotlib import colormaps
+
+    cmap = colormaps[_FRACTION_CMAP]
+    for k, (name, d) in enumerate(data.items()):
+        colour = cmap(0.15 + 0.7 * k / max(len(data) - 1, 1))
+        marker = _MARKERS[k % len(_MARKERS)]
+        lon = np.asarray(d["mlon"].values, float)
+        order = np.argsort(lon)
+        every = max(lon.size // 12, 1)
+        ax.plot(lon[order], d["blc_equatorial"].values[order], color=colour, ls="-",
+                marker=marker, markevery=every, ms=5, lw=1.6,
+                label=f"{name}: bounce loss cone")
+        ax.plot(lon[order], d["dlc_equatorial"].values[order], color=colour, ls="--", lw=1.6,
+                label=f"{name}: drift loss cone")
+    first = next(iter(data.values()))
+    Lval = L if L is not None else first.attrs.get("L", first.get("L", np.nan))
+    try:
+        Ltext = f"L = {float(np.asarray(Lval).ravel()[0]):.2f}"
+    except (TypeError, ValueError):
+        Ltext = ""
+    ax.set_xlabel("magnetic longitude (degree)")
+    ax.set_ylabel("equatorial loss-cone angle (degree)")
+    ax.set_xlim(-180, 180) if np.nanmin(first["mlon"]) < 0 else ax.set_xlim(0, 360)
+    ax.set_title(f"Equatorial loss cones vs magnetic longitude, {Ltext}, "
+                 f"footpoints at {altitude_km:g} km", fontsize="medium")
+    ax.legend(fontsize="small", framealpha=0.85)
+    ax.grid(alpha=0.3)
+    return fig
