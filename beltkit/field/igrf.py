@@ -74,6 +74,11 @@ from pathlib import Path
 
 import numpy as np
 
+try:
+    import numba as _nb
+except ImportError:  # pragma: no cover - numba is a declared dependency
+    _nb = None
+
 from ..constants import R_E_KM
 from ..errors import FieldModelError
 from .timeconv import decimal_year
@@ -90,6 +95,10 @@ __all__ = [
 ]
 
 _DEFAULT_TABLE = "igrf14coeffs.shc"
+
+#: Synthesis engine used by default: "numba" (compiled, multi-threaded) when
+#: numba is importable, else "numpy" (the vectorised reference).
+DEFAULT_BACKEND = "numba" if _nb is not None else "numpy"
 _CHUNK = 8192
 
 
@@ -399,7 +408,133 @@ def _synth_block(r, u, s, cp, sp, g, h, nmax):
     return br, btheta, bphi
 
 
-def synth_spherical(r_km, colat_deg, lon_deg, g, h):
+
+# ---------------------------------------------------------------------------
+# compiled kernel (numba): the same recursion, one point at a time, run on
+# blocks of 256 points in parallel threads. Numerically the same algorithm as
+# _synth_block (the numpy reference, used by the tests to check this one).
+
+if _nb is not None:
+
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _point(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, E, F, rho):
+        a_r = R_E_KM / r
+        rho[0] = a_r * a_r * a_r
+        for n in range(1, nmax + 1):
+            rho[n] = rho[n - 1] * a_r  # rho[n - 1] = (a/r)^(n + 2)
+        E[0] = 0.0
+        F[0] = 0.0
+        E[1] = cp
+        F[1] = sp
+        A1 = s * cp
+        B1 = s * sp
+        for m in range(2, nmax + 1):
+            E[m] = E[m - 1] * A1 - F[m - 1] * B1
+            F[m] = E[m - 1] * B1 + F[m - 1] * A1
+        br = 0.0
+        X = 0.0
+        Y = 0.0
+        bp = 0.0
+        for m in range(nmax + 1):
+            if m == 0:
+                Am = 1.0
+                Bm = 0.0
+            else:
+                Am = s * E[m]
+                Bm = s * F[m]
+            # column recursion in n for this order m, starting from Q_m^m
+            # (for m = 0 from Q_0^0 = 1; there is no n = 0 term)
+            q1 = diag[m]
+            d1 = 0.0
+            q2 = 0.0
+            d2 = 0.0
+            sgq = 0.0
+            shq = 0.0
+            sg = 0.0
+            sh = 0.0
+            sgd = 0.0
+            shd = 0.0
+            if m > 0:
+                rq = rho[m - 1] * q1
+                sg = g[m, m] * rq
+                sh = h[m, m] * rq
+                sgq = (m + 1) * sg
+                shq = (m + 1) * sh
+            for n in range(m + 1, nmax + 1):
+                an = a_c[n, m]
+                bn = b_c[n, m]
+                q = an * u * q1 - bn * q2
+                d = an * (q1 + u * d1) - bn * d2
+                q2 = q1
+                d2 = d1
+                q1 = q
+                d1 = d
+                rq = rho[n - 1] * q
+                rd = rho[n - 1] * d
+                gnm = g[n, m]
+                hnm = h[n, m]
+                sg += gnm * rq
+                sh += hnm * rq
+                sgq += (n + 1) * gnm * rq
+                shq += (n + 1) * hnm * rq
+                sgd += gnm * rd
+                shd += hnm * rd
+            br += sgq * Am + shq * Bm
+            Y += sgd * Am + shd * Bm
+            if m > 0:
+                X += m * (sg * E[m] + sh * F[m])
+                bp += m * (sg * F[m] - sh * E[m])
+        return br, s * Y - u * X, bp
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _nb_spherical(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out):
+        npt = r.shape[0]
+        nblk = (npt + 255) // 256
+        for blk in _nb.prange(nblk):
+            E = np.empty(nmax + 1)
+            F = np.empty(nmax + 1)
+            rho = np.empty(nmax + 1)
+            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
+                b0, b1, b2 = _point(r[i], u[i], s[i], cp[i], sp[i], g, h, nmax,
+                                    a_c, b_c, diag, E, F, rho)
+                out[i, 0] = b0
+                out[i, 1] = b1
+                out[i, 2] = b2
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _nb_geo(xyz, g, h, nmax, a_c, b_c, diag, out):
+        npt = xyz.shape[0]
+        nblk = (npt + 255) // 256
+        for blk in _nb.prange(nblk):
+            E = np.empty(nmax + 1)
+            F = np.empty(nmax + 1)
+            rho = np.empty(nmax + 1)
+            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
+                x = xyz[i, 0]
+                y = xyz[i, 1]
+                z = xyz[i, 2]
+                rho2 = x * x + y * y
+                r = np.sqrt(rho2 + z * z)
+                rh = np.sqrt(rho2)
+                u = z / r
+                s = rh / r
+                if rh > 0.0:
+                    cp = x / rh
+                    sp = y / rh
+                else:
+                    cp = 1.0
+                    sp = 0.0
+                br, bt, bp = _point(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, E, F, rho)
+                bh = br * s + bt * u
+                out[i, 0] = bh * cp - bp * sp
+                out[i, 1] = bh * sp + bp * cp
+                out[i, 2] = br * u - bt * s
+
+else:  # pragma: no cover - numba is a declared dependency
+    _nb_spherical = _nb_geo = None
+
+
+def synth_spherical(r_km, colat_deg, lon_deg, g, h, *, backend=None):
     """Field in geocentric spherical components for one set of coefficients.
 
     Low-level: no checks of radius or time. Flat or any-shaped arrays that
@@ -411,6 +546,9 @@ def synth_spherical(r_km, colat_deg, lon_deg, g, h):
         Geocentric radius (km), colatitude and east longitude (deg).
     g, h : ndarray, shape (N+1, N+1)
         Gauss coefficients in nT (e.g. from :func:`igrf_coefficients`).
+    backend : {None, "numba", "numpy"}
+        Engine; None uses :data:`DEFAULT_BACKEND`. Both give the same values
+        to rounding.
 
     Returns
     -------
@@ -427,13 +565,24 @@ def synth_spherical(r_km, colat_deg, lon_deg, g, h):
     s = np.sin(thr)
     cp = np.cos(phr)
     sp = np.sin(phr)
-    out = _run_blocks(r.ravel(), u, s, cp, sp, np.asarray(g, float), np.asarray(h, float))
+    out = _run_blocks(
+        r.ravel(), u, s, cp, sp, np.asarray(g, float), np.asarray(h, float), backend
+    )
     return tuple(o.reshape(shape) for o in out)
 
 
-def _run_blocks(r, u, s, cp, sp, g, h):
+def _run_blocks(r, u, s, cp, sp, g, h, backend=None):
     nmax = _effective_degree(g, h)
     n = r.shape[0]
+    if _use_numba(backend):
+        a_c, b_c, diag = _recursion_constants(nmax)
+        out = np.empty((n, 3))
+        _nb_spherical(
+            np.ascontiguousarray(r), np.ascontiguousarray(u), np.ascontiguousarray(s),
+            np.ascontiguousarray(cp), np.ascontiguousarray(sp),
+            np.ascontiguousarray(g), np.ascontiguousarray(h), nmax, a_c, b_c, diag, out,
+        )
+        return [out[:, 0], out[:, 1], out[:, 2]]
     out = [np.empty(n), np.empty(n), np.empty(n)]
     for i in range(0, n, _CHUNK):
         j = min(i + _CHUNK, n)
@@ -441,6 +590,16 @@ def _run_blocks(r, u, s, cp, sp, g, h):
         for o, v in zip(out, res):
             o[i:j] = v
     return out
+
+
+def _use_numba(backend):
+    if backend is None:
+        backend = DEFAULT_BACKEND
+    if backend not in ("numba", "numpy"):
+        raise FieldModelError(f"argument 'backend' must be 'numba' or 'numpy', got {backend!r}")
+    if backend == "numba" and _nb_geo is None:
+        raise FieldModelError("backend 'numba' requested but numba is not installed")
+    return backend == "numba"
 
 
 def _effective_degree(g, h):
@@ -462,7 +621,7 @@ def _geo_angles(x, y, z):
     return r, u, s, cp, sp
 
 
-def synth_geo(xyz_km, g, h):
+def synth_geo(xyz_km, g, h, *, backend=None):
     r"""Cartesian GEO field vector for one set of coefficients (fast entry point).
 
     Low-level: no checks of radius or time, no broadcasting of time. This is
@@ -474,6 +633,8 @@ def synth_geo(xyz_km, g, h):
         GEO Cartesian positions in km.
     g, h : ndarray, shape (N+1, N+1)
         Gauss coefficients in nT of one epoch.
+    backend : {None, "numba", "numpy"}
+        Engine; None uses :data:`DEFAULT_BACKEND`.
 
     Returns
     -------
@@ -491,9 +652,17 @@ def synth_geo(xyz_km, g, h):
     """
     xyz = np.asarray(xyz_km, dtype=float)
     shape = xyz.shape
-    flat = xyz.reshape(-1, 3)
+    flat = np.ascontiguousarray(xyz.reshape(-1, 3))
+    g = np.asarray(g, float)
+    h = np.asarray(h, float)
+    if _use_numba(backend):
+        nmax = _effective_degree(g, h)
+        a_c, b_c, diag = _recursion_constants(nmax)
+        out = np.empty(flat.shape)
+        _nb_geo(flat, np.ascontiguousarray(g), np.ascontiguousarray(h), nmax, a_c, b_c, diag, out)
+        return out.reshape(shape)
     r, u, s, cp, sp = _geo_angles(flat[:, 0], flat[:, 1], flat[:, 2])
-    br, bt, bp = _run_blocks(r, u, s, cp, sp, np.asarray(g, float), np.asarray(h, float))
+    br, bt, bp = _run_blocks(r, u, s, cp, sp, g, h, "numpy")
     return _to_cartesian(br, bt, bp, u, s, cp, sp).reshape(shape)
 
 
