@@ -216,6 +216,20 @@ def _single_threaded():
                 _sync_saved = None
 
 
+def _pad_function(name):
+    """Return ``beltkit.pad.<name>`` (the engine's public entry point)."""
+    from . import pad
+
+    fn = getattr(pad, name, None)
+    if callable(fn):
+        return fn
+    # the package's export list is not in place: take it from its module
+    module = "partition" if name == "partition" else "conventions"
+    import importlib
+
+    return getattr(importlib.import_module(f".pad.{module}", __package__), name)
+
+
 def _field_model(field, epoch, ds):
     """Return the ``model`` argument for :func:`beltkit.pad.partition`."""
     name = field if isinstance(field, str) else getattr(field, "name", None)
@@ -294,10 +308,8 @@ def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
         :func:`beltkit.pad.partition`'s result plus ``L``, ``mlat`` and ``mlt``
         per time when the input has them.
     """
-    from . import pad
-
     model = _field_model(field, epoch, ds)
-    out = pad.partition(ds, model=model, altitude_km=altitude_km)
+    out = _pad_function("partition")(ds, model=model, altitude_km=altitude_km)
     for name in _POSITION:
         if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
             out[name] = ds[name]

@@ -259,8 +259,7 @@ def _cmd_survey(args, command) -> int:
 
 
 def _cmd_inspect(args, command) -> int:
-    from . import pad
-    from .batch import expand_inputs, one_line
+    from .batch import _pad_function, expand_inputs, one_line
     from .io import open_flux
 
     files = expand_inputs(args.inputs)
@@ -271,7 +270,7 @@ def _cmd_inspect(args, command) -> int:
     for path in files:
         try:
             with open_flux(path, mapping=args.mapping) as ds:
-                problems = pad.validate(ds)
+                problems = _pad_function("validate")(ds)
         except Exception as exc:  # unreadable file: one line, then the next file
             if args.debug:
                 import traceback

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-__all__ = ["flux_dataset", "write_flux_file", "write_flux_cdf"]
+__all__ = ["flux_dataset", "summary_like_dataset", "write_flux_cdf", "write_flux_file"]
 
 FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 
@@ -164,3 +164,44 @@ def write_flux_cdf(path, ds=None, **kwargs) -> Path:
         cdf.write_var(spec, var_attrs=attrs, var_data=data)
     cdf.close()
     return path
+
+
+def summary_like_dataset(n_time=200, n_energy=3, *, start="2026-03-01T00:00:00",
+                         cadence_s=60.0, seed=5, field_model="dipole",
+                         altitude_km=100.0) -> xr.Dataset:
+    """Return a dataset shaped like a summary file (for survey tests without partition).
+
+    Random fractions (summing to one), integrated fluxes, and L, mlat, mlt per
+    time; global attributes as :func:`beltkit.batch.summarize` records them.
+    """
+    rng = np.random.default_rng(seed)
+    t0 = np.datetime64(start, "ns")
+    time = t0 + (np.arange(n_time) * cadence_s * 1e9).astype("timedelta64[ns]")
+    e_edges = np.geomspace(50.0, 3000.0, n_energy + 1)
+    energy = np.sqrt(e_edges[:-1] * e_edges[1:])
+    raw = rng.gamma(2.0, size=(3, n_time, n_energy))
+    frac = raw / raw.sum(axis=0)
+    omni = 10 ** rng.uniform(2, 6, size=(n_time, n_energy))
+    te = ("time", "energy")
+    data = {
+        "fraction_precipitating": (te, frac[0], {"units": "1"}),
+        "fraction_quasi_trapped": (te, frac[1], {"units": "1"}),
+        "fraction_trapped": (te, frac[2], {"units": "1"}),
+        "omni_flux": (te, omni, {"units": "cm-2 s-1 keV-1"}),
+        "flux_precipitating": (te, omni * frac[0], {"units": "cm-2 s-1 keV-1"}),
+        "flux_quasi_trapped": (te, omni * frac[1], {"units": "cm-2 s-1 keV-1"}),
+        "flux_trapped": (te, omni * frac[2], {"units": "cm-2 s-1 keV-1"}),
+        "L": ("time", rng.uniform(1.5, 7.5, n_time), {"units": "1"}),
+        "mlat": ("time", rng.uniform(-20, 20, n_time), {"units": "degree"}),
+        "mlt": ("time", rng.uniform(0, 24, n_time), {"units": "h"}),
+        "energy_bnds": (("energy", "nv"), np.stack([e_edges[:-1], e_edges[1:]], -1),
+                        {"units": "keV"}),
+    }
+    data["fraction_trapped"][1][0, 0] = np.nan  # one missing value
+    return xr.Dataset(
+        data,
+        coords={"time": ("time", time, {"standard_name": "time"}),
+                "energy": ("energy", energy, {"units": "keV", "bounds": "energy_bnds"})},
+        attrs={"field_model": field_model, "field_epoch": "2020",
+               "footpoint_altitude_km": altitude_km},
+    )
