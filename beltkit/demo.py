@@ -37,7 +37,8 @@ shell L outside the bounce loss cone (equatorial half-angle
     j(\alpha_{eq} < \alpha_c) = A\,\sin^{n}\alpha_c\,F,
 
 with a two-zone amplitude A (inner zone near L = 1.6, a slot at L ~ 2-3, an
-outer zone near L = 4.7 that moves inward during the injection), spectra
+outer zone near L = 4.7 that moves inward during the injection, and a soft
+component peaking near L = 10 on stretched field lines), spectra
 falling with energy as power laws, an index n that is larger in the slot and
 smaller when diffusion is strong, an edge width :math:`w = 0.5\,\alpha_c + 1`
 deg, and a loss-cone filling :math:`F = \zeta / (1 + \zeta)` set by a
@@ -257,10 +258,15 @@ def _belt(energy_kev, L, mlt, time):
     outer = 2e6 * (E / 100.0) ** -2.1 * np.exp(-0.5 * ((Lc - centre) / width) ** 2)
     outer = outer * (1.0 + 6.0 * inj * np.exp(-E / 200.0)) * (
         1.0 + 2.0 * bld * (E / 1000.0) ** 0.7)
-    boundary = np.exp(-np.clip(Lc - 7.0, 0.0, None) ** 2 / 0.5)
-    amplitude = (inner + outer) * boundary
+    boundary = np.exp(-((np.clip(Lc - 7.0, 0.0, None) / 2.0) ** 2))
+    # soft electrons of the stretched night-side and high-latitude field lines
+    sheet = 3e4 * (E / 100.0) ** -3.0 * np.exp(-0.5 * ((Lc - 10.0) / 3.0) ** 2) * (
+        1.0 + 2.0 * inj)
+    amplitude = (inner + outer) * boundary + sheet
     dawn = 1.0 + 0.7 * np.cos(2 * np.pi * (mlt[:, None] - 7.0) / 24.0)
     zeta = 0.1 + 3.0 * dif * np.exp(-0.5 * ((Lc - 5.0) / 1.3) ** 2) * dawn * (E / 200.0) ** -0.3
+    # stretched field lines beyond L ~ 7 scatter strongly: an isotropic boundary
+    zeta = zeta + 30.0 * np.clip((Lc - 6.5) / 2.0, 0.0, None) ** 2
     index = (1.0 + 1.4 * np.exp(-0.5 * ((Lc - 2.6) / 0.7) ** 2)
              + 0.4 * (E / 1000.0) ** 0.5) / (1.0 + 0.4 * zeta)
     filling = zeta / (1.0 + zeta)
@@ -689,10 +695,13 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
             ds, summary = ds.load(), summary.load()
         save(plot.spectrogram(ds, summary, energy=300.0), "swift_spectrogram.png")
     if "tern" in surveys:
-        fig = Figure(figsize=(9.0, 6.4), layout="constrained")
-        axes = fig.subplots(2, 1, sharex=True)
-        for ax, quantity in zip(axes, ("fraction_precipitating", "fraction_quasi_trapped")):
+        fig = Figure(figsize=(9.0, 8.4), layout="constrained")
+        axes = fig.subplots(3, 1, sharex=True)
+        for ax, quantity in zip(axes, ("fraction_precipitating", "fraction_quasi_trapped",
+                                       "omni_flux")):
             plot.survey_map(surveys["tern"], quantity, energy=160.0, kind="L-time", ax=ax)
+        axes[1].set_title(axes[1].get_title() + " (centred dipole: drift loss cone = bounce "
+                          "loss cone)", fontsize="medium")
         save(fig, "tern_survey_L_time.png")
         save(plot.survey_map(surveys["tern"], "fraction_precipitating", energy=160.0,
                              kind="L-MLT"), "tern_survey_L_MLT.png")
@@ -709,7 +718,7 @@ def run_demo(out_dir) -> list[Path]:
 
     Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
     summary per file (``summaries/``, :func:`beltkit.batch.summarize`, centred
-    dipole), one survey per spacecraft (``survey_tern.nc``, 3-hour windows, and
+    dipole), one survey per spacecraft (``survey_tern.nc``, hourly windows, and
     ``survey_swift.nc``, daily windows; :func:`beltkit.batch.survey`) and PNG
     figures (``figures/``, :func:`demo_figures`).
 
@@ -734,10 +743,11 @@ def run_demo(out_dir) -> list[Path]:
             f"{r.input}: {r.reason}" for r in bad))
     summaries = [Path(r.output) for r in results]
     surveys = {}
-    for craft, window in (("tern", "3h"), ("swift", "1D")):
+    for craft, window, l_step in (("tern", "1h", 0.25), ("swift", "1D", 0.5)):
         files = [s for s in summaries if f"_{craft}_" in s.name]
         if files:
             surveys[craft] = Path(batch.survey(files, out / f"survey_{craft}.nc",
+                                               l_edges=np.arange(1.0, 8.01, l_step),
                                                time_window=window))
     figures = demo_figures(data_files, summaries, surveys, out / "figures")
     report = sorted(p for p in (out / "summaries").iterdir()

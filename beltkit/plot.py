@@ -78,6 +78,21 @@ def _energy_style(k, n):
     return colour, _LINESTYLES[k % len(_LINESTYLES)], _MARKERS[k % len(_MARKERS)]
 
 
+def _time_axis(ax):
+    """Concise date labels on the x axis."""
+    from matplotlib.dates import AutoDateLocator, ConciseDateFormatter
+
+    locator = AutoDateLocator(minticks=4, maxticks=9)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(ConciseDateFormatter(locator))
+
+
+def _display(v, norm):
+    """Values for a log colour scale: zeros at the scale's floor, NaN (no data) masked."""
+    v = np.where(np.isfinite(v) & (v <= 0), norm.vmin, v)
+    return np.ma.masked_invalid(v)
+
+
 def _energy_text(e_kev):
     return f"{e_kev / 1000:.2g} MeV" if e_kev >= 1000 else f"{e_kev:.3g} keV"
 
@@ -286,9 +301,11 @@ def energy_time(ds, *, pitch_angle=None, summary=None, ax=None, cmap=_FLUX_CMAP)
             what = f"pitch angle {float(ds['pitch_angle'][k]):.1f}°"
         label = "directional " + FLUX_LABEL
     v = np.asarray(values.values, float)
+    norm = _positive_norm(v)
     mesh = ax.pcolormesh(_time_edges(ds["time"].values), _edges_from(ds, "energy"),
-                         np.ma.masked_invalid(np.where(v > 0, v, np.nan)).T,
-                         norm=_positive_norm(v), cmap=cmap, shading="flat", rasterized=True)
+                         _display(v, norm).T, norm=norm, cmap=cmap, shading="flat",
+                         rasterized=True)
+    _time_axis(ax)
     ax.set_yscale("log")
     ax.set_ylabel("energy (keV)")
     ax.set_xlabel("time (UTC)")
@@ -330,14 +347,16 @@ def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
         flux = np.asarray(ds["flux"].isel(energy=k).transpose("time", "look").values, float)
         pa = np.asarray(ds["look_pitch_angle"].transpose("time", "look").values, float)
         tt = np.broadcast_to(times[:, None], pa.shape)
-        good = np.isfinite(flux) & (flux > 0)
-        mesh = ax.scatter(tt[good], pa[good], c=flux[good], s=4, marker="s", lw=0,
-                          norm=_positive_norm(flux), cmap=cmap, rasterized=True)
+        good = np.isfinite(flux) & np.isfinite(pa)
+        norm = _positive_norm(flux)
+        mesh = ax.scatter(tt[good], pa[good], c=_display(flux[good], norm), s=5, marker="s",
+                          lw=0, norm=norm, cmap=cmap, rasterized=True)
     else:
         v = np.asarray(ds["flux"].isel(energy=k).transpose("time", "pitch_angle").values, float)
+        norm = _positive_norm(v)
         mesh = ax.pcolormesh(_time_edges(times), _edges_from(ds, "pitch_angle"),
-                             np.ma.masked_invalid(np.where(v > 0, v, np.nan)).T,
-                             norm=_positive_norm(v), cmap=cmap, shading="flat", rasterized=True)
+                             _display(v, norm).T, norm=norm, cmap=cmap, shading="flat",
+                             rasterized=True)
     cones = _loss_cones_at(ds, summary)
     if cones is not None:
         for y, style, label in (
@@ -348,6 +367,7 @@ def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
         ax.legend(loc="upper right", fontsize="small", framealpha=0.85)
     ax.set_ylim(0, 180)
     ax.set_yticks(np.arange(0, 181, 45))
+    _time_axis(ax)
     ax.set_ylabel("local pitch angle (degree)")
     ax.set_xlabel("time (UTC)")
     ax.set_title(f"{ds.attrs.get('spacecraft', '')} pitch-angle-time at "
@@ -391,17 +411,23 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, axes=None):
     times = ds["time"].values
     if summary is not None and "fraction_precipitating" in summary:
         e_all = np.asarray(summary["energy"].values, float)
+        frac = summary["fraction_precipitating"]
+        median = float(np.nanmedian(frac.values)) if np.isfinite(frac.values).any() else 1.0
+        band = summary["time"].size <= 3000 and "fraction_precipitating_err" in summary
         for k, e in enumerate(e_all):
             colour, ls, _ = _energy_style(k, e_all.size)
-            f = summary["fraction_precipitating"].isel(energy=k)
-            ax.plot(summary["time"].values, f.values, color=colour, ls=ls, lw=1.1,
+            f = frac.isel(energy=k).values
+            ax.plot(summary["time"].values, f, color=colour, ls=ls, lw=1.1,
                     label=_energy_text(e))
-            if "fraction_precipitating_err" in summary:
+            if band:
                 err = summary["fraction_precipitating_err"].isel(energy=k).values
-                ax.fill_between(summary["time"].values, f.values - err, f.values + err,
-                                color=colour, alpha=0.25, lw=0)
-        ax.set_yscale("log")
-        ax.set_ylabel("precipitating fraction")
+                ax.fill_between(summary["time"].values, f - err, f + err, color=colour,
+                                alpha=0.25, lw=0)
+        if median < 0.05:
+            ax.set_yscale("log")
+        else:
+            ax.set_ylim(0, 1)
+        ax.set_ylabel("precipitating fraction (1)")
         ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
     if "L" in ds:
         twin = ax.twinx() if summary is not None else ax
@@ -410,6 +436,7 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, axes=None):
         if twin is not ax:
             twin.legend(loc="upper right", fontsize="x-small")
     ax.set_xlabel("time (UTC)")
+    _time_axis(ax)
     for a in axes[:2]:
         a.set_xlabel("")
     return fig
@@ -492,7 +519,11 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
     v = np.asarray(values.values, float)
     finite = v[np.isfinite(v)]
     if log is None:
-        log = quantity.startswith(("fraction", "flux", "omni"))
+        log = quantity.startswith(("fraction", "flux", "omni", "loss_cone"))
+    all_zero = finite.size > 0 and not np.any(finite != 0)
+    if all_zero:
+        log = False
+        vmin, vmax = (0.0, 1.0) if vmin is None and vmax is None else (vmin, vmax)
     if log:
         pos = finite[finite > 0]
         lo = vmin if vmin is not None else (np.percentile(pos, 2) if pos.size else 1e-4)
@@ -508,11 +539,16 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
     if xlabel:
         ax.set_xlabel(xlabel)
         ax.set_ylabel("L-shell")
+        _time_axis(ax)
+        where = "L-time"
     else:
         ax.set_rlabel_position(100)
-        ax.set_ylabel("L-shell", labelpad=22)
-        ax.set_xlabel("magnetic local time (h)")
-    ax.set_title(f"{label} at {_energy_text(e_all[k])} ({kind})", fontsize="medium")
+        ax.set_xlabel("magnetic local time (h); radius: L-shell")
+        where = "L-MLT"
+    title = f"{label} at {_energy_text(e_all[k])} ({where})"
+    if all_zero:
+        title += ": zero in every cell"
+    ax.set_title(title, fontsize="medium")
     fig.colorbar(mesh, ax=ax, label=label + (" (1)" if quantity.startswith("fraction") else ""),
                  pad=0.08 if kind == "L-MLT" else 0.01, shrink=0.85)
     return fig
