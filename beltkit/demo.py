@@ -77,11 +77,11 @@ non-dipole field (run the pipeline with ``field="igrf"`` on ``position_geo``).
   there is the fraction of the model's omnidirectional flux (background
   excluded) in each population at the satellite.
 
-Orbit geometry uses low-precision formulas (Greenwich mean sidereal time and
-the Sun's direction, both from the Astronomical Almanac's low-precision
-series) and the centred dipole of IGRF-14 2020 (:mod:`beltkit.constants`);
-``L``, ``mlat`` and ``b_local`` are the dipole values that beltkit's default
-field model uses.
+Orbit geometry uses beltkit's own frames (:mod:`beltkit.field.sun`,
+:mod:`beltkit.field.coords`: sidereal time, the Sun's direction, magnetic
+latitude and MLT of the IGRF-14 centred dipole of the date); ``L``, ``mlat``
+and ``b_local`` are the centred-dipole values (:mod:`beltkit.dipole`) that
+beltkit's default field model uses, so truth and pipeline agree.
 """
 
 from __future__ import annotations
@@ -92,7 +92,7 @@ import numpy as np
 import xarray as xr
 
 from . import __version__, dipole
-from .constants import G10_NT, G11_NT, H11_NT, R_E_KM
+from .constants import R_E_KM
 
 __all__ = ["SCENARIO", "demo_figures", "generate", "run_demo"]
 
@@ -137,63 +137,26 @@ SCENARIO = {
     },
 }
 
-_J2000 = np.datetime64("2000-01-01T12:00:00", "ns")
-
 
 # --------------------------------------------------------------------------- geometry
-def _days_since_j2000(time):
-    return (time - _J2000) / np.timedelta64(86_400_000_000_000, "ns")
-
-
-def _gmst_rad(time):
-    """Greenwich mean sidereal time (low-precision linear series, degrees per day)."""
-    d = _days_since_j2000(time)
-    return np.radians((280.46061837 + 360.98564736629 * d) % 360.0)
-
-
-def _sun_direction_gei(time):
-    """Return the unit vector to the Sun in the inertial equatorial frame (~0.01 deg).
-
-    Astronomical Almanac low-precision solar coordinates (from memory; a test
-    compares them with astropy's ``get_sun``).
-    """
-    d = _days_since_j2000(time)
-    mean_lon = np.radians((280.460 + 0.9856474 * d) % 360.0)
-    anomaly = np.radians((357.528 + 0.9856003 * d) % 360.0)
-    ecl_lon = mean_lon + np.radians(1.915 * np.sin(anomaly) + 0.020 * np.sin(2 * anomaly))
-    obliquity = np.radians(23.439 - 4e-7 * d)
-    return np.stack([np.cos(ecl_lon), np.cos(obliquity) * np.sin(ecl_lon),
-                     np.sin(obliquity) * np.sin(ecl_lon)], axis=-1)
-
-
 def _gei_to_geo(xyz, time):
-    theta = _gmst_rad(time)
+    """Rotate GEI vectors into GEO about the common z axis by the sidereal angle."""
+    from .field.sun import gmst_deg
+
+    theta = np.radians(gmst_deg(time))
     c, s = np.cos(theta), np.sin(theta)
     x, y, z = xyz[..., 0], xyz[..., 1], xyz[..., 2]
     return np.stack([c * x + s * y, -s * x + c * y, z], axis=-1)
 
 
-def _mag_axes():
-    """Rows: the MAG frame's x, y, z axes in GEO (z = northern dipole pole)."""
-    z = -np.array([G11_NT, H11_NT, G10_NT])
-    z = z / np.linalg.norm(z)
-    y = np.cross([0.0, 0.0, 1.0], z)
-    y = y / np.linalg.norm(y)
-    x = np.cross(y, z)
-    return np.stack([x, y, z])
-
-
 def _magnetic(xyz_geo_km, time):
-    """Return MAG-frame position, magnetic latitude (deg), MLT (h) and r (R_E)."""
-    axes = _mag_axes()
-    xyz_mag = xyz_geo_km @ axes.T
-    r = np.linalg.norm(xyz_mag, axis=-1)
-    mlat = np.degrees(np.arcsin(xyz_mag[..., 2] / r))
-    mlon = np.degrees(np.arctan2(xyz_mag[..., 1], xyz_mag[..., 0]))
-    sun_mag = _gei_to_geo(_sun_direction_gei(time), time) @ axes.T
-    sun_lon = np.degrees(np.arctan2(sun_mag[..., 1], sun_mag[..., 0]))
-    mlt = (12.0 + (mlon - sun_lon) / 15.0) % 24.0
-    return xyz_mag, mlat, mlt, r / R_E_KM
+    """Return MAG-frame position (km), magnetic latitude (deg), MLT (h) and r (R_E)."""
+    from .field.coords import convert, magnetic_coordinates, magnetic_local_time
+
+    mlat, _, r_re = magnetic_coordinates(xyz_geo_km, time)
+    mlt = magnetic_local_time(xyz_geo_km, time)
+    xyz_mag = np.asarray(convert(xyz_geo_km, time, "GEO", "MAG"), float)
+    return xyz_mag, np.asarray(mlat, float), np.asarray(mlt, float), np.asarray(r_re, float)
 
 
 def _orbit_gei(time, t0, *, a_km, ecc, inc_deg, raan_rad, argp_rad, period_s):
@@ -220,7 +183,9 @@ def _orbit_gei(time, t0, *, a_km, ecc, inc_deg, raan_rad, argp_rad, period_s):
 
 
 def _sun_right_ascension(time):
-    s = _sun_direction_gei(time)
+    from .field.sun import sun_direction_gei
+
+    s = sun_direction_gei(time)
     return np.arctan2(s[..., 1], s[..., 0])
 
 
@@ -489,11 +454,12 @@ def _swift_day(day_start, rng):
     b_local = np.asarray(dipole.field_magnitude(L, mlat), float)
 
     # field direction of the dipole (moment along -z_MAG): b ~ z - 3 (z.r) r
-    axes = _mag_axes()
+    from .field.coords import convert
+
     r_hat = xyz_mag / np.linalg.norm(xyz_mag, axis=-1, keepdims=True)
     b_vec = np.array([0.0, 0.0, 1.0]) - 3 * r_hat[:, 2:3] * r_hat
     b_hat = b_vec / np.linalg.norm(b_vec, axis=-1, keepdims=True)
-    side_mag = normal_geo @ axes.T
+    side_mag = np.asarray(convert(normal_geo, time, "GEO", "MAG"), float)
     side_mag = side_mag - (side_mag * r_hat).sum(-1, keepdims=True) * r_hat
     side_mag /= np.linalg.norm(side_mag, axis=-1, keepdims=True)
     looks = np.stack([r_hat, side_mag], axis=1)  # (time, look, 3): up, side
