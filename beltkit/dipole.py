@@ -155,30 +155,77 @@ def _mirror_mlat_rad(alpha_eq_deg):
     s = np.sin(a) ** 2
     # cos^2(alpha) as sin^2(90 deg - alpha): exactly 0 at 90 deg, full precision near it
     c = np.sin(np.deg2rad(90.0 - np.asarray(alpha_eq_deg, dtype=float))) ** 2
-    out = np.full(s.shape, np.nan)
-    nan = np.isnan(s)
-    far = ~nan & (s < 0.5)
-    near = ~nan & ~far
+    return _mirror_lat_sc(s, c)
+
+
+def _mirror_lat_sc(s, c):
+    """Return the mirror latitude (rad) from s = sin^2(alpha_eq) and c = cos^2(alpha_eq).
+
+    Both are passed so that callers holding y = sin(alpha_eq) can give
+    c = (1 - y)(1 + y) without loss of precision near the equator.
+    """
+    w, u = _mirror_sin2_cos2(s, c)
+    return np.arctan2(np.sqrt(w), np.sqrt(u))
+
+
+# elements per block of the mirror-point solver (keeps its temporaries in cache)
+_SOLVER_BLOCK = 1 << 15
+
+
+def _mirror_sin2_cos2(s, c):
+    """Return (sin^2, cos^2) of the mirror latitude, each to full relative precision.
+
+    ``s`` and ``c`` are sin^2 and cos^2 of the equatorial pitch angle (folded to
+    [0, 90] deg). See :func:`_mirror_mlat_rad` for the two Newton branches.
+    Large arrays are solved in blocks of bounded size.
+    """
+    s, c = np.broadcast_arrays(np.asarray(s, dtype=float), np.asarray(c, dtype=float))
+    if s.size <= _SOLVER_BLOCK:
+        return _mirror_block(s, c)
+    sf = s.ravel()
+    cf = c.ravel()
+    w_out = np.empty(sf.shape)
+    u_out = np.empty(sf.shape)
+    for i in range(0, sf.size, _SOLVER_BLOCK):
+        w_out[i:i + _SOLVER_BLOCK], u_out[i:i + _SOLVER_BLOCK] = _mirror_block(
+            sf[i:i + _SOLVER_BLOCK], cf[i:i + _SOLVER_BLOCK])
+    return w_out.reshape(s.shape), u_out.reshape(s.shape)
+
+
+def _mirror_block(s, c):
+    """Solve the mirror condition for one block (see :func:`_mirror_sin2_cos2`)."""
+    w_out = np.full(s.shape, np.nan)
+    u_out = np.full(s.shape, np.nan)
+    with np.errstate(invalid="ignore"):
+        far = s < 0.5
+        near = s >= 0.5
 
     if np.any(far):
         sf = s[far]
         s2 = sf * sf
         u = np.cbrt(2.0 * sf)  # (4 s^2)^(1/6), above the root: f(u0) = 3 s^2 u0 > 0
         pos = u > 0.0
+        polish = False
         for _ in range(60):
             u3 = u * u * u
             f = u3 * u3 + 3.0 * s2 * u - 4.0 * s2
             fp = 6.0 * u3 * u * u + 3.0 * s2
             step = np.divide(f, fp, out=np.zeros_like(f), where=pos)
             u = u - step
-            if not np.any(np.abs(step) > 1e-16 * u):
+            if polish:
                 break
-        out[far] = np.arccos(np.sqrt(np.clip(u, 0.0, 1.0)))
+            # quadratic convergence: once the relative step is below 1e-9, one
+            # more step reaches the rounding level (further steps only dither)
+            polish = not np.any(np.abs(step) > 1e-9 * u)
+        u = np.clip(u, 0.0, 1.0)
+        u_out[far] = u
+        w_out[far] = 1.0 - u
 
     if np.any(near):
         sn = s[near]
         cn = c[near]
         w = np.zeros_like(sn)
+        polish = False
         for _ in range(60):
             om = 1.0 - w
             om3 = om * om * om
@@ -186,10 +233,13 @@ def _mirror_mlat_rad(alpha_eq_deg):
             gp = 6.0 * om3 * om * om + 3.0 * sn * sn  # -dg/dw > 0
             step = g / gp
             w = w + step
-            if not np.any(np.abs(step) > 1e-16 * w):
+            if polish:
                 break
-        out[near] = np.arcsin(np.sqrt(np.clip(w, 0.0, 1.0)))
-    return out
+            polish = not np.any(np.abs(step) > 1e-9 * w)
+        w = np.clip(w, 0.0, 1.0)
+        w_out[near] = w
+        u_out[near] = 1.0 - w
+    return w_out, u_out
 
 
 # ---------------------------------------------------------------- public API

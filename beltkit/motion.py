@@ -1,0 +1,515 @@
+r"""Bounce and drift motion of trapped particles in a centred dipole.
+
+With :math:`y = \sin\alpha_{eq}`, :math:`\lambda_m` the mirror latitude and
+:math:`b(\lambda) = \sqrt{1 + 3\sin^2\lambda}/\cos^6\lambda`, the bounce period
+and the bounce-averaged gradient-curvature drift rate are
+
+.. math::
+
+    T_b = \frac{4 L R_E}{v}\, T(y), \qquad
+    \langle\Omega_d\rangle = \frac{3 L\, p v}{q B_0 R_E^2}\, \frac{D(y)}{T(y)},
+
+.. math::
+
+    T(y) = \int_0^{\lambda_m} \frac{\cos\lambda \sqrt{1 + 3\sin^2\lambda}}
+        {\sqrt{1 - y^2 b(\lambda)}}\, d\lambda, \qquad
+    D(y) = \frac{1}{12} \int_0^{\lambda_m} \frac{\cos\lambda \sqrt{1 + 3\sin^2\lambda}
+        \,\left(4 + 2 y^2 b(\lambda)\right)}{\sqrt{1 - y^2 b(\lambda)}}\, d\lambda .
+
+Both are fully relativistic through :math:`v` and :math:`p v`
+(:mod:`beltkit.particles`). Electrons drift eastward, positive ions westward.
+
+How the integrals are computed
+------------------------------
+The substitution :math:`\lambda = \lambda_m \sin t`, :math:`t \in [0, \pi/2]`,
+removes the integrable singularity at the mirror point. Writing
+:math:`\delta = \lambda_m (1 - \sin t)` and :math:`\varepsilon = \lambda_m(1 + \sin t)`,
+so that :math:`\sin^2\lambda_m - \sin^2\lambda = \sin\delta \sin\varepsilon`, and
+factoring :math:`b(\lambda_m) - b(\lambda)` exactly by that difference, the
+transformed integrand becomes
+
+.. math::
+
+    J(t) = \cos\lambda \sqrt{1 + 3\sin^2\lambda}
+        \sqrt{\frac{R(\lambda, \lambda_m)}{\operatorname{sinc}\delta \,
+        \operatorname{sinc}\varepsilon}}, \qquad
+    R = \frac{b(\lambda_m)\,(\sin^2\lambda_m - \sin^2\lambda)}{b(\lambda_m) - b(\lambda)},
+
+an analytic function of :math:`t` with no cancellation anywhere, including
+:math:`y \to 1` (where :math:`\lambda_m \to 0`) and :math:`y \to 0`. Fixed
+Gauss-Legendre rules then converge exponentially; the number of nodes is
+chosen per element from four tiers in :math:`y` (12 nodes for
+:math:`y \ge 0.1`, up to 64 for :math:`y < 10^{-4}`), which keeps the
+relative error below about 1e-10 everywhere. Arrays are processed in chunks
+of bounded size.
+
+References
+----------
+Hamlin, Karplus, Vik and Watson, "Mirror and azimuthal drift frequencies for
+geomagnetically trapped particles", J. Geophys. Res. 66, 1 (1961).
+M. Schulz and L. J. Lanzerotti, *Particle Diffusion in the Radiation Belts*
+(Springer, 1974), ch. 1.
+M. Walt, *Introduction to Geomagnetically Trapped Radiation* (Cambridge
+University Press, 1994), ch. 4-5.
+
+Examples
+--------
+>>> from beltkit import motion
+>>> round(motion.bounce_integral(0.0), 6)
+1.380173
+>>> round(motion.drift_period(1000.0, 6.6, 90.0) / 60.0, 1)
+9.6
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.constants as _sc
+
+from ._wrap import array_api, check_range
+from .constants import B0_NT, KEV_J, R_E_M
+from .dipole import _fold, _mirror_sin2_cos2
+from .errors import PhysicsError
+from .particles import get_species
+
+__all__ = [
+    "BOUNCE_METHODS",
+    "DRIFT_METHODS",
+    "bounce_integral",
+    "bounce_period",
+    "drift_direction",
+    "drift_integral",
+    "drift_period",
+    "drift_rate",
+]
+
+#: Methods accepted by :func:`bounce_period`.
+BOUNCE_METHODS = ("exact", "hamlin", "schulz")
+#: Methods accepted by :func:`drift_period` and :func:`drift_rate`.
+DRIFT_METHODS = ("exact", "approx")
+
+# (lower bound of y, number of Gauss-Legendre nodes) from the largest y down.
+# Node counts were chosen from convergence runs against 30-digit quadrature:
+# the relative error of both T and D stays below ~1e-10 in every tier.
+_TIERS = (
+    (0.3, 10, "x"),
+    (0.05, 16, "x"),
+    (1e-2, 24, "x"),
+    (1e-3, 32, "x"),
+    (1e-6, 24, "l"),
+    (0.0, 48, "l"),
+)
+# Node-element products per chunk (bounds the temporaries to a few MB).
+_CHUNK = 1 << 17
+# Floor on the mirror latitude (rad) so that y = 1 needs no special case; the
+# true mirror latitude of any y < 1 in double precision is above 1e-9 rad.
+_LAMBDA_FLOOR = 1e-150
+
+
+def _rule(n):
+    """Return node tables for the substituted integrals on t in [0, pi/2]."""
+    x, w = np.polynomial.legendre.leggauss(n)
+    t = 0.25 * np.pi * (1.0 + x)
+    sin_t = np.sin(t)
+    one_minus_sin_t = 2.0 * np.sin(0.125 * np.pi * (1.0 - x)) ** 2  # 1 - sin t, exactly
+    return sin_t, one_minus_sin_t, 1.0 + sin_t, 0.25 * np.pi * w
+
+
+_RULES = {n: _rule(n) for _, n, _ in _TIERS}
+
+
+def _tail(jt, g, gm, c2, c2m, w, with_d):
+    """Finish a block: T = sum w J, and D = sum w J (4 + 2 b/b_m) / 12."""
+    t_val = jt @ w
+    if not with_d:
+        return t_val, None
+    q = c2m / c2
+    ratio = (g / gm) * (q * q * q)  # y^2 b(lambda) = b(lambda) / b(lambda_m)
+    return t_val, (jt * (4.0 + 2.0 * ratio)) @ w / 12.0
+
+
+def _ratio_r(g, gm, c2, c2m):
+    """Return R = b_m (sin^2 l_m - sin^2 l) / (b_m - b), factored without cancellation.
+
+    With b = g / c2^3, b_m - b = (sin^2 l_m - sin^2 l) [3 c2^3 / (g_m + g)
+    + g (c2^2 + c2 c2m + c2m^2)] / (c2^3 c2m^3): every term is positive.
+    """
+    h = c2 * c2 * c2
+    return gm * h / (3.0 * h / (gm + g) + g * (c2 * c2 + c2 * c2m + c2m * c2m))
+
+
+def _block_algebraic(xm, c2m, n, with_d):
+    """T and D for one block with x = sin(lambda) = x_m sin(t) (no trigonometry per node).
+
+    Then x_m^2 - x^2 = x_m^2 cos^2 t exactly, and the integrand of T in t is
+    g(x) sqrt(R): an analytic function of sin t.
+    """
+    sin_t, oms, _, w = _RULES[n]
+    xm = xm[:, None]
+    c2m = c2m[:, None]
+    gm = np.sqrt(4.0 - 3.0 * c2m)
+    x = xm * sin_t
+    # cos^2(lambda) = (1 - x)(1 + x) with 1 - x = (1 - x_m) + x_m (1 - sin t), no cancellation
+    c2 = (c2m / (1.0 + xm) + xm * oms) * (1.0 + x)
+    g = np.sqrt(1.0 + 3.0 * x * x)
+    jt = g * np.sqrt(_ratio_r(g, gm, c2, c2m))
+    return _tail(jt, g, gm, c2, c2m, w, with_d)
+
+
+def _block_trigonometric(lam_m, n, with_d):
+    """T and D for one block with lambda = lambda_m sin(t).
+
+    Used for small y, where the features of the integrand near the mirror point
+    are wider in this variable (width ~ y^(1/6) in t against ~ y^(1/3)).
+    Writing d = l_m (1 - sin t), e = l_m (1 + sin t), sin^2 l_m - sin^2 l =
+    sin d sin e and the integrand of T is cos(l) g sqrt(R / (sinc d sinc e)).
+    """
+    sin_t, oms, ops, w = _RULES[n]
+    lm = lam_m[:, None]
+    slm = np.sin(lm)
+    clm = np.cos(lm)
+    c2m = clm * clm
+    gm = np.sqrt(1.0 + 3.0 * slm * slm)
+    lam = lm * sin_t
+    sl = np.sin(lam)
+    cl = np.cos(lam)
+    c2 = cl * cl
+    g2 = 1.0 + 3.0 * sl * sl
+    g = np.sqrt(g2)
+    d = lm * oms
+    e = lm * ops
+    # sin(e) = sin(l_m + l) from a sum of positive terms; sin(d) needs the true sine
+    sinc_prod = (np.sin(d) * (slm * cl + clm * sl)) / (d * e)
+    jt = np.sqrt(c2 * g2 * _ratio_r(g, gm, c2, c2m) / sinc_prod)
+    return _tail(jt, g, gm, c2, c2m, w, with_d)
+
+
+def _integrals(y, with_d=True):
+    """Return T(y) and D(y) (or None) for y in [0, 1] (NaN propagates)."""
+    y = np.asarray(y, dtype=float)
+    shape = y.shape
+    yf = y.ravel()
+    t_out = np.full(yf.shape, np.nan)
+    d_out = np.full(yf.shape, np.nan) if with_d else None
+    with np.errstate(invalid="ignore"):
+        ok = ~np.isnan(yf)
+    upper = np.inf
+    for lower, n, kind in _TIERS:
+        with np.errstate(invalid="ignore"):
+            sel = np.flatnonzero(ok & (yf >= lower) & (yf < upper))
+        upper = lower
+        step = max(1, _CHUNK // n)
+        for start in range(0, sel.size, step):
+            idx = sel[start:start + step]
+            yb = yf[idx]
+            w, u = _mirror_sin2_cos2(yb * yb, (1.0 - yb) * (1.0 + yb))
+            if kind == "x":
+                tv, dv = _block_algebraic(np.sqrt(w), u, n, with_d)
+            else:
+                lam_m = np.maximum(np.arctan2(np.sqrt(w), np.sqrt(u)), _LAMBDA_FLOOR)
+                tv, dv = _block_trigonometric(lam_m, n, with_d)
+            t_out[idx] = tv
+            if with_d:
+                d_out[idx] = dv
+    return t_out.reshape(shape), (d_out.reshape(shape) if with_d else None)
+
+
+def _y(y):
+    return check_range(y, "y", lo=0.0, hi=1.0,
+                       hint="y is sin(alpha_eq), the sine of the equatorial pitch angle")
+
+
+def _y_from_alpha(alpha_eq_deg):
+    a = check_range(alpha_eq_deg, "alpha_eq_deg", lo=0.0, hi=180.0,
+                    hint="Pitch angles are in degrees, 0-180")
+    folded, _ = _fold(a)
+    return np.sin(np.deg2rad(folded))
+
+
+def _L(L):
+    return check_range(L, "L", lo=1.0,
+                       hint="L is the equatorial distance of the field line in Earth radii")
+
+
+def _energy(energy_kev):
+    return check_range(energy_kev, "energy_kev", lo=0.0,
+                       hint="Kinetic energy is in keV and cannot be negative")
+
+
+def _method(method, allowed, what):
+    key = str(method).strip().lower()
+    if key not in allowed:
+        raise PhysicsError(
+            f"argument 'method' of {what} is {method!r}; use one of "
+            + ", ".join(repr(m) for m in allowed)
+        )
+    return key
+
+
+@array_api("1", long_name="bounce integral T(y)")
+def bounce_integral(y):
+    r"""Exact dipole bounce integral :math:`T(y)`.
+
+    .. math::
+
+        T(y) = \int_0^{\lambda_m} \frac{\cos\lambda \sqrt{1 + 3\sin^2\lambda}}
+        {\sqrt{1 - y^2 b(\lambda)}}\, d\lambda,
+        \qquad b(\lambda) = \frac{\sqrt{1 + 3\sin^2\lambda}}{\cos^6\lambda}
+
+    computed by Gauss-Legendre quadrature after the substitution
+    :math:`\lambda = \lambda_m \sin t` (see the module notes); relative error
+    below about 1e-10.
+
+    Parameters
+    ----------
+    y : array_like or xarray.DataArray
+        :math:`\sin\alpha_{eq}`, in [0, 1].
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`T(y)`, from :math:`1 + \ln(2 + \sqrt3)/(2\sqrt3) \approx 1.3802` at
+        :math:`y = 0` down to :math:`\pi\sqrt2/6 \approx 0.7405` at :math:`y = 1`.
+
+    Notes
+    -----
+    Hamlin et al. (1961); Schulz & Lanzerotti (1974) ch. 1; Walt (1994) ch. 4.
+
+    Examples
+    --------
+    >>> round(bounce_integral(1.0), 6)
+    0.74048
+    """
+    return _integrals(_y(y), with_d=False)[0]
+
+
+@array_api("1", long_name="drift integral D(y)")
+def drift_integral(y):
+    r"""Exact dipole drift integral :math:`D(y)`.
+
+    .. math::
+
+        D(y) = \frac{1}{12} \int_0^{\lambda_m} \frac{\cos\lambda \sqrt{1 + 3\sin^2\lambda}
+        \,\left(4 + 2 y^2 b(\lambda)\right)}{\sqrt{1 - y^2 b(\lambda)}}\, d\lambda
+
+    equivalently :math:`D = (2Y - 3 y\, dY/dy)/12` with the second-invariant
+    integral :math:`Y(y)`. It is the bounce integral of the local
+    gradient-curvature drift rate, so that the bounce-averaged drift rate is
+    :math:`3 L p v D / (q B_0 R_E^2 T)`.
+
+    Parameters
+    ----------
+    y : array_like or xarray.DataArray
+        :math:`\sin\alpha_{eq}`, in [0, 1].
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`D(y)`, from :math:`T(0)/3 \approx 0.4601` at :math:`y = 0` to
+        :math:`\pi\sqrt2/12 \approx 0.3702` at :math:`y = 1`.
+
+    Notes
+    -----
+    Schulz & Lanzerotti (1974) ch. 1; Hamlin et al. (1961).
+
+    Examples
+    --------
+    >>> round(drift_integral(1.0) / bounce_integral(1.0), 12)
+    0.5
+    """
+    return _integrals(_y(y), with_d=True)[1]
+
+
+def _bounce_t(y, method):
+    if method == "exact":
+        return _integrals(y, with_d=False)[0]
+    if method == "hamlin":
+        return 1.30 - 0.56 * y
+    return 1.3802 - 0.3198 * (y + np.sqrt(y))
+
+
+@array_api("s", long_name="bounce period")
+def bounce_period(energy_kev, L, alpha_eq_deg, species="electron", method="exact"):
+    r"""Bounce period in a dipole, fully relativistic.
+
+    .. math:: T_b = \frac{4 L R_E}{v}\, T(y), \qquad y = \sin\alpha_{eq}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0; 0 gives an infinite period).
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180 (folded about 90).
+    species : str or Species
+        Particle species (:func:`beltkit.particles.get_species`).
+    method : {"exact", "hamlin", "schulz"}
+        ``"exact"``: :func:`bounce_integral`. ``"hamlin"``: :math:`T \approx 1.30 - 0.56 y`
+        (Hamlin et al. 1961; a few per cent off, worst near :math:`y = 0`).
+        ``"schulz"``: :math:`T \approx 1.3802 - 0.3198 (y + \sqrt y)`
+        (Schulz & Lanzerotti 1974; within about 1 per cent).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Full bounce period (mirror to mirror and back) in s.
+
+    Notes
+    -----
+    Hamlin et al. (1961); Schulz & Lanzerotti (1974) ch. 1; Walt (1994) eq. 4.28.
+
+    Examples
+    --------
+    >>> round(bounce_period(1000.0, 4.0, 90.0), 4)
+    0.2676
+    """
+    m = _method(method, BOUNCE_METHODS, "bounce_period")
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    L = _L(L)
+    y = _y_from_alpha(alpha_eq_deg)
+    e0 = sp.rest_energy_kev
+    v = np.sqrt(e * (e + 2.0 * e0)) / (e + e0) * _sc.speed_of_light
+    with np.errstate(divide="ignore"):
+        return 4.0 * L * R_E_M * _bounce_t(y, m) / v
+
+
+def _drift_ratio(y, method):
+    if method == "exact":
+        t, d = _integrals(y, with_d=True)
+        return d / t
+    return 0.35 + 0.15 * y
+
+
+def _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method):
+    m = _method(method, DRIFT_METHODS, "drift_period/drift_rate")
+    sp = get_species(species)
+    e = _energy(energy_kev)
+    L = _L(L)
+    b0 = check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True,
+                     hint="b0_nt is the dipole's equatorial surface field in nT")
+    y = _y_from_alpha(alpha_eq_deg)
+    e0 = sp.rest_energy_kev
+    pv_j = e * (e + 2.0 * e0) / (e + e0) * KEV_J
+    scale = 3.0 * L * pv_j / (abs(sp.charge_c) * b0 * 1e-9 * R_E_M**2)
+    return scale * _drift_ratio(y, m), sp
+
+
+@array_api("rad s-1", long_name="bounce-averaged drift angular rate (positive eastward)")
+def drift_rate(energy_kev, L, alpha_eq_deg, species="electron", b0_nt=B0_NT, method="exact"):
+    r"""Bounce-averaged gradient-curvature drift angular rate, signed.
+
+    .. math::
+
+        \langle\Omega_d\rangle = \pm \frac{3 L\, p v}{|q| B_0 R_E^2}\, \frac{D(y)}{T(y)}
+
+    Sign convention: positive is eastward (increasing magnetic longitude and
+    local time), so electrons get positive rates and positive ions negative
+    ones. For an equatorially mirroring particle :math:`D/T = 1/2` and this is
+    the textbook gradient drift :math:`3 L p v / (2 q B_0 R_E^2)`.
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180 (folded about 90).
+    species : str or Species
+        Particle species.
+    b0_nt : float or array_like
+        Dipole equatorial surface field in nT (default :data:`beltkit.constants.B0_NT`).
+    method : {"exact", "approx"}
+        ``"exact"``: :func:`drift_integral` / :func:`bounce_integral`.
+        ``"approx"``: :math:`D/T \approx 0.35 + 0.15 y` (Hamlin et al. 1961;
+        about 5 per cent off at :math:`y = 0`).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Drift angular rate in rad/s (positive eastward).
+
+    Notes
+    -----
+    Hamlin et al. (1961); Schulz & Lanzerotti (1974) ch. 1; Walt (1994) ch. 5.
+
+    Examples
+    --------
+    >>> drift_rate(1000.0, 6.6, 90.0) > 0 > drift_rate(1000.0, 6.6, 90.0, "proton")
+    True
+    """
+    omega, sp = _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method)
+    return -np.sign(sp.charge_c) * omega
+
+
+@array_api("s", long_name="drift period")
+def drift_period(energy_kev, L, alpha_eq_deg, species="electron", b0_nt=B0_NT,
+                 method="exact"):
+    r"""Bounce-averaged gradient-curvature drift period around the Earth.
+
+    .. math::
+
+        T_d = \frac{2\pi}{|\langle\Omega_d\rangle|}
+        = \frac{2 \pi |q| B_0 R_E^2}{3 L\, p v} \frac{T(y)}{D(y)}
+
+    Parameters
+    ----------
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0; 0 gives an infinite period).
+    L : array_like or xarray.DataArray
+        Dipole L (>= 1).
+    alpha_eq_deg : array_like or xarray.DataArray
+        Equatorial pitch angle in degrees, 0-180 (folded about 90).
+    species : str or Species
+        Particle species.
+    b0_nt : float or array_like
+        Dipole equatorial surface field in nT (default :data:`beltkit.constants.B0_NT`).
+    method : {"exact", "approx"}
+        See :func:`drift_rate`.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        Drift period in s (positive; the direction is :func:`drift_direction`).
+
+    Notes
+    -----
+    Hamlin et al. (1961); Schulz & Lanzerotti (1974) ch. 1; Walt (1994) ch. 5.
+
+    Examples
+    --------
+    >>> round(drift_period(1000.0, 6.6, 90.0, method="approx") / 60.0, 1)
+    9.6
+    """
+    omega, _ = _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method)
+    with np.errstate(divide="ignore"):
+        return 2.0 * np.pi / omega
+
+
+def drift_direction(species="electron") -> str:
+    """Return the sense of the gradient-curvature drift of a species.
+
+    Parameters
+    ----------
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    str
+        ``"eastward"`` for negative charges (electrons), ``"westward"`` for
+        positive ones (ions).
+
+    Notes
+    -----
+    Walt (1994) ch. 5; Roederer (1970) ch. 1.
+
+    Examples
+    --------
+    >>> drift_direction("electron"), drift_direction("O+")
+    ('eastward', 'westward')
+    """
+    sp = get_species(species)
+    return "eastward" if sp.charge_c < 0 else "westward"
