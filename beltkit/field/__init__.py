@@ -11,6 +11,8 @@ Names are imported from their modules on first use.
 
 import importlib
 
+from .trace import trace  # noqa: F401  (bound eagerly: the function shares its module's name)
+
 _EXPORTS = {
     # models.py
     "FieldModel": "models",

@@ -77,14 +77,16 @@ def _check_time_shape(time, n):
 class _Field:
     """Unit tangent and magnitude of a model's field, for subsets of the lines."""
 
-    def __init__(self, model, time, per_line):
+    def __init__(self, model, time, per_line, n_lines):
         self.model = model
         self.time = time
         self.per_line = per_line
+        self.n_lines = max(int(n_lines), 1)
         self.evaluations = 0
 
     def __call__(self, x, idx):
-        t = self.time[idx] if self.per_line else self.time
+        # indices may address half-lines (line + n_lines for the southward half)
+        t = self.time[idx % self.n_lines] if self.per_line else self.time
         b = np.asarray(self.model.field_geo(x, t), dtype=float)
         self.evaluations += x.shape[0]
         bmag = np.sqrt(np.einsum("...i,...i->...", b, b))
@@ -133,7 +135,11 @@ class _Half:
 
 
 def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max_steps, slack):
-    """Trace all lines from `x0` in direction `sign` (+1 along B, -1 against)."""
+    """Trace half-lines from `x0` in directions `sign` (per half-line: +1 along B, -1 against).
+
+    Both directions of every line are integrated together, as separate
+    half-lines, so that each field call serves as many points as possible.
+    """
     n = x0.shape[0]
     foot = np.full((n, 3), np.nan)
     b_foot = np.full(n, np.nan)
@@ -155,7 +161,7 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
         # the step may not carry the line much deeper than `slack` below the stop radius
         h = np.minimum(h, np.maximum(max_step_frac * r, 1e-3))
         h = np.minimum(h, r - r_stop + slack)
-        x_new, err, k_new, b_new = _rk_step(field, x, k1, h, sign, idx)
+        x_new, err, k_new, b_new = _rk_step(field, x, k1, h, sign[idx], idx)
         err_norm = np.linalg.norm(err, axis=1)
         tol = rtol * r
         bad_field = ~np.isfinite(b_new) | ~np.all(np.isfinite(x_new), axis=1)
@@ -177,7 +183,8 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
         if np.any(crossed):
             c = np.flatnonzero(crossed)
             xf, kf, bf, tf = _refine_crossing(
-                field, x[c], k1[c], h[c], r[c], x_new[c], k_new[c], sign, idx[c], r_stop
+                field, x[c], k1[c], h[c], r[c], x_new[c], k_new[c], sign[idx[c]], idx[c],
+                r_stop,
             )
             gi = idx[c]
             foot[gi] = xf
@@ -230,8 +237,8 @@ def _hermite_crossing(x0, k0, x1, k1, h, sign, r_stop):
     ends; the root of |x(t)| = r_stop in (0, h) is found by bisection
     followed by secant steps on the cubic.
     """
-    d0 = k0 * sign
-    d1 = k1 * sign
+    d0 = k0 * sign[:, None]
+    d1 = k1 * sign[:, None]
     hh = h[:, None]
 
     def pos(t):
@@ -250,6 +257,18 @@ def _hermite_crossing(x0, k0, x1, k1, h, sign, r_stop):
         a = np.where(above, m, a)
         b = np.where(above, b, m)
     return 0.5 * (a + b)
+
+
+def _split_halves(both, n):
+    """Split a two-direction trace (half-lines 0..n-1 north, n..2n-1 south)."""
+    out = []
+    for lo in (0, n):
+        sel = (both.rec_idx >= lo) & (both.rec_idx < lo + n)
+        part = slice(lo, lo + n)
+        out.append(_Half(both.foot[part], both.b_foot[part], both.length[part],
+                         both.open[part], both.steps[part], both.rec_idx[sel] - lo,
+                         both.rec_s[sel], both.rec_b[sel], both.rec_x[sel]))
+    return out
 
 
 def _refine_crossing(field, x, k1, h, r, x_new, k_new, sign, idx, r_stop, tol_km=1e-6):
@@ -278,7 +297,7 @@ def _refine_crossing(field, x, k1, h, r, x_new, k_new, sign, idx, r_stop, tol_km
             t = np.where(np.isfinite(t), t, 0.5 * (ta + tb))
         t = np.clip(t, ta, tb)
         w = np.flatnonzero(todo)
-        xt, _, kt, bt = _rk_step(field, x[w], k1[w], t[w], sign, idx[w])
+        xt, _, kt, bt = _rk_step(field, x[w], k1[w], t[w], sign[w], idx[w])
         gt = np.full(h.size, 0.0)
         gt[w] = np.linalg.norm(xt, axis=1) - r_stop
         best_t[w], best_x[w], best_k[w], best_b[w] = t[w], xt, kt, bt
@@ -583,7 +602,7 @@ def trace_lines(
     x0, _ = _as_start_points(start_xyz_km, r_stop)
     n = x0.shape[0]
     t, per_line = _check_time_shape(time, n)
-    field = _Field(model, t, per_line)
+    field = _Field(model, t, per_line, n)
     finite = np.all(np.isfinite(x0), axis=1)
     unit0 = np.full((n, 3), np.nan)
     b0 = np.full(n, np.nan)
@@ -597,8 +616,10 @@ def trace_lines(
     slack = max(min(0.5 * altitude_km, 50.0), 1.0)
     common = dict(r_stop=r_stop, r_max=r_max, rtol=rtol, max_step_frac=max_step_frac,
                   max_steps=max_steps, slack=slack)
-    north = _trace_half(field, x0, unit0, b0, +1.0, **common)
-    south = _trace_half(field, x0, unit0, b0, -1.0, **common)
+    sign = np.concatenate([np.ones(n), -np.ones(n)])
+    both = _trace_half(field, np.concatenate([x0, x0]), np.concatenate([unit0, unit0]),
+                       np.concatenate([b0, b0]), sign, **common)
+    north, south = _split_halves(both, n)
 
     s, lb, xs, n_samples, len_n = _assemble(north, south, n, x0, b0)
     is_open = north.open | south.open
