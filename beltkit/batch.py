@@ -331,8 +331,22 @@ def _summary_attrs(source: Path, digest: str, settings: dict, field, epoch) -> d
     }
 
 
+# The netCDF-C and HDF5 libraries are not thread-safe: a threaded dask worker
+# must not read or write two files at once. One file at a time per process.
+_FILE_LOCK = threading.Lock()
+
+
 def _process_file(task: dict) -> FileResult:
-    """Summarize one file (runs in this process, a worker process or a dask worker)."""
+    """Summarize one file (runs in this process, a worker process or a dask worker).
+
+    Files are processed one at a time per process (see ``_FILE_LOCK``); run
+    dask.distributed workers with one thread each, more processes for speed.
+    """
+    with _FILE_LOCK:
+        return _process_file_locked(task)
+
+
+def _process_file_locked(task: dict) -> FileResult:
     t0 = _time.perf_counter()
     src = Path(task["input"])
     out = Path(task["output"])
@@ -518,7 +532,13 @@ def _run_processes(tasks, results, workers, fail_fast, emit):
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
-    ctx = mp.get_context("spawn")
+    # a fresh interpreter per worker (never a fork of this threaded process);
+    # forkserver starts them quickly from one clean server where available
+    if "forkserver" in mp.get_all_start_methods():
+        ctx = mp.get_context("forkserver")
+        ctx.set_forkserver_preload(["beltkit.batch", "beltkit.io"])
+    else:  # pragma: no cover - Windows
+        ctx = mp.get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
         futures = {pool.submit(_process_file, task): i for i, task in tasks}
         for fut in as_completed(futures):

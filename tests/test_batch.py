@@ -1,6 +1,7 @@
 """beltkit.batch: survey binning (against plain numpy per cell) and summarize's machinery."""
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -131,3 +132,307 @@ def test_duplicate_output_names_fail_without_running(tmp_path):
     results = batch.summarize([a, b], tmp_path / "out", fail_fast=True)
     assert [r.status for r in results][1] == "failed"
     assert "also the output of" in results[1].reason
+
+
+# ------------------------------------------------------------------ summarize end to end
+
+from beltkit.cli import main  # noqa: E402
+
+CONTRACT_OUTPUTS = (
+    "blc_local", "dlc_local", "blc_equatorial", "dlc_equatorial", "loss_cone_north",
+    "loss_cone_south", "flux_precipitating", "flux_quasi_trapped", "flux_trapped",
+    "omni_flux", "fraction_precipitating", "fraction_quasi_trapped", "fraction_trapped",
+    "coverage_precipitating", "coverage_quasi_trapped", "coverage_trapped",
+    "loss_cone_filling", "flux_precipitating_err", "fraction_trapped_err", "L", "mlat", "mlt",
+)
+
+
+def _bad_files(folder):
+    """One file per kind of bad input; returns {name: expected words in the reason}."""
+    good = write_flux_file(folder / "tmp-good.nc", n_time=60)
+    (folder / "truncated.nc").write_bytes(good.read_bytes()[:1500])
+    good.unlink()
+    ds = flux_dataset(n_time=60)
+    no_units = ds.copy()
+    no_units["flux"].attrs = {k: v for k, v in ds["flux"].attrs.items() if k != "units"}
+    write_flux_file(folder / "no_units.nc", no_units)
+    wrong = ds.copy()
+    wrong["flux"].attrs = {**ds["flux"].attrs, "units": "counts s-1"}
+    write_flux_file(folder / "wrong_unit.nc", wrong)
+    wide = ds.copy()
+    wide["pitch_angle_bnds"] = ds["pitch_angle_bnds"] * 1.2
+    wide["pitch_angle"] = ds["pitch_angle"] * 1.2
+    write_flux_file(folder / "over_180.nc", wide)
+    write_flux_file(folder / "no_position.nc", ds.drop_vars(["L", "mlat", "mlt"]))
+    return {
+        "truncated.nc": ["truncated.nc"],
+        "no_units.nc": ["flux", "units"],
+        "wrong_unit.nc": ["flux", "counts s-1"],
+        "over_180.nc": ["pitch_angle", "180"],
+        "no_position.nc": ["position"],
+    }
+
+
+def _digests(folder):
+    return {p.name: bio.sha256(p) for p in sorted(folder.iterdir()) if p.is_file()}
+
+
+def test_summarize_good_and_bad_files(tmp_path, capsys):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    write_flux_file(inp / "good1.nc", n_time=100, seed=1)
+    write_flux_file(inp / "good2.nc", n_time=80, seed=2)
+    expected = _bad_files(inp)
+    before = _digests(inp)
+    out = tmp_path / "out"
+    code = main(["summarize", str(inp), "--out", str(out)])
+    lines = capsys.readouterr().out.splitlines()
+    assert code == 1
+    assert _digests(inp) == before  # inputs byte-identical
+    for name in ("good1", "good2"):
+        line = next(x for x in lines if f"{name}.nc" in x)
+        assert line.startswith("ok  ") and f"{name}.summary.nc" in line
+        ds = xr.open_dataset(out / f"{name}.summary.nc")
+        for var in CONTRACT_OUTPUTS:
+            assert var in ds.variables, var
+        assert ds.attrs["Conventions"] == "CF-1.8"
+        assert ds.attrs["source"] == f"{name}.nc"
+        assert ds.attrs["source_sha256"] == before[f"{name}.nc"]
+        assert ds.attrs["field_model"] == "dipole"
+        assert ds.attrs["footpoint_altitude_km"] == 100.0
+        assert f"beltkit summarize {inp} --out {out}" in ds.attrs["history"]
+        assert ds.attrs["beltkit_version"]
+        assert "field_epoch" in ds.attrs
+        ds.close()
+    for name, words in expected.items():
+        line = next(x for x in lines if name in x)
+        assert line.startswith(f"FAILED  {inp / name}: "), line
+        for w in words:
+            assert w in line, (w, line)
+        assert "Traceback" not in line
+        assert not (out / name.replace(".nc", ".summary.nc")).exists()
+    report = [json.loads(x) for x in (out / batch.REPORT_NAME).read_text().splitlines()]
+    assert sorted(r["status"] for r in report) == ["failed"] * 5 + ["ok"] * 2
+    assert {"file", "status", "reason", "seconds", "output"} <= set(report[0])
+    assert sorted(p.name for p in out.iterdir()) == [
+        "good1.summary.nc", "good2.summary.nc", "run-report.jsonl"]
+
+
+def test_summary_values_equal_partition_of_the_dataset(tmp_path):
+    from beltkit.batch import _pad_function
+
+    ds = flux_dataset(n_time=150, seed=7)
+    src = write_flux_file(tmp_path / "x.nc", ds)
+    [r] = batch.summarize([src], tmp_path / "out", altitude_km=300.0)
+    assert r.status == "ok", r.reason
+    got = xr.open_dataset(r.output)
+    want = _pad_function("partition")(bio.open_flux(src, chunks=None), model="dipole",
+                                      altitude_km=300.0)
+    for name in ("fraction_precipitating", "flux_trapped", "blc_local", "fraction_trapped_err"):
+        xr.testing.assert_allclose(got[name], want[name].compute())
+    # fractions sum to one where every population was fully sampled (common practice)
+    full = (got["coverage_precipitating"] == 1) & (got["coverage_trapped"] == 1) & (
+        got["coverage_quasi_trapped"] == 1)
+    total = (got["fraction_precipitating"] + got["fraction_quasi_trapped"]
+             + got["fraction_trapped"]).where(full)
+    assert int(full.sum()) > 0
+    np.testing.assert_allclose(total.values[full.values], 1.0, rtol=1e-5)
+    got.close()
+
+
+def test_rerun_skips_up_to_date_and_redoes_changed(tmp_path, capsys):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    a = write_flux_file(inp / "a.nc", n_time=50, seed=1)
+    write_flux_file(inp / "b.nc", n_time=50, seed=2)
+    out = tmp_path / "out"
+    assert main(["summarize", str(inp), "--out", str(out)]) == 0
+    capsys.readouterr()
+    assert main(["summarize", str(inp), "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert f"skipped  {inp / 'a.nc'}: up to date" in text and text.count("up to date") == 2
+    # a changed input is redone, the other still skipped
+    write_flux_file(a, n_time=50, seed=99)
+    assert main(["summarize", str(inp), "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert f"ok  {a}" in text and text.count("up to date") == 1
+    assert xr.open_dataset(out / "a.summary.nc").attrs["source_sha256"] == bio.sha256(a)
+    # changed settings redo everything; --overwrite too
+    assert main(["summarize", str(inp), "--out", str(out), "--footpoint-km", "200"]) == 0
+    assert capsys.readouterr().out.count("ok  ") == 2
+    assert main(["summarize", str(inp), "--out", str(out), "--footpoint-km", "200",
+                 "--overwrite"]) == 0
+    assert capsys.readouterr().out.count("ok  ") == 2
+
+
+def test_run_interrupted_inside_the_writer_resumes(tmp_path, monkeypatch, capsys):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    for k in range(3):
+        write_flux_file(inp / f"f{k}.nc", n_time=40, seed=k)
+    out = tmp_path / "out"
+    original = xr.Dataset.to_netcdf
+    calls = []
+
+    def dies_on_second(self, path, *args, **kwargs):
+        calls.append(path)
+        if len(calls) == 2:
+            original(self, path, *args, **kwargs)  # the temporary file is fully written...
+            raise KeyboardInterrupt  # ...and the run is stopped before the rename
+        return original(self, path, *args, **kwargs)
+
+    monkeypatch.setattr(xr.Dataset, "to_netcdf", dies_on_second)
+    with pytest.raises(KeyboardInterrupt):
+        batch.summarize([inp], out)
+    monkeypatch.setattr(xr.Dataset, "to_netcdf", original)
+    assert sorted(p.name for p in out.iterdir()) == ["f0.summary.nc", "run-report.jsonl"]
+    capsys.readouterr()
+    assert main(["summarize", str(inp), "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert text.count("up to date") == 1 and text.count("ok  ") == 2
+
+
+def test_fail_fast_stops_after_first_failure(tmp_path, capsys):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    (inp / "a_bad.nc").write_bytes(b"nonsense")
+    write_flux_file(inp / "b_good.nc", n_time=20)
+    code = main(["summarize", str(inp), "--out", str(tmp_path / "out"), "--fail-fast"])
+    text = capsys.readouterr().out
+    assert code == 1
+    assert f"FAILED  {inp / 'a_bad.nc'}" in text
+    assert f"skipped  {inp / 'b_good.nc'}: not attempted" in text
+    assert not (tmp_path / "out" / "b_good.summary.nc").exists()
+
+
+def test_cdf_input_gives_the_same_summary_as_netcdf(tmp_path):
+    from _flux_factory import write_flux_cdf
+
+    ds = flux_dataset(n_time=70, seed=4)
+    (tmp_path / "nc").mkdir()
+    (tmp_path / "cdf").mkdir()
+    nc = write_flux_file(tmp_path / "nc" / "day.nc", ds)
+    cdf = write_flux_cdf(tmp_path / "cdf" / "day.cdf", ds)
+    [r1] = batch.summarize([nc], tmp_path / "o1")
+    [r2] = batch.summarize([cdf], tmp_path / "o2")
+    assert (r1.status, r2.status) == ("ok", "ok"), (r1.reason, r2.reason)
+    a, b = xr.open_dataset(r1.output), xr.open_dataset(r2.output)
+    xr.testing.assert_allclose(a, b)
+    a.close()
+    b.close()
+
+
+def test_mapping_file_through_the_command(tmp_path, capsys):
+    ds = flux_dataset(n_time=30)
+    odd = ds.rename_vars({"flux": "FEDU", "L": "Lshell"}).rename({"energy": "E_chan"})
+    odd["FEDU"].attrs.pop("units")
+    src = tmp_path / "odd.nc"
+    odd.to_netcdf(src)
+    m = tmp_path / "names.toml"
+    m.write_text('[variables]\nflux = "FEDU"\nL = "Lshell"\nenergy = "E_chan"\n'
+                 '[units]\nflux = "cm-2 s-1 sr-1 keV-1"\n')
+    assert main(["summarize", str(src), "--out", str(tmp_path / "o"), "--mapping", str(m)]) == 0
+    assert (tmp_path / "o" / "odd.summary.nc").exists()
+    # a broken mapping stops the run before any file, with one line naming the key
+    m.write_text('[variables]\nfluxes = "FEDU"\n')
+    assert main(["summarize", str(src), "--out", str(tmp_path / "o2"), "--mapping",
+                 str(m)]) == 1
+    err = capsys.readouterr().err
+    assert "names.toml" in err and "fluxes" in err and "Traceback" not in err
+
+
+def test_progress_bar_only_on_a_terminal(tmp_path, capsys):
+    src = write_flux_file(tmp_path / "a.nc", n_time=20)
+    main(["summarize", str(src), "--out", str(tmp_path / "o")])
+    captured = capsys.readouterr()
+    assert "file/s" not in captured.err and "%|" not in captured.err
+    lines = batch.summarize([src], tmp_path / "o2", progress=True, log=lambda s: None)
+    assert lines[0].status == "ok"
+    assert "summarize: 100%" in capsys.readouterr().err
+
+
+def test_worker_processes_give_the_local_result(tmp_path):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    for k in range(3):
+        write_flux_file(inp / f"f{k}.nc", n_time=60, seed=k)
+    (inp / "zz_bad.nc").write_bytes(b"x")
+    local = batch.summarize([inp], tmp_path / "local")
+    pool = batch.summarize([inp], tmp_path / "pool", workers=2)
+    assert [r.status for r in pool] == ["ok", "ok", "ok", "failed"], [r.reason for r in pool]
+    assert [r.reason for r in pool] == [r.reason for r in local]
+    for r in local[:3]:
+        name = Path(r.output).name
+        a = xr.open_dataset(r.output)
+        b = xr.open_dataset(tmp_path / "pool" / name)
+        xr.testing.assert_identical(a.drop_attrs(), b.drop_attrs())
+        a.close()
+        b.close()
+
+
+@pytest.fixture
+def local_cluster():
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
+                      dashboard_address=None) as cluster:
+        yield cluster
+
+
+def test_distributed_scheduler_equals_local(tmp_path, local_cluster):
+    inp = tmp_path / "in"
+    inp.mkdir()
+    for k in range(3):
+        write_flux_file(inp / f"f{k}.nc", n_time=60, seed=k)
+    (inp / "zz_bad.nc").write_bytes(b"x")
+    local = batch.summarize([inp], tmp_path / "local")
+    code = main(["summarize", str(inp), "--out", str(tmp_path / "dist"), "--scheduler",
+                 local_cluster.scheduler_address])
+    assert code == 1  # the bad file
+    report = [json.loads(x) for x in (tmp_path / "dist" / batch.REPORT_NAME).read_text()
+              .splitlines()]
+    assert sorted(r["status"] for r in report) == ["failed", "ok", "ok", "ok"]
+    for r in local[:3]:
+        name = Path(r.output).name
+        a = xr.open_dataset(r.output)
+        b = xr.open_dataset(tmp_path / "dist" / name)
+        xr.testing.assert_identical(a.drop_attrs(), b.drop_attrs())
+        a.close()
+        b.close()
+
+
+def test_sigkill_while_writing_leaves_no_partial_output(tmp_path):
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    inp = tmp_path / "in"
+    inp.mkdir()
+    write_flux_file(inp / "a_big.nc", n_time=120_000, seed=1)
+    write_flux_file(inp / "b_small.nc", n_time=50, seed=2)
+    out = tmp_path / "out"
+    code = "import sys; from beltkit.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen([sys.executable, "-c", code, "summarize", str(inp), "--out",
+                             str(out)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 120
+    temps = []
+    while time.monotonic() < deadline and proc.poll() is None:
+        temps = list(out.glob(".*.beltkit-*.tmp")) if out.is_dir() else []
+        if temps:
+            break
+        time.sleep(0.002)
+    assert temps, "the writer's temporary file never appeared (did the run finish too fast?)"
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    assert proc.returncode == -signal.SIGKILL
+    assert not (out / "a_big.summary.nc").exists()  # killed while writing: no partial output
+    assert not (out / "b_small.summary.nc").exists()  # never started
+    assert list(out.glob(".*.beltkit-*.tmp"))  # the stale temporary file is still there
+    results = batch.summarize([inp], out)
+    assert [r.status for r in results] == ["ok", "ok"]
+    assert not list(out.glob(".*.tmp"))  # removed by the rerun
+    with xr.open_dataset(out / "a_big.summary.nc") as ds:
+        assert ds.sizes["time"] == 120_000
+        assert np.isfinite(ds["fraction_trapped"].values).mean() > 0.9
