@@ -679,7 +679,7 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
     return written
 
 
-def run_demo(out_dir) -> list[Path]:
+def run_demo(out_dir, *, n_days=None) -> list[Path]:
     """Generate the scenario, run the pipeline on it and draw the figures.
 
     Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
@@ -692,6 +692,8 @@ def run_demo(out_dir) -> list[Path]:
     ----------
     out_dir : str or os.PathLike
         Target folder (created if missing).
+    n_days : int, optional
+        Days of the scenario to use (default all 3; the storm begins on day 2).
 
     Returns
     -------
@@ -701,7 +703,7 @@ def run_demo(out_dir) -> list[Path]:
     from . import batch
 
     out = Path(out_dir)
-    data_files = generate(out / "data")
+    data_files = generate(out / "data", n_days=n_days)
     results = batch.summarize(data_files, out / "summaries", field="dipole", overwrite=True)
     bad = [r for r in results if r.status == "failed"]
     if bad:

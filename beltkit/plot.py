@@ -74,7 +74,7 @@ def _energy_style(k, n):
     """Colour (viridis sample), line style and marker of energy channel k of n."""
     from matplotlib import colormaps
 
-    colour = colormaps[_FLUX_CMAP](0.9 * k / max(n - 1, 1))
+    colour = colormaps[_FLUX_CMAP](0.82 * k / max(n - 1, 1))
     return colour, _LINESTYLES[k % len(_LINESTYLES)], _MARKERS[k % len(_MARKERS)]
 
 
@@ -231,12 +231,12 @@ def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=N
         north, south = float(cones["north"]), float(cones["south"])
         dlc = float(cones["dlc"])
         ax.axvspan(0, north, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
-                   label="bounce loss cone", zorder=0)
+                   label=f"bounce loss cone ({north:.1f}°, {south:.1f}°)", zorder=0)
         ax.axvspan(180 - south, 180, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
                    zorder=0)
         if dlc > max(north, south) + 1e-6:
             ax.axvspan(north, dlc, facecolor="0.9", edgecolor="0.55", hatch="..", lw=0,
-                       label="drift loss cone (quasi-trapped)", zorder=0)
+                       label=f"drift loss cone ({dlc:.1f}°): quasi-trapped", zorder=0)
             ax.axvspan(180 - dlc, 180 - south, facecolor="0.9", edgecolor="0.55",
                        hatch="..", lw=0, zorder=0)
     for rank, k in enumerate(idx):
@@ -588,19 +588,20 @@ def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf
     if data is None:
         if L is None or time is None:
             raise ValueError("loss_cone_longitude needs L and time, or data=")
-        from . import field
+        from .field import as_model
+        from .field.losscone import loss_cones_vs_longitude
 
         data = {}
         for m in models:
-            model = field.as_model(m)
-            data[getattr(model, "name", str(m))] = field.loss_cones_vs_longitude(
+            model = as_model(m)
+            data[getattr(model, "name", str(m))] = loss_cones_vs_longitude(
                 model, L, np.datetime64(time, "ns"), altitude_km=altitude_km, n_lon=n_lon)
     fig, ax = _new_axes(ax, (7.0, 4.0))
     from matplotlib import colormaps
 
     cmap = colormaps[_FRACTION_CMAP]
     for k, (name, d) in enumerate(data.items()):
-        colour = cmap(0.15 + 0.7 * k / max(len(data) - 1, 1))
+        colour = cmap(0.1 + 0.55 * k / max(len(data) - 1, 1))
         marker = _MARKERS[k % len(_MARKERS)]
         lon = np.asarray(d["mlon"].values, float)
         order = np.argsort(lon)

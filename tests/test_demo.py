@@ -1,0 +1,207 @@
+"""The synthetic demo scenario: reproducible, convention-following, and its truth recovered.
+
+The demo data are invented (beltkit.demo); they serve the demonstration and
+this check of the pipeline end to end. The statistical check relies on the
+normal distribution's coverage probabilities (textbook values: 68.27% of a
+Gaussian within 1 sigma, 95.45% within 2 sigma, 99.73% within 3 sigma).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from beltkit import demo, pad
+
+ROOT = Path(__file__).resolve().parents[1]
+DATA_DEMO = ROOT / "data_demo"
+TERN = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
+SWIFT = sorted(DATA_DEMO.glob("marram_swift_quill_synthetic_*.nc"))
+
+
+@pytest.fixture(scope="module")
+def regenerated(tmp_path_factory):
+    return demo.generate(tmp_path_factory.mktemp("regen"))
+
+
+@pytest.fixture(scope="module")
+def tern_results():
+    """(dataset, summary) of every committed spectrometer day-file, loaded."""
+    out = []
+    for path in TERN:
+        with xr.open_dataset(path) as ds:
+            ds = ds.load()
+        out.append((ds, pad.partition(ds).compute()))
+    return out
+
+
+def test_committed_files_exist_and_are_small():
+    assert len(TERN) == 3 and len(SWIFT) == 3
+    total = sum(p.stat().st_size for p in DATA_DEMO.iterdir() if p.is_file())
+    assert total < 10e6, f"data_demo holds {total / 1e6:.1f} MB"
+    assert (DATA_DEMO / "README.md").read_text().lower().count("synthetic") >= 2
+
+
+def test_regenerating_gives_identical_values(regenerated):
+    names = sorted(p.name for p in regenerated)
+    assert names == sorted(p.name for p in TERN + SWIFT)
+    for path in regenerated:
+        with xr.open_dataset(path) as new, xr.open_dataset(DATA_DEMO / path.name) as old:
+            assert sorted(new.variables) == sorted(old.variables)
+            for name in new.variables:
+                np.testing.assert_array_equal(new[name].values, old[name].values,
+                                              err_msg=f"{path.name}:{name}")
+            assert new.attrs["title"] == old.attrs["title"]
+
+
+def test_other_seed_changes_counts_only(tmp_path):
+    path = demo.generate(tmp_path, seed=7, n_days=1, spacecraft=("tern",))[0]
+    with xr.open_dataset(path) as new, xr.open_dataset(TERN[0]) as old:
+        assert not np.array_equal(new["counts"].values, old["counts"].values)
+        np.testing.assert_array_equal(new["true_fraction_precipitating"].values,
+                                      old["true_fraction_precipitating"].values)
+
+
+@pytest.mark.parametrize("path", TERN + SWIFT, ids=lambda p: p.name)
+def test_files_follow_the_conventions_and_say_synthetic(path):
+    with xr.open_dataset(path) as ds:
+        assert pad.validate(ds) == []
+        assert ds.attrs["title"].startswith("SYNTHETIC")
+        assert "synthetic" in ds.attrs["comment"].lower()
+        for name in ("true_fraction_precipitating", "true_fraction_quasi_trapped",
+                     "true_fraction_trapped"):
+            assert ds[name].dims == ("time", "energy")
+        total = (ds["true_fraction_precipitating"] + ds["true_fraction_quasi_trapped"]
+                 + ds["true_fraction_trapped"])
+        np.testing.assert_allclose(total.values, 1.0, atol=1e-6)
+        # centred dipole: bounce and drift loss cones coincide, no quasi-trapped population
+        assert float(np.abs(ds["true_fraction_quasi_trapped"]).max()) == 0.0
+
+
+def test_orbits_as_stated():
+    """Altitudes from the stored GEO positions; periods by Kepler's third law.
+
+    GM of the Earth from astropy.constants.GM_earth (IAU 2015 Resolution B3).
+    """
+    from astropy.constants import GM_earth
+
+    from beltkit.constants import R_E_KM
+
+    gm = GM_earth.to_value("km3 / s2")
+    with xr.open_dataset(SWIFT[0]) as ds:
+        r = np.linalg.norm(ds["position_geo"].values, axis=-1)
+        np.testing.assert_allclose(r - R_E_KM, 650.0, atol=0.01)
+        # high-inclination orbit: magnetic latitudes beyond 70 deg both ways
+        assert ds["mlat"].max() > 70 and ds["mlat"].min() < -70
+        assert float(np.median(np.diff(ds["time"].values).astype(float))) == 1e9
+    with xr.open_dataset(TERN[0]) as ds:
+        r = np.linalg.norm(ds["position_geo"].values, axis=-1)
+        assert abs(r.min() - (R_E_KM + 600.0)) < 5.0
+        assert abs(r.max() / R_E_KM - 5.8) < 0.01
+        assert float(np.abs(ds["mlat"]).max()) < 25.0
+    swift, tern = demo.SCENARIO["swift"], demo.SCENARIO["tern"]
+    a_swift = R_E_KM + swift["altitude_km"]
+    a_tern = 0.5 * (R_E_KM + tern["perigee_altitude_km"] + tern["apogee_re"] * R_E_KM)
+    for a, period in ((a_swift, swift["period_s"]), (a_tern, tern["period_s"])):
+        assert period == pytest.approx(2 * math.pi * math.sqrt(a**3 / gm), rel=2e-4)
+
+
+def test_belt_structure_two_zones_and_slot():
+    """Omnidirectional flux at 520 keV: inner zone and outer zone above the slot (quiet day)."""
+    with xr.open_dataset(TERN[0]) as ds:
+        omni = (ds["flux"].sel(energy=520, method="nearest")
+                * np.sin(np.radians(ds["pitch_angle"]))).mean("pitch_angle")
+        L = ds["L"]
+        inner = float(omni.where((L > 1.4) & (L < 1.8)).median())
+        slot = float(omni.where((L > 2.4) & (L < 2.9)).median())
+        outer = float(omni.where((L > 4.2) & (L < 5.2)).median())
+    assert inner > 10 * slot and outer > 10 * slot
+
+
+def test_storm_fills_the_loss_cone():
+    with xr.open_dataset(TERN[0]) as quiet, xr.open_dataset(TERN[1]) as storm:
+        f_quiet = quiet["true_loss_cone_filling"].where(quiet["L"] > 4.5).median()
+        f_storm = storm["true_loss_cone_filling"].sel(
+            time=slice("2027-03-09T05:00", "2027-03-09T12:00")).where(storm["L"] > 4.5).median()
+    assert float(f_storm) > 3 * float(f_quiet)
+
+
+def _standardised_residuals(tern_results, population, scale=1.0):
+    z = []
+    for ds, s in tern_results:
+        full = s["coverage_precipitating"] >= 0.999
+        full &= s["coverage_trapped"] >= 0.999
+        est = s[f"fraction_{population}"].where(full)
+        err = s[f"fraction_{population}_err"].where(full) * scale
+        truth = ds[f"true_fraction_{population}"]
+        zz = ((est - truth) / err).values.ravel()
+        z.append(zz[np.isfinite(est.values.ravel())])
+    return np.concatenate(z)
+
+
+@pytest.mark.parametrize("population", ["precipitating", "trapped"])
+def test_pipeline_recovers_true_fractions_within_uncertainty(tern_results, population):
+    """Pipeline (default centred dipole) on the spectrometer data against the generator truth.
+
+    The truth is the populations' share of the *expected* measured flux, so
+    an unbiased estimator with honest 1-sigma errors puts about 68% of the
+    samples within 1 sigma and about 95% within 2 sigma (normal coverage).
+    Required: at least 95% within 2 sigma; and the 1-sigma coverage between
+    62% and 75%, so that inflated error bars cannot pass either.
+    """
+    z = _standardised_residuals(tern_results, population)
+    assert z.size >= 15_000  # 3 days x 720 spectra x 8 energies, all fully covered
+    assert np.isfinite(z).all()
+    within1 = np.mean(np.abs(z) <= 1)
+    within2 = np.mean(np.abs(z) <= 2)
+    within3 = np.mean(np.abs(z) <= 3)
+    assert within2 >= 0.95, (within1, within2, within3)
+    assert 0.62 <= within1 <= 0.75, (within1, within2, within3)
+    assert within3 >= 0.99
+    assert abs(np.mean(z)) < 0.05  # no bias in units of the error
+
+
+def test_recovery_check_is_sensitive(tern_results):
+    """Nudge: errors understated by half must fail the 95%-within-2-sigma criterion."""
+    z = _standardised_residuals(tern_results, "precipitating", scale=0.5)
+    assert np.mean(np.abs(z) <= 2) < 0.90
+
+
+def test_quasi_trapped_is_zero_in_the_dipole(tern_results):
+    for ds, s in tern_results:
+        np.testing.assert_array_equal(s["fraction_quasi_trapped"].values, 0.0)
+        np.testing.assert_array_equal(ds["true_fraction_quasi_trapped"].values, 0.0)
+
+
+def test_truth_uses_the_pipeline_loss_cones(tern_results):
+    """The dipole loss cones of the pipeline equal beltkit.dipole's at the stored positions."""
+    from beltkit import dipole
+
+    ds, s = tern_results[1]
+    np.testing.assert_allclose(s["blc_local"].values,
+                               dipole.local_loss_cone(ds["L"].values.astype(float),
+                                                      ds["mlat"].values.astype(float)),
+                               rtol=1e-5)
+
+
+def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatch):
+    work = tmp_path / "elsewhere"
+    work.mkdir()
+    monkeypatch.chdir(work)  # no repo-relative paths
+    monkeypatch.setenv("MPLBACKEND", "Agg")
+    out = tmp_path / "demo-out"
+    paths = demo.run_demo(out, n_days=2)
+    assert paths and all(Path(p).is_file() for p in paths)
+    names = {Path(p).name for p in paths}
+    assert {"survey_tern.nc", "survey_swift.nc", "run-report.jsonl"} <= names
+    assert sum(n.endswith(".summary.nc") for n in names) == 4
+    pngs = [Path(p) for p in paths if str(p).endswith(".png")]
+    assert len(pngs) >= 6
+    for p in pngs:
+        assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and p.stat().st_size > 20_000
+    assert not any(os.scandir(work))  # nothing written into the working directory
