@@ -360,7 +360,10 @@ def _cmd_losscone(args, command) -> int:
             ("blc_local", "local bounce loss cone", dipole.local_loss_cone(L, lam, h), "degree"),
             ("blc_equatorial", "equatorial bounce loss cone", dipole.bounce_loss_cone(L, h),
              "degree"),
-            ("note", "drift loss cone", "equals the bounce loss cone in a centred dipole", ""),
+            ("dlc_local", "local drift loss cone (= bounce, centred dipole)",
+             dipole.local_loss_cone(L, lam, h), "degree"),
+            ("dlc_equatorial", "equatorial drift loss cone (= bounce, centred dipole)",
+             dipole.bounce_loss_cone(L, h), "degree"),
         ]
     else:
         if args.latitude is None or args.longitude is None:
