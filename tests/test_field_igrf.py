@@ -237,6 +237,14 @@ def test_numba_kernel_equals_numpy_reference():
     a = igrf.synth_geo(xyz, g, h, backend="numba")
     b = igrf.synth_geo(xyz, g, h, backend="numpy")
     np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-8)
+    # per-point times: numba interpolates point by point, numpy groups by interval
+    times = np.linspace(1950.0, 2029.9, 5000)
+    np.testing.assert_allclose(
+        igrf.igrf_field_cartesian(xyz, times, backend="numba"),
+        igrf.igrf_field_cartesian(xyz, times, backend="numpy"),
+        rtol=1e-11,
+        atol=1e-8,
+    )
     for deg in (1, 2, 7):
         m = IGRF(max_degree=deg)
         gg, hh = m.coefficients(2008.8)

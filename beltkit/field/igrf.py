@@ -501,6 +501,23 @@ if _nb is not None:
                 out[i, 1] = b1
                 out[i, 2] = b2
 
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _geo_point(x, y, z, g, h, nmax, a_c, b_c, diag, E, F, rho):
+        rho2 = x * x + y * y
+        r = np.sqrt(rho2 + z * z)
+        rh = np.sqrt(rho2)
+        u = z / r
+        s = rh / r
+        if rh > 0.0:
+            cp = x / rh
+            sp = y / rh
+        else:  # on the rotation axis: use the meridian phi = 0
+            cp = 1.0
+            sp = 0.0
+        br, bt, bp = _point(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, E, F, rho)
+        bh = br * s + bt * u
+        return bh * cp - bp * sp, bh * sp + bp * cp, br * u - bt * s
+
     @_nb.njit(cache=True, error_model="numpy", parallel=True)
     def _nb_geo(xyz, g, h, nmax, a_c, b_c, diag, out):
         npt = xyz.shape[0]
@@ -510,28 +527,38 @@ if _nb is not None:
             F = np.empty(nmax + 1)
             rho = np.empty(nmax + 1)
             for i in range(blk * 256, min(npt, (blk + 1) * 256)):
-                x = xyz[i, 0]
-                y = xyz[i, 1]
-                z = xyz[i, 2]
-                rho2 = x * x + y * y
-                r = np.sqrt(rho2 + z * z)
-                rh = np.sqrt(rho2)
-                u = z / r
-                s = rh / r
-                if rh > 0.0:
-                    cp = x / rh
-                    sp = y / rh
-                else:
-                    cp = 1.0
-                    sp = 0.0
-                br, bt, bp = _point(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, E, F, rho)
-                bh = br * s + bt * u
-                out[i, 0] = bh * cp - bp * sp
-                out[i, 1] = bh * sp + bp * cp
-                out[i, 2] = br * u - bt * s
+                bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
+                                        a_c, b_c, diag, E, F, rho)
+                out[i, 0] = bx
+                out[i, 1] = by
+                out[i, 2] = bz
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _nb_geo_t(xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out):
+        """Per-point times: coefficients G[k] + dt * GD[k] interpolated point by point."""
+        npt = xyz.shape[0]
+        nblk = (npt + 255) // 256
+        for blk in _nb.prange(nblk):
+            E = np.empty(nmax + 1)
+            F = np.empty(nmax + 1)
+            rho = np.empty(nmax + 1)
+            g = np.zeros((nmax + 1, nmax + 1))
+            h = np.zeros((nmax + 1, nmax + 1))
+            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
+                kk = k[i]
+                d = dt[i]
+                for n in range(1, nmax + 1):
+                    for m in range(n + 1):
+                        g[n, m] = G[kk, n, m] + d * GD[kk, n, m]
+                        h[n, m] = H[kk, n, m] + d * HD[kk, n, m]
+                bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
+                                        a_c, b_c, diag, E, F, rho)
+                out[i, 0] = bx
+                out[i, 1] = by
+                out[i, 2] = bz
 
 else:  # pragma: no cover - numba is a declared dependency
-    _nb_spherical = _nb_geo = None
+    _nb_spherical = _nb_geo = _nb_geo_t = None
 
 
 def synth_spherical(r_km, colat_deg, lon_deg, g, h, *, backend=None):
@@ -786,8 +813,9 @@ def _time_array(time):
     return np.asarray(t, dtype=float)
 
 
-def igrf_field_cartesian(xyz_km, time, *, max_degree=13, allow_extrapolation=False):
-    """IGRF-14 field vector in GEO Cartesian components, with per-point times.
+def igrf_field_cartesian(xyz_km, time, *, max_degree=13, allow_extrapolation=False,
+                         backend=None):
+    r"""IGRF-14 field vector in GEO Cartesian components, with per-point times.
 
     Parameters
     ----------
@@ -799,6 +827,10 @@ def igrf_field_cartesian(xyz_km, time, *, max_degree=13, allow_extrapolation=Fal
         Truncation degree, 1-13.
     allow_extrapolation : bool
         Allow times outside 1900.0-2030.0.
+    backend : {None, "numba", "numpy"}
+        Engine. The numba engine interpolates the coefficients point by
+        point; the numpy one groups points by table interval and combines
+        :math:`\mathbf B(g_k) + (t - T_k)\,\mathbf B(\dot g_k)`.
 
     Returns
     -------
@@ -811,14 +843,32 @@ def igrf_field_cartesian(xyz_km, time, *, max_degree=13, allow_extrapolation=Fal
         For times outside 1900.0-2030.0 (unless allowed).
     """
     xyz = np.asarray(xyz_km, dtype=float)
-    lead = np.broadcast_shapes(xyz.shape[:-1], np.shape(_time_array(time)))
-    xyz = np.broadcast_to(xyz, lead + (3,))
-    flat = xyz.reshape(-1, 3)
+    t = _time_array(time)
+    lead = np.broadcast_shapes(xyz.shape[:-1], t.shape)
+    flat = np.ascontiguousarray(np.broadcast_to(xyz, lead + (3,)).reshape(-1, 3))
+    if _use_numba(backend):
+        table = igrf_table()
+        tt = np.ascontiguousarray(np.broadcast_to(t, lead).ravel())
+        k, dt = _interval(tt, table, allow_extrapolation, "time")
+        nmax = int(max_degree)
+        if not 1 <= nmax <= table.nmax:
+            raise FieldModelError(f"argument 'max_degree' must be 1-13, got {max_degree!r}")
+        gdot, hdot = _rates(table)
+        a_c, b_c, diag = _recursion_constants(nmax)
+        sl = slice(0, nmax + 1)
+        out = np.empty(flat.shape)
+        _nb_geo_t(
+            flat, np.ascontiguousarray(k, dtype=np.int64), np.ascontiguousarray(dt),
+            np.ascontiguousarray(table.g[:-1, sl, sl]), np.ascontiguousarray(table.h[:-1, sl, sl]),
+            np.ascontiguousarray(gdot[:, sl, sl]), np.ascontiguousarray(hdot[:, sl, sl]),
+            nmax, a_c, b_c, diag, out,
+        )
+        return out.reshape(lead + (3,))
 
     def evaluate(idx, g, h):
-        return (synth_geo(flat[idx], g, h),)
+        return (synth_geo(flat[idx], g, h, backend="numpy"),)
 
-    res = _grouped(time, lead, max_degree, allow_extrapolation, evaluate)
+    res = _grouped(t, lead, max_degree, allow_extrapolation, evaluate)
     if res is None:
         return np.full(lead + (3,), np.nan)
     return res[0].reshape(lead + (3,))
