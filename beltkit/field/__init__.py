@@ -22,14 +22,17 @@ _EXPORTS = {
     # igrf.py
     "igrf_coefficients": "igrf",
     "igrf_field_spherical": "igrf",
+    "igrf_field_cartesian": "igrf",
     # coords.py
     "convert": "coords",
     "geodetic_to_geo": "coords",
     "geo_to_geodetic": "coords",
     "magnetic_coordinates": "coords",
     "magnetic_local_time": "coords",
+    "sun_direction_geo": "coords",
     # sun.py
     "sun_direction_gei": "sun",
+    "decimal_year": "timeconv",
     # trace.py
     "trace": "trace",
     # lshell.py
