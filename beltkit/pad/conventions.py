@@ -30,6 +30,7 @@ __all__ = [
     "check",
     "flux_unit_factor",
     "validate",
+    "value_problems",
 ]
 
 #: Canonical unit of differential directional flux.
@@ -273,7 +274,7 @@ def _blocks(n):
 
 
 def _value_summary(da, mask, energy_axis):
-    """Per-energy NaN-ignoring min and max of masked values, without full-size temporaries."""
+    """Return per-energy NaN-ignoring minimum and negative count of the masked values."""
     data = da.data
     tax = da.dims.index("time")
     other = tuple(i for i in range(da.ndim) if i != energy_axis)
@@ -282,43 +283,25 @@ def _value_summary(da, mask, energy_axis):
 
         masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
         lo = dsa.nanmin(masked, axis=other)
-        hi = dsa.nanmax(masked, axis=other)
         import warnings
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
-            lo, hi = dsa.compute(lo, hi)
-        return np.asarray(lo), np.asarray(hi)
+            lo, n_neg = dsa.compute(lo, (masked < 0).sum(axis=other))
+        return np.asarray(lo), np.asarray(n_neg)
+    from ._kernels import value_scan
+
     data = np.asarray(data)
-    n_e = data.shape[energy_axis]
+    order = [tax, energy_axis] + [i for i in range(data.ndim) if i not in (tax, energy_axis)]
+    data = data.transpose(order) if data.ndim == 3 else data
+    n_e = data.shape[1]
     lo = np.full(n_e, np.nan)
-    hi = np.full(n_e, np.nan)
-    for sl in _blocks(data.shape[tax]):
-        idx = [slice(None)] * data.ndim
-        idx[tax] = sl
-        block = mask.apply(data[tuple(idx)])
-        if block.size == 0:
-            continue
-        lo = np.fmin(lo, np.fmin.reduce(block, axis=other))
-        hi = np.fmax(hi, np.fmax.reduce(block, axis=other))
-    return lo, hi
-
-
-def _count_negative(da, mask):
-    data = da.data
-    if hasattr(data, "dask"):
-        import dask.array as dsa
-
-        masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
-        return int((masked < 0).sum().compute())
-    data = np.asarray(data)
-    tax = da.dims.index("time")
-    n = 0
-    for sl in _blocks(data.shape[tax]):
-        idx = [slice(None)] * data.ndim
-        idx[tax] = sl
-        n += int(np.count_nonzero(mask.apply(data[tuple(idx)]) < 0))
-    return n
+    n_neg = np.zeros(n_e, dtype=np.int64)
+    for sl in _blocks(data.shape[0]):
+        blo, bneg = value_scan(data[sl], mask.fill, mask.vmin, mask.vmax)
+        lo = np.fmin(lo, blo)
+        n_neg += bneg
+    return lo, n_neg
 
 
 def _check_edges(ds, problems, folded):
@@ -579,26 +562,17 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
     n_negative = 0
     if check_values and not problems:
         eax = flux.dims.index("energy")
-        lo, _ = _value_summary(flux, flux_mask, eax)
-        dead = np.isnan(lo)
-        if np.any(dead):
-            problems.append(f"flux: all values NaN (or fill) at energies "
-                            f"{energy_kev[dead].tolist()} keV; drop those channels "
-                            "(ds.drop_isel(energy=...)) or check the fill-value attributes")
-        if np.any(lo[~dead] < 0):
-            n_negative = _count_negative(flux, flux_mask)
-            if not allow_negative:
-                problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
-                                "allow_negative=True to keep them (they are then flagged in "
-                                "partition_flag)")
+        lo, negs = _value_summary(flux, flux_mask, eax)
+        n_err_neg = 0
         if error_source == "flux_err":
             elo, _ = _value_summary(ds["flux_err"], err_mask, eax)
-            if np.any(elo[~np.isnan(elo)] < 0):
-                problems.append("flux_err: negative uncertainties")
+            n_err_neg = int(np.sum(elo[~np.isnan(elo)] < 0))
         if error_source == "counts":
             clo, _ = _value_summary(ds["counts"], counts_mask, eax)
-            if np.any(clo[~np.isnan(clo)] < 0):
-                problems.append("counts: negative counts")
+            n_err_neg = int(np.sum(clo[~np.isnan(clo)] < 0))
+        n_negative = int(np.sum(negs))
+        problems.extend(value_problems(energy_kev, ~np.isnan(lo), n_negative, n_err_neg,
+                                       error_source, allow_negative))
     prepared = None
     if not problems:
         prepared = Prepared(kind=kind, edges=edges, folded=folded, flux_mask=flux_mask,
@@ -607,6 +581,46 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                             energy_bnds_kev=ebnds, angle_scale=angle_scale,
                             other_scale=other_scale, n_negative=n_negative)
     return problems, prepared
+
+
+def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_source,
+                   allow_negative):
+    """Return the problems found by the value checks (shared by the validator and engines).
+
+    Parameters
+    ----------
+    energy_kev : numpy.ndarray
+        Channel energies (keV), for the message.
+    has_valid : numpy.ndarray of bool
+        Per channel: whether any valid (non-NaN, non-fill) flux value exists.
+    n_negative : int
+        Number of negative flux values.
+    n_err_negative : int
+        Number of negative uncertainties (or negative counts).
+    error_source : str or None
+        ``"flux_err"`` or ``"counts"``.
+    allow_negative : bool
+        Whether negative flux values are accepted.
+
+    Returns
+    -------
+    list of str
+        The problems (possibly empty).
+    """
+    problems = []
+    dead = ~np.asarray(has_valid, dtype=bool)
+    if np.any(dead):
+        problems.append(f"flux: all values NaN (or fill) at energies "
+                        f"{np.asarray(energy_kev)[dead].tolist()} keV; drop those channels "
+                        "(ds.drop_isel(energy=...)) or check the fill-value attributes")
+    if n_negative and not allow_negative:
+        problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
+                        "allow_negative=True to keep them (they are then flagged in "
+                        "partition_flag)")
+    if n_err_negative:
+        what = "negative counts" if error_source == "counts" else "negative uncertainties"
+        problems.append(f"{error_source}: {what}")
+    return problems
 
 
 def validate(ds, *, model=None, allow_negative=False, check_values=True):
@@ -637,7 +651,7 @@ def validate(ds, *, model=None, allow_negative=False, check_values=True):
     return problems
 
 
-def check(ds, *, model=None, allow_negative=False, source=None):
+def check(ds, *, model=None, allow_negative=False, source=None, check_values=True):
     """Validate `ds` and return its :class:`Prepared` description.
 
     Parameters
@@ -651,6 +665,9 @@ def check(ds, *, model=None, allow_negative=False, source=None):
     source : str, optional
         Where the dataset came from (file name), for the error message;
         defaults to ``ds.encoding['source']`` when present.
+    check_values : bool
+        Scan the values too (the eager partition engine skips this and
+        gathers the same counts in its own single pass).
 
     Returns
     -------
@@ -662,7 +679,8 @@ def check(ds, *, model=None, allow_negative=False, source=None):
     ConventionError
         Listing every problem at once.
     """
-    problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative)
+    problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative,
+                                  check_values=check_values)
     if problems:
         if source is None and isinstance(ds, xr.Dataset):
             source = ds.encoding.get("source")

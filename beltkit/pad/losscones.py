@@ -89,7 +89,13 @@ def _attrs(long_name, units="degree"):
     return {"units": units, "long_name": long_name}
 
 
-def _finish(out):
+def time_coords(ds):
+    """Return the dataset's ``time`` coordinate as :class:`xarray.Coordinates`, index reused."""
+    return xr.Coordinates(coords={"time": ds["time"].variable},
+                          indexes={"time": ds.xindexes["time"]})
+
+
+def _finish(out, ds):
     names = {
         "blc_local": ("local bounce loss cone half-angle", "degree"),
         "dlc_local": ("local drift loss cone half-angle", "degree"),
@@ -105,10 +111,12 @@ def _finish(out):
         "mlat": ("magnetic latitude", "degree"),
         "mlt": ("magnetic local time", "hour"),
     }
+    variables = {}
     for k, v in out.items():
         ln, u = names[k]
-        v.attrs = _attrs(ln, u)
-    return xr.Dataset(out)
+        var = v.variable if isinstance(v, xr.DataArray) else xr.Variable(("time",), v)
+        variables[k] = xr.Variable(var.dims, var.data, _attrs(ln, u))
+    return xr.Dataset(variables, coords=time_coords(ds))
 
 
 def _var(ds, name, scale):
@@ -123,22 +131,35 @@ def _dipole_path(ds, prep: Prepared, altitude_km):
     mlat = _var(ds, "mlat", prep.other_scale)
     L.attrs = {"units": "1"}
     mlat.attrs = {"units": "degree"}
-    b_foot = dipole.footpoint_field(L, altitude_km=altitude_km)
-    b_eq = dipole.equatorial_field(L)
-    if "b_local" in ds.variables:
-        b_loc = _var(ds, "b_local", prep.other_scale)
+    b_loc = _var(ds, "b_local", prep.other_scale) if "b_local" in ds.variables else None
+    if L.chunks is None and mlat.chunks is None and (b_loc is None or b_loc.chunks is None):
+        # eager: run the closed forms on plain arrays (no per-call xarray overhead)
+        Lv, mv = L.values, mlat.values
+        b_foot = np.asarray(dipole.footpoint_field(Lv, altitude_km=altitude_km))
+        b_eq = np.asarray(dipole.equatorial_field(Lv))
+        bl = b_loc.values if b_loc is not None else np.asarray(dipole.field_magnitude(Lv, mv))
+        blc = cone_from_fields(bl, b_foot)
+        blc_eq = cone_from_fields(b_eq, b_foot)
+
+        out = {"blc_local": blc, "dlc_local": blc, "blc_equatorial": blc_eq,
+               "dlc_equatorial": blc_eq, "loss_cone_north": blc, "loss_cone_south": blc,
+               "b_local": bl, "b_min": b_eq, "L": Lv, "mlat": mv}
     else:
-        b_loc = dipole.field_magnitude(L, mlat)
-    blc = cone_from_fields(b_loc, b_foot)
-    blc_eq = cone_from_fields(b_eq, b_foot)
-    out = {
-        "blc_local": blc, "dlc_local": blc.copy(), "blc_equatorial": blc_eq,
-        "dlc_equatorial": blc_eq.copy(), "loss_cone_north": blc.copy(),
-        "loss_cone_south": blc.copy(), "b_local": b_loc, "b_min": b_eq, "L": L, "mlat": mlat,
-    }
+        b_foot = dipole.footpoint_field(L, altitude_km=altitude_km)
+        b_eq = dipole.equatorial_field(L)
+        if b_loc is None:
+            b_loc = dipole.field_magnitude(L, mlat)
+        blc = cone_from_fields(b_loc, b_foot)
+        blc_eq = cone_from_fields(b_eq, b_foot)
+        out = {
+            "blc_local": blc, "dlc_local": blc, "blc_equatorial": blc_eq,
+            "dlc_equatorial": blc_eq, "loss_cone_north": blc,
+            "loss_cone_south": blc, "b_local": b_loc, "b_min": b_eq, "L": L,
+            "mlat": mlat,
+        }
     if "mlt" in ds.variables:
         out["mlt"] = _var(ds, "mlt", prep.other_scale)
-    return _finish(out)
+    return _finish(out, ds)
 
 
 _MODEL_FIELDS = ("b_local", "b_min", "b_foot_north", "b_foot_south", "b_foot_drift_min",
@@ -217,7 +238,7 @@ def _model_path(ds, prep: Prepared, model, altitude_km):
     # L, mlat, mlt: the dataset's own when present, else the model's
     for name in ("L", "mlat", "mlt"):
         out[name] = _var(ds, name, prep.other_scale) if name in ds.variables else f[name]
-    return _finish(out)
+    return _finish(out, ds)
 
 
 def sample_loss_cones(ds, prep: Prepared, model=None, altitude_km=100.0):

@@ -47,9 +47,11 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check
+from ..errors import ConventionError
+from . import _kernels
+from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
 from .geometry import fov_fraction_below
-from .losscones import sample_loss_cones
+from .losscones import sample_loss_cones, time_coords
 
 __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition"]
 
@@ -73,6 +75,7 @@ FLAG_MEANINGS = {
     8: "partial_coverage",
     16: "negative_flux_in_input",
     32: "no_valid_flux",
+    64: "loss_cone_unknown",
 }
 
 _BLOCK = 32768
@@ -143,6 +146,9 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
     blc, dlc : (n,) degrees; look : (n, K) look pitch angles or None.
     Returns (n_out, n, E).
     """
+    out_dtype = x.dtype
+    x = np.asarray(x, dtype=np.float64)  # reference path: float64 throughout
+    s = None if s is None else np.asarray(s, dtype=np.float64)
     dtype = x.dtype
     n, n_e, _ = x.shape
     band = opts["band_deg"]
@@ -197,6 +203,7 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
         if opts["has_negative"]:
             flag |= np.where((x < 0).any(axis=-1), 16, 0).astype(np.int16)
         flag |= np.where(~(m[..., 4] > 0), 32, 0).astype(np.int16)
+        flag[np.isnan(blc)] = 64
         out[14] = flag
         if s is not None:
             s2 = np.where(finite, s * s, dtype.type(0))
@@ -220,28 +227,87 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
                    - 2 * v[..., 8] / (r[..., 0] * r[..., 3]))
             out[base + 7] = np.where(fill_ok, np.abs(out[13]) * np.sqrt(np.maximum(rel, 0)),
                                      nan)
-    return out
+    return out.astype(out_dtype, copy=False)
 
 
-def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype):
+def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None):
     x = prep.flux_mask.apply(flux_blk, dtype)
     s = None
     if prep.error_source == "flux_err":
         s = prep.err_mask.apply(err_blk, dtype)
     elif prep.error_source == "counts":
-        counts = prep.counts_mask.apply(counts_blk := err_blk, dtype)
-        del counts_blk
+        counts = prep.counts_mask.apply(err_blk, dtype)
+        if stats is not None:
+            stats[:, 2] += (counts < 0).sum(axis=(0, 2))
+        # Poisson: sigma_N = sqrt(N), with N = 0 counted as 1 (documented convention)
         s = (np.sqrt(np.maximum(counts, 1)) * c2f_blk).astype(dtype, copy=False)
         s = np.where(np.isnan(counts), dtype.type(np.nan), s)
     return x, s
 
 
-def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, dtype):
-    x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype)
-    return _kernel(x, s, blc, dlc, look, geom=geom, opts=opts)
+def _alloc_out(nout, n, n_e, dtype):
+    """Return a (nout, stride) buffer whose rows are contiguous and padded apart.
+
+    Rows start 64 bytes apart modulo 4096, so that writing all outputs of one
+    sample does not hit the same cache set (4K aliasing) n_out times.
+    """
+    item = np.dtype(dtype).itemsize
+    need = max(n * n_e * item, 1)
+    stride_bytes = -(-need // 4096) * 4096 + 64
+    return np.empty(nout * stride_bytes // item, dtype=dtype).reshape(nout, stride_bytes // item)
+
+
+def _as_3d(buf, n, n_e):
+    return buf[:, : n * n_e].reshape(buf.shape[0], n, n_e)
+
+
+def _numpy_stats(x, s, stats):
+    stats[:, 0] += np.isfinite(x).sum(axis=(0, 2))
+    stats[:, 1] += (x < 0).sum(axis=(0, 2))
+    if s is not None:
+        stats[:, 2] += (s < 0).sum(axis=(0, 2))
+
+
+def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, dtype,
+               out=None, stats=None):
+    x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats)
+    if stats is None:
+        stats = np.zeros((x.shape[1], 3), dtype=np.int64)
+    n, n_e = x.shape[:2]
+    if opts["engine"] == "numpy":
+        _numpy_stats(x, s, stats)
+        res = _kernel(x, s, blc, dlc, look, geom=geom, opts=opts)
+        if out is None:
+            return res
+        out[:, : n * n_e] = res.reshape(res.shape[0], -1)
+        return out
+    ret3d = out is None
+    if out is None:
+        out = _alloc_out(_n_out(s is not None), n, n_e, dtype)
+    blc = np.asarray(blc, dtype=float)
+    dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
+    wpre = None
+    if geom["kind"] == "telescope":
+        outer = np.minimum(blc + opts["band_deg"], 90.0)
+        wpre = _telescope_weights(np.asarray(look, dtype=float), geom["half"],
+                                  (blc, dlc, outer))
+        cos_a1 = cos_a2 = np.zeros(x.shape[2])
+        fold = 1.0
+    else:
+        cos_a1, cos_a2 = geom["cos_a1"], geom["cos_a2"]
+        fold = 2.0 if geom["folded"] else 1.0
+    _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
+                             opts["has_negative"], out, stats)
+    return _as_3d(out, n, n_e) if ret3d else out
 
 
 # ------------------------------------------------------------------ assembly
+
+
+def _is_lazy(ds):
+    names = ("flux", "flux_err", "counts", "counts_to_flux", "look_pitch_angle", "L", "mlat",
+             "b_local", "position_geo")
+    return any(ds[n].chunks is not None for n in names if n in ds.variables)
 
 
 def _geometry(ds, prep):
@@ -278,7 +344,7 @@ def _arrays(ds, prep):
     return flux, err, c2f, look
 
 
-def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype):
+def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None):
     nout = _n_out(err is not None)
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look, blc, dlc) if a is not None)
@@ -323,14 +389,14 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype):
     dv = np.asarray(dlc.values, dtype=float)
     lv = look.values if look is not None else None
     n_t, n_e = fv.shape[:2]
-    out = np.empty((nout, n_t, n_e), dtype=dtype)
+    buf = _alloc_out(nout, n_t, n_e, dtype)
     for start in range(0, n_t, _BLOCK):
-        sl = slice(start, min(start + _BLOCK, n_t))
-        out[:, sl] = _run_block(fv[sl], None if ev is None else ev[sl],
-                                None if cv is None else cv[sl], bv[sl], dv[sl],
-                                None if lv is None else lv[sl], prep=prep, geom=geom,
-                                opts=opts, dtype=dtype)
-    return out
+        stop = min(start + _BLOCK, n_t)
+        sl = slice(start, stop)
+        _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
+                   bv[sl], dv[sl], None if lv is None else lv[sl], prep=prep, geom=geom,
+                   opts=opts, dtype=dtype, out=buf[:, start * n_e: stop * n_e], stats=stats)
+    return _as_3d(buf, n_t, n_e)
 
 
 _LONG = {
@@ -365,7 +431,7 @@ def _units(name):
 
 
 def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
-              allow_negative=False):
+              allow_negative=False, engine="auto"):
     r"""Split a pitch-angle flux dataset into precipitating, quasi-trapped and trapped flux.
 
     Parameters
@@ -387,6 +453,9 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     allow_negative : bool, keyword-only
         Keep negative flux values (flag bit 16 of ``partition_flag``) instead
         of refusing the dataset.
+    engine : {"auto", "numba", "numpy"}, keyword-only
+        "auto" uses the fused numba kernel when numba is importable, else the
+        numpy reference implementation (same results to float rounding).
 
     Returns
     -------
@@ -433,14 +502,27 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     >>> bool(np.isclose(float(out.fraction_precipitating[0, 0]), 1 - np.cos(blc)))
     True
     """
-    prep: Prepared = check(ds, model=model, allow_negative=allow_negative)
+    lazy = _is_lazy(ds)
+    # eager data: the value checks are gathered by the engine in its single pass
+    prep: Prepared = check(ds, model=model, allow_negative=allow_negative, check_values=lazy)
     lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
     geom = _geometry(ds, prep)
-    opts = {"band_deg": float(filling_band_deg), "has_negative": prep.n_negative > 0}
+    if engine not in ("auto", "numba", "numpy"):
+        raise ValueError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
+    if engine == "numba" and not _kernels.HAVE_NUMBA:
+        raise ImportError("engine='numba' needs numba installed (pip install numba)")
+    use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
+    opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
+    stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     data = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom, opts,
-                    dtype)
+                    dtype, stats)
+    if stats is not None:
+        problems = value_problems(prep.energy_kev, stats[:, 0] > 0, int(stats[:, 1].sum()),
+                                  int(stats[:, 2].sum()), prep.error_source, allow_negative)
+        if problems:
+            raise ConventionError(problems, ds.encoding.get("source"))
     with_err = err is not None
     names = list(_NAMES) + (list(_ERR_NAMES) if with_err else [])
     dims = ("time", "energy")
@@ -465,16 +547,12 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
                 attrs["ancillary_variables"] = f"{name}_err"
         out_vars[name] = xr.Variable(dims, values, attrs)
     bdim = ds["energy_bnds"].dims[1]
-    coords = {
-        "time": xr.Variable("time", ds["time"].values, dict(ds["time"].attrs)),
-        "energy": xr.Variable("energy", prep.energy_kev,
-                              {"units": "keV", "long_name": "kinetic energy",
-                               "bounds": "energy_bnds"}),
-    }
-    out = xr.Dataset(out_vars, coords=coords)
-    out["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev)
+    out_vars["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev)
     for name in lc.data_vars:
-        out[name] = lc[name].variable
+        out_vars[name] = lc[name].variable
+    energy = xr.Variable("energy", prep.energy_kev, {"units": "keV", "long_name": "kinetic energy",
+                                                     "bounds": "energy_bnds"})
+    out = xr.Dataset(out_vars, coords=time_coords(ds)).assign_coords(energy=energy)
     out.attrs = {
         "title": "beltkit pitch-angle partition",
         "beltkit_field_model": str(getattr(model, "name", model or "dipole")),
