@@ -35,6 +35,7 @@ _EXPORTS = {
     "decimal_year": "timeconv",
     # trace.py
     "trace": "trace",
+    "integral_invariant": "trace",
     # lshell.py
     "mcilwain_l": "lshell",
     "hilton_l": "lshell",
@@ -42,6 +43,7 @@ _EXPORTS = {
     # losscone.py
     "loss_cones": "losscone",
     "drift_shell_table": "losscone",
+    "loss_cones_vs_longitude": "losscone",
 }
 
 __all__ = sorted(_EXPORTS)

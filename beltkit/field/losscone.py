@@ -41,7 +41,7 @@ grid of radii, labels them, and interpolates (cubic spline in
 :math:`\ln L`) the footpoint fields onto a grid of L. The minimum over
 longitudes is refined by a parabola through the discrete minimum and its
 two neighbours (periodic in longitude). A sample's drift minimum is that
-of its own label L (monotone cubic interpolation in L), never more than its
+of its own label L (monotone cubic interpolation of ln B in ln L), never more than its
 own weaker footpoint field.
 
 Cache
@@ -118,17 +118,14 @@ def _epoch_of(model, time):
 
 
 def _mag_to_geo(model, xyz_mag, time):
-    """Rotate MAG-frame vectors to GEO with the model's dipole axis at `time`.
+    """Rotate MAG-frame positions to GEO with the model's dipole axis at `time`.
 
-    MAG: +Z along the northern dipole axis, +Y along Z_GEO x Z_MAG, +X
-    completing the right-handed set (Hapgood 1992, Planet. Space Sci. 40, 711).
+    MAG (Hapgood 1992, Planet. Space Sci. 40, 711): +Z along the northern
+    dipole axis, +Y along Z_GEO x Z_MAG; see :mod:`beltkit.field.coords`.
     """
-    z = np.asarray(model.dipole_axis_geo(time), dtype=float).reshape(3)
-    y = np.cross([0.0, 0.0, 1.0], z)
-    y /= np.linalg.norm(y)
-    x = np.cross(y, z)
-    rot = np.stack([x, y, z])  # rows: MAG axes in GEO
-    return xyz_mag @ rot
+    from .coords import convert
+
+    return np.asarray(convert(xyz_mag, time, "MAG", "GEO", model=model))
 
 
 def _foot_label(lines, b0_nt):
@@ -258,7 +255,7 @@ def _periodic_min(b):
     f2 = lbf[rows, (k + 1) % n]
     with np.errstate(invalid="ignore", divide="ignore"):
         curv = f0 - 2 * f1 + f2
-        shift = np.where(curv > 0, 0.5 * (f0 - f2) / curv, 0.0)
+        shift = np.clip(np.where(curv > 0, 0.5 * (f0 - f2) / curv, 0.0), -1.0, 1.0)
         fmin = f1 - 0.25 * (f0 - f2) * shift
     fmin = np.minimum(fmin, f1)
     out = np.exp(fmin)
@@ -443,7 +440,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         dims = (dim,) if len(lead) == 1 else tuple(f"{dim}_{i}" for i in range(len(lead)))
     n = int(np.prod(lead)) if lead else 1
     t = _broadcast_time(time, lead)
-    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, **trace_options)
+    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, arg_name="xyz_km",
+                        **trace_options)
     b_loc = lines.b_start
     with np.errstate(invalid="ignore"):
         b_weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
@@ -471,10 +469,10 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         good = np.isfinite(dm)
         if good.sum() < 2:
             continue
-        ll = table["L"].values[good]
+        ll = np.log(table["L"].values[good])
         interp = PchipInterpolator(ll, np.log(dm[good]), extrapolate=False)
         with np.errstate(invalid="ignore"):
-            b_drift[sel] = np.exp(interp(l_foot[sel]))
+            b_drift[sel] = np.exp(interp(np.log(l_foot[sel])))
     with np.errstate(invalid="ignore"):
         b_drift = np.fmin(b_drift, np.where(np.isfinite(b_drift), b_weak, np.nan))
         b_min = lines.b_min
@@ -505,8 +503,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
                        "McIlwain L of particles mirroring at the weaker footpoint (shell label)"),
         }
     )
-    mlat, mlon, _ = coords.magnetic_coordinates(x.reshape(-1, 3), t)
-    mlt = coords.magnetic_local_time(x.reshape(-1, 3), t)
+    mlat, mlon, _ = coords.magnetic_coordinates(x.reshape(-1, 3), t, model=model)
+    mlt = coords.magnetic_local_time(x.reshape(-1, 3), t, model=model)
     out["mlat"] = (np.asarray(mlat, dtype=float), "deg", "magnetic (dipole) latitude")
     out["mlon"] = (np.asarray(mlon, dtype=float), "deg", "magnetic (dipole) longitude")
     out["mlt"] = (np.asarray(mlt, dtype=float), "h", "magnetic local time")

@@ -206,7 +206,8 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
             f"argument 'alpha_local_deg' of shape {alpha.shape} does not broadcast against "
             f"the positions' leading shape {lead}"
         ) from exc
-    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, **trace_options)
+    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, arg_name="xyz_km",
+                        **trace_options)
     b_m = lines.b_start / np.sin(np.radians(alpha)) ** 2
     i_km = lines.integral_invariant(b_m)
     # a position at (or within rounding of) the field minimum mirrors equatorially

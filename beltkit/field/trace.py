@@ -56,6 +56,8 @@ _A = (
 _E = (71 / 57600, 0.0, -71 / 16695, 71 / 1920, -17253 / 339200, 22 / 525, -1 / 40)
 
 _GAUSS_NODES = 64
+# relative excess of a mirror field over a footpoint field still placed on the footpoint
+_FOOT_TOL = 1e-7
 
 
 def _check_time_shape(time, n):
@@ -523,7 +525,7 @@ def _insert_minimum(s, lb, n_samples, s_min, b_min, ok):
     return s_new, lb_new, n_samples
 
 
-def _as_start_points(start_xyz_km, r_stop):
+def _as_start_points(start_xyz_km, r_stop, name="start_xyz_km"):
     """Validate start points; return a (N, 3) float array and the leading shape."""
     if isinstance(start_xyz_km, xr.DataArray):
         start_xyz_km = start_xyz_km.values
@@ -531,11 +533,11 @@ def _as_start_points(start_xyz_km, r_stop):
         x = np.asarray(start_xyz_km, dtype=float)
     except (TypeError, ValueError) as exc:
         raise PhysicsError(
-            f"argument 'start_xyz_km' must be numeric GEO positions in km, got {start_xyz_km!r}"
+            f"argument {name!r} must be numeric GEO positions in km, got {start_xyz_km!r}"
         ) from exc
     if x.ndim == 0 or x.shape[-1] != 3:
         raise PhysicsError(
-            "argument 'start_xyz_km' must have a trailing axis of length 3 (x, y, z in GEO km); "
+            f"argument {name!r} must have a trailing axis of length 3 (x, y, z in GEO km); "
             f"got shape {x.shape}"
         )
     lead = x.shape[:-1]
@@ -546,7 +548,7 @@ def _as_start_points(start_xyz_km, r_stop):
     if np.any(inside):
         i = int(np.flatnonzero(inside)[0])
         raise FieldModelError(
-            f"argument 'start_xyz_km' has {int(inside.sum())} point(s) inside the Earth "
+            f"argument {name!r} has {int(inside.sum())} point(s) inside the Earth "
             f"(first: index {i}, r = {r[i]:.1f} km < R_E = {R_E_KM} km); positions are GEO "
             "Cartesian in km, not Earth radii (multiply by beltkit.constants.R_E_KM)"
         )
@@ -554,7 +556,7 @@ def _as_start_points(start_xyz_km, r_stop):
     if np.any(below):
         i = int(np.flatnonzero(below)[0])
         raise FieldModelError(
-            f"argument 'start_xyz_km' has {int(below.sum())} point(s) below the stop altitude "
+            f"argument {name!r} has {int(below.sum())} point(s) below the stop altitude "
             f"(first: index {i}, altitude {r[i] - R_E_KM:.1f} km < altitude_km = "
             f"{r_stop - R_E_KM:g}); lower 'altitude_km' to trace from them"
         )
@@ -571,12 +573,14 @@ def trace_lines(
     max_step_frac=0.1,
     max_radius_re=30.0,
     max_steps=3000,
+    arg_name="start_xyz_km",
 ):
     """Trace field lines through start points; return the arrays (:class:`FieldLines`).
 
     This is the array-level engine behind :func:`trace`; it also keeps the
     samples of |B| along each line needed by :func:`integral_invariant`.
-    Parameters are those of :func:`trace`.
+    Parameters are those of :func:`trace`; `arg_name` names the positions
+    argument in error messages.
 
     Returns
     -------
@@ -599,7 +603,7 @@ def trace_lines(
             f"argument 'max_radius_re' ({max_radius_re}) must exceed the stop radius "
             f"({r_stop / R_E_KM:.4f} R_E)"
         )
-    x0, _ = _as_start_points(start_xyz_km, r_stop)
+    x0, _ = _as_start_points(start_xyz_km, r_stop, arg_name)
     n = x0.shape[0]
     t, per_line = _check_time_shape(time, n)
     field = _Field(model, t, per_line, n)
@@ -739,12 +743,10 @@ def _invariant_one(lines, bm):
     # mirror field at (or within rounding of) the minimum: I = 0
     eq = ok & (bm <= b_min * (1 + 1e-12)) & (bm >= b_min * (1 - 1e-9))
     result[eq] = 0.0
-    # mirror fields within rounding of a footpoint field are placed on the footpoint
+    # mirror fields at most _FOOT_TOL above a footpoint field mirror on the footpoint
     with np.errstate(invalid="ignore"):
-        bm = np.where(np.abs(bm / lines.b_foot_north - 1) < 1e-9, lines.b_foot_north, bm)
-        bm = np.where(np.abs(bm / lines.b_foot_south - 1) < 1e-9, lines.b_foot_south, bm)
-        log_bm = np.log(bm)
-        reach = (bm <= lines.b_foot_north) & (bm <= lines.b_foot_south)
+        reach = ((bm <= lines.b_foot_north * (1 + _FOOT_TOL))
+                 & (bm <= lines.b_foot_south * (1 + _FOOT_TOL)))
     work = ok & ~eq & (bm > b_min) & reach
     rows = np.flatnonzero(work)
     if rows.size == 0:
@@ -752,6 +754,11 @@ def _invariant_one(lines, bm):
     s = lines.s[rows]
     y = lines.log_b[rows] - log_bm[rows, None]
     ns = lines.n_samples[rows]
+    # footpoints within the tolerance below B_m count as the mirror points
+    ar = np.arange(rows.size)
+    for end in (np.zeros(rows.size, dtype=np.int64), ns - 1):
+        y_end = y[ar, end]
+        y[ar, end] = np.where((y_end < 0) & (y_end > -_FOOT_TOL), 0.0, y_end)
     smin = lines.s_min[rows]
     k_max = s.shape[1]
     cols = np.arange(k_max)[None, :]
