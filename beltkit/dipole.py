@@ -204,13 +204,14 @@ def _mirror_block(s, c):
         sf = s[far]
         s2 = sf * sf
         u = np.cbrt(2.0 * sf)  # (4 s^2)^(1/6), above the root: f(u0) = 3 s^2 u0 > 0
-        pos = u > 0.0
         polish = False
         for _ in range(60):
             u3 = u * u * u
             f = u3 * u3 + 3.0 * s2 * u - 4.0 * s2
             fp = 6.0 * u3 * u * u + 3.0 * s2
-            step = np.divide(f, fp, out=np.zeros_like(f), where=pos)
+            # fp underflows to 0 only for s < ~1e-100 (alpha_eq < ~1e-48 deg), where
+            # u0 already gives the mirror latitude as 90 deg to double precision
+            step = np.divide(f, fp, out=np.zeros_like(f), where=fp > 0.0)
             u = u - step
             if polish:
                 break
