@@ -40,3 +40,6 @@ def __getattr__(name):
 
 def __dir__():
     return sorted(__all__)
+
+
+from .pad import accessor as _accessor  # noqa: E402,F401

@@ -9,17 +9,15 @@ arrays plus the per-sample weight matrices. Sums are accumulated in float64.
 
 from __future__ import annotations
 
+import importlib.util
 import math
 
 import numpy as np
 
-try:  # numba is a declared dependency; the numpy reference is the fallback
-    import numba
-
-    HAVE_NUMBA = True
-except ImportError:  # pragma: no cover - exercised only without numba
-    numba = None
-    HAVE_NUMBA = False
+# numba is a declared dependency; it is imported (and the kernels compiled, or
+# loaded from numba's cache) on first use, so `import beltkit` stays fast.
+HAVE_NUMBA = importlib.util.find_spec("numba") is not None
+_JIT = {}
 
 __all__ = ["HAVE_NUMBA", "partition_block", "value_scan"]
 
@@ -217,12 +215,17 @@ def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
                     n_neg[e] += 1
 
 
-if HAVE_NUMBA:
-    # fast-math without the no-NaN/no-inf flags: NaN tests stay valid, reductions vectorise
-    _FASTMATH = {"reassoc", "contract", "arcp", "nsz"}
-    _partition_block_nb = numba.njit(cache=True, nogil=True, fastmath=_FASTMATH)(
-        _partition_block_py)
-    _value_scan_nb = numba.njit(cache=True, nogil=True)(_value_scan_py)
+def _jitted(name):
+    """Return the compiled kernel `name`, compiling (or loading from cache) once."""
+    if name not in _JIT:
+        import numba
+
+        # fast-math without the no-NaN/no-inf flags: NaN tests stay valid, sums vectorise
+        fastmath = {"reassoc", "contract", "arcp", "nsz"}
+        py = {"partition": _partition_block_py, "scan": _value_scan_py}[name]
+        opts = {"fastmath": fastmath} if name == "partition" else {}
+        _JIT[name] = numba.njit(cache=True, nogil=True, **opts)(py)
+    return _JIT[name]
 
 
 def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats):
@@ -262,7 +265,7 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
             np.asarray(cos_a2, dtype=float), float(fold), np.asarray(blc, dtype=float),
             np.asarray(dlc, dtype=float), float(band), bool(has_neg), out, stats)
     if HAVE_NUMBA:
-        _partition_block_nb(*args)
+        _jitted("partition")(*args)
     else:  # pragma: no cover
         _partition_block_py(*args)
 
@@ -290,7 +293,7 @@ def value_scan(x, fills, vmin, vmax):
     n_neg = np.zeros(x.shape[1], dtype=np.int64)
     f = np.asarray(fills, dtype=float).reshape(-1)
     if HAVE_NUMBA:
-        _value_scan_nb(x, f, float(vmin), float(vmax), lo, n_neg)
+        _jitted("scan")(x, f, float(vmin), float(vmax), lo, n_neg)
     else:  # pragma: no cover
         _value_scan_py(x, f, float(vmin), float(vmax), lo, n_neg)
     return lo, n_neg

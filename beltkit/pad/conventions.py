@@ -192,6 +192,8 @@ class Prepared:
         ``"bins"`` (pitch-angle bins) or ``"telescope"`` (look directions).
     edges : numpy.ndarray or None
         Pitch-angle bin edges (n_bins, 2) in degrees, for ``kind == "bins"``.
+    centres : numpy.ndarray or None
+        Pitch-angle bin centres (n_bins,) in degrees.
     folded : bool
         Whether the bins are folded to 0-90 (each also stands for its mirror).
     flux_mask, err_mask, counts_mask : ValueMask
@@ -212,6 +214,7 @@ class Prepared:
 
     kind: str
     edges: np.ndarray | None
+    centres: np.ndarray | None
     folded: bool
     flux_mask: ValueMask
     err_mask: ValueMask | None
@@ -313,19 +316,19 @@ def _check_edges(ds, problems, folded):
         problems.append("pitch_angle_bnds: missing; give the bin edges as a (pitch_angle, 2) "
                         "bounds variable and set pitch_angle.attrs['bounds'] = "
                         "'pitch_angle_bnds'")
-        return None
+        return None, centres
     bnds = ds["pitch_angle_bnds"]
     if bnds.ndim != 2 or bnds.dims[0] != "pitch_angle" or bnds.shape[1] != 2:
         problems.append(f"pitch_angle_bnds: must have dims (pitch_angle, 2), got {bnds.dims} "
                         f"with shape {bnds.shape}")
-        return None
+        return None, centres
     bscale = scale
     if "units" in bnds.attrs:
         bscale = _unit_factor(bnds, "pitch_angle_bnds", _ANGLE, problems, "an angle")
     edges = np.asarray(bnds.values, dtype=float) * bscale
     if not np.all(np.isfinite(edges)):
         problems.append("pitch_angle_bnds: contains NaN or infinite edges")
-        return None
+        return None, centres
     if np.any(edges < 0) or np.any(edges > 180):
         problems.append(f"pitch_angle_bnds: edges must lie in 0-180 degree, got "
                         f"{edges.min():g} to {edges.max():g}")
@@ -344,7 +347,7 @@ def _check_edges(ds, problems, folded):
     if folded and np.any(edges > 90 + 1e-9):
         problems.append("pitch_angle: attribute folded='true' but bins extend beyond 90 degree; "
                         "folded data must lie in 0-90")
-    return edges
+    return edges, centres
 
 
 def _check_time(ds, problems):
@@ -463,7 +466,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                 ):
                     problems.append("energy: channel centres must lie inside energy_bnds")
     # angle geometry
-    edges = None
+    edges = centres = None
     folded = False
     angle_scale: dict = {}
     if kind == "bins" and "pitch_angle" in flux.dims:
@@ -471,7 +474,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
             problems.append("pitch_angle: missing coordinate variable (bin centres, degree)")
         else:
             folded = _is_true(ds["pitch_angle"].attrs.get("folded", False))
-            edges = _check_edges(ds, problems, folded)
+            edges, centres = _check_edges(ds, problems, folded)
     elif kind == "telescope":
         for name, dims in (("look_pitch_angle", ("time", "look")), ("look_half_angle", ("look",))):
             if name not in ds.variables:
@@ -575,7 +578,8 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                                        error_source, allow_negative))
     prepared = None
     if not problems:
-        prepared = Prepared(kind=kind, edges=edges, folded=folded, flux_mask=flux_mask,
+        prepared = Prepared(kind=kind, edges=edges, centres=centres, folded=folded,
+                            flux_mask=flux_mask,
                             err_mask=err_mask, counts_mask=counts_mask,
                             error_source=error_source, energy_kev=energy_kev,
                             energy_bnds_kev=ebnds, angle_scale=angle_scale,

@@ -1,0 +1,45 @@
+r"""Pitch-angle flux engine: split measured flux into precipitating, quasi-trapped and trapped.
+
+The data conventions (``docs/conventions.md``) are enforced by one validator,
+:func:`validate`. :func:`partition` computes per-sample loss cones and the
+exact solid-angle partition of the measured flux with uncertainties;
+:func:`to_equatorial` maps distributions to the magnetic equator;
+:func:`fit_sine_power` fits :math:`A \sin^n\alpha` to the trapped part. The same
+operations are available as the xarray accessor ``ds.beltkit`` once
+``beltkit`` is imported.
+"""
+
+from .conventions import FLUX_UNITS, INTEGRATED_FLUX_UNITS, flux_unit_factor, validate
+from .equatorial import to_equatorial
+from .fit import fit_sine_power
+from .geometry import (
+    band_overlap_solid_angle,
+    band_solid_angle,
+    band_weights,
+    cap_intersection_area,
+    fov_fraction,
+    fov_fraction_below,
+    swept_band,
+)
+from .losscones import cone_from_fields
+from .partition import FLAG_MEANINGS, OUTPUT_NAMES, partition
+
+__all__ = [
+    "FLAG_MEANINGS",
+    "FLUX_UNITS",
+    "INTEGRATED_FLUX_UNITS",
+    "OUTPUT_NAMES",
+    "band_overlap_solid_angle",
+    "band_solid_angle",
+    "band_weights",
+    "cap_intersection_area",
+    "cone_from_fields",
+    "fit_sine_power",
+    "flux_unit_factor",
+    "fov_fraction",
+    "fov_fraction_below",
+    "partition",
+    "swept_band",
+    "to_equatorial",
+    "validate",
+]
