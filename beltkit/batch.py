@@ -252,14 +252,14 @@ def _field_model(field, epoch, ds):
     return as_model("igrf")
 
 
-def _epoch_text(field, epoch) -> str:
+def _epoch_text(field, epoch, geo_position) -> str:
     if epoch is not None:
-        return str(epoch)
-    if field == "igrf":
+        return f"{epoch} (fixed by the caller)"
+    if field == "igrf" or geo_position:
         return "time of each sample"
     from .constants import B0_EPOCH
 
-    return f"{B0_EPOCH:g} (default dipole of beltkit.constants)"
+    return f"{B0_EPOCH:g} (dipole closed forms from the file's L and mlat)"
 
 
 def _settings(field, altitude_km, epoch, mapping, compress) -> dict:
@@ -316,14 +316,14 @@ def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
     return out
 
 
-def _summary_attrs(source: Path, digest: str, settings: dict, field, epoch) -> dict:
+def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_position) -> dict:
     return {
         "title": f"beltkit loss-cone summary of {source.name}",
         "source": source.name,
         "source_sha256": digest,
         "beltkit_version": __version__,
         "field_model": settings["field"],
-        "field_epoch": _epoch_text(settings["field"], epoch),
+        "field_epoch": _epoch_text(settings["field"], epoch, geo_position),
         "footpoint_altitude_km": float(settings["altitude_km"]),
         "beltkit_settings": _settings_text(settings),
         "comment": "precipitating / quasi-trapped / trapped populations as defined in "
@@ -369,8 +369,8 @@ def _process_file_locked(task: dict) -> FileResult:
                                         epoch=task["epoch"])
             write_dataset(summary, out, compress=settings["compress"],
                           history=task["command"],
-                          attrs=_summary_attrs(src, digest, settings, task["field"],
-                                               task["epoch"]))
+                          attrs=_summary_attrs(src, digest, settings, task["epoch"],
+                                               "position_geo" in ds.variables))
         return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0)
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         if task.get("debug"):

@@ -436,3 +436,17 @@ def test_sigkill_while_writing_leaves_no_partial_output(tmp_path):
     with xr.open_dataset(out / "a_big.summary.nc") as ds:
         assert ds.sizes["time"] == 120_000
         assert np.isfinite(ds["fraction_trapped"].values).mean() > 0.9
+
+
+def test_epoch_override_is_recorded_and_part_of_the_settings(tmp_path):
+    src = write_flux_file(tmp_path / "e.nc", n_time=30)
+    [r] = batch.summarize([src], tmp_path / "o")
+    with xr.open_dataset(r.output) as ds:
+        assert ds.attrs["field_epoch"].startswith("2020")
+    [r] = batch.summarize([src], tmp_path / "o", epoch=2015.5)
+    assert r.status == "ok"  # other settings: redone, not skipped
+    with xr.open_dataset(r.output) as ds:
+        assert ds.attrs["field_epoch"] == "2015.5 (fixed by the caller)"
+        assert json.loads(ds.attrs["beltkit_settings"])["epoch"] == "2015.5"
+    [r] = batch.summarize([src], tmp_path / "o", epoch=2015.5)
+    assert (r.status, r.reason) == ("skipped", "up to date")
