@@ -217,17 +217,10 @@ def _single_threaded():
 
 
 def _pad_function(name):
-    """Return ``beltkit.pad.<name>`` (the engine's public entry point)."""
+    """Return ``beltkit.pad.<name>`` (imported on first use: the engine is heavy)."""
     from . import pad
 
-    fn = getattr(pad, name, None)
-    if callable(fn):
-        return fn
-    # the package's export list is not in place: take it from its module
-    module = "partition" if name == "partition" else "conventions"
-    import importlib
-
-    return getattr(importlib.import_module(f".pad.{module}", __package__), name)
+    return getattr(pad, name)
 
 
 def _field_model(field, epoch, ds):
