@@ -70,7 +70,7 @@ from .._wrap import as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
 from .lshell import _broadcast_time, _leading, hilton_l
-from .trace import trace_lines
+from .trace import _as_start_points, blocks, time_block, trace_lines
 
 __all__ = [
     "TABLE_VERSION",
@@ -440,20 +440,32 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         dims = (dim,) if len(lead) == 1 else tuple(f"{dim}_{i}" for i in range(len(lead)))
     n = int(np.prod(lead)) if lead else 1
     t = _broadcast_time(time, lead)
-    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, arg_name="xyz_km",
-                        **trace_options)
-    b_loc = lines.b_start
-    with np.errstate(invalid="ignore"):
-        b_weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
+    x = x.reshape(-1, 3)
+    _as_start_points(x, R_E_KM + altitude_km, "xyz_km")  # fail before any tracing
     b0 = np.broadcast_to(np.asarray(model.dipole_b0_nt(t), dtype=float), (n,))
-    i_both = lines.integral_invariant(np.stack([b_loc, b_weak], axis=1))
-    closed = lines.closed
-    l_local = np.full(n, np.nan)
-    l_foot = np.full(n, np.nan)
-    ok = closed & np.isfinite(i_both[:, 0])
-    l_local[ok] = hilton_l(b_loc[ok], i_both[ok, 0], b0[ok])
-    ok = closed & np.isfinite(i_both[:, 1])
-    l_foot[ok] = hilton_l(b_weak[ok], i_both[ok, 1], b0[ok])
+    per_line = {k: np.full(n, np.nan) for k in ("b_start", "b_foot_north", "b_foot_south",
+                                                 "b_min", "l_local", "l_foot")}
+    closed = np.zeros(n, dtype=bool)
+    is_open = np.zeros(n, dtype=bool)
+    for sl in blocks(n):  # batches of lines (bounded memory), not single samples
+        lines = trace_lines(model, x[sl], time_block(t, sl), altitude_km, arg_name="xyz_km",
+                            **trace_options)
+        for k in ("b_start", "b_foot_north", "b_foot_south", "b_min"):
+            per_line[k][sl] = getattr(lines, k)
+        closed[sl] = lines.closed
+        is_open[sl] = lines.open
+        with np.errstate(invalid="ignore"):
+            weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
+        i_both = lines.integral_invariant(np.stack([lines.b_start, weak], axis=1))
+        for col, (k, bm) in enumerate((("l_local", lines.b_start), ("l_foot", weak))):
+            ok = lines.closed & np.isfinite(i_both[:, col])
+            view = per_line[k][sl]
+            view[ok] = hilton_l(bm[ok], i_both[ok, col], b0[sl][ok])
+    b_loc = per_line["b_start"]
+    b_foot_n, b_foot_s = per_line["b_foot_north"], per_line["b_foot_south"]
+    with np.errstate(invalid="ignore"):
+        b_weak = np.fmin(b_foot_n, b_foot_s)
+    l_local, l_foot = per_line["l_local"], per_line["l_foot"]
 
     # drift minimum: one table per model epoch among the samples
     b_drift = np.full(n, np.nan)
@@ -475,15 +487,15 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
             b_drift[sel] = np.exp(interp(np.log(l_foot[sel])))
     with np.errstate(invalid="ignore"):
         b_drift = np.fmin(b_drift, np.where(np.isfinite(b_drift), b_weak, np.nan))
-        b_min = lines.b_min
+        b_min = per_line["b_min"]
         out = {
             "blc_local": (_asin_deg(b_loc / b_weak), "deg", "local bounce loss cone"),
             "dlc_local": (_asin_deg(b_loc / b_drift), "deg", "local drift loss cone"),
             "blc_equatorial": (_asin_deg(b_min / b_weak), "deg", "equatorial bounce loss cone"),
             "dlc_equatorial": (_asin_deg(b_min / b_drift), "deg", "equatorial drift loss cone"),
-            "loss_cone_north": (_asin_deg(b_loc / lines.b_foot_north), "deg",
+            "loss_cone_north": (_asin_deg(b_loc / b_foot_n), "deg",
                                 "local loss cone of the northern footpoint"),
-            "loss_cone_south": (_asin_deg(b_loc / lines.b_foot_south), "deg",
+            "loss_cone_south": (_asin_deg(b_loc / b_foot_s), "deg",
                                 "local loss cone of the southern footpoint"),
         }
     for k in list(out):
@@ -495,8 +507,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         {
             "b_local": (b_loc, "nT", "local field magnitude"),
             "b_min": (b_min * nanc, "nT", "minimum field along the field line"),
-            "b_foot_north": (lines.b_foot_north * nanc, "nT", "northern footpoint field"),
-            "b_foot_south": (lines.b_foot_south * nanc, "nT", "southern footpoint field"),
+            "b_foot_north": (b_foot_n * nanc, "nT", "northern footpoint field"),
+            "b_foot_south": (b_foot_s * nanc, "nT", "southern footpoint field"),
             "b_foot_drift_min": (b_drift, "nT", "minimum footpoint field over the drift shell"),
             "L": (l_local, "1", "McIlwain L of locally mirroring particles"),
             "L_foot": (l_foot, "1",
@@ -510,7 +522,7 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     out["mlt"] = (np.asarray(mlt, dtype=float), "h", "magnetic local time")
     data = {k: (dims, np.asarray(v).reshape(lead), {"units": u, "long_name": ln})
             for k, (v, u, ln) in out.items()}
-    data["open"] = (dims, lines.open.reshape(lead),
+    data["open"] = (dims, is_open.reshape(lead),
                     {"long_name": "field line escaped or exceeded the step limit"})
     ds = xr.Dataset(data, coords=coords_in or None)
     ds.attrs["altitude_km"] = altitude_km

@@ -189,7 +189,7 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
     McIlwain's (1961) function (:func:`hilton_l`) with the dipole moment of
     the epoch of each sample.
     """
-    from .trace import trace_lines
+    from .trace import _as_start_points, blocks, time_block, trace_lines
 
     x, lead, dims, coords = _leading(xyz_km)
     n = int(np.prod(lead)) if lead else 1
@@ -206,16 +206,18 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
             f"argument 'alpha_local_deg' of shape {alpha.shape} does not broadcast against "
             f"the positions' leading shape {lead}"
         ) from exc
-    lines = trace_lines(model, x.reshape(-1, 3), t, altitude_km, arg_name="xyz_km",
-                        **trace_options)
-    b_m = lines.b_start / np.sin(np.radians(alpha)) ** 2
-    i_km = lines.integral_invariant(b_m)
-    # a position at (or within rounding of) the field minimum mirrors equatorially
+    x = x.reshape(-1, 3)
+    _as_start_points(x, R_E_KM + float(altitude_km), "xyz_km")  # fail before any tracing
     b0 = np.broadcast_to(np.asarray(model.dipole_b0_nt(t), dtype=float), (n,))
-    with np.errstate(invalid="ignore"):
-        ok = np.isfinite(i_km)
     out = np.full(n, np.nan)
-    out[ok] = hilton_l(b_m[ok], i_km[ok], b0[ok])
+    for sl in blocks(n):  # batches of lines (bounded memory), not single samples
+        lines = trace_lines(model, x[sl], time_block(t, sl), altitude_km, arg_name="xyz_km",
+                            **trace_options)
+        b_m = lines.b_start / np.sin(np.radians(alpha[sl])) ** 2
+        i_km = lines.integral_invariant(b_m)
+        ok = np.isfinite(i_km)
+        view = out[sl]
+        view[ok] = hilton_l(b_m[ok], i_km[ok], b0[sl][ok])
     out = out.reshape(lead)
     if dims is not None:
         return xr.DataArray(out, dims=dims, coords=coords, name="L",

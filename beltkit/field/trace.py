@@ -40,7 +40,8 @@ import xarray as xr
 from ..constants import R_E_KM
 from ..errors import FieldModelError, PhysicsError
 
-__all__ = ["FieldLines", "integral_invariant", "trace", "trace_lines"]
+__all__ = ["BLOCK_LINES", "FieldLines", "blocks", "integral_invariant", "time_block", "trace",
+           "trace_lines"]
 
 # Dormand-Prince 5(4) tableau (Dormand & Prince 1980; Hairer et al. 1993, table 5.2).
 _A = (
@@ -58,6 +59,21 @@ _E = (71 / 57600, 0.0, -71 / 16695, 71 / 1920, -17253 / 339200, 22 / 525, -1 / 4
 _GAUSS_NODES = 64
 # relative excess of a mirror field over a footpoint field still placed on the footpoint
 _FOOT_TOL = 1e-7
+#: Lines traced together in one batch by the high-level functions (bounds memory:
+#: the samples of a batch take about 5 * 8 * 150 bytes per line).
+BLOCK_LINES = 20_000
+
+
+def blocks(n, size=None):
+    """Yield slices that split ``range(n)`` into batches of at most `size` lines."""
+    size = BLOCK_LINES if size is None else int(size)
+    for i in range(0, n, size):
+        yield slice(i, min(n, i + size))
+
+
+def time_block(t, sl):
+    """Return the times of the lines in slice `sl` (a scalar time is shared)."""
+    return t[sl] if np.ndim(t) else t
 
 
 def _check_time_shape(time, n):
@@ -929,10 +945,30 @@ def trace(
     >>> bool(ds.open[0])
     False
     """
-    lines = trace_lines(model, start_xyz_km, time, altitude_km, rtol=rtol,
-                        max_step_frac=max_step_frac, max_radius_re=max_radius_re,
-                        max_steps=max_steps)
-    return lines_to_dataset(lines, altitude_km, samples=samples)
+    opts = dict(rtol=rtol, max_step_frac=max_step_frac, max_radius_re=max_radius_re,
+                max_steps=max_steps)
+    if samples:
+        lines = trace_lines(model, start_xyz_km, time, altitude_km, **opts)
+        return lines_to_dataset(lines, altitude_km, samples=True)
+    x, _ = _as_start_points(start_xyz_km, R_E_KM + float(altitude_km))
+    t, _ = _check_time_shape(time, x.shape[0])
+    parts = [trace_lines(model, x[sl], time_block(t, sl), altitude_km, **opts)
+             for sl in blocks(x.shape[0])]
+    return lines_to_dataset(_concat_lines(parts), altitude_km, samples=False)
+
+
+def _concat_lines(parts):
+    """Concatenate the per-line results of several batches (samples dropped)."""
+    if len(parts) == 1:
+        return parts[0]
+    fields = {}
+    for name in ("start", "b_start", "s_start", "foot_north", "foot_south", "b_foot_north",
+                 "b_foot_south", "xyz_min", "b_min", "s_min", "length", "open", "n_samples",
+                 "steps"):
+        fields[name] = np.concatenate([getattr(p, name) for p in parts])
+    n = fields["b_min"].size
+    return FieldLines(s=np.zeros((n, 0)), log_b=np.zeros((n, 0)),
+                      evaluations=sum(p.evaluations for p in parts), **fields)
 
 
 def lines_to_dataset(lines, altitude_km=100.0, samples=False):
