@@ -69,6 +69,7 @@ from __future__ import annotations
 
 import functools
 import math
+import os
 from importlib import resources
 from pathlib import Path
 
@@ -95,6 +96,9 @@ __all__ = [
 ]
 
 _DEFAULT_TABLE = "igrf14coeffs.shc"
+_BLOCK = 256  # points per thread work item in the compiled kernels
+_MIN_THREADED = 4096  # below this many points the single-threaded kernel is used
+_IMPORT_PID = os.getpid()
 
 #: Synthesis engine used by default: "numba" (compiled, multi-threaded) when
 #: numba is importable, else "numpy" (the vectorised reference).
@@ -252,10 +256,44 @@ def _interval(t, table: IGRFTable, allow_extrapolation: bool, name: str):
     return k, t - table.epochs[k]
 
 
+@functools.lru_cache(maxsize=8)
 def _rates(table: IGRFTable):
     """Slopes (nT/yr) of g and h on every table interval, shape (K-1, N+1, N+1)."""
     span = np.diff(table.epochs)[:, None, None]
-    return np.diff(table.g, axis=0) / span, np.diff(table.h, axis=0) / span
+    gdot = np.diff(table.g, axis=0) / span
+    hdot = np.diff(table.h, axis=0) / span
+    gdot.setflags(write=False)
+    hdot.setflags(write=False)
+    return gdot, hdot
+
+
+@functools.lru_cache(maxsize=256)
+def coefficients_at(t: float, max_degree: int = 13, allow_extrapolation: bool = False):
+    """Return cached Gauss coefficients of one decimal year, for repeated fast calls.
+
+    Parameters
+    ----------
+    t : float
+        Decimal year.
+    max_degree : int
+        Truncation degree, 1-13.
+    allow_extrapolation : bool
+        Allow times outside 1900.0-2030.0.
+
+    Returns
+    -------
+    g, h : ndarray, shape (14, 14)
+        Read-only coefficients in nT (as :func:`igrf_coefficients`).
+    nmax : int
+        Highest degree with a non-zero coefficient (the synthesis stops there).
+    """
+    g, h = igrf_coefficients(float(t), max_degree=max_degree,
+                             allow_extrapolation=allow_extrapolation)
+    g = np.ascontiguousarray(g)
+    h = np.ascontiguousarray(h)
+    g.setflags(write=False)
+    h.setflags(write=False)
+    return g, h, _effective_degree(g, h)
 
 
 def igrf_coefficients(time, *, max_degree: int = 13, allow_extrapolation: bool = False):
@@ -486,20 +524,17 @@ if _nb is not None:
                 bp += m * (sg * F[m] - sh * E[m])
         return br, s * Y - u * X, bp
 
-    @_nb.njit(cache=True, error_model="numpy", parallel=True)
-    def _nb_spherical(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out):
-        npt = r.shape[0]
-        nblk = (npt + 255) // 256
-        for blk in _nb.prange(nblk):
-            E = np.empty(nmax + 1)
-            F = np.empty(nmax + 1)
-            rho = np.empty(nmax + 1)
-            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
-                b0, b1, b2 = _point(r[i], u[i], s[i], cp[i], sp[i], g, h, nmax,
-                                    a_c, b_c, diag, E, F, rho)
-                out[i, 0] = b0
-                out[i, 1] = b1
-                out[i, 2] = b2
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _rows_spherical(lo, hi, r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out):
+        E = np.empty(nmax + 1)
+        F = np.empty(nmax + 1)
+        rho = np.empty(nmax + 1)
+        for i in range(lo, hi):
+            b0, b1, b2 = _point(r[i], u[i], s[i], cp[i], sp[i], g, h, nmax,
+                                a_c, b_c, diag, E, F, rho)
+            out[i, 0] = b0
+            out[i, 1] = b1
+            out[i, 2] = b2
 
     @_nb.njit(cache=True, error_model="numpy", inline="always")
     def _geo_point(x, y, z, g, h, nmax, a_c, b_c, diag, E, F, rho):
@@ -518,44 +553,85 @@ if _nb is not None:
         bh = br * s + bt * u
         return bh * cp - bp * sp, bh * sp + bp * cp, br * u - bt * s
 
-    @_nb.njit(cache=True, error_model="numpy", parallel=True)
-    def _nb_geo(xyz, g, h, nmax, a_c, b_c, diag, out):
-        npt = xyz.shape[0]
-        nblk = (npt + 255) // 256
-        for blk in _nb.prange(nblk):
-            E = np.empty(nmax + 1)
-            F = np.empty(nmax + 1)
-            rho = np.empty(nmax + 1)
-            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
-                bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
-                                        a_c, b_c, diag, E, F, rho)
-                out[i, 0] = bx
-                out[i, 1] = by
-                out[i, 2] = bz
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _rows_geo(lo, hi, xyz, g, h, nmax, a_c, b_c, diag, out):
+        E = np.empty(nmax + 1)
+        F = np.empty(nmax + 1)
+        rho = np.empty(nmax + 1)
+        for i in range(lo, hi):
+            bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
+                                    a_c, b_c, diag, E, F, rho)
+            out[i, 0] = bx
+            out[i, 1] = by
+            out[i, 2] = bz
+
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _rows_geo_t(lo, hi, xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out):
+        # per-point times: coefficients G[k] + dt * GD[k], interpolated point by point
+        E = np.empty(nmax + 1)
+        F = np.empty(nmax + 1)
+        rho = np.empty(nmax + 1)
+        g = np.zeros((nmax + 1, nmax + 1))
+        h = np.zeros((nmax + 1, nmax + 1))
+        for i in range(lo, hi):
+            kk = k[i]
+            d = dt[i]
+            for n in range(1, nmax + 1):
+                for m in range(n + 1):
+                    g[n, m] = G[kk, n, m] + d * GD[kk, n, m]
+                    h[n, m] = H[kk, n, m] + d * HD[kk, n, m]
+            bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
+                                    a_c, b_c, diag, E, F, rho)
+            out[i, 0] = bx
+            out[i, 1] = by
+            out[i, 2] = bz
+
+    # drivers: threaded over blocks of _BLOCK points, and single-threaded (used for
+    # small inputs and in forked child processes, where GNU OpenMP is not safe)
 
     @_nb.njit(cache=True, error_model="numpy", parallel=True)
-    def _nb_geo_t(xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out):
-        """Per-point times: coefficients G[k] + dt * GD[k] interpolated point by point."""
+    def _par_spherical(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out):
+        npt = r.shape[0]
+        for blk in _nb.prange((npt + _BLOCK - 1) // _BLOCK):
+            lo = blk * _BLOCK
+            _rows_spherical(lo, min(npt, lo + _BLOCK), r, u, s, cp, sp, g, h, nmax,
+                            a_c, b_c, diag, out)
+
+    @_nb.njit(cache=True, error_model="numpy")
+    def _ser_spherical(r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out):
+        _rows_spherical(0, r.shape[0], r, u, s, cp, sp, g, h, nmax, a_c, b_c, diag, out)
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _par_geo(xyz, g, h, nmax, a_c, b_c, diag, out):
         npt = xyz.shape[0]
-        nblk = (npt + 255) // 256
-        for blk in _nb.prange(nblk):
-            E = np.empty(nmax + 1)
-            F = np.empty(nmax + 1)
-            rho = np.empty(nmax + 1)
-            g = np.zeros((nmax + 1, nmax + 1))
-            h = np.zeros((nmax + 1, nmax + 1))
-            for i in range(blk * 256, min(npt, (blk + 1) * 256)):
-                kk = k[i]
-                d = dt[i]
-                for n in range(1, nmax + 1):
-                    for m in range(n + 1):
-                        g[n, m] = G[kk, n, m] + d * GD[kk, n, m]
-                        h[n, m] = H[kk, n, m] + d * HD[kk, n, m]
-                bx, by, bz = _geo_point(xyz[i, 0], xyz[i, 1], xyz[i, 2], g, h, nmax,
-                                        a_c, b_c, diag, E, F, rho)
-                out[i, 0] = bx
-                out[i, 1] = by
-                out[i, 2] = bz
+        for blk in _nb.prange((npt + _BLOCK - 1) // _BLOCK):
+            lo = blk * _BLOCK
+            _rows_geo(lo, min(npt, lo + _BLOCK), xyz, g, h, nmax, a_c, b_c, diag, out)
+
+    @_nb.njit(cache=True, error_model="numpy")
+    def _ser_geo(xyz, g, h, nmax, a_c, b_c, diag, out):
+        _rows_geo(0, xyz.shape[0], xyz, g, h, nmax, a_c, b_c, diag, out)
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _par_geo_t(xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out):
+        npt = xyz.shape[0]
+        for blk in _nb.prange((npt + _BLOCK - 1) // _BLOCK):
+            lo = blk * _BLOCK
+            _rows_geo_t(lo, min(npt, lo + _BLOCK), xyz, k, dt, G, H, GD, HD, nmax,
+                        a_c, b_c, diag, out)
+
+    @_nb.njit(cache=True, error_model="numpy")
+    def _ser_geo_t(xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out):
+        _rows_geo_t(0, xyz.shape[0], xyz, k, dt, G, H, GD, HD, nmax, a_c, b_c, diag, out)
+
+    def _nb_spherical(r, *args):
+        (_par_spherical if _threads_ok(r.shape[0]) else _ser_spherical)(r, *args)
+
+    def _nb_geo(xyz, *args):
+        (_par_geo if _threads_ok(xyz.shape[0]) else _ser_geo)(xyz, *args)
+
+    def _nb_geo_t(xyz, *args):
+        (_par_geo_t if _threads_ok(xyz.shape[0]) else _ser_geo_t)(xyz, *args)
 
 else:  # pragma: no cover - numba is a declared dependency
     _nb_spherical = _nb_geo = _nb_geo_t = None
@@ -619,6 +695,11 @@ def _run_blocks(r, u, s, cp, sp, g, h, backend=None):
     return out
 
 
+def _threads_ok(npt):
+    """Whether to use the threaded kernel: big inputs, and not in a forked child process."""
+    return npt >= _MIN_THREADED and os.getpid() == _IMPORT_PID
+
+
 def _use_numba(backend):
     if backend is None:
         backend = DEFAULT_BACKEND
@@ -648,7 +729,7 @@ def _geo_angles(x, y, z):
     return r, u, s, cp, sp
 
 
-def synth_geo(xyz_km, g, h, *, backend=None):
+def synth_geo(xyz_km, g, h, *, backend=None, nmax=None):
     r"""Cartesian GEO field vector for one set of coefficients (fast entry point).
 
     Low-level: no checks of radius or time, no broadcasting of time. This is
@@ -662,6 +743,9 @@ def synth_geo(xyz_km, g, h, *, backend=None):
         Gauss coefficients in nT of one epoch.
     backend : {None, "numba", "numpy"}
         Engine; None uses :data:`DEFAULT_BACKEND`.
+    nmax : int, optional
+        Highest degree to sum (default: the highest non-zero one of ``g``,
+        ``h``); passing it saves a scan of the coefficients per call.
 
     Returns
     -------
@@ -683,7 +767,7 @@ def synth_geo(xyz_km, g, h, *, backend=None):
     g = np.asarray(g, float)
     h = np.asarray(h, float)
     if _use_numba(backend):
-        nmax = _effective_degree(g, h)
+        nmax = _effective_degree(g, h) if nmax is None else int(nmax)
         a_c, b_c, diag = _recursion_constants(nmax)
         out = np.empty(flat.shape)
         _nb_geo(flat, np.ascontiguousarray(g), np.ascontiguousarray(h), nmax, a_c, b_c, diag, out)

@@ -358,12 +358,14 @@ class IGRF:
         xyz = check_positions(xyz_km)
         t = np.asarray(decimal_year(time), float)
         if t.ndim == 0 or np.all(t == t.flat[0]):
-            t0 = t.flat[0]
-            g, h = _igrf.igrf_coefficients(
-                t0, max_degree=self.max_degree, allow_extrapolation=self.allow_extrapolation
-            )
-            lead = np.broadcast_shapes(xyz.shape[:-1], t.shape)
-            return _igrf.synth_geo(np.broadcast_to(xyz, lead + (3,)), g, h)
+            t0 = float(t.flat[0])
+            if np.isnan(t0):
+                lead = np.broadcast_shapes(xyz.shape[:-1], t.shape)
+                return np.full(lead + (3,), np.nan)
+            g, h, nmax = _igrf.coefficients_at(t0, self.max_degree, self.allow_extrapolation)
+            if t.ndim and t.shape != xyz.shape[:-1]:
+                xyz = np.broadcast_to(xyz, np.broadcast_shapes(xyz.shape[:-1], t.shape) + (3,))
+            return _igrf.synth_geo(xyz, g, h, nmax=nmax)
         return _igrf.igrf_field_cartesian(
             xyz, t, max_degree=self.max_degree, allow_extrapolation=self.allow_extrapolation
         )
