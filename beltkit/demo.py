@@ -312,7 +312,7 @@ def _position_vars(time, xyz_geo, mlat, mlt, L, b_local):
     }
 
 
-def _truth_vars(dims, prec, quasi, trapped, filling, comment):
+def _truth_vars(dims, prec, quasi, trapped, filling, index, comment):
     attrs = {"units": "1", "comment": comment}
     return {
         "true_fraction_precipitating": (
@@ -327,6 +327,10 @@ def _truth_vars(dims, prec, quasi, trapped, filling, comment):
         "true_loss_cone_filling": (
             dims, filling.astype("float32"),
             {"units": "1", "long_name": "generator parameter: loss-cone filling F"}),
+        "true_sine_index": (
+            dims, index.astype("float32"),
+            {"units": "1", "long_name": "generator parameter: index n of the equatorial "
+                                        "sin^n shape outside the loss cone"}),
     }
 
 
@@ -405,7 +409,7 @@ def _tern_day(day_start, rng):
         "accumulation_time": ((), p["accumulation_s"],
                               {"units": "s", "long_name": "accumulation time per bin"}),
         **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
-        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, comment),
+        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
     }
     day = str(day_start)[:10]
     ds = xr.Dataset(
@@ -529,7 +533,7 @@ def _swift_day(day_start, rng):
         "accumulation_time": ((), p["accumulation_s"],
                               {"units": "s", "long_name": "accumulation time per sample"}),
         **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
-        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, comment),
+        **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
     }
     day = str(day_start)[:10]
     ds = xr.Dataset(
