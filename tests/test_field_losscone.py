@@ -203,3 +203,12 @@ def test_bad_input():
         drift_shell_table(model, T2020, l_values=[2.0], n_lon=2)
     with pytest.raises(PhysicsError, match="altitude_km"):
         drift_shell_table(model, T2020, altitude_km=-1.0)
+
+
+def test_shell_reaching_the_atmosphere_has_a_90_degree_drift_loss_cone():
+    # common practice: the innermost shells dip below 100 km over the South Atlantic,
+    # so every particle on them is lost within one drift
+    ds = loss_cones_vs_longitude(IGRF(), 1.1, T2024, n_lon=24)
+    assert 1.1 < float(ds.l_grounded) < 1.2
+    np.testing.assert_array_equal(ds.dlc_equatorial, 90.0)
+    assert np.isnan(ds.blc_equatorial).any() and np.isfinite(ds.blc_equatorial).any()

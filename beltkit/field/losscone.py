@@ -168,7 +168,7 @@ def _build_table(model, t_eval, altitude_km, l_values, n_lon, **trace_options):
             f"argument 'l_values' starts at {l_values[0]:g}, below the stop radius "
             f"{r_stop_re:.4f} R_E of altitude_km = {altitude_km:g}"
         )
-    r_lo = max(r_stop_re * 1.005, l_values[0] * 0.8)
+    r_lo = max(r_stop_re * 1.001, l_values[0] * 0.8)
     r_hi = max(l_values[-1] * 1.12, r_lo * _RADIUS_RATIO**4)
     n_r = int(np.ceil(np.log(r_hi / r_lo) / np.log(_RADIUS_RATIO))) + 1
     radii = r_lo * np.exp(np.linspace(0.0, np.log(r_hi / r_lo), n_r))
@@ -210,6 +210,12 @@ def _build_table(model, t_eval, altitude_km, l_values, n_lon, **trace_options):
             out_lon[k][inside, j] = (v + 180.0) % 360.0 - 180.0
     b_weak = np.fmin(out["b_foot_north"], out["b_foot_south"])
     drift_min = _periodic_min(b_weak)
+    # shells below the lowest traced line at some longitude reach the stop altitude there
+    with np.errstate(invalid="ignore"):
+        lowest = np.nanmin(np.where(np.isfinite(label), label, np.inf), axis=0)
+    # (known only when the radial grid starts just above the stop altitude)
+    at_floor = r_lo <= r_stop_re * 1.0011 and np.all(np.isfinite(lowest))
+    grounded_below = float(np.max(lowest)) if at_floor else np.nan
     ds = xr.Dataset(
         {
             "b_foot_north": (("L", "mlon"), out["b_foot_north"],
@@ -227,6 +233,9 @@ def _build_table(model, t_eval, altitude_km, l_values, n_lon, **trace_options):
             "b_foot_drift_min": (("L",), drift_min,
                                  {"units": "nT",
                                   "long_name": "minimum footpoint field over the drift shell"}),
+            "l_grounded": ((), grounded_below,
+                           {"units": "1", "long_name": "shells of lower L reach the stop "
+                            "altitude at some longitude (NaN: not determined)"}),
         },
         coords={
             "L": ("L", l_values, {"units": "1", "long_name":
@@ -319,7 +328,12 @@ def drift_shell_table(
         Dimensions ``L`` and ``mlon``: ``b_foot_north``, ``b_foot_south``,
         ``b_min`` (nT) and the footpoints' geographic longitudes per L and
         longitude; ``b_foot_drift_min`` (nT) per L: the minimum over
-        longitudes and both hemispheres. NaN where a shell is not resolved.
+        longitudes and both hemispheres. NaN where a shell is not resolved
+        at every longitude. Scalar ``l_grounded``: shells of lower L pass
+        below the lowest traced line (apex ~6 km above the stop altitude)
+        at some longitude, i.e. they reach the atmosphere there (in IGRF
+        near the South Atlantic, L of about 1.12); NaN when the L grid
+        does not reach down to it.
 
     Notes
     -----
@@ -428,7 +442,10 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     common practice, from the first adiabatic invariant (Roederer 1970).
     The drift minimum comes from the cached :func:`drift_shell_table` of
     each sample's model epoch, interpolated at the sample's label L, and
-    never exceeds the sample's own weaker footpoint field. Field lines
+    never exceeds the sample's own weaker footpoint field. Samples on
+    shells that reach the stop altitude somewhere in longitude (label
+    below the table's ``l_grounded``) get a drift loss cone of 90 deg (all
+    particles are lost within a drift) and a NaN ``b_foot_drift_min``. Field lines
     are traced by :func:`beltkit.field.trace`; L by
     :func:`beltkit.field.mcilwain_l`'s method.
     """
@@ -469,6 +486,7 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
 
     # drift minimum: one table per model epoch among the samples
     b_drift = np.full(n, np.nan)
+    grounded = np.zeros(n, dtype=bool)
     lv = _check_l_values(l_values)
     t_flat = np.broadcast_to(np.asarray(t), (n,)) if np.ndim(t) else None
     keys = np.asarray(model.epoch_key(t_flat if t_flat is not None else t)).reshape(-1)
@@ -478,6 +496,9 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         t_rep = t_flat[np.flatnonzero(sel)[0]] if t_flat is not None else t
         table = drift_shell_table(model, t_rep, altitude_km, lv, n_lon, **trace_options)
         dm = table["b_foot_drift_min"].values
+        l_ground = float(table["l_grounded"]) if "l_grounded" in table else np.nan
+        with np.errstate(invalid="ignore"):
+            grounded[sel] = l_foot[sel] < l_ground
         good = np.isfinite(dm)
         if good.sum() < 2:
             continue
@@ -498,6 +519,10 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
             "loss_cone_south": (_asin_deg(b_loc / b_foot_s), "deg",
                                 "local loss cone of the southern footpoint"),
         }
+    # a shell reaching the stop altitude somewhere loses every particle within a drift
+    for k in ("dlc_local", "dlc_equatorial"):
+        vals, u, ln = out[k]
+        out[k] = (np.where(grounded, 90.0, vals), u, ln)
     for k in list(out):
         vals, u, ln = out[k]
         vals = np.where(closed & np.isfinite(vals), vals, np.nan)
@@ -556,7 +581,10 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
     xarray.Dataset
         Dimension ``mlon`` (deg): ``blc_equatorial``, ``dlc_equatorial``
         (deg), ``b_foot_north``, ``b_foot_south``, ``b_min`` (nT); scalar
-        ``b_foot_drift_min`` (nT) and ``L``.
+        ``b_foot_drift_min`` (nT), ``l_grounded`` and ``L``. If the shell
+        reaches the stop altitude at some longitude (L below
+        ``l_grounded``) the drift loss cone is 90 deg everywhere and the
+        longitudes without a line are NaN.
 
     Notes
     -----
@@ -581,11 +609,14 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
     tb = table.isel(L=0)
     b_weak = np.fmin(tb["b_foot_north"].values, tb["b_foot_south"].values)
     b_drift = float(tb["b_foot_drift_min"])
+    dlc = _asin_deg(tb["b_min"].values / b_drift)
+    if float(L) < float(table["l_grounded"]):
+        dlc = np.full(dlc.shape, 90.0)  # the shell reaches the stop altitude somewhere
     ds = xr.Dataset(
         {
             "blc_equatorial": ("mlon", _asin_deg(tb["b_min"].values / b_weak),
                                {"units": "deg", "long_name": "equatorial bounce loss cone"}),
-            "dlc_equatorial": ("mlon", _asin_deg(tb["b_min"].values / b_drift),
+            "dlc_equatorial": ("mlon", dlc,
                                {"units": "deg", "long_name": "equatorial drift loss cone"}),
             "b_foot_north": tb["b_foot_north"],
             "b_foot_south": tb["b_foot_south"],
@@ -594,6 +625,7 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
             "glon_foot_south": tb["glon_foot_south"],
             "b_foot_drift_min": ((), b_drift, {"units": "nT", "long_name":
                                                "minimum footpoint field over the drift shell"}),
+            "l_grounded": table["l_grounded"],
         },
         coords={"mlon": table["mlon"], "L": ((), float(L), table["L"].attrs)},
     )

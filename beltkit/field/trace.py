@@ -763,7 +763,8 @@ def _invariant_one(lines, bm):
     with np.errstate(invalid="ignore"):
         reach = ((bm <= lines.b_foot_north * (1 + _FOOT_TOL))
                  & (bm <= lines.b_foot_south * (1 + _FOOT_TOL)))
-    work = ok & ~eq & (bm > b_min) & reach
+    # a cubic through the samples needs four of them
+    work = ok & ~eq & (bm > b_min) & reach & (lines.n_samples >= 4)
     rows = np.flatnonzero(work)
     if rows.size == 0:
         return result
