@@ -17,7 +17,7 @@ import astropy.units as u
 import numpy as np
 import pytest
 import xarray as xr
-from astropy.coordinates import EarthLocation, PrecessedGeocentric, get_sun
+from astropy.coordinates import ITRS, EarthLocation, PrecessedGeocentric, get_sun
 from astropy.time import Time
 from astropy.utils import iers
 
@@ -64,6 +64,17 @@ def test_sun_direction_matches_astropy():
     c = get_sun(t0).transform_to(PrecessedGeocentric(equinox=t0, obstime=t0))
     ref = c.cartesian.xyz.value / np.linalg.norm(c.cartesian.xyz.value)
     assert np.degrees(np.arccos(late[0] @ ref)) > 0.03
+
+
+def test_sun_direction_in_geo_matches_astropy_itrs():
+    # end to end (ephemeris + sidereal rotation): astropy's Sun in the Earth-fixed
+    # ITRS frame; polar motion (< 1e-4 deg) and nutation are below the tolerance.
+    dates = DATES[1:]  # IERS polar motion starts in 1962
+    ours = coords.sun_direction_geo(dates)
+    for i, t in enumerate(_astropy_times(dates)):
+        ref = get_sun(t).transform_to(ITRS(obstime=t)).cartesian.xyz.value
+        ref = ref / np.linalg.norm(ref)
+        assert np.degrees(np.arccos(np.clip(ours[i] @ ref, -1.0, 1.0))) < 0.01
 
 
 def test_gmst_matches_astropy():
@@ -277,3 +288,5 @@ def test_time_scales():
     years = np.array([1900.0, 1965.123, 2000.5, 2024.99999, 2030.0])
     np.testing.assert_allclose(decimal_year(as_datetime64(years)), years, atol=1e-12)
     assert np.isnan(decimal_year(np.datetime64("NaT")))
+    # ISO strings with an explicit UTC designator
+    assert decimal_year("2021-01-01T00:00:00Z") == 2021.0

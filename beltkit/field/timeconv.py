@@ -70,7 +70,7 @@ def _parse(time, name: str) -> tuple[np.ndarray, bool]:
                 [
                     np.datetime64("NaT")
                     if v is None
-                    else np.datetime64(_naive_utc(v) if isinstance(v, _dt.datetime) else v, "ns")
+                    else np.datetime64(_plain(v), "ns")
                     for v in flat
                 ],
                 dtype="datetime64[ns]",
@@ -85,6 +85,20 @@ def _parse(time, name: str) -> tuple[np.ndarray, bool]:
         f"argument {name!r} must be numpy datetime64 (UTC), datetime, an ISO 8601 string "
         f"or a decimal year; got dtype {arr.dtype}"
     )
+
+
+def _plain(value):
+    """Return a value np.datetime64 can read: naive-UTC datetime, or ISO text without 'Z'."""
+    if isinstance(value, _dt.datetime):
+        return _naive_utc(value)
+    if isinstance(value, str):
+        text = value.strip()
+        if text[-1:] in ("Z", "z"):
+            text = text[:-1]
+        elif text.endswith("+00:00"):
+            text = text[:-6]
+        return text
+    return value
 
 
 def _naive_utc(value: _dt.datetime) -> _dt.datetime:
