@@ -23,6 +23,8 @@ __all__ = ["HAVE_NUMBA", "partition_block", "value_scan"]
 
 _TWO_PI = 2.0 * math.pi
 _FOUR_PI = 4.0 * math.pi
+#: solid angles (sr) below this count as empty (rounding crumbs of cos near 90 deg)
+TOL_SR = 1e-12
 
 
 def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, band,
@@ -78,6 +80,9 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
         om0 = _FOUR_PI * (1.0 - cb)
         om1 = _FOUR_PI * (cb - cd)
         om2 = _FOUR_PI * cd
+        om0 = om0 if om0 > TOL_SR else 0.0
+        om1 = om1 if om1 > TOL_SR else 0.0
+        om2 = om2 if om2 > TOL_SR else 0.0
         i0 = 1.0 / om0 if om0 > 0 else 0.0
         i1 = 1.0 / om1 if om1 > 0 else 0.0
         i2 = 1.0 / om2 if om2 > 0 else 0.0
@@ -127,12 +132,12 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             stats[e, 1] += nneg
             stats[e, 2] += nqneg
             flag = 0
-            s0 = m0 > 0
-            s1 = m1 > 0
-            s2 = m2 > 0
-            pops0 = a0 if s0 else (nan if om0 > 0 else 0.0)
-            pops1 = a1 if s1 else (nan if om1 > 0 else 0.0)
-            pops2 = a2 if s2 else (nan if om2 > 0 else 0.0)
+            s0 = m0 > TOL_SR
+            s1 = m1 > TOL_SR
+            s2 = m2 > TOL_SR
+            pops0 = (a0 if s0 else nan) if om0 > 0 else 0.0
+            pops1 = (a1 if s1 else nan) if om1 > 0 else 0.0
+            pops2 = (a2 if s2 else nan) if om2 > 0 else 0.0
             if om0 > 0 and not s0:
                 flag |= 1
             if om1 > 0 and not s1:
@@ -167,14 +172,14 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             out[10, t * n_e + e] = m0
             out[11, t * n_e + e] = m1
             out[12, t * n_e + e] = m2
-            fill_ok = s0 and m3 > 0 and a3 != 0.0
+            fill_ok = s0 and om0 > 0 and m3 > TOL_SR and a3 != 0.0
             rho = (a0 * m3) / (m0 * a3) if fill_ok else nan
             out[13, t * n_e + e] = rho
             out[14, t * n_e + e] = flag
             if has_s:
-                out[15, t * n_e + e] = math.sqrt(v0) if s0 else (nan if om0 > 0 else 0.0)
-                out[16, t * n_e + e] = math.sqrt(v1) if s1 else (nan if om1 > 0 else 0.0)
-                out[17, t * n_e + e] = math.sqrt(v2) if s2 else (nan if om2 > 0 else 0.0)
+                out[15, t * n_e + e] = (math.sqrt(v0) if s0 else nan) if om0 > 0 else 0.0
+                out[16, t * n_e + e] = (math.sqrt(v1) if s1 else nan) if om1 > 0 else 0.0
+                out[17, t * n_e + e] = (math.sqrt(v2) if s2 else nan) if om2 > 0 else 0.0
                 out[18, t * n_e + e] = math.sqrt(v3) if m4 > 0 else nan
                 if good:
                     out[19, t * n_e + e] = itot * math.sqrt(

@@ -175,14 +175,15 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
     cd = np.cos(np.radians(dlc))
     co = np.cos(np.radians(outer))
     omega = np.stack([_FOUR_PI * (1.0 - cb), _FOUR_PI * (cb - cd), _FOUR_PI * cd,
-                      _FOUR_PI * (cb - co)], axis=-1).astype(dtype)[:, None, :]  # (n,1,4)
+                      _FOUR_PI * (cb - co)], axis=-1)[:, None, :]  # (n,1,4)
+    omega = np.where(omega > _kernels.TOL_SR, omega, 0.0)
     out = np.empty((_n_out(s is not None), n, n_e), dtype=dtype)
     nan = dtype.type(np.nan)
     with np.errstate(invalid="ignore", divide="ignore"):
-        sampled = m[..., :4] > 0
-        pops = np.where(sampled, r[..., :4], np.where(omega > 0, nan, dtype.type(0)))
-        cov = np.where(omega > 0, np.minimum(m[..., :4] / np.where(omega > 0, omega, 1), 1),
-                       dtype.type(1))
+        sampled = m[..., :4] > _kernels.TOL_SR
+        nonempty = np.broadcast_to(omega > 0, sampled.shape)
+        pops = np.where(nonempty, np.where(sampled, r[..., :4], nan), 0.0)
+        cov = np.where(nonempty, np.minimum(m[..., :4] / np.where(omega > 0, omega, 1), 1), 1.0)
         total = pops[..., 0] + pops[..., 1] + pops[..., 2]
         good_total = total > 0
         frac = np.where(good_total[..., None], pops[..., :3] / total[..., None], nan)
@@ -193,11 +194,11 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
         out[10:13] = np.moveaxis(m[..., :3], -1, 0)
         mean_in = r[..., 0] / m[..., 0]
         mean_out = r[..., 3] / m[..., 3]
-        fill_ok = sampled[..., 0] & sampled[..., 3] & (mean_out != 0)
+        fill_ok = sampled[..., 0] & nonempty[..., 0] & sampled[..., 3] & (mean_out != 0)
         out[13] = np.where(fill_ok, mean_in / mean_out, nan)
         flag = np.zeros((n, n_e), dtype=np.int16)
         for k in range(3):
-            flag |= np.where((omega[..., k] > 0) & ~sampled[..., k], 1 << k, 0).astype(np.int16)
+            flag |= np.where(nonempty[..., k] & ~sampled[..., k], 1 << k, 0).astype(np.int16)
         partial = ((cov[..., :3] < 1 - 1e-6) & (cov[..., :3] > 0)).any(axis=-1)
         flag |= np.where(partial, 8, 0).astype(np.int16)
         if opts["has_negative"]:
@@ -216,8 +217,8 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
             v = np.matmul(s2, we)  # (n, E, 9)
             base = len(_NAMES)
             for k in range(3):
-                out[base + k] = np.where(sampled[..., k], np.sqrt(v[..., k]),
-                                         np.where(omega[..., k] > 0, nan, dtype.type(0)))
+                out[base + k] = np.where(nonempty[..., k],
+                                         np.where(sampled[..., k], np.sqrt(v[..., k]), nan), 0.0)
             out[base + 3] = np.where(m[..., 4] > 0, np.sqrt(v[..., 3]), nan)
             for k in range(3):
                 f = frac[..., k]

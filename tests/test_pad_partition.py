@@ -1,0 +1,300 @@
+"""Partition of pitch-angle flux against spherical geometry, the Beta function, dipole theory."""
+
+import copy
+
+import numpy as np
+import pytest
+import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import integrate, special
+from test_pad_support import make_ds, make_telescope_ds
+
+import beltkit  # noqa: F401  (registers ds.beltkit)
+from beltkit import dipole
+from beltkit.errors import ConventionError
+from beltkit.pad import OUTPUT_NAMES, partition
+
+EDGES_12 = np.linspace(0.0, 180.0, 13)
+
+
+def _bin_mean_sine_power(edges, n):
+    """Solid-angle mean of sin^n over each bin, by scipy quadrature (independent reference)."""
+    out = []
+    for a1, a2 in zip(edges[:-1], edges[1:]):
+        r1, r2 = np.radians([a1, a2])
+        num = integrate.quad(lambda a: np.sin(a) ** (n + 1), r1, r2, epsabs=1e-14)[0]
+        out.append(num / (np.cos(r1) - np.cos(r2)))
+    return np.array(out)
+
+
+def _sine_power_integral(theta_deg, n):
+    """Integral of sin^(n+1) from 0 to theta (<= 90 deg) via the regularised incomplete Beta."""
+    # substitute t = sin^2: (1/2) B((n+2)/2, 1/2) I_{sin^2 theta}((n+2)/2, 1/2)
+    a, b = (n + 2) / 2, 0.5
+    return 0.5 * special.beta(a, b) * special.betainc(a, b, np.sin(np.radians(theta_deg)) ** 2)
+
+
+@pytest.mark.parametrize("L,mlat", [(4.0, 0.0), (6.6, 0.0), (3.0, 20.0), (1.5, 0.0)])
+def test_isotropic_fractions_equal_solid_angle_fractions(L, mlat):
+    ds = make_ds(np.full((1, 2, 12), 5.0), EDGES_12, L=L, mlat=mlat)
+    out = partition(ds)
+    # the loss cone must be the dipole's own local loss cone (beltkit.dipole)
+    blc = float(dipole.local_loss_cone(L, mlat))
+    assert float(out.blc_local[0]) == pytest.approx(blc, rel=1e-12)
+    assert float(out.blc_equatorial[0]) == pytest.approx(float(dipole.bounce_loss_cone(L)),
+                                                         rel=1e-12)
+    # spherical geometry: both loss cones together hold 1 - cos(alpha_LC) of the sphere
+    expect = 1 - np.cos(np.radians(blc))
+    np.testing.assert_allclose(out.fraction_precipitating.values, expect, rtol=1e-12)
+    np.testing.assert_allclose(out.fraction_trapped.values, 1 - expect, rtol=1e-12)
+    np.testing.assert_allclose(out.fraction_quasi_trapped.values, 0.0, atol=0)
+    # omnidirectional flux of an isotropic j is 4 pi j
+    np.testing.assert_allclose(out.omni_flux.values, 4 * np.pi * 5.0, rtol=1e-13)
+    np.testing.assert_allclose(out.loss_cone_filling.values, 1.0, rtol=1e-12)
+    np.testing.assert_allclose(out.coverage_precipitating.values, 1.0, rtol=1e-12)
+
+
+@pytest.mark.parametrize("n", [1.0, 2.0, 3.5])
+def test_sine_power_integrals_against_beta_function(n):
+    L = 4.0
+    blc = float(dipole.local_loss_cone(L, 0.0))
+    # bin edges include the loss-cone edges, so populations are sums of whole bins
+    edges = np.unique(np.concatenate([np.linspace(0, 180, 13), [blc, 180 - blc]]))
+    A = 3.0e4
+    j = A * _bin_mean_sine_power(edges, n)
+    out = partition(make_ds(j[None, None, :], edges, L=L))
+    # reference: 2 pi A integral_0^pi sin^(n+1) = 2 pi A B(1/2, (n+2)/2) (scipy.special.beta)
+    omni = 2 * np.pi * A * special.beta(0.5, (n + 2) / 2)
+    assert float(out.omni_flux[0, 0]) == pytest.approx(omni, rel=1e-10)
+    prec = 2 * 2 * np.pi * A * _sine_power_integral(blc, n)  # both cones
+    assert float(out.flux_precipitating[0, 0]) == pytest.approx(prec, rel=1e-9)
+    assert float(out.flux_trapped[0, 0]) == pytest.approx(omni - prec, rel=1e-10)
+
+
+def test_straddling_bin_is_split_by_cap_area():
+    # one bin [0, 30] straddles a ~8.6-degree loss cone (L = 3); inside: the cap 2 pi (1 - cos blc)
+    edges = np.array([0.0, 30.0, 150.0, 180.0])
+    flux = np.array([[[2.0, 0.0, 0.0]]])
+    out = partition(make_ds(flux, edges, L=3.0))
+    blc = np.radians(float(out.blc_local[0]))
+    cap = 2 * np.pi * (1 - np.cos(blc))  # spherical cap area (spherical geometry)
+    assert float(out.flux_precipitating[0, 0]) == pytest.approx(2.0 * cap, rel=1e-12)
+    assert float(out.flux_trapped[0, 0]) == pytest.approx(
+        2.0 * (2 * np.pi * (1 - np.cos(np.radians(30))) - cap), rel=1e-12)
+
+
+def test_uncertainties_follow_the_jacobian():
+    rng = np.random.default_rng(3)
+    j = rng.uniform(1, 10, (1, 1, 12))
+    s = rng.uniform(0.1, 1.0, (1, 1, 12))
+    ds = make_ds(j, EDGES_12, L=2.5, flux_err=s)
+    out = partition(ds)
+    # independent check: numerical derivatives of the fractions with respect to each bin,
+    # combined in quadrature (first-order error propagation for independent bins)
+    names = ("fraction_precipitating", "fraction_trapped", "flux_precipitating",
+             "loss_cone_filling")
+    # all perturbations at once: time sample 2i (+h on bin i) and 2i+1 (-h on bin i)
+    h = 1e-6 * j[0, 0]
+    jj = np.repeat(j, 24, axis=0)
+    for i in range(12):
+        jj[2 * i, 0, i] += h[i]
+        jj[2 * i + 1, 0, i] -= h[i]
+    pert = partition(make_ds(jj, EDGES_12, L=2.5))
+    for name in names:
+        v = pert[name].values[:, 0]
+        grads = (v[0::2] - v[1::2]) / (2 * h)
+        ref = np.sqrt(np.sum((grads * s[0, 0]) ** 2))
+        assert float(out[f"{name}_err"][0, 0]) == pytest.approx(ref, rel=1e-5), name
+
+
+def test_poisson_errors_from_counts():
+    counts = np.array([[[0, 4, 9, 16, 25, 36]]], dtype=float)
+    c2f = 2.5
+    ds = make_ds(counts * c2f, np.linspace(0, 180, 7), L=3.0)
+    ds["counts"] = (("time", "energy", "pitch_angle"), counts, {"units": "1"})
+    ds["counts_to_flux"] = ((), c2f, {"units": "cm-2 s-1 sr-1 keV-1"})
+    with_counts = partition(ds)
+    # the same errors given explicitly: sigma = c2f sqrt(N), with N = 0 counted as 1
+    ds2 = make_ds(counts * c2f, np.linspace(0, 180, 7), L=3.0,
+                  flux_err=c2f * np.sqrt(np.maximum(counts, 1)))
+    explicit = partition(ds2)
+    for name in ("flux_trapped_err", "fraction_precipitating_err", "omni_flux_err"):
+        np.testing.assert_allclose(with_counts[name].values, explicit[name].values, rtol=1e-12)
+    assert with_counts.attrs["beltkit_uncertainty_source"] == "counts"
+
+
+@settings(max_examples=30, deadline=None)
+@given(L=st.floats(1.3, 8.0), mlat=st.floats(-30, 30), n_bins=st.integers(3, 24),
+       seed=st.integers(0, 2**31))
+def test_fractions_sum_to_one_at_full_coverage(L, mlat, n_bins, seed):
+    rng = np.random.default_rng(seed)
+    j = rng.uniform(0.0, 100.0, (3, 2, n_bins))
+    out = partition(make_ds(j, np.linspace(0, 180, n_bins + 1), L=L, mlat=mlat))
+    total = out.fraction_precipitating + out.fraction_quasi_trapped + out.fraction_trapped
+    full = np.isclose(out.coverage_precipitating, 1, rtol=0, atol=1e-12) & np.isclose(
+        out.coverage_trapped, 1, rtol=0, atol=1e-12)
+    assert bool(full.all()) and bool((out.omni_flux > 0).all())
+    np.testing.assert_allclose(total.values, 1.0, rtol=1e-12)
+
+
+def test_partial_and_missing_coverage_are_flagged_not_extrapolated():
+    # bins only over 0-90 (no folded attribute): half of the loss cones sampled
+    j = np.ones((1, 1, 6))
+    out = partition(make_ds(j, np.linspace(0, 90, 7), L=3.0))
+    assert float(out.coverage_precipitating[0, 0]) == pytest.approx(0.5, rel=1e-12)
+    assert float(out.coverage_trapped[0, 0]) == pytest.approx(0.5, rel=1e-12)
+    assert int(out.partition_flag[0, 0]) & 8
+    # only 30-150 sampled: the loss cone (< 9 deg at L = 3) is unsampled -> NaN plus flag
+    out = partition(make_ds(j, np.linspace(30, 150, 7), L=3.0))
+    assert np.isnan(float(out.flux_precipitating[0, 0]))
+    assert np.isnan(float(out.fraction_trapped[0, 0]))
+    assert int(out.partition_flag[0, 0]) & 1
+    assert float(out.coverage_precipitating[0, 0]) == 0.0
+    # a NaN bin reduces the coverage of its population by its solid angle
+    j = np.ones((1, 1, 12))
+    j[0, 0, 6] = np.nan
+    out = partition(make_ds(j, EDGES_12, L=3.0))
+    blc = np.radians(float(out.blc_local[0]))
+    missing = 2 * np.pi * (np.cos(np.radians(90)) - np.cos(np.radians(105)))
+    expect = 1 - missing / (4 * np.pi * np.cos(blc))
+    assert float(out.coverage_trapped[0, 0]) == pytest.approx(expect, rel=1e-12)
+
+
+def test_folded_bins_equal_the_symmetric_full_range():
+    rng = np.random.default_rng(5)
+    half = rng.uniform(1, 10, (2, 3, 6))
+    full = np.concatenate([half, half[..., ::-1]], axis=-1)
+    a = partition(make_ds(half, np.linspace(0, 90, 7), L=2.0, folded=True))
+    b = partition(make_ds(full, EDGES_12, L=2.0))
+    for name in ("flux_precipitating", "flux_trapped", "omni_flux", "fraction_precipitating",
+                 "coverage_trapped"):
+        np.testing.assert_allclose(a[name].values, b[name].values, rtol=1e-12)
+
+
+def test_b_local_sets_the_local_cone():
+    j = np.ones((1, 1, 12))
+    b_dip = float(dipole.field_magnitude(4.0, 10.0))
+    same = partition(make_ds(j, EDGES_12, L=4.0, mlat=10.0, b_local=b_dip))
+    ref = partition(make_ds(j, EDGES_12, L=4.0, mlat=10.0))
+    assert float(same.blc_local[0]) == pytest.approx(float(ref.blc_local[0]), rel=1e-12)
+    big = partition(make_ds(j, EDGES_12, L=4.0, mlat=10.0, b_local=2 * b_dip))
+    b_foot = float(dipole.footpoint_field(4.0))
+    # mirror-ratio loss cone, sin^2 = B_local / B_foot (common practice)
+    assert float(big.blc_local[0]) == pytest.approx(
+        np.degrees(np.arcsin(np.sqrt(2 * b_dip / b_foot))), rel=1e-12)
+
+
+def test_dask_result_equals_eager_and_stays_lazy():
+    rng = np.random.default_rng(11)
+    j = rng.uniform(0, 50, (40, 3, 12)).astype(np.float32)
+    j[3, 1, 4] = np.nan
+    err = np.sqrt(j + 1).astype(np.float32)
+    ds = make_ds(j, EDGES_12, L=np.linspace(2, 6, 40), mlat=np.linspace(-10, 10, 40),
+                 flux_err=err, dtype=np.float32)
+    eager = partition(ds)
+    lazy = partition(ds.chunk(time=7))
+    assert lazy["fraction_trapped"].chunks is not None
+    assert lazy["blc_local"].chunks is not None
+    xr.testing.assert_allclose(eager, lazy.compute())
+
+
+def test_numba_and_numpy_engines_agree():
+    rng = np.random.default_rng(12)
+    j = rng.uniform(0, 50, (30, 2, 12))
+    j[2, 0, 3] = np.nan
+    ds = make_ds(j, EDGES_12, L=np.linspace(1.5, 6, 30), flux_err=np.sqrt(j + 1))
+    xr.testing.assert_allclose(partition(ds, engine="numba"), partition(ds, engine="numpy"),
+                               rtol=1e-12)
+
+
+def test_telescope_hemispheres_reproduce_isotropic_fractions():
+    # two hemispherical telescopes along +B and -B see every direction once; for isotropic
+    # flux the fraction in the loss cones is 1 - cos(alpha_LC) (spherical geometry)
+    ds = make_telescope_ds(np.full((2, 1, 2), 7.0), [0.0, 180.0], [90.0, 90.0], L=3.0)
+    out = partition(ds)
+    blc = np.radians(float(out.blc_local[0]))
+    np.testing.assert_allclose(out.fraction_precipitating.values, 1 - np.cos(blc), rtol=1e-10)
+    np.testing.assert_allclose(out.omni_flux.values, 4 * np.pi * 7.0, rtol=1e-12)
+
+
+def test_telescope_flux_is_apportioned_by_field_of_view_fraction():
+    from beltkit.pad import fov_fraction
+
+    L = 1.4  # wide loss cone
+    ds = make_telescope_ds(np.array([[[10.0, 4.0]]]), [20.0, 90.0], [15.0, 15.0], L=L)
+    out = partition(ds)
+    blc = float(out.blc_local[0])
+    swept = [2 * np.pi * (np.cos(np.radians(5)) - np.cos(np.radians(35))),
+             2 * np.pi * (np.cos(np.radians(75)) - np.cos(np.radians(105)))]
+    f0 = float(fov_fraction(20.0, 15.0, 0.0, blc))  # telescope 0 inside the loss cone part
+    expect_prec = 10.0 * swept[0] * f0 + 4.0 * swept[1] * float(fov_fraction(90.0, 15.0, 0, blc))
+    assert 0 < f0 < 1
+    assert float(out.flux_precipitating[0, 0]) == pytest.approx(expect_prec, rel=1e-12)
+    # the 0-5 deg and 35-75 deg bands are never seen: coverage below 1 and flagged
+    assert float(out.coverage_precipitating[0, 0]) < 1
+    assert int(out.partition_flag[0, 0]) & 8
+
+
+def test_outputs_carry_units_long_names_and_error_links():
+    rng = np.random.default_rng(1)
+    j = rng.uniform(1, 2, (3, 2, 12))
+    out = partition(make_ds(j, EDGES_12, flux_err=0.1 * j, mlt=3.0))
+    for name in OUTPUT_NAMES:
+        assert name in out
+        assert "long_name" in out[name].attrs
+        if name != "partition_flag":
+            assert "units" in out[name].attrs
+    for name in ("flux_precipitating", "flux_quasi_trapped", "flux_trapped", "omni_flux"):
+        assert out[name].attrs["units"] == "cm-2 s-1 keV-1"
+        assert out[name].attrs["ancillary_variables"] == f"{name}_err"
+        assert out[f"{name}_err"].attrs["units"] == "cm-2 s-1 keV-1"
+    for name in ("fraction_trapped", "coverage_trapped", "loss_cone_filling"):
+        assert out[name].attrs["units"] == "1"
+    for name in ("blc_local", "dlc_local", "blc_equatorial", "dlc_equatorial", "loss_cone_north",
+                 "loss_cone_south"):
+        assert out[name].dims == ("time",)
+        assert out[name].attrs["units"] == "degree"
+    assert out.energy.attrs["bounds"] == "energy_bnds" and "energy_bnds" in out
+    assert out.energy.attrs["units"] == "keV"
+    for name in ("L", "mlat", "mlt"):
+        assert out[name].dims == ("time",)
+    assert out.partition_flag.attrs["flag_meanings"].split()[0] == "precipitating_unsampled"
+
+
+def test_refuses_invalid_data_with_every_problem_and_never_modifies_input():
+    j = np.ones((3, 2, 12))
+    j[0, 0, 0] = -1.0
+    ds = make_ds(j, EDGES_12)
+    ds["flux"].attrs["units"] = "counts s-1"
+    ds = ds.drop_vars("energy_bnds")
+    before = copy.deepcopy(ds)
+    with pytest.raises(ConventionError) as err:
+        partition(ds)
+    text = "\n".join(err.value.problems)
+    assert "flux: units 'counts s-1'" in text
+    assert "energy_bnds: missing" in text
+    xr.testing.assert_identical(ds, before)
+    # a valid dataset is not modified either, flux values and attributes included
+    good = make_ds(np.abs(j), EDGES_12, flux_err=0.1 + np.abs(j))
+    before = copy.deepcopy(good)
+    partition(good)
+    partition(good.chunk(time=1)).compute()
+    xr.testing.assert_identical(good, before)
+
+
+def test_negative_flux_is_refused_or_kept_and_flagged():
+    j = np.ones((2, 1, 12))
+    j[1, 0, 5] = -0.5
+    ds = make_ds(j, EDGES_12)
+    with pytest.raises(ConventionError, match="1 negative values"):
+        partition(ds)
+    out = partition(ds, allow_negative=True)
+    assert int(out.partition_flag[1, 0]) & 16
+    assert not int(out.partition_flag[0, 0]) & 16
+
+
+def test_accessor_matches_function():
+    ds = make_ds(np.ones((2, 1, 12)), EDGES_12)
+    xr.testing.assert_identical(ds.beltkit.partition(), partition(ds))
+    assert ds.beltkit.validate() == []
