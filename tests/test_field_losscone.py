@@ -212,3 +212,14 @@ def test_shell_reaching_the_atmosphere_has_a_90_degree_drift_loss_cone():
     assert 1.1 < float(ds.l_grounded) < 1.2
     np.testing.assert_array_equal(ds.dlc_equatorial, 90.0)
     assert np.isnan(ds.blc_equatorial).any() and np.isfinite(ds.blc_equatorial).any()
+
+
+def test_sample_on_a_grounded_shell():
+    model = IGRF()
+    xyz = _mag_points(model, np.array([1.1, 1.4]), np.zeros(2), np.array([150.0, 150.0]), T2024)
+    ds = loss_cones(model, xyz, T2024, l_values=np.arange(1.1, 1.61, 0.05), n_lon=24)
+    assert float(ds.L_foot[0]) < 1.1  # below the lowest shell that stays above 100 km
+    np.testing.assert_allclose(ds.dlc_equatorial[0], 90.0)
+    np.testing.assert_allclose(ds.b_foot_drift_min[0], ds.b_min[0])
+    assert 0 < float(ds.blc_equatorial[1]) < float(ds.dlc_equatorial[1]) < 90.0
+    assert ds.mlat_deg.attrs["units"] == "deg" and "mlt_hours" in ds

@@ -42,7 +42,11 @@ grid of radii, labels them, and interpolates (cubic spline in
 longitudes is refined by a parabola through the discrete minimum and its
 two neighbours (periodic in longitude). A sample's drift minimum is that
 of its own label L (monotone cubic interpolation of ln B in ln L), never more than its
-own weaker footpoint field.
+own weaker footpoint field. The innermost shells pass below the stop
+altitude at some longitudes (in IGRF over the South Atlantic, below L of
+about 1.12 at 100 km); the table reports that limit (``l_grounded``), and
+samples on such shells lose every particle within a drift (drift loss
+cones of 90 deg).
 
 Cache
 -----
@@ -426,9 +430,9 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         ``b_local``, ``b_min``, ``b_foot_north``, ``b_foot_south``,
         ``b_foot_drift_min`` (nT); ``L`` (McIlwain L of locally mirroring
         particles), ``L_foot`` (the drift-shell label), ``mlat``, ``mlon``
-        (deg), ``mlt`` (h), ``open``. Loss cones and L are NaN for open
-        lines and NaN positions; the drift quantities are NaN outside the
-        table's L range.
+        (deg), ``mlt`` (h) (also as ``mlat_deg``, ``mlt_hours``), ``open``.
+        Loss cones and L are NaN for open lines and NaN positions; the
+        drift quantities are NaN outside the table's L range.
 
     Notes
     -----
@@ -444,8 +448,9 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     each sample's model epoch, interpolated at the sample's label L, and
     never exceeds the sample's own weaker footpoint field. Samples on
     shells that reach the stop altitude somewhere in longitude (label
-    below the table's ``l_grounded``) get a drift loss cone of 90 deg (all
-    particles are lost within a drift) and a NaN ``b_foot_drift_min``. Field lines
+    below the table's ``l_grounded``) get ``b_foot_drift_min`` equal to
+    their line's :math:`B_{min}`, i.e. drift loss cones of 90 deg: every
+    particle is lost within a drift. Field lines
     are traced by :func:`beltkit.field.trace`; L by
     :func:`beltkit.field.mcilwain_l`'s method.
     """
@@ -506,9 +511,12 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         interp = PchipInterpolator(ll, np.log(dm[good]), extrapolate=False)
         with np.errstate(invalid="ignore"):
             b_drift[sel] = np.exp(interp(np.log(l_foot[sel])))
+    b_min = per_line["b_min"]
     with np.errstate(invalid="ignore"):
         b_drift = np.fmin(b_drift, np.where(np.isfinite(b_drift), b_weak, np.nan))
-        b_min = per_line["b_min"]
+        # a shell reaching the stop altitude somewhere loses every particle within a
+        # drift: B_drift = B_min makes both drift loss cones 90 deg
+        b_drift = np.where(grounded, b_min, b_drift)
         out = {
             "blc_local": (_asin_deg(b_loc / b_weak), "deg", "local bounce loss cone"),
             "dlc_local": (_asin_deg(b_loc / b_drift), "deg", "local drift loss cone"),
@@ -519,10 +527,6 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
             "loss_cone_south": (_asin_deg(b_loc / b_foot_s), "deg",
                                 "local loss cone of the southern footpoint"),
         }
-    # a shell reaching the stop altitude somewhere loses every particle within a drift
-    for k in ("dlc_local", "dlc_equatorial"):
-        vals, u, ln = out[k]
-        out[k] = (np.where(grounded, 90.0, vals), u, ln)
     for k in list(out):
         vals, u, ln = out[k]
         vals = np.where(closed & np.isfinite(vals), vals, np.nan)
@@ -545,6 +549,9 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     out["mlat"] = (np.asarray(mlat, dtype=float), "deg", "magnetic (dipole) latitude")
     out["mlon"] = (np.asarray(mlon, dtype=float), "deg", "magnetic (dipole) longitude")
     out["mlt"] = (np.asarray(mlt, dtype=float), "h", "magnetic local time")
+    # the names of the cross-module contract, beside the short ones
+    out["mlat_deg"] = out["mlat"]
+    out["mlt_hours"] = out["mlt"]
     data = {k: (dims, np.asarray(v).reshape(lead), {"units": u, "long_name": ln})
             for k, (v, u, ln) in out.items()}
     data["open"] = (dims, is_open.reshape(lead),
