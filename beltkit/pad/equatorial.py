@@ -87,7 +87,8 @@ def _map_block(flux, err, ratio, *, centres, lo, hi, folded, alpha_eq, method, f
     return out, err_out, flag
 
 
-def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, method="linear"):
+def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, method="linear",
+                  allow_negative=False):
     r"""Map the local pitch-angle distribution to equatorial pitch angle.
 
     .. math::
@@ -113,6 +114,8 @@ def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, metho
         Footpoint altitude for the loss cones carried along (km).
     method : {"linear", "bin"}, keyword-only
         Linear interpolation between bin centres, or the containing bin's value.
+    allow_negative : bool, keyword-only
+        Accept negative flux values (mapped like any other).
 
     Returns
     -------
@@ -133,7 +136,7 @@ def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, metho
     """
     from ..errors import ConventionError
 
-    prep = check(ds, model=model)
+    prep = check(ds, model=model, allow_negative=allow_negative)
     if prep.kind != "bins":
         raise ConventionError(["flux: to_equatorial needs pitch-angle bins (dimension "
                                "'pitch_angle'); telescope data have no distribution to map"],

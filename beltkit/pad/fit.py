@@ -39,9 +39,10 @@ def _fit_block(flux, err, dlc, *, lo, hi, x_ln_sin, fmask, emask, has_err, metho
     j = fmask.apply(flux, np.float64)
     s = emask.apply(err, np.float64) if has_err else np.ones_like(j)
     use_bin = (lo[None, :] >= dlc[:, None] - 1e-9) & (hi[None, :] <= 180.0 - dlc[:, None] + 1e-9)
-    ok = use_bin[:, None, :] & np.isfinite(j) & (j > 0) & np.isfinite(x_ln_sin)[None, None, :]
+    ok_any = use_bin[:, None, :] & np.isfinite(j) & np.isfinite(x_ln_sin)[None, None, :]
     if has_err:
-        ok &= np.isfinite(s) & (s > 0)
+        ok_any &= np.isfinite(s) & (s > 0)
+    ok = ok_any & (j > 0)  # the log fit needs positive flux
     x = np.where(np.isfinite(x_ln_sin), x_ln_sin, 0.0)[None, None, :]
     with np.errstate(divide="ignore", invalid="ignore"):
         y = np.where(ok, np.log(np.where(ok, j, 1.0)), 0.0)
@@ -59,6 +60,9 @@ def _fit_block(flux, err, dlc, *, lo, hi, x_ln_sin, fmask, emask, has_err, metho
         var_n = S / det
         var_lna = Sxx / det
         if method == "nonlinear":
+            ok = ok_any  # flux space: zero and negative values take part
+            npts = ok.sum(-1)
+            good &= npts >= 2
             sig = np.where(ok, s, 1.0)
             lam = np.full(n_idx.shape, 1e-3)
             p0 = np.where(good, ln_a, 0.0)
@@ -121,7 +125,8 @@ def _fit_block(flux, err, dlc, *, lo, hi, x_ln_sin, fmask, emask, has_err, metho
     return res
 
 
-def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_iter=30):
+def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_iter=30,
+                   allow_negative=False):
     r"""Fit :math:`j = A\sin^n\alpha` per (time, energy) on the trapped bins.
 
     Parameters
@@ -137,6 +142,9 @@ def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_it
         Levenberg-Marquardt in flux space started from it.
     max_iter : int, keyword-only
         Iterations of the nonlinear fit.
+    allow_negative : bool, keyword-only
+        Accept negative flux values (background-subtracted data). The linear
+        fit skips non-positive values; the nonlinear fit uses them.
 
     Returns
     -------
@@ -155,7 +163,7 @@ def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_it
 
     if method not in ("linear", "nonlinear"):
         raise ValueError(f"method must be 'linear' or 'nonlinear', got {method!r}")
-    prep = check(ds, model=model)
+    prep = check(ds, model=model, allow_negative=allow_negative)
     if prep.kind != "bins":
         raise ConventionError(["flux: fit_sine_power needs pitch-angle bins (dimension "
                                "'pitch_angle'), not telescope looks"], ds.encoding.get("source"))
