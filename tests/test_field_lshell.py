@@ -149,3 +149,19 @@ def test_mcilwain_nan_loss_cone_and_dataarray():
     assert res.attrs["units"] == "1"
     with pytest.raises(PhysicsError, match="alpha_local_deg"):
         mcilwain_l(model, xyz[:1], T2020, alpha_local_deg=200.0)
+
+
+def test_mirror_point_between_stop_altitude_and_surface():
+    # a pitch angle inside the 100 km loss cone but outside the surface one still has a
+    # mirror point: the line is traced on down to the surface for its L (dipole closed
+    # forms from beltkit.dipole)
+    model = CenteredDipole(epoch=2020.0)
+    e1 = np.cross([0.0, 0.0, 1.0], model.dipole_axis_geo(T2020))
+    xyz = 2.0 * R_E_KM * e1[None, :] / np.linalg.norm(e1)
+    lc100 = dipole.local_loss_cone(2.0, 0.0, 100.0)
+    lc0 = dipole.local_loss_cone(2.0, 0.0, 0.0)
+    alpha = 0.5 * (lc100 + lc0)
+    assert lc0 < alpha < lc100
+    np.testing.assert_allclose(mcilwain_l(model, xyz, T2020, alpha_local_deg=alpha), 2.0,
+                               rtol=3e-4)
+    assert np.isnan(mcilwain_l(model, xyz, T2020, alpha_local_deg=0.5 * lc0))

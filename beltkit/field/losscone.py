@@ -73,7 +73,7 @@ from scipy.interpolate import CubicSpline, PchipInterpolator
 from .._wrap import as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
-from .lshell import _broadcast_time, _leading, hilton_l
+from .lshell import _broadcast_time, _leading, hilton_l, l_to_surface, needs_surface
 from .trace import _as_start_points, blocks, time_block, trace_lines
 
 __all__ = [
@@ -429,8 +429,10 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         ``dlc_equatorial``, ``loss_cone_north``, ``loss_cone_south`` (deg);
         ``b_local``, ``b_min``, ``b_foot_north``, ``b_foot_south``,
         ``b_foot_drift_min`` (nT); ``L`` (McIlwain L of locally mirroring
-        particles), ``L_foot`` (the drift-shell label), ``mlat``, ``mlon``
-        (deg), ``mlt`` (h) (also as ``mlat_deg``, ``mlt_hours``), ``open``.
+        particles; lines whose other mirror point lies below the stop
+        altitude are traced to the surface for it), ``L_foot`` (the
+        drift-shell label), ``mlat``, ``mlon`` (deg), ``mlt`` (h) (also as
+        ``mlat_deg``, ``mlt_hours``), ``open``.
         Loss cones and L are NaN for open lines and NaN positions; the
         drift quantities are NaN outside the table's L range.
 
@@ -483,6 +485,15 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
             ok = lines.closed & np.isfinite(i_both[:, col])
             view = per_line[k][sl]
             view[ok] = hilton_l(bm[ok], i_both[ok, col], b0[sl][ok])
+        # locally mirroring particles whose conjugate mirror point lies below the stop
+        # altitude: their L comes from the line traced down to the surface
+        deeper = needs_surface(lines, lines.b_start) & ~np.isfinite(per_line["l_local"][sl])
+        if np.any(deeper):
+            tb = time_block(t, sl)
+            view = per_line["l_local"][sl]
+            view[deeper] = l_to_surface(model, x[sl][deeper],
+                                        tb[deeper] if np.ndim(tb) else tb,
+                                        lines.b_start[deeper], b0[sl][deeper], **trace_options)
     b_loc = per_line["b_start"]
     b_foot_n, b_foot_s = per_line["b_foot_north"], per_line["b_foot_south"]
     with np.errstate(invalid="ignore"):

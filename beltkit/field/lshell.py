@@ -120,6 +120,46 @@ def hilton_l(b_m_nt, i_km, b0_nt):
     return np.cbrt(b0 / bm * (1 + a1 * x3 + a2 * x3**2 + a3 * x))
 
 
+def needs_surface(lines, b_m):
+    """Flag closed lines whose mirror field `b_m` exceeds a footpoint field (mirror below)."""
+    from .trace import _FOOT_TOL
+
+    with np.errstate(invalid="ignore"):
+        weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
+        return lines.closed & (b_m > weak * (1 + _FOOT_TOL))
+
+
+def l_to_surface(model, xyz_km, time, b_m_nt, b0_nt, **trace_options):
+    """McIlwain L with the lines traced down to the surface (for mirror points below 100 km).
+
+    Parameters
+    ----------
+    model : FieldModel
+        Field model.
+    xyz_km : ndarray (N, 3)
+        GEO positions, km.
+    time : scalar or ndarray (N,)
+        Times.
+    b_m_nt, b0_nt : ndarray (N,)
+        Mirror fields and dipole fields of the epoch, nT.
+    **trace_options
+        Passed to :func:`beltkit.field.trace.trace_lines`.
+
+    Returns
+    -------
+    ndarray (N,)
+        L (NaN where the mirror point lies below the surface too).
+    """
+    from .trace import trace_lines
+
+    lines = trace_lines(model, xyz_km, time, 0.0, arg_name="xyz_km", **trace_options)
+    i_km = lines.integral_invariant(b_m_nt)
+    out = np.full(i_km.shape, np.nan)
+    ok = np.isfinite(i_km)
+    out[ok] = hilton_l(b_m_nt[ok], i_km[ok], np.asarray(b0_nt)[ok])
+    return out
+
+
 def _leading(xyz_km, name="xyz_km"):
     """Return (values (N,3), leading shape, leading dims/coords or None)."""
     dims = coords = None
@@ -168,8 +208,9 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
         Local pitch angle in degrees, broadcast against the leading
         dimensions; sets the mirror field :math:`B_m = B_{local}/\sin^2\alpha`.
     altitude_km : float, default 100
-        Stop altitude of the tracing; particles whose mirror point lies
-        below it (inside the bounce loss cone) get NaN.
+        Stop altitude of the tracing. Lines whose mirror point lies below
+        it are traced again down to the surface (the reference sphere);
+        particles that would mirror below the surface get NaN.
     **trace_options
         Passed to :func:`beltkit.field.trace.trace_lines` (``rtol``, ...).
 
@@ -218,6 +259,11 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
         ok = np.isfinite(i_km)
         view = out[sl]
         view[ok] = hilton_l(b_m[ok], i_km[ok], b0[sl][ok])
+        deeper = needs_surface(lines, b_m) & ~ok
+        if np.any(deeper):
+            tb = time_block(t, sl)
+            view[deeper] = l_to_surface(model, x[sl][deeper], tb[deeper] if np.ndim(tb) else tb,
+                                        b_m[deeper], b0[sl][deeper], **trace_options)
     out = out.reshape(lead)
     if dims is not None:
         return xr.DataArray(out, dims=dims, coords=coords, name="L",
