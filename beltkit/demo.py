@@ -360,7 +360,7 @@ def _tern_day(day_start, rng):
     A, n_idx, F, blc = _belt(energy, L, mlt, time)
 
     # expected bin flux: solid-angle average over each bin (Gauss-Legendre in cos alpha)
-    x, w = np.polynomial.legendre.leggauss(24)
+    x, w = np.polynomial.legendre.leggauss(12)
     mu1, mu2 = np.cos(np.radians(a_edges[:-1])), np.cos(np.radians(a_edges[1:]))
     mu = 0.5 * (mu1 + mu2)[:, None] + 0.5 * (mu1 - mu2)[:, None] * x[None, :]
     nodes = np.degrees(np.arccos(np.clip(mu, -1.0, 1.0)))  # (pitch, node)
@@ -429,7 +429,7 @@ def _tern_day(day_start, rng):
     return ds
 
 
-def _cap_nodes(half_angle_deg, n_theta=6, n_phi=16):
+def _cap_nodes(half_angle_deg, n_theta=4, n_phi=12):
     """Quadrature of a circular cap: polar angles, azimuths and weights (sum 1)."""
     x, w = np.polynomial.legendre.leggauss(n_theta)
     cos_h = np.cos(np.radians(half_angle_deg))
@@ -491,7 +491,7 @@ def _swift_day(day_start, rng):
 
     # truth: shares of the model's omnidirectional flux (fine quadrature, both hemispheres)
     llc = np.asarray(dipole.local_loss_cone(L, mlat, altitude_km=100.0), float)
-    x, w = np.polynomial.legendre.leggauss(48)
+    x, w = np.polynomial.legendre.leggauss(32)
     cos_c = np.cos(np.radians(llc))[:, None]
     mu_in = 0.5 * (1 + cos_c) + 0.5 * (1 - cos_c) * x  # (time, node) inside the cone
     mu_out = 0.5 * cos_c + 0.5 * cos_c * x  # between 90 deg and the cone edge

@@ -26,6 +26,7 @@ def test_outputs_are_stripped(path):
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
 def test_notebook_runs(path, tmp_path, monkeypatch):
+    before = sorted(p.name for p in path.parent.iterdir())
     # nbclient and ipykernel are in the test extra; missing ones fail here, never skip
     import nbformat
     from nbclient import NotebookClient
@@ -33,8 +34,10 @@ def test_notebook_runs(path, tmp_path, monkeypatch):
     monkeypatch.setenv("MPLBACKEND", "Agg")
     monkeypatch.chdir(tmp_path)
     book = nbformat.read(path, as_version=4)
+    # the kernel starts in notebooks/ (as a reader's would) and finds ../data_demo;
+    # the notebooks write only into temporary folders
     client = NotebookClient(book, timeout=120, kernel_name="python3",
-                            resources={"metadata": {"path": str(tmp_path)}})
+                            resources={"metadata": {"path": str(path.parent)}})
     client.execute()  # raises CellExecutionError naming the cell on any error
     errors = [o for c in book.cells if c.cell_type == "code" for o in c.outputs
               if o.get("output_type") == "error"]
@@ -42,3 +45,4 @@ def test_notebook_runs(path, tmp_path, monkeypatch):
     images = sum(1 for c in book.cells if c.cell_type == "code" for o in c.outputs
                  if "image/png" in o.get("data", {}))
     assert images >= 2, f"{path.name} drew {images} figures"
+    assert sorted(p.name for p in path.parent.iterdir()) == before  # nothing left behind

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import matplotlib
 
 matplotlib.use("Agg")
@@ -12,26 +14,28 @@ import xarray as xr  # noqa: E402
 from matplotlib.colors import LogNorm  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from beltkit import batch, demo, plot  # noqa: E402
+from beltkit import batch, pad, plot  # noqa: E402
 
 STORM = "2027-03-09T07:00"
 
 
+DATA_DEMO = Path(__file__).resolve().parents[1] / "data_demo"
+
+
 @pytest.fixture(scope="module")
 def demo_data(tmp_path_factory):
-    """Day 2 (storm) of both spacecraft, their summaries and a survey of the spectrometer."""
-    root = tmp_path_factory.mktemp("plotdata")
-    files = demo.generate(root / "data", n_days=2)
-    results = batch.summarize(files, root / "summaries")
-    assert all(r.status == "ok" for r in results), [r.reason for r in results]
-    by_name = {f.name: (f, r.output) for f, r in zip(files, results)}
+    """Storm day of both spacecraft (committed demo files), summaries, a spectrometer survey."""
     out = {}
     for craft, stem in (("tern", "marram_tern_fan"), ("swift", "marram_swift_quill")):
-        f, s = by_name[f"{stem}_synthetic_20270309.nc"]
-        with xr.open_dataset(f) as ds, xr.open_dataset(s) as summ:
-            out[craft] = (ds.load(), summ.load())
-    tern_summaries = [r.output for r in results if "_tern_" in str(r.output)]
-    out["survey"] = batch.survey(tern_summaries, root / "survey.nc", time_window="3h")
+        with xr.open_dataset(DATA_DEMO / f"{stem}_synthetic_20270309.nc") as ds:
+            ds = ds.load()
+        out[craft] = (ds, pad.partition(ds).compute())
+    root = tmp_path_factory.mktemp("plotdata")
+    tern_files = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
+    results = batch.summarize(tern_files, root / "summaries")
+    assert all(r.status == "ok" for r in results), [r.reason for r in results]
+    out["survey"] = batch.survey([r.output for r in results], root / "survey.nc",
+                                 time_window="3h")
     return out
 
 
