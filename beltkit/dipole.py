@@ -202,22 +202,26 @@ def _mirror_block(s, c):
 
     if np.any(far):
         sf = s[far]
-        s2 = sf * sf
+        a = 3.0 * sf * sf
+        b = 4.0 * sf * sf
         u = np.cbrt(2.0 * sf)  # (4 s^2)^(1/6), above the root: f(u0) = 3 s^2 u0 > 0
         polish = False
-        for _ in range(60):
-            u3 = u * u * u
-            f = u3 * u3 + 3.0 * s2 * u - 4.0 * s2
-            fp = 6.0 * u3 * u * u + 3.0 * s2
-            # fp underflows to 0 only for s < ~1e-100 (alpha_eq < ~1e-48 deg), where
-            # u0 already gives the mirror latitude as 90 deg to double precision
-            step = np.divide(f, fp, out=np.zeros_like(f), where=fp > 0.0)
-            u = u - step
+        for k in range(60):
+            u5 = u * u
+            u5 *= u5
+            u5 *= u
+            f = (u5 + a) * u - b
+            # f' = 6 u^5 + 3 s^2; the tiny term only matters where both underflow
+            # (alpha_eq < ~1e-48 deg), where u0 is already exact to double precision
+            fp = 6.0 * u5 + a + 1e-300
+            step = f / fp
+            u -= step
             if polish:
                 break
             # quadratic convergence: once the relative step is below 1e-9, one
-            # more step reaches the rounding level (further steps only dither)
-            polish = not np.any(np.abs(step) > 1e-9 * u)
+            # more step reaches the rounding level (further steps only dither);
+            # from u0 at least four steps are needed, so no check before that
+            polish = k >= 3 and not np.any(np.abs(step) > 1e-9 * u)
         u = np.clip(u, 0.0, 1.0)
         u_out[far] = u
         w_out[far] = 1.0 - u
@@ -225,18 +229,20 @@ def _mirror_block(s, c):
     if np.any(near):
         sn = s[near]
         cn = c[near]
-        w = np.zeros_like(sn)
+        a = 3.0 * sn * sn
+        w = cn * (1.0 + sn) / (6.0 + a)  # the first Newton iterate from w = 0
         polish = False
-        for _ in range(60):
+        for k in range(60):
             om = 1.0 - w
-            om3 = om * om * om
-            g = (cn - w * (3.0 - 3.0 * w + w * w)) * (om3 + sn) - 3.0 * sn * sn * w
-            gp = 6.0 * om3 * om * om + 3.0 * sn * sn  # -dg/dw > 0
+            om2 = om * om
+            om3 = om2 * om
+            g = (cn - w * (3.0 + w * (w - 3.0))) * (om3 + sn) - a * w
+            gp = 6.0 * om3 * om2 + a  # -dg/dw > 0
             step = g / gp
-            w = w + step
+            w += step
             if polish:
                 break
-            polish = not np.any(np.abs(step) > 1e-9 * w)
+            polish = k >= 2 and not np.any(np.abs(step) > 1e-9 * w)
         w = np.clip(w, 0.0, 1.0)
         w_out[near] = w
         u_out[near] = 1.0 - w
