@@ -199,3 +199,15 @@ def test_inputs_not_modified_and_dataarray_accepted():
     np.testing.assert_array_equal(x, keep)
     lines = trace_lines(AlignedDipole(), x, T2020)
     np.testing.assert_allclose(ds.b_min, lines.b_min)
+
+
+def test_one_time_per_line():
+    # the dipole of each line's own time (IGRF-14 g10, g11, h11 change between epochs)
+    model = CenteredDipole()
+    times = np.array([T2020, np.datetime64("2025-01-01")])
+    x = np.full((2, 3), 2.0 * R_E_KM / np.sqrt(3))
+    ds = trace(model, x, times)
+    for i, t in enumerate(times):
+        single = trace(model, x[i:i + 1], t)
+        np.testing.assert_allclose(ds.b_foot_north[i], single.b_foot_north[0], rtol=1e-12)
+    assert abs(float(ds.b_min[0] / ds.b_min[1]) - 1) > 1e-4
