@@ -833,4 +833,5 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
     ds = xr.Dataset(data_vars, coords=coords, attrs=attrs)
     if command is None:
         command = f"beltkit.batch.survey({len(infos)} file(s), {str(out_file)!r})"
+    remove_stale_temporaries(Path(out_file).parent, Path(out_file).name)
     return write_dataset(ds, out_file, compress=compress, history=command, time_chunk=64)

@@ -56,6 +56,7 @@ import os
 import secrets
 import sys
 from collections.abc import Mapping
+from glob import escape as glob_escape
 from pathlib import Path
 
 import numpy as np
@@ -520,16 +521,18 @@ def temporary_name(target) -> Path:
     return target.with_name(f".{target.name}{_TEMP_MARK}{secrets.token_hex(6)}{TEMP_SUFFIX}")
 
 
-def remove_stale_temporaries(folder) -> list[Path]:
+def remove_stale_temporaries(folder, target_name=None) -> list[Path]:
     """Delete temporary files left in `folder` by killed writers; return what was removed.
 
-    Only names made by :func:`temporary_name` are touched.
+    Only names made by :func:`temporary_name` are touched; with `target_name`,
+    only the temporaries of that one output file.
     """
     removed = []
     folder = Path(folder)
     if not folder.is_dir():
         return removed
-    for p in folder.glob(f".*{_TEMP_MARK}*{TEMP_SUFFIX}"):
+    stem = glob_escape(target_name) if target_name else "*"
+    for p in folder.glob(f".{stem}{_TEMP_MARK}*{TEMP_SUFFIX}"):
         try:
             p.unlink()
             removed.append(p)

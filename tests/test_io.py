@@ -188,6 +188,9 @@ def test_remove_stale_temporaries_only_touches_ours(tmp_path):
     other.write_bytes(b"y")
     keep = tmp_path / "a.summary.nc"
     keep.write_bytes(b"z")
+    theirs = bio.temporary_name(tmp_path / "b[1].nc")
+    theirs.write_bytes(b"w")
+    assert bio.remove_stale_temporaries(tmp_path, "b[1].nc") == [theirs]
     removed = bio.remove_stale_temporaries(tmp_path)
     assert removed == [ours]
     assert other.exists() and keep.exists() and not ours.exists()
