@@ -116,8 +116,10 @@ class _Field:
 def _rk_step(field, x, k1, h, sign, idx):
     """One Dormand-Prince step of length `h` (per line) from `x`.
 
-    Returns the 5th-order position, the error-estimate vector, the unit
-    tangent (times `sign`) and |B| at the new point.
+    `sign` (+1 along B, -1 against; scalar or per line) sets the direction;
+    `k1` is the unit field vector at `x`. Returns the 5th-order position,
+    the error-estimate vector, the unit field vector and |B| at the new
+    point (first-same-as-last: they serve as the next step's first stage).
     """
     hs = (h * sign)[:, None]
     ks = [k1]
