@@ -309,6 +309,10 @@ def test_points_inside_the_earth_are_refused():
             model.field_geo(np.array([[1.1, 0.0, 0.0]]), 2020.0)  # R_E units by mistake
         with pytest.raises(FieldModelError, match="trailing axis"):
             model.field_geo(np.array([7000.0, 0.0]), 2020.0)
+    with pytest.raises(FieldModelError, match="r_km"):
+        igrf.igrf_field_spherical(1.5, 45.0, 0.0, 2020.0)
+    with pytest.raises(FieldModelError, match="colat_deg"):
+        igrf.igrf_field_spherical(7000.0, -10.0, 0.0, 2020.0)
     # a ground station near the South Pole (inside the 6371.2 km sphere, on the ellipsoid)
     pole_station = geodetic_to_geo(-89.99, 0.0, 2.8)
     assert np.linalg.norm(pole_station) < R_E_KM

@@ -872,7 +872,9 @@ def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
     Raises
     ------
     FieldModelError
-        For times outside 1900.0-2030.0 (unless allowed).
+        For times outside 1900.0-2030.0 (unless allowed), colatitudes outside
+        0-180 deg, or points more than 10 km below the WGS-84 ellipsoid (the
+        rule of :func:`beltkit.field.models.check_positions`).
 
     Notes
     -----
@@ -897,6 +899,7 @@ def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
     phr = np.radians(ph.ravel())
     u, s, cp, sp = np.cos(thr), np.sin(thr), np.cos(phr), np.sin(phr)
     rr = r.ravel()
+    _check_spherical(rr, th.ravel(), u, s)
 
     def evaluate(idx, g, h):
         return tuple(_run_blocks(rr[idx], u[idx], s[idx], cp[idx], sp[idx], g, h, backend))
@@ -905,6 +908,27 @@ def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
     if res is None:
         return tuple(np.full(shape, np.nan) for _ in range(3))
     return tuple(v.reshape(shape) for v in res)
+
+
+def _check_spherical(r, colat, u, s):
+    """Refuse colatitudes outside 0-180 deg and points inside the Earth (NaN ignored)."""
+    from .models import _WGS84_A_KM, _WGS84_B_KM, INSIDE_EARTH_TOLERANCE_KM
+
+    bad = (colat < 0.0) | (colat > 180.0)
+    if np.any(bad):
+        raise FieldModelError(
+            f"argument 'colat_deg' must lie in [0, 180] degrees (geocentric colatitude); "
+            f"got {colat[bad][0]:g}"
+        )
+    a = _WGS84_A_KM - INSIDE_EARTH_TOLERANCE_KM
+    b = _WGS84_B_KM - INSIDE_EARTH_TOLERANCE_KM
+    inside = (r * s) ** 2 / (a * a) + (r * u) ** 2 / (b * b) < 1.0
+    if np.any(inside):
+        raise FieldModelError(
+            f"argument 'r_km': {int(inside.sum())} point(s) inside the Earth (e.g. "
+            f"{r[inside][0]:g} km, more than {INSIDE_EARTH_TOLERANCE_KM:g} km below the "
+            f"WGS-84 surface); give the geocentric radius in km"
+        )
 
 
 def _time_array(time):
