@@ -670,8 +670,12 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
         for ax, quantity in zip(axes, ("fraction_precipitating", "fraction_quasi_trapped",
                                        "omni_flux")):
             plot.survey_map(surveys["tern"], quantity, energy=160.0, kind="L-time", ax=ax)
-        axes[1].set_title(axes[1].get_title() + " (centred dipole: drift loss cone = bounce "
-                          "loss cone)", fontsize="medium")
+        axes[1].set_title(axes[1].get_title().replace(
+            " (L-time): zero in every cell",
+            ": zero everywhere (centred dipole: drift loss cone = bounce loss cone)"),
+            fontsize="medium")
+        for ax in axes[:2]:
+            ax.set_xlabel("")
         save(fig, "tern_survey_L_time.png")
         save(plot.survey_map(surveys["tern"], "fraction_precipitating", energy=160.0,
                              kind="L-MLT"), "tern_survey_L_MLT.png")
@@ -715,11 +719,11 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
             f"{r.input}: {r.reason}" for r in bad))
     summaries = [Path(r.output) for r in results]
     surveys = {}
-    for craft, window, l_step in (("tern", "1h", 0.25), ("swift", "1D", 0.5)):
+    for craft, window, l_top, l_step in (("tern", "1h", 7.0, 0.25), ("swift", "1D", 8.0, 0.5)):
         files = [s for s in summaries if f"_{craft}_" in s.name]
         if files:
             surveys[craft] = Path(batch.survey(files, out / f"survey_{craft}.nc",
-                                               l_edges=np.arange(1.0, 8.01, l_step),
+                                               l_edges=np.arange(1.0, l_top + 0.01, l_step),
                                                time_window=window))
     figures = demo_figures(data_files, summaries, surveys, out / "figures")
     report = sorted(p for p in (out / "summaries").iterdir()
