@@ -162,8 +162,19 @@ def dipole_coefficients(time, *, allow_extrapolation: bool = False):
         :math:`g_1^0, g_1^1, h_1^1` in nT, shape of ``time`` (IGRF time
         interpolation, :func:`beltkit.field.igrf.igrf_coefficients`).
     """
-    g, h = _igrf.igrf_coefficients(time, max_degree=1, allow_extrapolation=allow_extrapolation)
-    return g[..., 1, 0], g[..., 1, 1], h[..., 1, 1]
+    t = np.asarray(decimal_year(time), dtype=float)
+    if t.ndim == 0:
+        g, h, _ = _igrf.coefficients_at(float(t), 1, allow_extrapolation)
+        return g[1, 0].copy(), g[1, 1].copy(), h[1, 1].copy()
+    # interpolate only the three first-degree coefficients (per-sample times of a
+    # long data set would make the full (..., 14, 14) tables very large)
+    table = _igrf.igrf_table()
+    k, dt = _igrf._interval(t, table, allow_extrapolation, "time")
+    gdot, hdot = _igrf._rates(table)
+    g10 = table.g[k, 1, 0] + dt * gdot[k, 1, 0]
+    g11 = table.g[k, 1, 1] + dt * gdot[k, 1, 1]
+    h11 = table.h[k, 1, 1] + dt * hdot[k, 1, 1]
+    return g10, g11, h11
 
 
 def _dipole_vector(time, allow_extrapolation):
