@@ -129,7 +129,7 @@ def run(quick=False):
                  "value": peak_err / 2**20, "unit": "MiB", "baseline": in_bytes / 2**20,
                  "ratio": peak_err / in_bytes, "target": "ratio < 2.5",
                  "passed": peak_err / in_bytes < 2.5})
-    del ds, ds_err, flux
+    ds = ds_err = flux = None  # free the big arrays before the dask part
     n_short = 20_000 if quick else 200_000
     chunk = 10_000 if quick else 50_000
     with tempfile.TemporaryDirectory() as tmp:
