@@ -26,9 +26,9 @@ returned angle keeps the caller's side of 90.
 References
 ----------
 J. G. Roederer, *Dynamics of Geomagnetically Trapped Radiation*
-(Springer, 1970), ch. 1-2.
+(Springer, 1970).
 M. Walt, *Introduction to Geomagnetically Trapped Radiation* (Cambridge
-University Press, 1994), ch. 2-4.
+University Press, 1994).
 
 Examples
 --------
@@ -272,7 +272,7 @@ def equatorial_field(L, b0_nt=B0_NT):
 
     Notes
     -----
-    Roederer (1970) eq. 1.8; Walt (1994) ch. 2.
+    Roederer (1970); Walt (1994).
 
     Examples
     --------
@@ -304,7 +304,7 @@ def field_magnitude(L, mlat_deg, b0_nt=B0_NT):
 
     Notes
     -----
-    Roederer (1970) eq. 1.8; Walt (1994) eq. 2.8.
+    Roederer (1970); Walt (1994).
 
     Examples
     --------
@@ -342,7 +342,7 @@ def footpoint_mlat(L, altitude_km=100.0):
 
     Notes
     -----
-    From the field-line equation :math:`r = L R_E \cos^2\lambda` (Roederer 1970, eq. 1.7).
+    From the field-line equation :math:`r = L R_E \cos^2\lambda` (Roederer 1970).
 
     Examples
     --------
@@ -376,7 +376,7 @@ def footpoint_field(L, altitude_km=100.0, b0_nt=B0_NT):
 
     Notes
     -----
-    Roederer (1970) eqs. 1.7-1.8.
+    Roederer (1970).
 
     Examples
     --------
@@ -411,7 +411,7 @@ def arc_length(L, altitude_km=100.0):
     Notes
     -----
     Integral of :math:`ds = L \cos\lambda \sqrt{1 + 3\sin^2\lambda}\, d\lambda`
-    (Roederer 1970, ch. 1; Walt 1994, ch. 2).
+    (Roederer 1970; Walt 1994).
 
     Examples
     --------
@@ -452,7 +452,7 @@ def mirror_mlat(alpha_eq_deg):
 
     Notes
     -----
-    Roederer (1970) ch. 1; Walt (1994) eq. 4.12.
+    Roederer (1970); Walt (1994).
 
     Examples
     --------
@@ -488,7 +488,7 @@ def mirror_altitude(L, alpha_eq_deg):
 
     Notes
     -----
-    Field-line equation (Roederer 1970, eq. 1.7) at the mirror latitude
+    Field-line equation (Roederer 1970) at the mirror latitude
     (:func:`mirror_mlat`).
 
     Examples
@@ -524,8 +524,8 @@ def local_pitch_angle(alpha_eq_deg, mlat_deg):
 
     Notes
     -----
-    Conservation of the first invariant in a static field (Roederer 1970,
-    eq. 1.24; Walt 1994, eq. 4.10).
+    Conservation of the first invariant in a static field (Roederer 1970;
+    Walt 1994).
 
     Examples
     --------
@@ -560,7 +560,7 @@ def equatorial_pitch_angle(alpha_local_deg, mlat_deg):
 
     Notes
     -----
-    Conservation of the first invariant (Roederer 1970, eq. 1.24; Walt 1994, eq. 4.10).
+    Conservation of the first invariant (Roederer 1970; Walt 1994).
 
     Examples
     --------
@@ -597,7 +597,7 @@ def bounce_loss_cone(L, altitude_km=100.0):
 
     Notes
     -----
-    Roederer (1970) ch. 1; Walt (1994) eq. 4.14.
+    Roederer (1970); Walt (1994).
 
     Examples
     --------
@@ -631,8 +631,8 @@ def local_loss_cone(L, mlat_deg, altitude_km=100.0):
 
     Notes
     -----
-    Mirror-ratio condition with first-invariant mapping (Roederer 1970, ch. 1;
-    Walt 1994, ch. 4). Common practice.
+    Mirror-ratio condition with first-invariant mapping (Roederer 1970;
+    Walt 1994). Common practice.
 
     Examples
     --------
@@ -664,7 +664,7 @@ def radius(L, mlat_deg):
 
     Notes
     -----
-    Roederer (1970) eq. 1.7.
+    Roederer (1970).
 
     Examples
     --------
@@ -696,7 +696,7 @@ def l_from_position(r_re, mlat_deg):
 
     Notes
     -----
-    Inverse of the field-line equation (Roederer 1970, eq. 1.7).
+    Inverse of the field-line equation (Roederer 1970).
 
     Examples
     --------

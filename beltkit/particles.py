@@ -18,7 +18,7 @@ References
 J. D. Jackson, *Classical Electrodynamics*, 3rd ed. (Wiley, 1999), ch. 11-12
 (relativistic kinematics, motion in a uniform magnetic field).
 M. Walt, *Introduction to Geomagnetically Trapped Radiation* (Cambridge
-University Press, 1994), ch. 3 (gyration and the first adiabatic invariant).
+University Press, 1994) (gyration and the first adiabatic invariant).
 
 Examples
 --------
@@ -196,7 +196,7 @@ def lorentz_factor(energy_kev, species="electron"):
 
     Notes
     -----
-    Special relativity, e.g. Jackson (1999) section 11.5.
+    Special relativity, e.g. Jackson (1999) ch. 11.
 
     Examples
     --------
@@ -231,7 +231,7 @@ def beta(energy_kev, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 11.5.
+    Jackson (1999) ch. 11.
 
     Examples
     --------
@@ -263,7 +263,7 @@ def speed(energy_kev, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 11.5; ``c`` from :mod:`scipy.constants`.
+    Jackson (1999) ch. 11; ``c`` from :mod:`scipy.constants`.
 
     Examples
     --------
@@ -295,7 +295,7 @@ def momentum(energy_kev, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 11.5.
+    Jackson (1999) ch. 11.
 
     Examples
     --------
@@ -368,7 +368,7 @@ def gyrofrequency(b_nt, energy_kev, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 12.2; Walt (1994) ch. 3.
+    Jackson (1999) ch. 12; Walt (1994).
 
     Examples
     --------
@@ -400,7 +400,7 @@ def gyroperiod(b_nt, energy_kev, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 12.2.
+    Jackson (1999) ch. 12.
 
     Examples
     --------
@@ -434,7 +434,7 @@ def gyroradius(b_nt, energy_kev, pitch_angle_deg=90.0, species="electron"):
 
     Notes
     -----
-    Jackson (1999) section 12.2; Walt (1994) ch. 3.
+    Jackson (1999) ch. 12; Walt (1994).
 
     Examples
     --------
@@ -482,7 +482,7 @@ def first_invariant(energy_kev, pitch_angle_deg, b_nt, species="electron"):
 
     Notes
     -----
-    Walt (1994) ch. 3; Roederer (1970), *Dynamics of Geomagnetically Trapped
+    Walt (1994); Roederer (1970), *Dynamics of Geomagnetically Trapped
     Radiation*, ch. 1. Same quantity as :func:`first_invariant_si`, in other units.
 
     Examples
@@ -517,7 +517,7 @@ def first_invariant_si(energy_kev, pitch_angle_deg, b_nt, species="electron"):
 
     Notes
     -----
-    Walt (1994) ch. 3.
+    Walt (1994).
 
     Examples
     --------

@@ -16,7 +16,7 @@ from beltkit.errors import PhysicsError
 
 
 def _dipole_components(r_re, mlat_deg, b0_nt):
-    # Textbook centred-dipole field from the scalar potential (Walt 1994, eq. 2.5):
+    # Textbook centred-dipole field from the scalar potential (Walt 1994):
     # B_r = -2 B0 (R_E/r)^3 sin(lambda), B_lambda = B0 (R_E/r)^3 cos(lambda).
     lam = np.radians(mlat_deg)
     k = b0_nt / r_re**3
@@ -26,7 +26,7 @@ def _dipole_components(r_re, mlat_deg, b0_nt):
 def _mirror_lat_brentq(alpha_eq_deg):
     # Independent route: bracketed root (scipy.optimize.brentq) of the
     # trigonometric mirror condition b(lambda) = 1 / sin^2(alpha_eq)
-    # (Roederer 1970, ch. 1), taken in logarithms with log1p so that it stays
+    # (Roederer 1970), taken in logarithms with log1p so that it stays
     # well conditioned next to the equator:
     # 0.5 ln(1 + 3 sin^2 l) - 3 ln(1 - sin^2 l) + ln(sin^2 alpha_eq) = 0.
     if alpha_eq_deg < 45.0:
@@ -218,7 +218,7 @@ def test_equatorial_local_equatorial_is_identity(alpha, frac):
 
 def test_pitch_angle_mapping_textbook_value():
     # sin^2(a) = sin^2(a_eq) B(l)/B_eq with b(30 deg) = sqrt(1.75) / 0.75^3
-    # (worked by hand from the dipole formula, Walt 1994 eq. 4.10).
+    # (worked by hand from the dipole formula, Walt 1994).
     b30 = math.sqrt(1.75) / 0.75**3
     ref = math.degrees(math.asin(math.sqrt(math.sin(math.radians(20.0)) ** 2 * b30)))
     assert dipole.local_pitch_angle(20.0, 30.0) == pytest.approx(ref, abs=1e-12)
