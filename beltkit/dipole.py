@@ -68,7 +68,7 @@ __all__ = [
 
 
 def _L(L):
-    return check_range(L, "L", lo=1.0,
+    return check_range(L, "L", lo=1.0, hi=np.inf, hi_open=True,
                        hint="L is the equatorial distance of the field line in Earth radii")
 
 
@@ -83,12 +83,13 @@ def _pitch(alpha_deg, name):
 
 
 def _b0(b0_nt):
-    return check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True,
+    return check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
                        hint="b0_nt is the dipole's equatorial surface field in nT")
 
 
 def _altitude(altitude_km):
-    return check_range(altitude_km, "altitude_km", lo=-R_E_KM, lo_open=True,
+    return check_range(altitude_km, "altitude_km", lo=-R_E_KM, lo_open=True, hi=np.inf,
+                       hi_open=True,
                        hint="Altitude is in km above the reference sphere R_E = 6371.2 km")
 
 
@@ -703,7 +704,7 @@ def l_from_position(r_re, mlat_deg):
     >>> round(l_from_position(1.0, 60.0), 6)
     4.0
     """
-    r = check_range(r_re, "r_re", lo=0.0, lo_open=True,
+    r = check_range(r_re, "r_re", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
                     hint="r_re is the geocentric distance in Earth radii")
     lam = np.deg2rad(_mlat(mlat_deg))
     return r / np.cos(lam) ** 2

@@ -266,13 +266,13 @@ def _y_from_alpha(alpha_eq_deg):
 
 
 def _L(L):
-    return check_range(L, "L", lo=1.0,
+    return check_range(L, "L", lo=1.0, hi=np.inf, hi_open=True,
                        hint="L is the equatorial distance of the field line in Earth radii")
 
 
 def _energy(energy_kev):
-    return check_range(energy_kev, "energy_kev", lo=0.0,
-                       hint="Kinetic energy is in keV and cannot be negative")
+    return check_range(energy_kev, "energy_kev", lo=0.0, hi=np.inf, hi_open=True,
+                       hint="Kinetic energy is in keV, finite and not negative")
 
 
 def _method(method, allowed, what):
@@ -426,7 +426,7 @@ def _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method):
     sp = get_species(species)
     e = _energy(energy_kev)
     L = _L(L)
-    b0 = check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True,
+    b0 = check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
                      hint="b0_nt is the dipole's equatorial surface field in nT")
     y = _y_from_alpha(alpha_eq_deg)
     e0 = sp.rest_energy_kev

@@ -157,8 +157,8 @@ def get_species(name) -> Species:
 
 
 def _energy(energy_kev):
-    return check_range(energy_kev, "energy_kev", lo=0.0,
-                       hint="Kinetic energy is in keV and cannot be negative")
+    return check_range(energy_kev, "energy_kev", lo=0.0, hi=np.inf, hi_open=True,
+                       hint="Kinetic energy is in keV, finite and not negative")
 
 
 def _pitch(pitch_angle_deg):
@@ -167,7 +167,7 @@ def _pitch(pitch_angle_deg):
 
 
 def _field(b_nt):
-    return check_range(b_nt, "b_nt", lo=0.0, lo_open=True,
+    return check_range(b_nt, "b_nt", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
                        hint="The field magnitude is in nT and must be positive")
 
 

@@ -243,6 +243,8 @@ def test_bad_input_is_refused_with_the_argument_named():
         dipole.l_from_position(0.0, 0.0)
     with pytest.raises(ValueError):
         dipole.footpoint_mlat(np.array([2.0, 1.001]))
+    with pytest.raises(PhysicsError, match=r"'L'.*inf\)"):
+        dipole.footpoint_field(np.inf)
 
 
 def test_nan_propagates():

@@ -184,7 +184,7 @@ def test_electron_cyclotron_rule_of_thumb():
 
 
 def test_first_invariant_non_relativistic_limit():
-    # mu = W_perp / B in the non-relativistic limit (Walt 1994, ch. 3):
+    # mu = W_perp / B in the non-relativistic limit (Walt 1994):
     # a 1 keV proton at 90 deg in 1000 nT (0.01 G) has mu = 1e-3 MeV / 0.01 G = 0.1 MeV/G.
     assert particles.first_invariant(1.0, 90.0, 1000.0, "proton") == pytest.approx(
         0.1, rel=1e-6)
@@ -205,7 +205,7 @@ def test_first_invariant_units_agree():
 @given(alpha_eq=st.floats(1.0, 179.0), frac=st.floats(0.0, 0.99),
        energy=st.floats(1.0, 1e4), L=st.floats(1.2, 9.0))
 def test_first_invariant_is_conserved_along_a_dipole_line(alpha_eq, frac, energy, L):
-    # Conservation of mu along the line (Roederer 1970, ch. 1): map the pitch
+    # Conservation of mu along the line (Roederer 1970): map the pitch
     # angle to a latitude short of the mirror point and compare.
     lam = frac * dipole.mirror_mlat(alpha_eq)
     b_eq = dipole.equatorial_field(L)
@@ -228,6 +228,8 @@ def test_bad_input_names_argument_and_range():
         particles.gyrofrequency(0.0, 10.0)
     with pytest.raises(ValueError, match="species"):
         particles.speed(10.0, "neutrino")
+    with pytest.raises(PhysicsError, match=r"energy_kev.*\[0, inf\)"):
+        particles.pv(np.inf)
 
 
 def test_nan_propagates_and_scalars_give_floats():
