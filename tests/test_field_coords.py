@@ -262,6 +262,11 @@ def test_dataarray_in_dataarray_out():
     assert r.attrs["units"] == "R_E"
     mlt = coords.magnetic_local_time(xyz, "2022-02-02")
     assert mlt.attrs["units"] == "hours"
+    lat, lon, h = coords.geo_to_geodetic(xyz)
+    assert lat.dims == ("sample",) and h.attrs["units"] == "km"
+    back = coords.geodetic_to_geo(lat, lon, h)
+    assert back.dims == ("sample", "xyz") and back.attrs["units"] == "km"
+    np.testing.assert_allclose(back.values, xyz.values, atol=1e-6)
 
 
 def test_bad_frames_and_nan():

@@ -397,6 +397,20 @@ def test_malformed_table_names_the_file(tmp_path):
         igrf.load_shc(tmp_path / "missing.shc")
 
 
+def test_spherical_dataarray_in_dataarray_out():
+    import xarray as xr
+
+    r = xr.DataArray([7000.0, 9000.0], dims="sample", attrs={"units": "km"})
+    colat = xr.DataArray([30.0, 120.0], dims="sample", attrs={"units": "deg"})
+    br, bt, bp = igrf.igrf_field_spherical(r, colat, 15.0, 2021.0)
+    assert br.dims == ("sample",) and br.attrs["units"] == "nT" and bp.name == "b_phi"
+    ref = igrf.igrf_field_spherical(r.values, colat.values, 15.0, 2021.0)
+    np.testing.assert_allclose(bt.values, ref[1])
+    # metres are converted by the unit check
+    br_m, _, _ = igrf.igrf_field_spherical((r * 1e3).assign_attrs(units="m"), colat, 15.0, 2021.0)
+    np.testing.assert_allclose(br_m.values, br.values)
+
+
 def test_inputs_not_modified():
     xyz = np.array([[7000.0, 100.0, -200.0]])
     keep = xyz.copy()

@@ -340,8 +340,9 @@ def geodetic_to_geo(lat_deg, lon_deg, alt_km):
 
     Returns
     -------
-    numpy.ndarray, shape (..., 3)
-        GEO x, y, z in km (broadcast shape of the inputs + 3).
+    numpy.ndarray or xarray.DataArray, shape (..., 3)
+        GEO x, y, z in km (broadcast shape of the inputs + 3); a DataArray
+        (new last dim ``xyz``, ``units`` km) when an input is a DataArray.
 
     Notes
     -----
@@ -359,6 +360,16 @@ def geodetic_to_geo(lat_deg, lon_deg, alt_km):
     >>> geodetic_to_geo(0.0, 0.0, 0.0).tolist()
     [6378.137, 0.0, 0.0]
     """
+    if any(_is_dataarray(v) for v in (lat_deg, lon_deg, alt_km)):
+        import xarray as xr
+
+        lat_da, lon_da, alt_da = xr.broadcast(
+            *(v if _is_dataarray(v) else xr.DataArray(v) for v in (lat_deg, lon_deg, alt_km))
+        )
+        xyz = geodetic_to_geo(lat_da.values, lon_da.values, alt_da.values)
+        out = xr.DataArray(xyz, dims=lat_da.dims + ("xyz",), coords=lat_da.coords)
+        out.attrs = {"units": "km", "long_name": "GEO Cartesian position"}
+        return out
     lat, lon, h = np.broadcast_arrays(
         np.asarray(lat_deg, float), np.asarray(lon_deg, float), np.asarray(alt_km, float)
     )
@@ -388,9 +399,10 @@ def geo_to_geodetic(xyz_km):
 
     Returns
     -------
-    lat_deg, lon_deg, alt_km : ndarray
+    lat_deg, lon_deg, alt_km : ndarray or xarray.DataArray
         Geodetic latitude and east longitude (deg, longitude in (-180, 180])
-        and height above the ellipsoid (km).
+        and height above the ellipsoid (km); DataArrays with ``units`` for a
+        DataArray input.
 
     Notes
     -----
@@ -420,4 +432,8 @@ def geo_to_geodetic(xyz_km):
     sphi = np.sin(phi)
     h = p * np.cos(phi) + z * sphi - WGS84_A_KM * np.sqrt(1.0 - _E2 * sphi * sphi)
     lon = np.degrees(np.arctan2(y, x))
-    return np.degrees(phi), lon, h
+    return (
+        _wrap_like(xyz_km, np.degrees(phi), "degrees_north", "geodetic latitude", drop_last=True),
+        _wrap_like(xyz_km, lon, "degrees_east", "longitude", drop_last=True),
+        _wrap_like(xyz_km, h, "km", "height above the WGS-84 ellipsoid", drop_last=True),
+    )

@@ -92,6 +92,7 @@ try:
 except ImportError:  # pragma: no cover - numba is a declared dependency
     _nb = None
 
+from .._wrap import array_api
 from ..constants import R_E_KM
 from ..errors import FieldModelError
 from .timeconv import decimal_year
@@ -841,6 +842,11 @@ def _expand(d, a):
     return d.reshape(d.shape + (1,) * (a.ndim - 1))
 
 
+@array_api(
+    ("nT", "nT", "nT"),
+    long_name=("radial magnetic field", "southward magnetic field", "eastward magnetic field"),
+    name=("b_r", "b_theta", "b_phi"),
+)
 def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
                          allow_extrapolation=False, backend=None):
     r"""IGRF-14 field vector in geocentric spherical components.
@@ -865,9 +871,10 @@ def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
 
     Returns
     -------
-    Br, Btheta, Bphi : ndarray
+    Br, Btheta, Bphi : ndarray or xarray.DataArray
         Radial (outward), southward and eastward components in nT, shape of
-        the broadcast inputs. NaN inputs give NaN.
+        the broadcast inputs (floats for scalar input; DataArrays with
+        ``units`` for DataArray input). NaN inputs give NaN.
 
     Raises
     ------
