@@ -229,7 +229,7 @@ def test_pitch_angle_mapping_textbook_value():
 
 
 def test_bad_input_is_refused_with_the_argument_named():
-    with pytest.raises(PhysicsError, match=r"'L'.*\[1, inf\]"):
+    with pytest.raises(PhysicsError, match=r"'L'.*\[1, inf\)"):
         dipole.equatorial_field(0.9)
     with pytest.raises(PhysicsError, match="footpoint altitude"):
         dipole.bounce_loss_cone(1.01, altitude_km=100.0)
