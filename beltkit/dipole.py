@@ -152,10 +152,13 @@ def _mirror_mlat_rad(alpha_eq_deg):
       g(w) = (c - w (3 - 3w + w^2)) ((1 - w)^3 + s) - 3 s^2 w, c = cos^2(alpha_eq),
       so that lambda_m keeps full relative precision as alpha_eq -> 90 deg.
     """
-    a = np.deg2rad(np.asarray(alpha_eq_deg, dtype=float))
-    s = np.sin(a) ** 2
-    # cos^2(alpha) as sin^2(90 deg - alpha): exactly 0 at 90 deg, full precision near it
-    c = np.sin(np.deg2rad(90.0 - np.asarray(alpha_eq_deg, dtype=float))) ** 2
+    a = np.asarray(alpha_eq_deg, dtype=float)
+    # one sine of the smaller of alpha and 90 - alpha gives both sin^2 and cos^2
+    # to full relative precision (the complement 1 - t is at least 1/2)
+    low = a <= 45.0
+    t = np.sin(np.deg2rad(np.where(low, a, 90.0 - a))) ** 2
+    s = np.where(low, t, 1.0 - t)
+    c = np.where(low, 1.0 - t, t)
     return _mirror_lat_sc(s, c)
 
 

@@ -229,13 +229,12 @@ def _integrals(y, with_d=True):
     yf = y.ravel()
     t_out = np.full(yf.shape, np.nan)
     d_out = np.full(yf.shape, np.nan) if with_d else None
-    with np.errstate(invalid="ignore"):
-        ok = ~np.isnan(yf)
-    upper = np.inf
+    # split the valid elements into tiers, each pass only over what is left
+    remaining = np.flatnonzero(~np.isnan(yf))
     for lower, rule_name, n, kind in _TIERS:
-        with np.errstate(invalid="ignore"):
-            sel = np.flatnonzero(ok & (yf >= lower) & (yf < upper))
-        upper = lower
+        here = yf[remaining] >= lower
+        sel = remaining[here]
+        remaining = remaining[~here]
         rule = _RULES[(rule_name, n)]
         step = max(1, _CHUNK // n)
         for start in range(0, sel.size, step):
