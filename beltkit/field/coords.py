@@ -52,6 +52,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import FieldModelError
+from . import models as _models
 from .models import as_model
 from .sun import ecliptic_pole_gei, gmst_deg, sun_direction_gei
 from .timeconv import decimal_year
@@ -72,9 +73,9 @@ __all__ = [
 FRAMES = ("GEO", "MAG", "GSE", "GSM", "SM")
 
 #: WGS-84 semi-major axis (km), a defining constant (NIMA TR8350.2).
-WGS84_A_KM = 6378.137
+WGS84_A_KM = _models._WGS84_A_KM
 #: WGS-84 flattening, 1/298.257223563 (defining constant).
-WGS84_F = 1.0 / 298.257223563
+WGS84_F = _models._WGS84_F
 _E2 = WGS84_F * (2.0 - WGS84_F)
 _B_KM = WGS84_A_KM * (1.0 - WGS84_F)
 _EP2 = _E2 / (1.0 - _E2)

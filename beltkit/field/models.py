@@ -23,7 +23,7 @@ Conventions
   give a NaN field.
 * The dipole axis (:meth:`FieldModel.dipole_axis_geo`) is the unit vector
   from the Earth's centre towards the *northern* geomagnetic (dipole) pole,
-  near 80.7 N, 72.7 W in 2020. The dipole *moment* points the other way
+  near 80.6 N, 72.7 W in 2020. The dipole *moment* points the other way
   (towards the southern hemisphere): :math:`\hat{\mathbf m} =
   (g_1^1, h_1^1, g_1^0) / B_0`. This axis is the +Z axis of the MAG and SM
   frames (:mod:`beltkit.field.coords`).
@@ -55,8 +55,10 @@ __all__ = [
 #: surface: a ground station near a pole sits about 14 km inside that sphere.
 INSIDE_EARTH_TOLERANCE_KM = 10.0
 
+# WGS-84 defining constants (NIMA TR8350.2): semi-major axis and flattening
 _WGS84_A_KM = 6378.137
-_WGS84_B_KM = _WGS84_A_KM * (1.0 - 1.0 / 298.257223563)
+_WGS84_F = 1.0 / 298.257223563
+_WGS84_B_KM = _WGS84_A_KM * (1.0 - _WGS84_F)
 
 #: Decimal-year resolution of :meth:`epoch_key` for time-dependent models.
 EPOCH_RESOLUTION_YEARS = 0.1
