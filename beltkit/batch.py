@@ -133,13 +133,21 @@ class FileResult:
 # ------------------------------------------------------------------------ helpers
 
 
-def one_line(exc: BaseException) -> str:
-    """Return an exception as one line of text (problems joined by ``; ``)."""
+def one_line(exc: BaseException, path=None) -> str:
+    """Return an exception as one line of text (problems joined by ``; ``).
+
+    With `path`, a leading ``"<file name>: "`` is dropped (the caller's line
+    names the file already).
+    """
     if isinstance(exc, ConventionError):
         text = "; ".join(exc.problems) or str(exc)
     else:
         text = str(exc) or type(exc).__name__
     text = " ".join(text.split())
+    for prefix in ((str(path), Path(path).name) if path is not None else ()):
+        if text.startswith(prefix + ": "):
+            text = text[len(prefix) + 2:]
+            break
     if isinstance(exc, (KeyError, TypeError, AttributeError, IndexError, ZeroDivisionError)):
         text = f"{type(exc).__name__}: {text}"
     return text
@@ -370,7 +378,7 @@ def _process_file_locked(task: dict) -> FileResult:
             import traceback
 
             traceback.print_exc()
-        return FileResult(str(src), str(out), "failed", one_line(exc),
+        return FileResult(str(src), str(out), "failed", one_line(exc, src),
                           _time.perf_counter() - t0)
     finally:
         if ds is not None:
@@ -529,7 +537,7 @@ def _run_processes(tasks, results, workers, fail_fast, emit):
     # forkserver starts them quickly from one clean server where available
     if "forkserver" in mp.get_all_start_methods():
         ctx = mp.get_context("forkserver")
-        ctx.set_forkserver_preload(["beltkit.batch", "beltkit.io"])
+        ctx.set_forkserver_preload(["beltkit.batch", "beltkit.io", "beltkit.pad"])
     else:  # pragma: no cover - Windows
         ctx = mp.get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:

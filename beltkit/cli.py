@@ -277,7 +277,7 @@ def _cmd_inspect(args, command) -> int:
 
                 traceback.print_exc()
             bad += 1
-            _say(f"FAILED  {path}: {one_line(exc)}")
+            _say(f"FAILED  {path}: {one_line(exc, path)}")
             continue
         if problems:
             bad += 1

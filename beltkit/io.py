@@ -365,7 +365,9 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
                 decode_times=True,
             )
     except (OSError, ValueError, KeyError, RuntimeError) as exc:
-        raise OSError(f"{path.name}: cannot be read as netCDF or CDF ({exc})") from exc
+        detail = str(exc).replace(f": '{path}'", "").replace(f": {path}", "")
+        detail = detail.replace(str(path), path.name)
+        raise OSError(f"{path.name}: cannot be read as netCDF or CDF ({detail})") from exc
     if mapping is not None:
         ds = apply_mapping(ds, mapping, source=path.name)
     if chunks is not None:
