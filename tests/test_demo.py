@@ -222,3 +222,11 @@ def test_sine_power_fit_recovers_the_generator_index():
     med = ratio.median("time").values
     assert outer.sum() > 100
     assert np.all(np.abs(med - 1) < 0.06), med
+
+
+def test_generate_refuses_bad_arguments(tmp_path):
+    with pytest.raises(ValueError, match="n_days"):
+        demo.generate(tmp_path, n_days=0)
+    with pytest.raises(ValueError, match="spacecraft"):
+        demo.generate(tmp_path, spacecraft=("heron",))
+    assert not list(tmp_path.glob("*.nc"))
