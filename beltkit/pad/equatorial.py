@@ -218,7 +218,8 @@ def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, metho
     for name in lc.data_vars:
         variables[name] = lc[name].variable
     bdim = ds["energy_bnds"].dims[1]
-    variables["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev)
+    variables["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev,
+                                          encoding={"_FillValue": None})
     res = xr.Dataset(variables, coords=time_coords(ds))
     res = res.assign_coords(
         energy=xr.Variable("energy", prep.energy_kev, {"units": "keV", "long_name":

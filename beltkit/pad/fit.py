@@ -217,7 +217,8 @@ def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_it
         if name in lc:
             variables[name] = lc[name].variable
     bdim = ds["energy_bnds"].dims[1]
-    variables["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev)
+    variables["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev,
+                                          encoding={"_FillValue": None})
     out = xr.Dataset(variables, coords=time_coords(ds)).assign_coords(
         energy=xr.Variable("energy", prep.energy_kev, {"units": "keV", "long_name":
                                                         "kinetic energy", "bounds":

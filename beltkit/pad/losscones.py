@@ -90,9 +90,14 @@ def _attrs(long_name, units="degree"):
 
 
 def time_coords(ds):
-    """Return the dataset's ``time`` coordinate as :class:`xarray.Coordinates`, index reused."""
-    return xr.Coordinates(coords={"time": ds["time"].variable},
-                          indexes={"time": ds.xindexes["time"]})
+    """Return the dataset's ``time`` coordinate as :class:`xarray.Coordinates`, index reused.
+
+    The variable is a shallow copy (the caller's attributes are never touched)
+    with CF ``standard_name``/``long_name`` added when missing.
+    """
+    var = ds["time"].variable.copy(deep=False)
+    var.attrs = {"standard_name": "time", "long_name": "time (UTC)", **var.attrs}
+    return xr.Coordinates(coords={"time": var}, indexes={"time": ds.xindexes["time"]})
 
 
 def _finish(out, ds):

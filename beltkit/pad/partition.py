@@ -548,7 +548,8 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
                 attrs["ancillary_variables"] = f"{name}_err"
         out_vars[name] = xr.Variable(dims, values, attrs)
     bdim = ds["energy_bnds"].dims[1]
-    out_vars["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev)
+    out_vars["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev,
+                                          encoding={"_FillValue": None})
     for name in lc.data_vars:
         out_vars[name] = lc[name].variable
     energy = xr.Variable("energy", prep.energy_kev, {"units": "keV", "long_name": "kinetic energy",
