@@ -39,7 +39,7 @@ import os
 import sys
 import threading
 import time as _time
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -123,11 +123,15 @@ class FileResult:
     seconds: float = 0.0
 
     def to_dict(self) -> dict:
-        """Return the result as a JSON-ready dict (``file`` is the input)."""
-        d = asdict(self)
-        d["file"] = d.pop("input")
-        d["seconds"] = round(float(d["seconds"]), 3)
-        return d
+        """Return the result as a JSON-ready dict.
+
+        Keys ``file`` (the input), ``status``, ``reason``, ``seconds`` and
+        ``output`` (the summary file, or None when none exists for this input).
+        """
+        has_output = self.status == "ok" or self.reason == "up to date"
+        return {"file": self.input, "status": self.status, "reason": self.reason,
+                "seconds": round(float(self.seconds), 3),
+                "output": self.output if has_output else None}
 
 
 # ------------------------------------------------------------------------ helpers

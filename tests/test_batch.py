@@ -213,7 +213,11 @@ def test_summarize_good_and_bad_files(tmp_path, capsys):
         assert not (out / name.replace(".nc", ".summary.nc")).exists()
     report = [json.loads(x) for x in (out / batch.REPORT_NAME).read_text().splitlines()]
     assert sorted(r["status"] for r in report) == ["failed"] * 5 + ["ok"] * 2
-    assert {"file", "status", "reason", "seconds", "output"} <= set(report[0])
+    assert all(list(r)[1:] == ["file", "status", "reason", "seconds", "output"]
+               for r in report)
+    assert {r["output"] for r in report if r["status"] == "failed"} == {None}
+    assert {Path(r["output"]).name for r in report if r["status"] == "ok"} == {
+        "good1.summary.nc", "good2.summary.nc"}
     assert sorted(p.name for p in out.iterdir()) == [
         "good1.summary.nc", "good2.summary.nc", "run-report.jsonl"]
 
