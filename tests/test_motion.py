@@ -107,7 +107,7 @@ def test_integrals_against_scipy_quad(y):
 def test_drift_integral_is_the_bounce_average_of_the_local_drift():
     # Independent physics route: the gradient-curvature drift speed in a
     # curl-free field, v_d = (p v / (q B)) (1 + cos^2 a) / 2 |grad_perp B| / B
-    # (Roederer 1970, ch. 1; Walt 1994, ch. 5), with grad B of the dipole
+    # (Roederer 1970; Walt 1994), with grad B of the dipole
     # magnitude B = B0 sqrt(1 + 3 sin^2 l) / r^3 taken by central differences,
     # bounce-averaged with weight ds / v_par. In units of 3 L p v / (q B0 R_E^2):
     # <w> = D / T.
@@ -254,7 +254,7 @@ def test_drift_period_approx_method():
 
 
 def test_drift_direction_and_sign():
-    # Electrons drift eastward, positive ions westward (Walt 1994, ch. 5).
+    # Electrons drift eastward, positive ions westward (Walt 1994).
     assert motion.drift_direction("electron") == "eastward"
     for ion in ("proton", "alpha", "O+"):
         assert motion.drift_direction(ion) == "westward"
