@@ -252,6 +252,8 @@ def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=N
                     marker=marker, ms=4, lw=1.3, capsize=0, elinewidth=0.7,
                     label=_energy_text(e_all[k]))
     ax.set_yscale("log")
+    lo, hi = ax.get_ylim()
+    ax.set_ylim(lo, hi * (hi / lo) ** 0.25)  # head room for the legend
     ax.set_xlim(0, 180)
     ax.set_xticks(np.arange(0, 181, 30))
     ax.set_xlabel("local pitch angle (degree)")
