@@ -298,3 +298,26 @@ def test_accessor_matches_function():
     ds = make_ds(np.ones((2, 1, 12)), EDGES_12)
     xr.testing.assert_identical(ds.beltkit.partition(), partition(ds))
     assert ds.beltkit.validate() == []
+
+
+def test_fitted_fill_adds_the_sine_power_integral_of_the_gap():
+    L, n, A = 4.0, 2.5, 1e3
+    edges = np.linspace(0, 180, 37)
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    j = A * np.sin(np.radians(centres)) ** n  # exact sin^n at the centres: the fit is exact
+    j[14:22] = np.nan  # 70-110 deg unsampled
+    ds = make_ds(j[None, None, :], edges, L=L)
+    measured = partition(ds)
+    filled = partition(ds, fill="sine_power")
+    # reference: 2 pi A integral_70^110 sin^(n+1) by the regularised incomplete Beta function
+    gap = 2 * 2 * np.pi * A * (_sine_power_integral(90.0, n) - _sine_power_integral(70.0, n))
+    added = float(filled.flux_trapped[0, 0] - measured.flux_trapped[0, 0])
+    assert added == pytest.approx(gap, rel=1e-9)
+    assert float(filled.flux_precipitating[0, 0]) == float(measured.flux_precipitating[0, 0])
+    assert int(filled.partition_flag[0, 0]) & 128 and not int(measured.partition_flag[0, 0]) & 128
+    total = float(filled.flux_precipitating[0, 0] + filled.flux_trapped[0, 0])
+    assert float(filled.fraction_trapped[0, 0]) == pytest.approx(
+        float(filled.flux_trapped[0, 0]) / total, rel=1e-12)
+    assert float(filled.coverage_trapped[0, 0]) == float(measured.coverage_trapped[0, 0])
+    # lazily the same
+    xr.testing.assert_allclose(filled, partition(ds.chunk(time=1), fill="sine_power").compute())

@@ -11,6 +11,7 @@ operations are available as the xarray accessor ``ds.beltkit`` once
 
 from .conventions import FLUX_UNITS, INTEGRATED_FLUX_UNITS, flux_unit_factor, validate
 from .equatorial import to_equatorial
+from .fill import sine_power_band_integral
 from .fit import fit_sine_power
 from .geometry import (
     band_overlap_solid_angle,
@@ -39,6 +40,7 @@ __all__ = [
     "fov_fraction",
     "fov_fraction_below",
     "partition",
+    "sine_power_band_integral",
     "swept_band",
     "to_equatorial",
     "validate",

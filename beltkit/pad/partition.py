@@ -76,6 +76,7 @@ FLAG_MEANINGS = {
     16: "negative_flux_in_input",
     32: "no_valid_flux",
     64: "loss_cone_unknown",
+    128: "fitted_fill_applied",
 }
 
 _BLOCK = 32768
@@ -431,8 +432,60 @@ def _units(name):
     return "1"
 
 
+def _fill_block(flux, amp, index, blc, dlc, *, mask, edges, folded):
+    from .fill import unsampled_fill
+
+    x = mask.apply(flux, np.float64)
+    return unsampled_fill(x, np.asarray(amp, float), np.asarray(index, float),
+                          np.asarray(blc, float), np.asarray(dlc, float), edges, folded)
+
+
+def _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative):
+    """Add the sine-power fit over each population's unsampled solid angle (opt-in)."""
+    from .fit import fit_sine_power
+
+    fit = fit_sine_power(ds, model=model, altitude_km=altitude_km,
+                         allow_negative=allow_negative)
+    flux = ds["flux"].transpose("time", "energy", "pitch_angle").reset_coords(drop=True)
+    amp = fit["sine_amplitude"].reset_coords(drop=True)
+    idx = fit["sine_index"].reset_coords(drop=True)
+    blc = lc["blc_local"].reset_coords(drop=True)
+    dlc = lc["dlc_local"].reset_coords(drop=True)
+    if flux.chunks is not None:
+        flux = flux.chunk({"energy": -1, "pitch_angle": -1})
+        tch = {"time": flux.chunksizes["time"]}
+        amp, idx, blc, dlc = (a.chunk(tch) for a in (amp, idx, blc, dlc))
+    fill = xr.apply_ufunc(
+        _fill_block, flux.rename({"pitch_angle": "_p"}), amp, idx, blc, dlc,
+        kwargs={"mask": prep.flux_mask, "edges": prep.edges, "folded": prep.folded},
+        input_core_dims=[["energy", "_p"], ["energy"], ["energy"], [], []],
+        output_core_dims=[["energy", "_pop"]], dask="parallelized", output_dtypes=[float],
+        dask_gufunc_kwargs={"output_sizes": {"_pop": 3}},
+    ).transpose("time", "energy", "_pop")
+    filled = {}
+    any_fill = None
+    for k, pop in enumerate(_POPS):
+        name = f"flux_{pop}"
+        f = fill.isel(_pop=k, drop=True)
+        use = np.isfinite(f) & (f > 0)
+        filled[pop] = xr.where(use, out[name].fillna(0.0) + f, out[name])
+        any_fill = use if any_fill is None else (any_fill | use)
+    dtype = out["flux_trapped"].dtype
+    total = filled["precipitating"] + filled["quasi_trapped"] + filled["trapped"]
+    for pop in _POPS:
+        out[f"flux_{pop}"] = filled[pop].astype(dtype).assign_attrs(out[f"flux_{pop}"].attrs)
+        frac = xr.where(total > 0, filled[pop] / total, np.nan)
+        out[f"fraction_{pop}"] = frac.astype(dtype).assign_attrs(out[f"fraction_{pop}"].attrs)
+    out["omni_flux"] = xr.where(any_fill, total, out["omni_flux"]).astype(dtype).assign_attrs(
+        out["omni_flux"].attrs)
+    flag = out["partition_flag"]
+    out["partition_flag"] = (flag | xr.where(any_fill, 128, 0).astype(flag.dtype)).assign_attrs(
+        flag.attrs)
+    return out
+
+
 def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
-              allow_negative=False, engine="auto"):
+              allow_negative=False, engine="auto", fill=None):
     r"""Split a pitch-angle flux dataset into precipitating, quasi-trapped and trapped flux.
 
     Parameters
@@ -457,6 +510,13 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     engine : {"auto", "numba", "numpy"}, keyword-only
         "auto" uses the fused numba kernel when numba is importable, else the
         numpy reference implementation (same results to float rounding).
+    fill : {None, "sine_power"}, keyword-only
+        None (default): nothing is extrapolated. "sine_power": add the fitted
+        :math:`A\sin^n\alpha` of the trapped bins over each population's
+        unsampled solid angle (:mod:`beltkit.pad.fill`), recompute fractions
+        and omnidirectional flux, and set flag bit 128. Coverage and the
+        ``_err`` outputs still describe the measured part only. Pitch-angle
+        bins only.
 
     Returns
     -------
@@ -510,6 +570,11 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
     geom = _geometry(ds, prep)
+    if fill not in (None, "sine_power"):
+        raise ValueError(f"fill must be None or 'sine_power', got {fill!r}")
+    if fill is not None and prep.kind != "bins":
+        raise ConventionError(["flux: fill='sine_power' needs pitch-angle bins, not telescope "
+                               "looks"], ds.encoding.get("source"))
     if engine not in ("auto", "numba", "numpy"):
         raise ValueError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
     if engine == "numba" and not _kernels.HAVE_NUMBA:
@@ -563,5 +628,8 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         "beltkit_assumptions": "gyrotropic flux; populations from the bounce (min of the two "
                                "footpoint fields) and drift (drift-shell minimum) loss cones",
         "beltkit_uncertainty_source": prep.error_source or "none",
+        "beltkit_fill": fill or "none",
     }
+    if fill == "sine_power":
+        out = _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative)
     return out
