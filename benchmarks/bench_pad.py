@@ -96,7 +96,7 @@ def _dask_peak(path, n_t, chunk):
 def run(quick=False):
     """Return the benchmark rows (figure, value, unit, baseline, ratio, target, passed)."""
     n_t = 100_000 if quick else 1_000_000
-    repeats = 3
+    repeats = 5
     ds = _dataset(n_t)
     flux = ds["flux"].values
     w = np.linspace(0.5, 1.5, flux.shape[-1]).astype(np.float32)
