@@ -70,10 +70,12 @@ def test_every_problem_is_named_at_once():
     t = ds.time.values.copy()
     t[[1, 2]] = t[[2, 1]]
     ds = ds.assign_coords(time=t)
+    ds["flux"][0, 1, 2] = -3.0
     problems = validate(ds)
     text = "\n".join(problems)
     for needle in ("flux: missing 'units'", "energy_bnds: missing", "mlat: missing",
-                   "L: units 'furlong'", "bins overlap", "time: not strictly increasing"):
+                   "L: units 'furlong'", "bins overlap", "time: not strictly increasing",
+                   "flux: 1 negative values"):
         assert needle in text, needle
     with pytest.raises(ConventionError) as err:
         partition(ds)

@@ -563,7 +563,10 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
         counts_mask = ValueMask(1.0, fills, vmin, vmax)
     # values (only when the structure is sound)
     n_negative = 0
-    if check_values and not problems:
+    flux_ok = (set(flux.dims) == want and flux.ndim == 3
+               and np.issubdtype(flux.dtype, np.number)
+               and (error_source is None or ds[error_source].dims == flux.dims))
+    if check_values and flux_ok:
         eax = flux.dims.index("energy")
         lo, negs = _value_summary(flux, flux_mask, eax)
         n_err_neg = 0
@@ -614,8 +617,10 @@ def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_sour
     problems = []
     dead = ~np.asarray(has_valid, dtype=bool)
     if np.any(dead):
-        problems.append(f"flux: all values NaN (or fill) at energies "
-                        f"{np.asarray(energy_kev)[dead].tolist()} keV; drop those channels "
+        energy_kev = np.asarray(energy_kev)
+        where = (f"energies {energy_kev[dead].tolist()} keV" if energy_kev.shape == dead.shape
+                 else f"energy indices {np.flatnonzero(dead).tolist()}")
+        problems.append(f"flux: all values NaN (or fill) at {where}; drop those channels "
                         "(ds.drop_isel(energy=...)) or check the fill-value attributes")
     if n_negative and not allow_negative:
         problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
@@ -685,6 +690,9 @@ def check(ds, *, model=None, allow_negative=False, source=None, check_values=Tru
     """
     problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative,
                                   check_values=check_values)
+    if problems and not check_values:  # refusing anyway: name the value problems too
+        problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative,
+                                      check_values=True)
     if problems:
         if source is None and isinstance(ds, xr.Dataset):
             source = ds.encoding.get("source")
