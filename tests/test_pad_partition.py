@@ -321,3 +321,18 @@ def test_fitted_fill_adds_the_sine_power_integral_of_the_gap():
     assert float(filled.coverage_trapped[0, 0]) == float(measured.coverage_trapped[0, 0])
     # lazily the same
     xr.testing.assert_allclose(filled, partition(ds.chunk(time=1), fill="sine_power").compute())
+
+
+def test_accessor_checks_on_construction_and_returns_new_objects():
+    ds = make_ds(np.ones((2, 1, 12)), EDGES_12).drop_vars("energy_bnds")
+    assert any(p.startswith("energy_bnds: missing") for p in ds.beltkit.problems)
+    with pytest.raises(ConventionError):
+        ds.beltkit.partition()
+    good = make_ds(np.ones((2, 1, 12)), EDGES_12)
+    before = copy.deepcopy(good)
+    out = good.beltkit.partition()
+    eq = good.beltkit.to_equatorial(alpha_eq_deg=[30.0])
+    fit = good.beltkit.fit_sine_power()
+    assert out is not good and eq is not good and fit is not good
+    assert float(fit.sine_index[0, 0]) == pytest.approx(0.0, abs=1e-12)  # isotropic: n = 0
+    xr.testing.assert_identical(good, before)
