@@ -49,6 +49,7 @@ sees a half-written file, even when the writing process is killed.
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import hashlib
 import json
@@ -360,9 +361,12 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
         if _is_cdf(path):
             ds = open_cdf(path)
         else:
+            # no dask chunks yet: lazily indexed arrays, so that each dask chunk made
+            # below reads only its own slice (chunking the file's native layout
+            # would read a whole contiguous variable at once)
             ds = xr.open_dataset(
-                path, engine=engine or _netcdf_engine(), chunks={}, mask_and_scale=True,
-                decode_times=True,
+                path, engine=engine or _netcdf_engine(), chunks=None, cache=False,
+                mask_and_scale=True, decode_times=True,
             )
     except (OSError, ValueError, KeyError, RuntimeError) as exc:
         detail = str(exc).replace(f": '{path}'", "").replace(f": {path}", "")
@@ -588,6 +592,27 @@ def _encoding(ds: xr.Dataset, complevel: int, time_chunk: int) -> dict:
     return encoding
 
 
+#: Bytes of HDF5 chunk cache per variable while writing. The library default
+#: (64 MiB per variable) holds the dirty chunks of a whole file in memory; the
+#: writer fills chunks in time order, so a few chunks per variable suffice.
+WRITE_CHUNK_CACHE_BYTES = 1 << 20
+
+
+@contextlib.contextmanager
+def _small_chunk_cache():
+    try:
+        import netCDF4
+    except ImportError:  # pragma: no cover - h5netcdf engine
+        yield
+        return
+    old = netCDF4.get_chunk_cache()
+    netCDF4.set_chunk_cache(WRITE_CHUNK_CACHE_BYTES, old[1], old[2])
+    try:
+        yield
+    finally:
+        netCDF4.set_chunk_cache(*old)
+
+
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,
                   time_chunk: int = 4096) -> Path:
     """Write a dataset as a CF-1.8 netCDF-4 file, atomically.
@@ -595,7 +620,9 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
     The data are written to a temporary file in the target folder, flushed to
     disk, then renamed over `path`; on any error the temporary file is removed
     and the target is left as it was. Dask-backed data are computed chunk by
-    chunk while writing.
+    chunk while writing, with a small HDF5 chunk cache
+    (:data:`WRITE_CHUNK_CACHE_BYTES` per variable), so memory does not grow
+    with the length of the file.
 
     Parameters
     ----------
@@ -644,8 +671,9 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = temporary_name(path)
     try:
-        out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                      encoding=encoding)
+        with _small_chunk_cache():
+            out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
+                          encoding=encoding)
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)
