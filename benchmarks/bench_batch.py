@@ -10,7 +10,7 @@ Figures (``run(quick=False)`` rows):
   (summarize's default), and both uncompressed;
 * speed-up of ``workers=2`` over one worker (target > 1);
 * peak resident memory of one worker process summarizing one file
-  (target < 1 GB), read from the kernel's accounting of that child process,
+  (target < 1 GB), the high-water mark the kernel reports for that process,
   and the same for a file three times as long (streaming: target < 1.5x).
 
 Quick mode (CI smoke test): 4 files of 8,640 samples. The first call of the
@@ -20,7 +20,6 @@ so that the timings are of the steady state.
 
 from __future__ import annotations
 
-import os
 import shutil
 import subprocess
 import sys
@@ -104,16 +103,21 @@ def _summarize(files, out_dir: Path, *, workers=1, compress=True) -> float:
 
 
 def _peak_memory_mb(file: Path, out_dir: Path) -> float:
-    """Peak RSS (MB) of a fresh process that summarizes one file."""
+    """Peak RSS (MB) of a fresh process that summarizes one file.
+
+    The child reports its own high-water mark (``VmHWM`` of /proc/self/status):
+    ``ru_maxrss`` of a child would include the parent's size at fork time.
+    """
     code = ("import sys; from beltkit import batch; "
             "r = batch.summarize([sys.argv[1]], sys.argv[2], overwrite=True); "
-            "sys.exit(0 if r[0].status == 'ok' else 1)")
-    proc = subprocess.Popen([sys.executable, "-c", code, str(file), str(out_dir)])
-    _, status, usage = os.wait4(proc.pid, 0)
-    proc.returncode = os.waitstatus_to_exitcode(status)
+            "assert r[0].status == 'ok', r[0].reason; "
+            "hwm = [l for l in open('/proc/self/status') if l.startswith('VmHWM')][0]; "
+            "print(hwm.split()[1])")
+    proc = subprocess.run([sys.executable, "-c", code, str(file), str(out_dir)],
+                          capture_output=True, text=True)
     if proc.returncode != 0:
-        raise RuntimeError("the memory-measurement run failed")
-    return usage.ru_maxrss / 1024.0  # kB on Linux
+        raise RuntimeError(f"the memory-measurement run failed: {proc.stderr[-500:]}")
+    return int(proc.stdout.split()[-1]) / 1024.0  # kB
 
 
 def _row(figure, value, unit, baseline=None, target=None, passed=None):
