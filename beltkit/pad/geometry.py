@@ -100,7 +100,7 @@ def band_weights(a1_deg, a2_deg, r1_deg, r2_deg):
 
     Examples
     --------
-    >>> float(band_weights(0.0, 90.0, 0.0, 60.0))
+    >>> round(float(band_weights(0.0, 90.0, 0.0, 60.0)), 12)
     0.5
     """
     full = band_solid_angle(a1_deg, a2_deg)

@@ -70,7 +70,7 @@ def cone_from_fields(b_here, b_mirror):
 
     Examples
     --------
-    >>> float(cone_from_fields(1.0, 2.0))
+    >>> round(float(cone_from_fields(1.0, 2.0)), 10)
     45.0
     """
     ratio = b_here / b_mirror
