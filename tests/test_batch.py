@@ -454,3 +454,29 @@ def test_epoch_override_is_recorded_and_part_of_the_settings(tmp_path):
         assert json.loads(ds.attrs["beltkit_settings"])["epoch"] == "2015.5"
     [r] = batch.summarize([src], tmp_path / "o", epoch=2015.5)
     assert (r.status, r.reason) == ("skipped", "up to date")
+
+
+def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, capsys):
+    from beltkit import field
+
+    n = 12
+    ds = flux_dataset(n_time=n).drop_vars(["L", "mlat", "mlt"])
+    xyz = np.asarray(field.geodetic_to_geo(np.linspace(-50, 50, n), np.linspace(0, 60, n),
+                                           np.full(n, 650.0)))
+    ds["position_geo"] = (("time", "xyz"), xyz, {"units": "km"})
+    src = write_flux_file(tmp_path / "leo.nc", ds)
+    assert main(["summarize", str(src), "--out", str(tmp_path / "igrf"), "--field",
+                 "igrf"]) == 0
+    assert main(["summarize", str(src), "--out", str(tmp_path / "dip"), "--epoch",
+                 "2015.0"]) == 0
+    assert main(["summarize", str(src), "--out", str(tmp_path / "bad"), "--field", "igrf",
+                 "--epoch", "2015"]) == 1
+    assert "epoch override applies to the dipole model only" in capsys.readouterr().out
+    with xr.open_dataset(tmp_path / "igrf" / "leo.summary.nc") as a, \
+            xr.open_dataset(tmp_path / "dip" / "leo.summary.nc") as b:
+        assert (a.attrs["field_model"], a.attrs["field_epoch"]) == ("igrf",
+                                                                     "time of each sample")
+        assert b.attrs["field_epoch"] == "2015.0 (fixed by the caller)"
+        for s in (a, b):  # the survey needs L and MLT, derived from the GEO position
+            assert np.isfinite(s["L"].values).all() and np.isfinite(s["mlt"].values).all()
+            assert ((s["blc_local"] > 0) & (s["blc_local"] <= 90)).all()
