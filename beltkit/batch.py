@@ -457,6 +457,8 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
     ------
     beltkit.io.MappingError
         If the mapping file itself is malformed (nothing is run).
+    ValueError
+        For an unknown field model, an epoch with the IGRF, or workers < 1.
     """
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
@@ -465,6 +467,10 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    if isinstance(field, str) and field not in ("dipole", "igrf"):
+        raise ValueError(f"field model must be 'dipole' or 'igrf', got {field!r}")
+    if field == "igrf" and epoch is not None:
+        _field_model(field, epoch, xr.Dataset())  # raises the explanatory error
     settings = _settings(field, altitude_km, epoch, mapping, compress)
     if command is None:
         command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
