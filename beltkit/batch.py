@@ -460,17 +460,17 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
     ValueError
         For an unknown field model, an epoch with the IGRF, or workers < 1.
     """
-    files = expand_inputs(inputs)
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    remove_stale_temporaries(out_dir)
-    mapping_checked = load_mapping(mapping) if mapping is not None else None
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
     if isinstance(field, str) and field not in ("dipole", "igrf"):
         raise ValueError(f"field model must be 'dipole' or 'igrf', got {field!r}")
     if field == "igrf" and epoch is not None:
         _field_model(field, epoch, xr.Dataset())  # raises the explanatory error
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
     settings = _settings(field, altitude_km, epoch, mapping, compress)
     if command is None:
         command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,

@@ -472,7 +472,7 @@ def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, 
     assert main(["summarize", str(src), "--out", str(tmp_path / "bad"), "--field", "igrf",
                  "--epoch", "2015"]) == 1
     assert "epoch override applies to the dipole model only" in capsys.readouterr().err
-    assert not (tmp_path / "bad" / "leo.summary.nc").exists()
+    assert not (tmp_path / "bad").exists()
     with xr.open_dataset(tmp_path / "igrf" / "leo.summary.nc") as a, \
             xr.open_dataset(tmp_path / "dip" / "leo.summary.nc") as b:
         assert (a.attrs["field_model"], a.attrs["field_epoch"]) == ("igrf",
