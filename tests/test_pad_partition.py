@@ -336,3 +336,23 @@ def test_accessor_checks_on_construction_and_returns_new_objects():
     assert out is not good and eq is not good and fit is not good
     assert float(fit.sine_index[0, 0]) == pytest.approx(0.0, abs=1e-12)  # isotropic: n = 0
     xr.testing.assert_identical(good, before)
+
+
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
+def test_empty_loss_cone_keeps_a_finite_filling_error(engine):
+    # Regression: a low-orbit telescope that counts nothing inside the loss cone
+    # while the flux just outside is non-zero made the compiled kernel divide by
+    # zero. The filling ratio is then exactly 0 and its first-order error is the
+    # limit of the error as the loss-cone flux goes to 0 (continuity of the
+    # propagated variance, standard first-order error propagation).
+    def run(inside):
+        flux = np.full((1, 1, 12), 100.0)
+        flux[..., 0] = flux[..., -1] = inside
+        ds = make_ds(flux, EDGES_12, L=4.0, flux_err=np.full_like(flux, 10.0))
+        return partition(ds, engine=engine)
+
+    empty, tiny = run(0.0), run(1e-9)
+    assert empty.loss_cone_filling.values.item() == 0.0
+    err = empty.loss_cone_filling_err.values.item()
+    assert np.isfinite(err) and err > 0
+    np.testing.assert_allclose(err, tiny.loss_cone_filling_err.values.item(), rtol=1e-6)

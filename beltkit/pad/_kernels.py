@@ -172,8 +172,9 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             out[10, t * n_e + e] = m0
             out[11, t * n_e + e] = m1
             out[12, t * n_e + e] = m2
-            fill_ok = s0 and om0 > 0 and m3 > TOL_SR and a3 != 0.0
-            rho = (a0 * m3) / (m0 * a3) if fill_ok else nan
+            fill_ok = s0 and om0 > 0 and m0 > 0 and m3 > TOL_SR and a3 != 0.0
+            k = m3 / (m0 * a3) if fill_ok else nan
+            rho = a0 * k
             out[13, t * n_e + e] = rho
             out[14, t * n_e + e] = flag
             if has_s:
@@ -193,8 +194,11 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     out[20, t * n_e + e] = nan
                     out[21, t * n_e + e] = nan
                 if fill_ok:
-                    rel = v0 / (a0 * a0) + v4 / (a3 * a3) - 2 * v8 / (a0 * a3)
-                    out[22, t * n_e + e] = abs(rho) * math.sqrt(max(rel, 0.0))
+                    # d rho / d a0 = k, d rho / d a3 = -rho / a3; no division by a0,
+                    # so an empty loss cone (a0 = 0) still gets its error bar
+                    q = rho / a3
+                    var = k * k * v0 + q * q * v4 - 2 * k * q * v8
+                    out[22, t * n_e + e] = math.sqrt(max(var, 0.0))
                 else:
                     out[22, t * n_e + e] = nan
 

@@ -225,10 +225,12 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
                 f = frac[..., k]
                 var = (v[..., k] - 2 * f * v[..., 5 + k] + f * f * v[..., 3]) / (total * total)
                 out[base + 4 + k] = np.where(good_total, np.sqrt(np.maximum(var, 0)), nan)
-            rel = (v[..., 0] / (r[..., 0] * r[..., 0]) + v[..., 4] / (r[..., 3] * r[..., 3])
-                   - 2 * v[..., 8] / (r[..., 0] * r[..., 3]))
-            out[base + 7] = np.where(fill_ok, np.abs(out[13]) * np.sqrt(np.maximum(rel, 0)),
-                                     nan)
+            # rho = r0 * kf with kf = m3 / (m0 r3): d rho/d r0 = kf, d rho/d r3 = -rho/r3
+            # (no division by r0, so an empty loss cone keeps its error bar)
+            kf = np.where(fill_ok, m[..., 3] / (m[..., 0] * r[..., 3]), nan)
+            q = out[13] / r[..., 3]
+            var = kf * kf * v[..., 0] + q * q * v[..., 4] - 2 * kf * q * v[..., 8]
+            out[base + 7] = np.where(fill_ok, np.sqrt(np.maximum(var, 0)), nan)
     return out.astype(out_dtype, copy=False)
 
 
