@@ -2,6 +2,7 @@
 
 import json
 import math
+from pathlib import Path
 
 import pytest
 import scipy.constants as sc
@@ -165,3 +166,19 @@ def test_summarize_workers_and_report_counts(tmp_path, capsys):
 
     with netCDF4.Dataset(tmp_path / "o" / "d0.summary.nc") as nc:
         assert nc["fraction_trapped"].filters()["zlib"] is False
+
+
+def test_demo_runs_the_whole_pipeline_from_another_folder(tmp_path, monkeypatch, capsys):
+    # from an unrelated working folder: nothing may be read relative to the repository
+    monkeypatch.chdir(tmp_path)
+    assert main(["demo", "--out", "demo"]) == 0
+    out = capsys.readouterr().out
+    written = [line.split("  ", 1)[1] for line in out.splitlines() if line.startswith("wrote  ")]
+    assert written and all((tmp_path / p).exists() for p in written)
+    names = {Path(p).name for p in written}
+    assert any(n.endswith(".summary.nc") for n in names)
+    assert any(n.endswith(".png") for n in names)
+    assert "run-report.jsonl" in names
+    report_path = next(p for p in written if p.endswith("run-report.jsonl"))
+    report = (tmp_path / report_path).read_text().splitlines()
+    assert report and all(json.loads(x)["status"] == "ok" for x in report)
