@@ -645,7 +645,25 @@ def local_loss_cone(L, mlat_deg, altitude_km=100.0):
     """
     cos2 = _foot_cos2(L, altitude_km)
     lam = np.deg2rad(_mlat(mlat_deg))
+    _check_above_surface(L, lam)
     return _asin_deg(_b_ratio(lam) / _b_ratio_cos2(cos2))
+
+
+def _check_above_surface(L, lam):
+    """Refuse points of a dipole line that lie inside the Earth (r = L cos^2 lambda < 1)."""
+    L = np.asarray(L, dtype=float)
+    r = L * np.cos(lam) ** 2
+    inside = r < 1.0 - 1e-12  # NaN compares False
+    if np.any(inside):
+        Lb, lamb, rb = np.broadcast_arrays(L, lam, r)
+        i = np.flatnonzero(np.ravel(inside))[0]
+        L0, lam0, r0 = Lb.ravel()[i], lamb.ravel()[i], rb.ravel()[i]
+        limit = np.degrees(np.arccos(np.sqrt(1.0 / L0)))
+        raise PhysicsError(
+            f"argument 'mlat_deg' = {np.degrees(lam0):g} on L = {L0:g} is inside the Earth "
+            f"(r = {r0:.4g} R_E); |mlat_deg| must not exceed the surface footpoint latitude "
+            f"{limit:.4g} deg of that line"
+        )
 
 
 @array_api("R_E", long_name="geocentric distance")

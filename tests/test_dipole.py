@@ -181,7 +181,7 @@ def test_local_loss_cone_limits():
                                                              abs=1e-12)
     lam_f = dipole.footpoint_mlat(5.0)
     assert dipole.local_loss_cone(5.0, lam_f) == pytest.approx(90.0, abs=1e-5)
-    assert dipole.local_loss_cone(5.0, lam_f + 1.0) == 90.0
+    assert dipole.local_loss_cone(5.0, lam_f + 0.1) == 90.0  # below 100 km, above ground
     # local loss cone maps to the equatorial one (first invariant)
     for lam in (10.0, -25.0, 50.0):
         a = dipole.local_loss_cone(5.0, lam)
@@ -279,3 +279,16 @@ def test_dataarray_in_dataarray_out():
     assert dipole.mirror_altitude(L, a).attrs["units"] == "km"
     assert dipole.mirror_altitude(L, a).dims == ("time", "pitch")
     assert dipole.arc_length(L).attrs["units"] == "R_E"
+
+
+def test_local_loss_cone_refuses_points_inside_the_earth():
+    # Field line r = L R_E cos^2(lambda) (dipole geometry, textbook): on L = 2 the
+    # surface is reached at cos^2(lambda) = 1/2, i.e. 45 deg; 60 deg is at r = 0.5 R_E.
+    with pytest.raises(PhysicsError, match=r"inside the Earth.*45 deg"):
+        dipole.local_loss_cone(2.0, 60.0)
+    with pytest.raises(PhysicsError, match="mlat_deg"):
+        dipole.local_loss_cone(np.array([2.0, 2.0]), np.array([10.0, -60.0]))
+    # between the surface and the 100 km footpoint every particle is lost: 90 deg
+    lam_surface_ok = np.degrees(np.arccos(np.sqrt(1.0 / 2.0))) - 0.1
+    assert dipole.local_loss_cone(2.0, lam_surface_ok) == 90.0
+    assert np.isnan(dipole.local_loss_cone(2.0, np.nan))
