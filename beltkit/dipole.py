@@ -319,7 +319,7 @@ def field_magnitude(L, mlat_deg, b0_nt=B0_NT):
     return _b0(b0_nt) / _L(L) ** 3 * _b_ratio(lam)
 
 
-@array_api("deg", long_name="footpoint magnetic latitude")
+@array_api("degree", long_name="footpoint magnetic latitude")
 def footpoint_mlat(L, altitude_km=100.0):
     r"""Magnetic latitude where a dipole line reaches an altitude (northern footpoint).
 
@@ -429,7 +429,7 @@ def arc_length(L, altitude_km=100.0):
     )
 
 
-@array_api("deg", long_name="mirror magnetic latitude")
+@array_api("degree", long_name="mirror magnetic latitude")
 def mirror_mlat(alpha_eq_deg):
     r"""Magnetic latitude of the mirror point of a given equatorial pitch angle.
 
@@ -506,7 +506,7 @@ def mirror_altitude(L, alpha_eq_deg):
     return R_E_KM * (L * np.cos(lam) ** 2 - 1.0)
 
 
-@array_api("deg", long_name="local pitch angle")
+@array_api("degree", long_name="local pitch angle")
 def local_pitch_angle(alpha_eq_deg, mlat_deg):
     r"""Map an equatorial pitch angle to a latitude along the same dipole line.
 
@@ -544,7 +544,7 @@ def local_pitch_angle(alpha_eq_deg, mlat_deg):
     return np.where(upper, 180.0 - out, out)
 
 
-@array_api("deg", long_name="equatorial pitch angle")
+@array_api("degree", long_name="equatorial pitch angle")
 def equatorial_pitch_angle(alpha_local_deg, mlat_deg):
     r"""Map a local pitch angle at a latitude to the equator of its dipole line.
 
@@ -577,7 +577,7 @@ def equatorial_pitch_angle(alpha_local_deg, mlat_deg):
     return np.where(upper, 180.0 - out, out)
 
 
-@array_api("deg", long_name="equatorial bounce loss cone")
+@array_api("degree", long_name="equatorial bounce loss cone")
 def bounce_loss_cone(L, altitude_km=100.0):
     r"""Equatorial bounce loss cone of a dipole line (mirror-ratio condition).
 
@@ -612,7 +612,7 @@ def bounce_loss_cone(L, altitude_km=100.0):
     return _asin_deg(1.0 / _b_ratio_cos2(cos2))
 
 
-@array_api("deg", long_name="local bounce loss cone")
+@array_api("degree", long_name="local bounce loss cone")
 def local_loss_cone(L, mlat_deg, altitude_km=100.0):
     r"""Bounce loss cone at a latitude along a dipole line.
 

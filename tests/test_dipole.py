@@ -272,7 +272,7 @@ def test_dataarray_in_dataarray_out():
     lam = xr.DataArray([0.0, 0.2], dims="time", attrs={"units": "rad"})
     out = dipole.local_loss_cone(L, lam)
     assert isinstance(out, xr.DataArray)
-    assert out.attrs["units"] == "deg"
+    assert out.attrs["units"] == "degree"
     assert float(out[1]) == pytest.approx(
         dipole.local_loss_cone(4.0, math.degrees(0.2)), rel=1e-12)
     a = xr.DataArray(np.array([10.0, 80.0]), dims="pitch")

@@ -59,7 +59,7 @@ def test_centered_dipole_drift_equals_bounce_loss_cone():
     np.testing.assert_allclose(ds.b_foot_drift_min, dipole.footpoint_field(L, 100.0),
                                rtol=1e-6)
     for name in ("blc_local", "dlc_local", "blc_equatorial", "dlc_equatorial"):
-        assert ds[name].attrs["units"] == "deg" and ds[name].dims == ("sample",)
+        assert ds[name].attrs["units"] == "degree" and ds[name].dims == ("sample",)
     for name in ("b_local", "b_min", "b_foot_north", "b_foot_south", "b_foot_drift_min"):
         assert ds[name].attrs["units"] == "nT"
     assert ds.mlt.attrs["units"] == "h" and np.all((ds.mlt >= 0) & (ds.mlt < 24))
@@ -110,7 +110,7 @@ def test_igrf_drift_loss_cone_exceeds_bounce_loss_cone(igrf_table):
 def test_loss_cones_vs_longitude_consistent_with_table(igrf_table):
     ds = loss_cones_vs_longitude(IGRF(), 1.5, T2024, n_lon=24)
     assert ds.sizes == {"mlon": 24}
-    assert ds.blc_equatorial.attrs["units"] == "deg"
+    assert ds.blc_equatorial.attrs["units"] == "degree"
     sub = igrf_table.sel(L=1.5).isel(mlon=slice(0, 72, 3))
     np.testing.assert_allclose(ds.b_foot_north, sub.b_foot_north, rtol=1e-6)
     np.testing.assert_allclose(ds.b_foot_south, sub.b_foot_south, rtol=1e-6)
@@ -222,4 +222,4 @@ def test_sample_on_a_grounded_shell():
     np.testing.assert_allclose(ds.dlc_equatorial[0], 90.0)
     np.testing.assert_allclose(ds.b_foot_drift_min[0], ds.b_min[0])
     assert 0 < float(ds.blc_equatorial[1]) < float(ds.dlc_equatorial[1]) < 90.0
-    assert ds.mlat_deg.attrs["units"] == "deg" and "mlt_hours" in ds
+    assert ds.mlat_deg.attrs["units"] == "degree" and "mlt_hours" in ds

@@ -529,13 +529,13 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         # drift: B_drift = B_min makes both drift loss cones 90 deg
         b_drift = np.where(grounded, b_min, b_drift)
         out = {
-            "blc_local": (_asin_deg(b_loc / b_weak), "deg", "local bounce loss cone"),
-            "dlc_local": (_asin_deg(b_loc / b_drift), "deg", "local drift loss cone"),
-            "blc_equatorial": (_asin_deg(b_min / b_weak), "deg", "equatorial bounce loss cone"),
-            "dlc_equatorial": (_asin_deg(b_min / b_drift), "deg", "equatorial drift loss cone"),
-            "loss_cone_north": (_asin_deg(b_loc / b_foot_n), "deg",
+            "blc_local": (_asin_deg(b_loc / b_weak), "degree", "local bounce loss cone"),
+            "dlc_local": (_asin_deg(b_loc / b_drift), "degree", "local drift loss cone"),
+            "blc_equatorial": (_asin_deg(b_min / b_weak), "degree", "equatorial bounce loss cone"),
+            "dlc_equatorial": (_asin_deg(b_min / b_drift), "degree", "equatorial drift loss cone"),
+            "loss_cone_north": (_asin_deg(b_loc / b_foot_n), "degree",
                                 "local loss cone of the northern footpoint"),
-            "loss_cone_south": (_asin_deg(b_loc / b_foot_s), "deg",
+            "loss_cone_south": (_asin_deg(b_loc / b_foot_s), "degree",
                                 "local loss cone of the southern footpoint"),
         }
     for k in list(out):
@@ -557,8 +557,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     )
     mlat, mlon, _ = coords.magnetic_coordinates(x.reshape(-1, 3), t, model=model)
     mlt = coords.magnetic_local_time(x.reshape(-1, 3), t, model=model)
-    out["mlat"] = (np.asarray(mlat, dtype=float), "deg", "magnetic (dipole) latitude")
-    out["mlon"] = (np.asarray(mlon, dtype=float), "deg", "magnetic (dipole) longitude")
+    out["mlat"] = (np.asarray(mlat, dtype=float), "degree", "magnetic (dipole) latitude")
+    out["mlon"] = (np.asarray(mlon, dtype=float), "degree", "magnetic (dipole) longitude")
     out["mlt"] = (np.asarray(mlt, dtype=float), "h", "magnetic local time")
     # the names of the cross-module contract, beside the short ones
     out["mlat_deg"] = out["mlat"]
@@ -633,9 +633,9 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
     ds = xr.Dataset(
         {
             "blc_equatorial": ("mlon", _asin_deg(tb["b_min"].values / b_weak),
-                               {"units": "deg", "long_name": "equatorial bounce loss cone"}),
+                               {"units": "degree", "long_name": "equatorial bounce loss cone"}),
             "dlc_equatorial": ("mlon", dlc,
-                               {"units": "deg", "long_name": "equatorial drift loss cone"}),
+                               {"units": "degree", "long_name": "equatorial drift loss cone"}),
             "b_foot_north": tb["b_foot_north"],
             "b_foot_south": tb["b_foot_south"],
             "b_min": tb["b_min"],
