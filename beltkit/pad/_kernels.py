@@ -25,182 +25,266 @@ _TWO_PI = 2.0 * math.pi
 _FOUR_PI = 4.0 * math.pi
 #: solid angles (sr) below this count as empty (rounding crumbs of cos near 90 deg)
 TOL_SR = 1e-12
+#: samples per inner chunk (its sums are staged in a small scratch array that stays in cache)
+_CHUNK = 256
 
 
-def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, band,
-                        has_neg, out, stats):
+def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, cosb,
+                        cosd, coso, has_neg, out, flag, stats, chunk):
     n, n_e, n_p = x.shape
-    wt = np.empty((n_p, 5))
+    xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
     nan = np.nan
-    for t in range(n):
-        b = blc[t]
-        d = dlc[t]
-        if not (b == b) or not (d == d):
-            for k in range(out.shape[0]):
-                for e in range(n_e):
-                    out[k, t * n_e + e] = nan
+    wt = np.empty((5, n_p))
+    colsum = np.empty(5)
+    n_rows = 23  # 0-13 sums, 14-22 error sums
+    # rows padded apart (not a multiple of 4 KiB): no cache-set aliasing between them
+    sc = np.empty((n_rows, max(chunk, 1) * n_e + 24))
+    for t0 in range(0, n, chunk):
+        t1 = min(t0 + chunk, n)
+        # ---- pass 1: weighted sums of every (time, energy) of the chunk into `sc`
+        for t in range(t0, t1):
+            j0 = (t - t0) * n_e
+            b = blc[t]
+            d = dlc[t]
+            if not (b == b) or not (d == d):
+                for e in range(n_e):  # the value statistics still see every sample
+                    nf = 0
+                    ng = 0
+                    nq = 0
+                    for p in range(n_p):
+                        v = x[t, e, p]
+                        ok = v - v == 0.0
+                        nf += 1 if ok else 0
+                        ng += 1 if (ok and v < 0.0) else 0
+                        if has_s:
+                            nq += 1 if s[t, e, p] < 0.0 else 0
+                    stats[e, 0] += nf
+                    stats[e, 1] += ng
+                    stats[e, 2] += nq
+                    for k in range(n_rows):
+                        sc[k, j0 + e] = 0.0
+                continue
+            cb = cosb[t]
+            cd = cosd[t]
+            co = coso[t]
+            if use_pre:
+                for p in range(n_p):
+                    for k in range(5):
+                        wt[k, p] = wpre[t, p, k]
+            else:
+                for p in range(n_p):
+                    c1 = cos_a1[p]
+                    c2 = cos_a2[p]
+                    full = _TWO_PI * (c1 - c2)
+                    # solid angle of the bin below the pitch angle whose cosine is c
+                    cbp = _TWO_PI * (c1 - min(max(cb, c2), c1))
+                    cdp = _TWO_PI * (c1 - min(max(cd, c2), c1))
+                    cop = _TWO_PI * (c1 - min(max(co, c2), c1))
+                    cbm = _TWO_PI * (c1 - min(max(-cb, c2), c1))
+                    cdm = _TWO_PI * (c1 - min(max(-cd, c2), c1))
+                    com = _TWO_PI * (c1 - min(max(-co, c2), c1))
+                    wt[0, p] = max(cbp + full - cbm, 0.0) * fold
+                    wt[1, p] = max(cdp - cbp + cbm - cdm, 0.0) * fold
+                    wt[2, p] = max(cdm - cdp, 0.0) * fold
+                    wt[3, p] = max(cop - cbp + cbm - com, 0.0) * fold
+                    wt[4, p] = full * fold
+            for k in range(5):
+                acc = 0.0
+                for p in range(n_p):
+                    acc += wt[k, p]
+                colsum[k] = acc
+            om0 = _FOUR_PI * (1.0 - cb)
+            om1 = _FOUR_PI * (cb - cd)
+            om2 = _FOUR_PI * cd
+            # one vectorised scan of the sample's E x P values: any missing or negative?
+            n_bad = 0
+            n_low = 0
+            for i in range(n_e * n_p):
+                v = xf[t, i]
+                n_bad += 0 if v - v == 0.0 else 1
+                n_low += 1 if v < 0.0 else 0
             for e in range(n_e):
-                out[14, t * n_e + e] = 64.0
-                for p in range(n_p):  # the value statistics still see every sample
-                    v = x[t, e, p]
-                    if v - v == 0.0:
-                        stats[e, 0] += 1
-                        if v < 0.0:
-                            stats[e, 1] += 1
-            continue
-        if d < b:
-            d = b
-        o = b + band
-        if o > 90.0:
-            o = 90.0
-        cb = math.cos(math.radians(b))
-        cd = math.cos(math.radians(d))
-        co = math.cos(math.radians(o))
-        if use_pre:
-            for p in range(n_p):
-                for k in range(5):
-                    wt[p, k] = wpre[t, p, k]
-        else:
-            for p in range(n_p):
-                c1 = cos_a1[p]
-                c2 = cos_a2[p]
-                full = _TWO_PI * (c1 - c2)
-                # solid angle of the bin below the pitch angle whose cosine is c
-                cbp = _TWO_PI * (c1 - min(max(cb, c2), c1))
-                cdp = _TWO_PI * (c1 - min(max(cd, c2), c1))
-                cop = _TWO_PI * (c1 - min(max(co, c2), c1))
-                cbm = _TWO_PI * (c1 - min(max(-cb, c2), c1))
-                cdm = _TWO_PI * (c1 - min(max(-cd, c2), c1))
-                com = _TWO_PI * (c1 - min(max(-co, c2), c1))
-                wt[p, 0] = max(cbp + full - cbm, 0.0) * fold
-                wt[p, 1] = max(cdp - cbp + cbm - cdm, 0.0) * fold
-                wt[p, 2] = max(cdm - cdp, 0.0) * fold
-                wt[p, 3] = max(cop - cbp + cbm - com, 0.0) * fold
-                wt[p, 4] = full * fold
-        om0 = _FOUR_PI * (1.0 - cb)
-        om1 = _FOUR_PI * (cb - cd)
-        om2 = _FOUR_PI * cd
-        om0 = om0 if om0 > TOL_SR else 0.0
-        om1 = om1 if om1 > TOL_SR else 0.0
-        om2 = om2 if om2 > TOL_SR else 0.0
-        i0 = 1.0 / om0 if om0 > 0 else 0.0
-        i1 = 1.0 / om1 if om1 > 0 else 0.0
-        i2 = 1.0 / om2 if om2 > 0 else 0.0
-        for e in range(n_e):
-            a0 = a1 = a2 = a3 = a4 = 0.0
-            m0 = m1 = m2 = m3 = m4 = 0.0
-            v0 = v1 = v2 = v3 = v4 = v5 = v6 = v7 = v8 = 0.0
-            nneg = 0
-            nfin = 0
-            nqneg = 0
-            for p in range(n_p):
-                v = np.float64(x[t, e, p])
-                ok = v - v == 0.0  # False for NaN and inf: not sampled
-                vv = v if ok else 0.0
-                fin = 1.0 if ok else 0.0
-                nfin += 1 if ok else 0
-                nneg += 1 if vv < 0.0 else 0
-                w0 = wt[p, 0]
-                w1 = wt[p, 1]
-                w2 = wt[p, 2]
-                w3 = wt[p, 3]
-                w4 = wt[p, 4]
-                a0 += vv * w0
-                a1 += vv * w1
-                a2 += vv * w2
-                a3 += vv * w3
-                a4 += vv * w4
-                m0 += fin * w0
-                m1 += fin * w1
-                m2 += fin * w2
-                m3 += fin * w3
-                m4 += fin * w4
+                j = j0 + e
+                a0 = a1 = a2 = a3 = a4 = 0.0
+                if n_bad == 0 and n_low == 0:  # every bin sampled: the measured solid
+                    for p in range(n_p):      # angles are the weights' sums
+                        v = np.float64(x[t, e, p])
+                        a0 += v * wt[0, p]
+                        a1 += v * wt[1, p]
+                        a2 += v * wt[2, p]
+                        a3 += v * wt[3, p]
+                        a4 += v * wt[4, p]
+                    m0 = colsum[0]
+                    m1 = colsum[1]
+                    m2 = colsum[2]
+                    m3 = colsum[3]
+                    m4 = colsum[4]
+                    nf = n_p
+                    ng = 0
+                else:
+                    m0 = m1 = m2 = m3 = m4 = 0.0
+                    nf = 0
+                    ng = 0
+                    for p in range(n_p):
+                        v = np.float64(x[t, e, p])
+                        ok = v - v == 0.0  # False for NaN and inf: not sampled
+                        vv = v if ok else 0.0
+                        fin = 1.0 if ok else 0.0
+                        nf += 1 if ok else 0
+                        ng += 1 if vv < 0.0 else 0
+                        a0 += vv * wt[0, p]
+                        a1 += vv * wt[1, p]
+                        a2 += vv * wt[2, p]
+                        a3 += vv * wt[3, p]
+                        a4 += vv * wt[4, p]
+                        m0 += fin * wt[0, p]
+                        m1 += fin * wt[1, p]
+                        m2 += fin * wt[2, p]
+                        m3 += fin * wt[3, p]
+                        m4 += fin * wt[4, p]
+                stats[e, 0] += nf
+                stats[e, 1] += ng
+                sc[0, j] = a0
+                sc[1, j] = a1
+                sc[2, j] = a2
+                sc[3, j] = a3
+                sc[4, j] = a4
+                sc[5, j] = m0
+                sc[6, j] = m1
+                sc[7, j] = m2
+                sc[8, j] = m3
+                sc[9, j] = m4
+                sc[10, j] = om0
+                sc[11, j] = om1
+                sc[12, j] = om2
+                sc[13, j] = ng
                 if has_s:
-                    q = np.float64(s[t, e, p])
-                    nqneg += 1 if (ok and q < 0.0) else 0
-                    q2 = q * q if ok else 0.0
-                    v0 += q2 * w0 * w0
-                    v1 += q2 * w1 * w1
-                    v2 += q2 * w2 * w2
-                    v3 += q2 * w4 * w4
-                    v4 += q2 * w3 * w3
-                    v5 += q2 * w0 * w4
-                    v6 += q2 * w1 * w4
-                    v7 += q2 * w2 * w4
-                    v8 += q2 * w0 * w3
-            stats[e, 0] += nfin
-            stats[e, 1] += nneg
-            stats[e, 2] += nqneg
-            flag = 0
-            s0 = m0 > TOL_SR
-            s1 = m1 > TOL_SR
-            s2 = m2 > TOL_SR
-            pops0 = (a0 if s0 else nan) if om0 > 0 else 0.0
-            pops1 = (a1 if s1 else nan) if om1 > 0 else 0.0
-            pops2 = (a2 if s2 else nan) if om2 > 0 else 0.0
-            if om0 > 0 and not s0:
-                flag |= 1
-            if om1 > 0 and not s1:
-                flag |= 2
-            if om2 > 0 and not s2:
-                flag |= 4
-            cov0 = min(m0 * i0, 1.0) if om0 > 0 else 1.0
-            cov1 = min(m1 * i1, 1.0) if om1 > 0 else 1.0
-            cov2 = min(m2 * i2, 1.0) if om2 > 0 else 1.0
-            if ((0 < cov0 < 1 - 1e-6) or (0 < cov1 < 1 - 1e-6) or (0 < cov2 < 1 - 1e-6)):
-                flag |= 8
-            if has_neg and nneg > 0:
-                flag |= 16
-            if not m4 > 0:
-                flag |= 32
+                    nq = 0
+                    v0 = v1 = v2 = v3 = v4 = v5 = v6 = v7 = v8 = 0.0
+                    for p in range(n_p):
+                        q = np.float64(s[t, e, p])
+                        nq += 1 if q < 0.0 else 0
+                        ok = x[t, e, p] - x[t, e, p] == 0.0
+                        q2 = q * q if ok else 0.0
+                        w0 = wt[0, p]
+                        w1 = wt[1, p]
+                        w2 = wt[2, p]
+                        w3 = wt[3, p]
+                        w4 = wt[4, p]
+                        v0 += q2 * w0 * w0
+                        v1 += q2 * w1 * w1
+                        v2 += q2 * w2 * w2
+                        v3 += q2 * w4 * w4
+                        v4 += q2 * w3 * w3
+                        v5 += q2 * w0 * w4
+                        v6 += q2 * w1 * w4
+                        v7 += q2 * w2 * w4
+                        v8 += q2 * w0 * w3
+                    stats[e, 2] += nq
+                    sc[14, j] = v0
+                    sc[15, j] = v1
+                    sc[16, j] = v2
+                    sc[17, j] = v3
+                    sc[18, j] = v4
+                    sc[19, j] = v5
+                    sc[20, j] = v6
+                    sc[21, j] = v7
+                    sc[22, j] = v8
+        # ---- pass 2: the outputs of the chunk, all rows together per element (stores
+        # interleaved across rows stream best), branch-free so that it vectorises
+        o = t0 * n_e
+        m = (t1 - t0) * n_e
+        lim = 1 - 1e-6
+        for j in range(m):
+            a0 = sc[0, j]
+            a3 = sc[3, j]
+            m0 = sc[5, j]
+            m3 = sc[8, j]
+            m4 = sc[9, j]
+            om0 = sc[10, j]
+            om1 = sc[11, j]
+            om2 = sc[12, j]
+            e0 = om0 > TOL_SR  # the population has solid angle
+            e1 = om1 > TOL_SR
+            e2 = om2 > TOL_SR
+            s0 = m0 > TOL_SR  # ... and some of it was sampled
+            s1 = sc[6, j] > TOL_SR
+            s2 = sc[7, j] > TOL_SR
+            pops0 = (a0 if s0 else nan) if e0 else 0.0
+            pops1 = (sc[1, j] if s1 else nan) if e1 else 0.0
+            pops2 = (sc[2, j] if s2 else nan) if e2 else 0.0
+            cov0 = min(m0 / om0, 1.0) if e0 else 1.0
+            cov1 = min(sc[6, j] / om1, 1.0) if e1 else 1.0
+            cov2 = min(sc[7, j] / om2, 1.0) if e2 else 1.0
             total = pops0 + pops1 + pops2
-            good = total > 0
-            itot = 1.0 / total if good else nan
-            f0 = pops0 * itot
-            f1 = pops1 * itot
-            f2 = pops2 * itot
-            out[0, t * n_e + e] = pops0
-            out[1, t * n_e + e] = pops1
-            out[2, t * n_e + e] = pops2
-            out[3, t * n_e + e] = a4 if m4 > 0 else nan
-            out[4, t * n_e + e] = f0
-            out[5, t * n_e + e] = f1
-            out[6, t * n_e + e] = f2
-            out[7, t * n_e + e] = cov0
-            out[8, t * n_e + e] = cov1
-            out[9, t * n_e + e] = cov2
-            out[10, t * n_e + e] = m0
-            out[11, t * n_e + e] = m1
-            out[12, t * n_e + e] = m2
-            fill_ok = s0 and om0 > 0 and m0 > 0 and m3 > TOL_SR and a3 != 0.0
-            k = m3 / (m0 * a3) if fill_ok else nan
-            rho = a0 * k
-            out[13, t * n_e + e] = rho
-            out[14, t * n_e + e] = flag
-            if has_s:
-                out[15, t * n_e + e] = (math.sqrt(v0) if s0 else nan) if om0 > 0 else 0.0
-                out[16, t * n_e + e] = (math.sqrt(v1) if s1 else nan) if om1 > 0 else 0.0
-                out[17, t * n_e + e] = (math.sqrt(v2) if s2 else nan) if om2 > 0 else 0.0
-                out[18, t * n_e + e] = math.sqrt(v3) if m4 > 0 else nan
-                if good:
-                    out[19, t * n_e + e] = itot * math.sqrt(
-                        max(v0 - 2 * f0 * v5 + f0 * f0 * v3, 0.0))
-                    out[20, t * n_e + e] = itot * math.sqrt(
-                        max(v1 - 2 * f1 * v6 + f1 * f1 * v3, 0.0))
-                    out[21, t * n_e + e] = itot * math.sqrt(
-                        max(v2 - 2 * f2 * v7 + f2 * f2 * v3, 0.0))
-                else:
-                    out[19, t * n_e + e] = nan
-                    out[20, t * n_e + e] = nan
-                    out[21, t * n_e + e] = nan
-                if fill_ok:
-                    # d rho / d a0 = k, d rho / d a3 = -rho / a3; no division by a0,
-                    # so an empty loss cone (a0 = 0) still gets its error bar
-                    q = rho / a3
-                    var = k * k * v0 + q * q * v4 - 2 * k * q * v8
-                    out[22, t * n_e + e] = math.sqrt(max(var, 0.0))
-                else:
-                    out[22, t * n_e + e] = nan
+            itot = 1.0 / total if total > 0 else nan
+            fill_ok = s0 & e0 & (m3 > TOL_SR) & (a3 != 0.0)
+            out[0, o + j] = pops0
+            out[1, o + j] = pops1
+            out[2, o + j] = pops2
+            out[3, o + j] = sc[4, j] if m4 > 0 else nan
+            out[4, o + j] = pops0 * itot
+            out[5, o + j] = pops1 * itot
+            out[6, o + j] = pops2 * itot
+            out[7, o + j] = cov0
+            out[8, o + j] = cov1
+            out[9, o + j] = cov2
+            out[10, o + j] = m0
+            out[11, o + j] = sc[6, j]
+            out[12, o + j] = sc[7, j]
+            out[13, o + j] = a0 * (m3 / (m0 * a3)) if fill_ok else nan
+            part = (((cov0 > 0.0) & (cov0 < lim)) | ((cov1 > 0.0) & (cov1 < lim))
+                    | ((cov2 > 0.0) & (cov2 < lim)))
+            flag[o + j] = ((1 if e0 > s0 else 0) + (2 if e1 > s1 else 0) + (4 if e2 > s2 else 0)
+                         + (8 if part else 0) + (16 if (has_neg and sc[13, j] > 0.0) else 0)
+                         + (0 if m4 > 0.0 else 32))
+        if has_s:
+            for j in range(m):
+                a0 = sc[0, j]
+                a3 = sc[3, j]
+                m0 = sc[5, j]
+                m3 = sc[8, j]
+                e0 = sc[10, j] > TOL_SR
+                e1 = sc[11, j] > TOL_SR
+                e2 = sc[12, j] > TOL_SR
+                s0 = m0 > TOL_SR
+                s1 = sc[6, j] > TOL_SR
+                s2 = sc[7, j] > TOL_SR
+                pops0 = (a0 if s0 else nan) if e0 else 0.0
+                pops1 = (sc[1, j] if s1 else nan) if e1 else 0.0
+                pops2 = (sc[2, j] if s2 else nan) if e2 else 0.0
+                total = pops0 + pops1 + pops2
+                itot = 1.0 / total if total > 0 else nan
+                f0 = pops0 * itot
+                f1 = pops1 * itot
+                f2 = pops2 * itot
+                v0 = sc[14, j]
+                v1 = sc[15, j]
+                v2 = sc[16, j]
+                v3 = sc[17, j]
+                out[15, o + j] = (math.sqrt(v0) if s0 else nan) if e0 else 0.0
+                out[16, o + j] = (math.sqrt(v1) if s1 else nan) if e1 else 0.0
+                out[17, o + j] = (math.sqrt(v2) if s2 else nan) if e2 else 0.0
+                out[18, o + j] = math.sqrt(v3) if sc[9, j] > 0 else nan
+                out[19, o + j] = itot * math.sqrt(max(v0 - 2 * f0 * sc[19, j] + f0 * f0 * v3, 0.0))
+                out[20, o + j] = itot * math.sqrt(max(v1 - 2 * f1 * sc[20, j] + f1 * f1 * v3, 0.0))
+                out[21, o + j] = itot * math.sqrt(max(v2 - 2 * f2 * sc[21, j] + f2 * f2 * v3, 0.0))
+                # rho = a0 kf with kf = m3 / (m0 a3): d rho / d a0 = kf, d rho / d a3 =
+                # -rho / a3; no division by a0, so an empty loss cone still gets its error bar
+                fill_ok = s0 & e0 & (m3 > TOL_SR) & (a3 != 0.0)
+                kf = m3 / (m0 * a3) if fill_ok else nan
+                qf = a0 * kf / a3
+                var = kf * kf * v0 + qf * qf * sc[18, j] - 2 * kf * qf * sc[22, j]
+                out[22, o + j] = math.sqrt(max(var, 0.0)) if fill_ok else nan
+        # ---- samples whose loss cone is unknown: NaN everywhere, flag 64
+        for t in range(t0, t1):
+            b = blc[t]
+            d = dlc[t]
+            if not (b == b) or not (d == d):
+                for e in range(n_e):
+                    for k in range(out.shape[0]):
+                        out[k, t * n_e + e] = nan
+                    flag[t * n_e + e] = 64
 
 
 def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
@@ -237,8 +321,9 @@ def _jitted(name):
     return _JIT[name]
 
 
-def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats):
-    """Fill ``out`` with the partition outputs of one time block.
+def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats,
+                    flag=None):
+    """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
 
     Parameters
     ----------
@@ -260,23 +345,37 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
         Whether to flag negative values.
     out : numpy.ndarray
         Output array (n_out, >= n * E), written in place at ``[k, t * E + e]``
-        (each output row contiguous; rows may be padded apart).
+        (each output row contiguous; rows may be padded apart). Row 14 (the
+        flag) is written only when ``flag`` is None.
     stats : numpy.ndarray
         (E, 3) int64 counters, incremented in place: valid flux values,
         negative flux values, negative errors (the validator's value checks,
         gathered in the same pass).
+    flag : numpy.ndarray, optional
+        (>= n * E,) int16 array receiving ``partition_flag``; None: the flags
+        go to ``out[14]`` as numbers.
     """
+    n = x.shape[0]
     has_s = s is not None
     s_arr = s if has_s else np.zeros((1, 1, 1), dtype=x.dtype)
     use_pre = wpre is not None
     w_arr = wpre if use_pre else np.zeros((1, 1, 5))
+    blc = np.asarray(blc, dtype=float)
+    dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
+    # the three edge cosines of every sample, in one vectorised numpy pass each
+    cosb = np.cos(np.radians(blc))
+    cosd = cosb if np.array_equal(dlc, blc, equal_nan=True) else np.cos(np.radians(dlc))
+    coso = np.cos(np.radians(np.minimum(blc + float(band), 90.0)))
+    flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
-            np.asarray(cos_a2, dtype=float), float(fold), np.asarray(blc, dtype=float),
-            np.asarray(dlc, dtype=float), float(band), bool(has_neg), out, stats)
+            np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso,
+            bool(has_neg), out, flag_arr, stats, _CHUNK)
     if HAVE_NUMBA:
         _jitted("partition")(*args)
     else:  # pragma: no cover
         _partition_block_py(*args)
+    if flag is None:
+        out[14, : flag_arr.size] = flag_arr
 
 
 def value_scan(x, fills, vmin, vmax):

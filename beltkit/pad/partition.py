@@ -44,6 +44,8 @@ lies inside :math:`P` (:func:`beltkit.pad.geometry.fov_fraction`), i.e.
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import xarray as xr
 
@@ -273,7 +275,11 @@ def _numpy_stats(x, s, stats):
 
 
 def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, dtype,
-               out=None, stats=None):
+               out=None, stats=None, flag=None):
+    """Partition one time block into ``out`` (new (n_out, n, E) array if None).
+
+    With ``flag`` (int16, n * E) the flags go there instead of ``out[14]``.
+    """
     x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats)
     if stats is None:
         stats = np.zeros((x.shape[1], 3), dtype=np.int64)
@@ -284,7 +290,11 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
         if out is None:
             return res
         out[:, : n * n_e] = res.reshape(res.shape[0], -1)
+        if flag is not None:
+            flag[: n * n_e] = res[14].reshape(-1)
         return out
+    x = np.ascontiguousarray(x)
+    s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
     if out is None:
         out = _alloc_out(_n_out(s is not None), n, n_e, dtype)
@@ -301,7 +311,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
         cos_a1, cos_a2 = geom["cos_a1"], geom["cos_a2"]
         fold = 2.0 if geom["folded"] else 1.0
     _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
-                             opts["has_negative"], out, stats)
+                             opts["has_negative"], out, stats, flag)
     return _as_3d(out, n, n_e) if ret3d else out
 
 
@@ -385,7 +395,7 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
                 lx, "tk" if lx is not None else None]
         data = dsa.blockwise(func, "vte", *args, new_axes={"v": nout}, dtype=dtype,
                              concatenate=True)
-        return data
+        return data, None
     fv = flux.values
     ev = err.values if err is not None else None
     cv = c2f.values if c2f is not None else None
@@ -394,13 +404,49 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
     lv = look.values if look is not None else None
     n_t, n_e = fv.shape[:2]
     buf = _alloc_out(nout, n_t, n_e, dtype)
-    for start in range(0, n_t, _BLOCK):
+    flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
+
+    def one(start):
         stop = min(start + _BLOCK, n_t)
         sl = slice(start, stop)
+        block_stats = np.zeros((n_e, 3), dtype=np.int64)
         _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
                    bv[sl], dv[sl], None if lv is None else lv[sl], prep=prep, geom=geom,
-                   opts=opts, dtype=dtype, out=buf[:, start * n_e: stop * n_e], stats=stats)
-    return _as_3d(buf, n_t, n_e)
+                   opts=opts, dtype=dtype, out=buf[:, start * n_e: stop * n_e],
+                   stats=block_stats, flag=flag[start * n_e: stop * n_e])
+        return block_stats
+
+    starts = range(0, n_t, _BLOCK)
+    pool = _thread_pool() if len(starts) > 1 and opts["engine"] != "numpy" else None
+    # the compiled kernel releases the GIL: blocks run on every core at once
+    parts = list(pool.map(one, starts)) if pool is not None else [one(s) for s in starts]
+    if stats is not None:
+        for block_stats in parts:
+            stats += block_stats
+    return _as_3d(buf, n_t, n_e), flag.reshape(n_t, n_e)
+
+
+_POOL = {"pid": None, "pool": None}
+
+
+def _thread_pool():
+    """Return this process's worker threads for the compiled kernel (None: one core).
+
+    Made on first use and again after a fork (a child inherits no threads).
+    """
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not Linux
+        cores = os.cpu_count() or 1
+    if cores < 2:
+        return None
+    if _POOL["pid"] != os.getpid():
+        from concurrent.futures import ThreadPoolExecutor
+
+        _POOL["pool"] = ThreadPoolExecutor(max_workers=cores,
+                                           thread_name_prefix="beltkit-partition")
+        _POOL["pid"] = os.getpid()
+    return _POOL["pool"]
 
 
 _LONG = {
@@ -584,8 +630,8 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
     opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
-    data = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom, opts,
-                    dtype, stats)
+    data, flags = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom,
+                           opts, dtype, stats)
     if stats is not None:
         problems = value_problems(prep.energy_kev, stats[:, 0] > 0, int(stats[:, 1].sum()),
                                   int(stats[:, 2].sum()), prep.error_source, allow_negative)
@@ -598,7 +644,7 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     for k, name in enumerate(names):
         values = data[k]
         if name == "partition_flag":
-            values = values.astype(np.int16)
+            values = flags if flags is not None else values.astype(np.int16)
         attrs = {}
         if name.endswith("_err"):
             base = name[:-4]
