@@ -393,6 +393,20 @@ def _check_range(ds, name, lo, hi, problems, scale=1.0):
         problems.append(f"{name}: values must lie in [{lo}, {hi}], got {vmin:g} to {vmax:g}")
 
 
+def _check_position_present(ds, problems):
+    """Note a missing or half-given position; return (has L and mlat, has position_geo)."""
+    has_lm = "L" in ds.variables and "mlat" in ds.variables
+    has_geo = "position_geo" in ds.variables
+    if not has_lm and not has_geo:
+        problems.append("position: need either 'L' and 'mlat' (degree) per time, or "
+                        "'position_geo' (time, 3) in km")
+    if "L" in ds.variables and "mlat" not in ds.variables and not has_geo:
+        problems.append("mlat: missing (magnetic latitude in degree, per time, next to L)")
+    if "mlat" in ds.variables and "L" not in ds.variables and not has_geo:
+        problems.append("L: missing (L-shell per time, next to mlat)")
+    return has_lm, has_geo
+
+
 def _inspect(ds, model=None, allow_negative=False, check_values=True):
     """Run every check; return (problems, Prepared or None)."""
     problems: list[str] = []
@@ -401,6 +415,12 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
     if "flux" not in ds.data_vars:
         problems.append("flux: missing data variable (differential directional flux, "
                         f"dims (time, energy, pitch_angle), units {FLUX_UNITS!r})")
+        # without flux the rest cannot be checked in detail, but say what else is absent
+        for name, what in (("time", "the time coordinate"),
+                           ("energy", "the energy coordinate (channel centres in keV)")):
+            if name not in ds.variables:
+                problems.append(f"{name}: missing ({what})")
+        _check_position_present(ds, problems)
         return problems, None
     flux = ds["flux"]
     kind = "telescope" if "look" in flux.dims else "bins"
@@ -494,15 +514,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                 problems.append("look_half_angle: must be finite and in (0, 90] degree")
     # position
     other_scale: dict = {}
-    has_lm = "L" in ds.variables and "mlat" in ds.variables
-    has_geo = "position_geo" in ds.variables
-    if not has_lm and not has_geo:
-        problems.append("position: need either 'L' and 'mlat' (degree) per time, or "
-                        "'position_geo' (time, 3) in km")
-    if "L" in ds.variables and "mlat" not in ds.variables and not has_geo:
-        problems.append("mlat: missing (magnetic latitude in degree, per time, next to L)")
-    if "mlat" in ds.variables and "L" not in ds.variables and not has_geo:
-        problems.append("L: missing (L-shell per time, next to mlat)")
+    has_lm, has_geo = _check_position_present(ds, problems)
     for name, table, what, lo, hi, required in (
         ("L", _DIMENSIONLESS, "the dimensionless L-shell", 1.0, None, False),
         ("mlat", _ANGLE, "an angle", -90.0, 90.0, True),
