@@ -34,13 +34,30 @@ Commands
 
 Every batch command prints one line per file (``ok``, ``skipped`` or
 ``FAILED  file: reason``) and exits with 0 only when every file succeeded
-(1 when any failed, 2 for a usage error). ``--debug`` adds tracebacks.
+(1 when any failed). ``--debug`` adds tracebacks.
+
+Exit codes: 0 success; 2 when the command line cannot be parsed or one
+option's value is outside its fixed range (``--energy-kev 0``,
+``--pitch-angle 200``, ``--time yesterday``; checked before anything runs);
+1 when the options do not fit together (``--L`` with ``--latitude``, a
+``--mlat`` inside the Earth for that ``--L``, a missing ``--time``), when no
+input file matches, or when a file or computation failed. Every message names
+the command-line option, not a Python argument.
+
+When the reader of the output goes away (``beltkit motion ... | head -c 10``)
+the command stops quietly: the calculators ``motion`` and ``losscone`` exit
+with 0 (their answer was complete, the reader only wanted less of it); the
+other commands exit with 141 (128 + SIGPIPE, as the shell reports a command
+killed by a broken pipe), because their work may be unfinished.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import math
+import os
+import re
 import shlex
 import sys
 from pathlib import Path
@@ -64,6 +81,122 @@ def _level(text):
     value = int(text)
     if not 0 <= value <= 9:
         raise argparse.ArgumentTypeError(f"must be a zlib level 0-9, got {text}")
+    return value
+
+
+def _number_arg(text) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+
+
+def _energy_kev(text):
+    value = _number_arg(text)
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(
+            f"must be a finite kinetic energy > 0 keV, got {text}")
+    return value
+
+
+def _l_shell(text):
+    value = _number_arg(text)
+    if not (math.isfinite(value) and value >= 1):
+        raise argparse.ArgumentTypeError(
+            f"must be a finite L-shell >= 1 (the equatorial distance of the field line in "
+            f"Earth radii), got {text}")
+    return value
+
+
+def _pitch_deg(text):
+    value = _number_arg(text)
+    if not 0 <= value <= 180:
+        raise argparse.ArgumentTypeError(f"must be a pitch angle of 0-180 degrees, got {text}")
+    return value
+
+
+def _mlat_deg(text):
+    value = _number_arg(text)
+    if not -90 < value < 90:
+        raise argparse.ArgumentTypeError(
+            f"must be a magnetic latitude between -90 and 90 degrees (poles excluded), "
+            f"got {text}")
+    return value
+
+
+def _latitude_deg(text):
+    value = _number_arg(text)
+    if not -90 <= value <= 90:
+        raise argparse.ArgumentTypeError(
+            f"must be a geodetic latitude of -90 to 90 degrees, got {text}")
+    return value
+
+
+def _longitude_deg(text):
+    value = _number_arg(text)
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(
+            f"must be a finite longitude in degrees, east positive, got {text}")
+    return value
+
+
+def _height_km(text):
+    from .field.models import INSIDE_EARTH_TOLERANCE_KM
+
+    value = _number_arg(text)
+    if not (math.isfinite(value) and value > -INSIDE_EARTH_TOLERANCE_KM):
+        raise argparse.ArgumentTypeError(
+            f"must be above -{INSIDE_EARTH_TOLERANCE_KM:g} km (height above the WGS-84 "
+            f"ellipsoid in km), got {text}")
+    return value
+
+
+def _footpoint_km(text):
+    value = _number_arg(text)
+    if not (math.isfinite(value) and value >= 0):
+        raise argparse.ArgumentTypeError(
+            f"must be a finite altitude >= 0 km (above the R_E = 6371.2 km sphere), got {text}")
+    return value
+
+
+_TIME_EXAMPLE = "2024-06-01T12:00"
+_DEFAULT_HEIGHT_KM = 650.0
+
+
+def _utc_time(text):
+    """Parse an ISO 8601 UTC time within the IGRF-14 validity into datetime64[ns]."""
+    import warnings
+
+    import numpy as np
+
+    from .field.igrf import igrf_table
+    from .field.timeconv import decimal_year
+
+    plain = text.strip()
+    for suffix in ("Z", "z", "+00:00", "+0000"):
+        if plain.endswith(suffix) and "T" in plain.upper():
+            plain = plain[: -len(suffix)]
+            break
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            value = np.datetime64(plain, "ns")
+    except (ValueError, TypeError, UserWarning, OverflowError):
+        value = np.datetime64("NaT")
+    if "T" in plain.upper() and re.search(r"[+-]\d\d:?\d\d$", plain):
+        raise argparse.ArgumentTypeError(
+            f"give the time in UTC, without an offset (or with a trailing Z), such as "
+            f"{_TIME_EXAMPLE}; got {text!r}")
+    if np.isnat(value) or not plain[:1].isdigit():
+        raise argparse.ArgumentTypeError(
+            f"expected an ISO 8601 UTC time such as {_TIME_EXAMPLE}, got {text!r}")
+    lo, hi = igrf_table().valid_range
+    year = float(decimal_year(value))
+    if not lo <= year <= hi:
+        raise argparse.ArgumentTypeError(
+            f"{text} is outside {lo:.0f}-{hi:.0f}, the validity of the IGRF-14 coefficients "
+            f"(which also give the dipole axis); this command does not extrapolate the field "
+            f"model beyond it")
     return value
 
 
@@ -96,7 +229,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
     p.add_argument("--field", choices=("dipole", "igrf"), default="dipole",
                    help="field model of the loss cones (default: dipole)")
-    p.add_argument("--footpoint-km", type=float, default=100.0, metavar="KM",
+    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
     p.add_argument("--epoch", type=_epoch, default=None, metavar="YEAR",
                    help="dipole epoch as a decimal year (default: the dipole of 2020.0)")
@@ -142,11 +275,15 @@ def build_parser() -> argparse.ArgumentParser:
                        help="gyration, bounce and drift of one particle in a dipole",
                        description="Timescales and mirror point of a particle on a dipole "
                                    "field line.")
-    p.add_argument("--energy-kev", type=float, required=True, metavar="KEV",
-                   help="kinetic energy (keV)")
-    p.add_argument("--L", type=float, required=True, dest="L", metavar="L", help="L-shell")
-    p.add_argument("--pitch-angle", type=float, default=90.0, metavar="DEG",
-                   help="equatorial pitch angle in degrees (default: 90)")
+    p.add_argument("--energy-kev", type=_energy_kev, required=True, metavar="KEV",
+                   help="kinetic energy (keV), > 0")
+    p.add_argument("--L", type=_l_shell, required=True, dest="L", metavar="L",
+                   help="L-shell, >= 1")
+    p.add_argument("--pitch-angle", type=_pitch_deg, default=90.0, metavar="DEG",
+                   help="equatorial pitch angle in degrees, 0-180 (default: 90)")
+    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+                   help="altitude below which a particle is lost, for the bounce loss cone "
+                        "(default: 100)")
     p.add_argument("--species", default="electron",
                    help="electron, proton, alpha or oxygen+ (default: electron)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
@@ -157,25 +294,33 @@ def build_parser() -> argparse.ArgumentParser:
                                    "and time (--field igrf, or dipole).")
     p.add_argument("--field", choices=("dipole", "igrf"), default="dipole",
                    help="field model (default: dipole)")
-    p.add_argument("--L", type=float, dest="L", default=None, metavar="L",
-                   help="L-shell (dipole closed forms)")
-    p.add_argument("--mlat", type=float, default=0.0, metavar="DEG",
+    p.add_argument("--L", type=_l_shell, dest="L", default=None, metavar="L",
+                   help="L-shell (centred-dipole closed forms)")
+    p.add_argument("--mlat", type=_mlat_deg, default=None, metavar="DEG",
                    help="magnetic latitude with --L (default: 0)")
-    p.add_argument("--latitude", type=float, default=None, metavar="DEG",
+    p.add_argument("--latitude", type=_latitude_deg, default=None, metavar="DEG",
                    help="geodetic latitude (with --longitude, --height-km, --time)")
-    p.add_argument("--longitude", type=float, default=None, metavar="DEG",
+    p.add_argument("--longitude", type=_longitude_deg, default=None, metavar="DEG",
                    help="geographic longitude, east positive")
-    p.add_argument("--height-km", type=float, default=650.0, metavar="KM",
-                   help="height above the ellipsoid (default: 650)")
-    p.add_argument("--time", default="2025-01-01T00:00:00", metavar="ISO",
-                   help="UTC time for the field model (default: 2025-01-01T00:00:00)")
-    p.add_argument("--footpoint-km", type=float, default=100.0, metavar="KM",
+    p.add_argument("--height-km", type=_height_km, default=None, metavar="KM",
+                   help=f"height above the WGS-84 ellipsoid (default: {_DEFAULT_HEIGHT_KM:g})")
+    p.add_argument("--time", type=_utc_time, default=None, metavar="ISO",
+                   help=f"UTC time of a geographic point, e.g. {_TIME_EXAMPLE} (required with "
+                        f"--latitude/--longitude: MLT and the field epoch depend on it)")
+    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return parser
 
 
 # ----------------------------------------------------------------------- helpers
+
+
+class _InputError(Exception):
+    """Options that do not fit together, or inputs that match nothing: one line, exit 1."""
+
+
+_CALCULATORS = ("motion", "losscone")
 
 
 def _say(line, stream=None):
@@ -187,18 +332,33 @@ def _error(message, args) -> int:
     return 1
 
 
-def _table(rows, as_json: bool) -> str:
-    """Rows of (key, label, value, unit) as an aligned table or a JSON object."""
+def _plain_value(v):
+    if isinstance(v, (str, bool, list)):
+        return v
+    return float(v)
+
+
+def _table(rows, as_json: bool, notes=()) -> str:
+    """Rows of (key, label, value, unit) as an aligned table or a JSON object.
+
+    `notes` are printed as ``note: ...`` lines above the table; in JSON they
+    are the list under the key ``notes``.
+    """
     if as_json:
-        return json.dumps({key: {"value": value, "unit": unit}
-                           for key, _, value, unit in rows}, indent=2)
+        obj = {key: {"value": value, "unit": unit} for key, _, value, unit in rows}
+        obj["notes"] = {"value": list(notes), "unit": ""}
+        return json.dumps(obj, indent=2)
     cells = [(label, _number(value), unit) for _, label, value, unit in rows]
     w0 = max(len(c[0]) for c in cells)
     w1 = max(len(c[1]) for c in cells)
-    return "\n".join(f"{a.ljust(w0)}  {b.rjust(w1)}  {c}".rstrip() for a, b, c in cells)
+    lines = [f"note: {n}" for n in notes]
+    lines += [f"{a.ljust(w0)}  {b.rjust(w1)}  {c}".rstrip() for a, b, c in cells]
+    return "\n".join(lines)
 
 
 def _number(value) -> str:
+    if isinstance(value, bool):
+        return "yes" if value else "no"
     if isinstance(value, str):
         return value
     if value != value:  # NaN
@@ -208,12 +368,103 @@ def _number(value) -> str:
     return f"{value:.4e}"
 
 
+def _is_pattern(text: str) -> bool:
+    return any(ch in text for ch in "*?[")
+
+
+def _expand_flux_inputs(inputs) -> list:
+    """Expand the inputs as :func:`beltkit.batch.expand_inputs` does, refusing dead ones.
+
+    Every pattern that matched nothing, missing path and folder without flux
+    files is named; nothing is run (and no output folder is created) then.
+    """
+    from .batch import _INPUT_SUFFIXES, expand_inputs
+
+    files, dead = [], []
+    for item in inputs:
+        text = str(item)
+        found = expand_inputs([text])
+        if _is_pattern(text):
+            if not found:
+                dead.append(f"{text!r} matched nothing")
+        elif Path(text).is_dir():
+            if not found:
+                dead.append(f"folder {text} holds no flux files "
+                            f"({', '.join('*' + x for x in _INPUT_SUFFIXES)}; summaries "
+                            f"excluded)")
+        elif not Path(text).exists():
+            dead.append(f"no such file or folder: {text}")
+            continue
+        files += found
+    if dead:
+        if not files:
+            raise _InputError("no input files: " + "; ".join(dead))
+        raise _InputError("; ".join(dead) + " (nothing was run: fix or drop "
+                       + ("that input)" if len(dead) == 1 else "those inputs)"))
+    return files
+
+
+def _check_survey_inputs(inputs) -> None:
+    """Refuse survey inputs that name nothing, before :func:`beltkit.batch.survey` runs."""
+    from .batch import SUMMARY_SUFFIX, expand_inputs
+
+    dead, n_found = [], 0
+    for item in inputs:
+        text = str(item)
+        if _is_pattern(text):
+            found = len(expand_inputs([text]))
+            if not found:
+                dead.append(f"{text!r} matched nothing")
+        elif Path(text).is_dir():
+            found = len(list(Path(text).glob("*" + SUMMARY_SUFFIX)))
+            if not found:
+                raw = expand_inputs([text])
+                has = f" (only {len(raw)} flux/data file(s))" if raw else ""
+                dead.append(f"folder {text} holds no *{SUMMARY_SUFFIX} files{has}")
+        elif not Path(text).exists():
+            found = 0
+            dead.append(f"no such file or folder: {text}")
+        else:
+            found = 1
+        n_found += found
+    if dead:
+        if not n_found:
+            raise _InputError("no summary files: " + "; ".join(dead)
+                              + "; run `beltkit summarize` first to make them")
+        raise _InputError("; ".join(dead) + " (nothing was surveyed: fix or drop "
+                          + ("that input)" if len(dead) == 1 else "those inputs)"))
+
+
+def _species(name):
+    from .errors import PhysicsError
+    from .particles import get_species
+
+    try:
+        return get_species(name)
+    except PhysicsError:
+        raise _InputError(f"--species: unknown species {name!r}; use electron, proton, alpha "
+                       f"or oxygen+") from None
+
+
+def _check_line_reaches(L, h) -> None:
+    """Refuse an L whose dipole line does not reach the footpoint altitude h (km)."""
+    from .constants import R_E_KM
+
+    need = 1.0 + h / R_E_KM
+    if L < need:
+        raise _InputError(
+            f"--L {L:g}: the field line's apex ({(L - 1.0) * R_E_KM:.1f} km) lies below the "
+            f"footpoint altitude --footpoint-km {h:g}, so every particle on it is lost; give "
+            f"--L >= {need:.6g} or a lower --footpoint-km")
+
+
 # ---------------------------------------------------------------------- commands
 
 
 def _cmd_summarize(args, command) -> int:
     from .batch import summarize
 
+    _expand_flux_inputs(args.inputs)  # before summarize creates the output folder
     results = summarize(
         args.inputs, args.out, field=args.field, altitude_km=args.footpoint_km,
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
@@ -245,6 +496,7 @@ def _cmd_survey(args, command) -> int:
         n = int(round((hi - lo) / step))
         return lo + step * np.arange(n + 1)
 
+    _check_survey_inputs(args.inputs)
     try:
         path = survey(args.inputs, args.out, l_edges=edges(*args.l_bins, "l"),
                       mlt_edges=edges(*args.mlt_bins, "mlt"), time_window=args.window,
@@ -259,13 +511,10 @@ def _cmd_survey(args, command) -> int:
 
 
 def _cmd_inspect(args, command) -> int:
-    from .batch import _pad_function, expand_inputs, one_line
+    from .batch import _pad_function, one_line
     from .io import open_flux
 
-    files = expand_inputs(args.inputs)
-    if not files:
-        _say("beltkit inspect: no input files found", sys.stderr)
-        return 1
+    files = _expand_flux_inputs(args.inputs)
     bad = 0
     for path in files:
         try:
@@ -304,11 +553,20 @@ def _cmd_demo(args, command) -> int:
 def _cmd_motion(args, command) -> int:
     from . import dipole, motion, particles
 
-    sp = particles.get_species(args.species)
-    e, L, a = args.energy_kev, args.L, args.pitch_angle
+    sp = _species(args.species)
+    e, L, a, h = args.energy_kev, args.L, args.pitch_angle, args.footpoint_km
+    _check_line_reaches(L, h)
     b_eq = dipole.equatorial_field(L)
     lam_m = dipole.mirror_mlat(a)
     t_drift = motion.drift_period(e, L, a, species=sp.name)
+    blc = float(dipole.bounce_loss_cone(L, h))
+    inside = min(a, 180.0 - a) < blc
+    notes = []
+    if inside:
+        notes.append(f"inside the bounce loss cone ({blc:.2f} deg at --footpoint-km {h:g}): "
+                     f"lost within one bounce; the periods below are those of an "
+                     f"unobstructed dipole orbit and the mirror point lies below the "
+                     f"footpoint altitude")
     rows = [
         ("species", "species", sp.name, ""),
         ("energy", "kinetic energy", e, "keV"),
@@ -331,75 +589,147 @@ def _cmd_motion(args, command) -> int:
         ("mirror_altitude", "mirror altitude", dipole.mirror_altitude(L, a), "km"),
         ("first_invariant", "first invariant",
          particles.first_invariant(e, a, b_eq, species=sp.name), "MeV/G"),
-        ("bounce_loss_cone", "equatorial bounce loss cone (100 km)",
-         dipole.bounce_loss_cone(L), "degree"),
+        ("footpoint_altitude", "footpoint altitude", h, "km"),
+        ("bounce_loss_cone", f"equatorial bounce loss cone ({h:g} km)", blc, "degree"),
+        ("in_bounce_loss_cone", "inside the bounce loss cone", bool(inside), ""),
     ]
-    rows = [(k, lab, float(v) if not isinstance(v, str) else v, u) for k, lab, v, u in rows]
-    _say(_table(rows, args.json))
+    rows = [(k, lab, _plain_value(v), u) for k, lab, v, u in rows]
+    _say(_table(rows, args.json, notes))
     return 0
+
+
+_GEO_ONLY = (("latitude", "--latitude"), ("longitude", "--longitude"),
+             ("height_km", "--height-km"), ("time", "--time"))
+
+
+def _losscone_dipole(args, h):
+    from . import dipole
+
+    given = [opt for attr, opt in _GEO_ONLY if getattr(args, attr) is not None]
+    if given:
+        raise _InputError(
+            f"--L/--mlat cannot be combined with {', '.join(given)}: give either --L/--mlat "
+            f"for the centred dipole, or --latitude/--longitude/--height-km/--time for a "
+            f"geographic point")
+    if args.field != "dipole":
+        raise _InputError(
+            f"--field {args.field} needs a geographic point (--latitude/--longitude/"
+            f"--height-km/--time); --L/--mlat use the centred-dipole closed forms")
+    L = args.L
+    lam = 0.0 if args.mlat is None else args.mlat
+    _check_line_reaches(L, h)
+    if L * math.cos(math.radians(lam)) ** 2 < 1.0 - 1e-12:  # as beltkit.dipole checks it
+        limit = float(dipole.footpoint_mlat(L, altitude_km=0.0))
+        raise _InputError(
+            f"--mlat {lam:g} on --L {L:g} is inside the Earth (r = L cos^2(mlat) = "
+            f"{L * math.cos(math.radians(lam)) ** 2:.4g} R_E); the largest allowed |--mlat| "
+            f"for --L {L:g} is {limit:.4f} deg, the line's surface footpoint latitude")
+    notes = []
+    lam_f = float(dipole.footpoint_mlat(L, h))
+    if abs(lam) > lam_f:
+        notes.append(f"below the footpoint altitude (--footpoint-km {h:g}): every particle "
+                     f"is lost (local loss cones 90 deg)")
+    rows = [
+        ("L", "L-shell", L, ""),
+        ("mlat", "magnetic latitude", lam, "degree"),
+        ("footpoint_altitude", "footpoint altitude", h, "km"),
+        ("b_local", "field at the point", dipole.field_magnitude(L, lam), "nT"),
+        ("b_foot", "footpoint field", dipole.footpoint_field(L, h), "nT"),
+        ("footpoint_mlat", "footpoint magnetic latitude", lam_f, "degree"),
+        ("blc_local", "local bounce loss cone", dipole.local_loss_cone(L, lam, h), "degree"),
+        ("blc_equatorial", "equatorial bounce loss cone", dipole.bounce_loss_cone(L, h),
+         "degree"),
+        ("dlc_local", "local drift loss cone (= bounce, centred dipole)",
+         dipole.local_loss_cone(L, lam, h), "degree"),
+        ("dlc_equatorial", "equatorial drift loss cone (= bounce, centred dipole)",
+         dipole.bounce_loss_cone(L, h), "degree"),
+    ]
+    return rows, notes
+
+
+def _losscone_geographic(args, h):
+    import numpy as np
+
+    from . import field
+    from .constants import R_E_KM
+
+    if args.mlat is not None:
+        raise _InputError(
+            "--mlat cannot be combined with --latitude/--longitude: give either --L/--mlat "
+            "for the centred dipole, or --latitude/--longitude/--height-km/--time for a "
+            "geographic point")
+    if args.latitude is None or args.longitude is None:
+        raise _InputError("give both --latitude and --longitude (and --height-km, --time) for a "
+                       "geographic point")
+    if args.time is None:
+        raise _InputError(f"--time is required with --latitude/--longitude: MLT and the field "
+                       f"epoch depend on it; give an ISO 8601 UTC time such as "
+                       f"{_TIME_EXAMPLE}")
+    height = _DEFAULT_HEIGHT_KM if args.height_km is None else args.height_km
+    xyz = np.asarray(field.geodetic_to_geo(args.latitude, args.longitude, height),
+                     dtype=float).reshape(1, 3)
+    above_sphere = float(np.sqrt(np.sum(xyz**2))) - R_E_KM
+    if above_sphere < h:
+        raise _InputError(
+            f"--height-km {height:g} puts the point {above_sphere:.1f} km above the R_E = "
+            f"{R_E_KM:g} km sphere, below the footpoint altitude --footpoint-km {h:g}; the "
+            f"loss cones are computed only above it: give a larger --height-km or a smaller "
+            f"--footpoint-km")
+    model = field.as_model(args.field)
+    t = np.array([args.time], dtype="datetime64[ns]")
+    res = field.loss_cones(model, xyz, t, altitude_km=h)
+    names = [
+        ("L", "L-shell", ""), ("mlat_deg", "magnetic latitude", "degree"),
+        ("mlt_hours", "magnetic local time", "h"), ("b_local", "field at the point", "nT"),
+        ("b_min", "minimum field on the line", "nT"),
+        ("b_foot_north", "northern footpoint field", "nT"),
+        ("b_foot_south", "southern footpoint field", "nT"),
+        ("b_foot_drift_min", "weakest footpoint field on the drift shell", "nT"),
+        ("blc_local", "local bounce loss cone", "degree"),
+        ("dlc_local", "local drift loss cone", "degree"),
+        ("blc_equatorial", "equatorial bounce loss cone", "degree"),
+        ("dlc_equatorial", "equatorial drift loss cone", "degree"),
+    ]
+    time_text = str(np.datetime_as_string(args.time, unit="s"))
+    rows = [("model", "field model", model.name, ""),
+            ("time", "time (UTC)", time_text, ""),
+            ("latitude", "geodetic latitude", args.latitude, "degree"),
+            ("longitude", "longitude", args.longitude, "degree"),
+            ("height", "height", height, "km"),
+            ("footpoint_altitude", "footpoint altitude", h, "km")]
+    for key, label, unit in names:
+        if key in res.variables:
+            rows.append((key, label, float(np.asarray(res[key].values).ravel()[0]), unit))
+    notes = []
+    what = {"igrf": "IGRF", "dipole": "centred dipole"}.get(model.name, model.name)
+    L = float(np.asarray(res["L"].values).ravel()[0]) if "L" in res.variables else math.nan
+    is_open = ("open" in res.variables
+               and bool(np.asarray(res["open"].values).ravel()[0]))
+    if is_open:
+        notes.append(f"the field line through the point does not close in the {what}: L "
+                     f"and the loss cones are undefined there; the {what} is an "
+                     f"internal-field model only, and at such latitudes the real field line "
+                     f"depends on the magnetospheric currents (an external-field model)")
+    elif L > 10:
+        notes.append(f"L = {L:.3g} > 10: the {what} is an internal-field model only; "
+                     f"L, the drift shell and the loss cones there are not reliable without "
+                     f"an external-field model")
+    return rows, notes
 
 
 def _cmd_losscone(args, command) -> int:
     h = args.footpoint_km
-    if args.latitude is None and args.longitude is None:
-        if args.field != "dipole" or args.L is None:
-            raise ValueError("give --L (and --mlat) for the dipole closed forms, or "
-                             "--latitude and --longitude (with --height-km, --time) for a "
-                             "point in geographic coordinates")
-        from . import dipole
-
-        L, lam = args.L, args.mlat
-        rows = [
-            ("L", "L-shell", L, ""),
-            ("mlat", "magnetic latitude", lam, "degree"),
-            ("footpoint_altitude", "footpoint altitude", h, "km"),
-            ("b_local", "field at the point", dipole.field_magnitude(L, lam), "nT"),
-            ("b_foot", "footpoint field", dipole.footpoint_field(L, h), "nT"),
-            ("footpoint_mlat", "footpoint magnetic latitude", dipole.footpoint_mlat(L, h),
-             "degree"),
-            ("blc_local", "local bounce loss cone", dipole.local_loss_cone(L, lam, h), "degree"),
-            ("blc_equatorial", "equatorial bounce loss cone", dipole.bounce_loss_cone(L, h),
-             "degree"),
-            ("dlc_local", "local drift loss cone (= bounce, centred dipole)",
-             dipole.local_loss_cone(L, lam, h), "degree"),
-            ("dlc_equatorial", "equatorial drift loss cone (= bounce, centred dipole)",
-             dipole.bounce_loss_cone(L, h), "degree"),
-        ]
+    if args.L is not None:
+        rows, notes = _losscone_dipole(args, h)
+    elif (args.latitude is None and args.longitude is None and args.height_km is None
+          and args.time is None):
+        raise _InputError("give --L (and --mlat) for the centred-dipole closed forms, or "
+                       "--latitude and --longitude (with --height-km, --time) for a point in "
+                       "geographic coordinates")
     else:
-        if args.latitude is None or args.longitude is None:
-            raise ValueError("give both --latitude and --longitude")
-        import numpy as np
-
-        from . import field
-
-        model = field.as_model(args.field)
-        xyz = np.asarray(field.geodetic_to_geo(args.latitude, args.longitude, args.height_km),
-                         dtype=float).reshape(1, 3)
-        t = np.array([np.datetime64(args.time, "ns")])
-        res = field.loss_cones(model, xyz, t, altitude_km=h)
-        names = [
-            ("L", "L-shell", ""), ("mlat_deg", "magnetic latitude", "degree"),
-            ("mlt_hours", "magnetic local time", "h"), ("b_local", "field at the point", "nT"),
-            ("b_min", "minimum field on the line", "nT"),
-            ("b_foot_north", "northern footpoint field", "nT"),
-            ("b_foot_south", "southern footpoint field", "nT"),
-            ("b_foot_drift_min", "weakest footpoint field on the drift shell", "nT"),
-            ("blc_local", "local bounce loss cone", "degree"),
-            ("dlc_local", "local drift loss cone", "degree"),
-            ("blc_equatorial", "equatorial bounce loss cone", "degree"),
-            ("dlc_equatorial", "equatorial drift loss cone", "degree"),
-        ]
-        rows = [("model", "field model", model.name, ""),
-                ("time", "time (UTC)", str(args.time), ""),
-                ("latitude", "geodetic latitude", args.latitude, "degree"),
-                ("longitude", "longitude", args.longitude, "degree"),
-                ("height", "height", args.height_km, "km"),
-                ("footpoint_altitude", "footpoint altitude", h, "km")]
-        for key, label, unit in names:
-            if key in res.variables:
-                rows.append((key, label, float(np.asarray(res[key].values).ravel()[0]), unit))
-    rows = [(k, lab, float(v) if not isinstance(v, str) else v, u) for k, lab, v, u in rows]
-    _say(_table(rows, args.json))
+        rows, notes = _losscone_geographic(args, h)
+    rows = [(k, lab, _plain_value(v), u) for k, lab, v, u in rows]
+    _say(_table(rows, args.json, notes))
     return 0
 
 
@@ -413,6 +743,23 @@ _COMMANDS = {
 }
 
 
+def _quiet_stdout() -> None:
+    """Point standard output at the null device after its reader went away.
+
+    So the interpreter's final flush cannot fail again (the standard recipe
+    for a closed pipe).
+    """
+    try:
+        fd = sys.stdout.fileno()
+    except (AttributeError, OSError, ValueError):
+        return
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(devnull, fd)
+    finally:
+        os.close(devnull)
+
+
 def main(argv=None) -> int:
     """Run the ``beltkit`` command line; return the exit code.
 
@@ -424,28 +771,41 @@ def main(argv=None) -> int:
     Returns
     -------
     int
-        0 when everything succeeded, 1 when any file or computation failed,
-        2 for a usage error.
+        0 when everything succeeded; 1 when any file or computation failed,
+        no input matched or the options do not fit together; 2 when the
+        command line cannot be parsed or an option's value is out of range;
+        130 when interrupted; after a closed output pipe 0 for ``motion`` and
+        ``losscone`` and 141 for the other commands.
     """
     argv = list(sys.argv[1:] if argv is None else argv)
-    parser = build_parser()
+    command_name = None
     try:
-        args = parser.parse_args(argv)
-    except SystemExit as exc:  # argparse exits on --help, --version and usage errors
-        return int(exc.code or 0)
-    if args.command is None:
-        parser.print_help(sys.stderr)
-        return 2
-    command = "beltkit " + shlex.join(argv)
-    try:
-        return _COMMANDS[args.command](args, command)
-    except KeyboardInterrupt:
-        _say(f"beltkit {args.command}: interrupted", sys.stderr)
-        return 130
-    except Exception as exc:  # one line for the user; the traceback only with --debug
-        if getattr(args, "debug", False):
+        parser = build_parser()
+        try:
+            args = parser.parse_args(argv)
+        except SystemExit as exc:  # argparse exits on --help, --version and usage errors
+            return int(exc.code or 0)
+        if args.command is None:
+            parser.print_help(sys.stderr)
+            return 2
+        command_name = args.command
+        command = "beltkit " + shlex.join(argv)
+        try:
+            return _COMMANDS[args.command](args, command)
+        except KeyboardInterrupt:
+            _say(f"beltkit {args.command}: interrupted", sys.stderr)
+            return 130
+        except BrokenPipeError:
             raise
-        return _error(exc, args)
+        except _InputError as exc:  # the user's input, not a fault: never a traceback
+            return _error(exc, args)
+        except Exception as exc:  # one line for the user; the traceback only with --debug
+            if getattr(args, "debug", False):
+                raise
+            return _error(exc, args)
+    except BrokenPipeError:
+        _quiet_stdout()
+        return 0 if command_name in _CALCULATORS or command_name is None else 141
 
 
 if __name__ == "__main__":  # pragma: no cover
