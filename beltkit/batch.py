@@ -313,12 +313,26 @@ def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
         :func:`beltkit.pad.partition`'s result plus ``L``, ``mlat`` and ``mlt``
         per time when the input has them.
     """
+    return _summary(ds, field=field, altitude_km=altitude_km, epoch=epoch)[0]
+
+
+def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False):
+    """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
+
+    With ``defer_value_check`` the flux values of lazy data are checked by
+    the engine while the summary is computed (see
+    ``beltkit.pad.partition._partition``), instead of in a separate pass
+    over the file before it.
+    """
+    from .pad.partition import _partition
+
     model = _field_model(field, epoch, ds)
-    out = _pad_function("partition")(ds, model=model, altitude_km=altitude_km)
+    out, pending = _partition(ds, model=model, altitude_km=altitude_km,
+                              defer_value_check=defer_value_check)
     for name in _POSITION:
         if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
             out[name] = ds[name]
-    return out
+    return out, pending
 
 
 def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_position) -> dict:
@@ -334,6 +348,19 @@ def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_positio
         "comment": "precipitating / quasi-trapped / trapped populations as defined in "
                    "beltkit's docs/conventions.md (bounce and drift loss cones)",
     }
+
+
+_HASHER = {"pid": None, "pool": None}
+
+
+def _hasher():
+    """One background thread per process for input checksums (made again after a fork)."""
+    if _HASHER["pid"] != os.getpid():
+        from concurrent.futures import ThreadPoolExecutor
+
+        _HASHER["pool"] = ThreadPoolExecutor(max_workers=1, thread_name_prefix="beltkit-sha256")
+        _HASHER["pid"] = os.getpid()
+    return _HASHER["pool"]
 
 
 # The netCDF-C and HDF5 libraries are not thread-safe: a threaded dask worker
@@ -357,25 +384,31 @@ def _process_file_locked(task: dict) -> FileResult:
     out = Path(task["output"])
     settings = task["settings"]
     ds = None
+    digest = None
     try:
-        digest = sha256(src) if src.is_file() else None
-        if digest is None:
+        if not src.is_file():
             raise FileNotFoundError(f"{src}: no such file")
+        # the checksum is read in another thread while the file is summarized (hashlib
+        # and file reads release the GIL); it is needed before only to skip a file
+        digest = _hasher().submit(sha256, src)
         if not task["overwrite"] and out.exists():
             attrs = read_attributes(out)
-            if (attrs.get("source_sha256") == digest
+            if (attrs.get("source_sha256") == digest.result()
                     and attrs.get("beltkit_settings") == _settings_text(settings)):
                 return FileResult(str(src), str(out), "skipped", "up to date",
                                   _time.perf_counter() - t0)
         with _single_threaded():
             ds = open_flux(src, mapping=task["mapping"], chunks={"time": _TIME_CHUNK})
-            summary = summarize_dataset(ds, field=task["field"],
+            # the flux values are checked while the summary is computed (one pass over
+            # the file); a refused file leaves no output (write_dataset's verify)
+            summary, pending = _summary(ds, field=task["field"],
                                         altitude_km=settings["altitude_km"],
-                                        epoch=task["epoch"])
+                                        epoch=task["epoch"], defer_value_check=True)
+            attrs = _summary_attrs(src, "", settings, task["epoch"],
+                                   "position_geo" in ds.variables)
             write_dataset(summary, out, compress=settings["compress"],
-                          history=task["command"],
-                          attrs=_summary_attrs(src, digest, settings, task["epoch"],
-                                               "position_geo" in ds.variables))
+                          history=task["command"], attrs=attrs, verify=pending,
+                          late_attrs=lambda: {"source_sha256": digest.result()})
         return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0)
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         if task.get("debug"):
@@ -387,6 +420,8 @@ def _process_file_locked(task: dict) -> FileResult:
     finally:
         if ds is not None:
             ds.close()
+        if digest is not None:
+            digest.cancel()
 
 
 # --------------------------------------------------------------------- many files

@@ -614,7 +614,7 @@ def _small_chunk_cache():
 
 
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,
-                  time_chunk: int = 4096) -> Path:
+                  time_chunk: int = 4096, verify=None, late_attrs=None) -> Path:
     """Write a dataset as a CF-1.8 netCDF-4 file, atomically.
 
     The data are written to a temporary file in the target folder, flushed to
@@ -639,6 +639,16 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
         Extra global attributes (override those of `ds`).
     time_chunk : int
         Chunk length along ``time`` in the file.
+    verify : tuple, optional
+        ``(collection, check)``: a dask collection computed in the same pass
+        as the data (sharing their tasks, so the input is read once), and a
+        function called with its value once the data are written; if it
+        raises, the temporary file is removed and nothing is renamed into
+        place (e.g. value checks that can only be judged after a full pass).
+    late_attrs : callable, optional
+        Called after the data are written; the global attributes it returns
+        are added before the file is flushed and renamed (e.g. a checksum of
+        the input computed meanwhile in another thread).
 
     Returns
     -------
@@ -672,8 +682,25 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
     tmp = temporary_name(path)
     try:
         with _small_chunk_cache():
-            out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                          encoding=encoding)
+            if verify is None:
+                out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
+                              encoding=encoding)
+            else:
+                import dask
+
+                collection, check = verify
+                writer = out.to_netcdf(tmp, mode="w", format="NETCDF4",
+                                       engine=_netcdf_engine(), encoding=encoding,
+                                       compute=False)
+                _, value = dask.compute(writer, collection)
+                check(value)
+        if late_attrs is not None:
+            extra = _clean_attrs(late_attrs())
+            if extra:
+                import netCDF4
+
+                with netCDF4.Dataset(tmp, "a") as nc:
+                    nc.setncatts(extra)
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)

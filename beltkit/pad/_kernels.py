@@ -30,11 +30,12 @@ _CHUNK = 256
 
 
 def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, cosb,
-                        cosd, coso, has_neg, out, flag, stats, chunk):
+                        cosd, coso, has_neg, out, flag, stats, chunk, count_row):
     n, n_e, n_p = x.shape
     xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
     nan = np.nan
     wt = np.empty((5, n_p))
+    wq = np.empty((9, n_p))
     colsum = np.empty(5)
     n_rows = 23  # 0-13 sums, 14-22 error sums
     # rows padded apart (not a multiple of 4 KiB): no cache-set aliasing between them
@@ -61,6 +62,10 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     stats[e, 0] += nf
                     stats[e, 1] += ng
                     stats[e, 2] += nq
+                    if count_row >= 0:
+                        out[count_row, t * n_e + e] = nf
+                        out[count_row + 1, t * n_e + e] = ng
+                        out[count_row + 2, t * n_e + e] = nq
                     for k in range(n_rows):
                         sc[k, j0 + e] = 0.0
                 continue
@@ -96,6 +101,20 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             om0 = _FOUR_PI * (1.0 - cb)
             om1 = _FOUR_PI * (cb - cd)
             om2 = _FOUR_PI * cd
+            if has_s:  # the weight products of the error propagation
+                for p in range(n_p):
+                    w0 = wt[0, p]
+                    w3 = wt[3, p]
+                    w4 = wt[4, p]
+                    wq[0, p] = w0 * w0
+                    wq[1, p] = wt[1, p] * wt[1, p]
+                    wq[2, p] = wt[2, p] * wt[2, p]
+                    wq[3, p] = w4 * w4
+                    wq[4, p] = w3 * w3
+                    wq[5, p] = w0 * w4
+                    wq[6, p] = wt[1, p] * w4
+                    wq[7, p] = wt[2, p] * w4
+                    wq[8, p] = w0 * w3
             # one vectorised scan of the sample's E x P values: any missing or negative?
             n_bad = 0
             n_low = 0
@@ -103,6 +122,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                 v = xf[t, i]
                 n_bad += 0 if v - v == 0.0 else 1
                 n_low += 1 if v < 0.0 else 0
+            all_ok = n_bad == 0
             for e in range(n_e):
                 j = j0 + e
                 a0 = a1 = a2 = a3 = a4 = 0.0
@@ -144,6 +164,10 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         m4 += fin * wt[4, p]
                 stats[e, 0] += nf
                 stats[e, 1] += ng
+                if count_row >= 0:
+                    out[count_row, t * n_e + e] = nf
+                    out[count_row + 1, t * n_e + e] = ng
+                    out[count_row + 2, t * n_e + e] = 0
                 sc[0, j] = a0
                 sc[1, j] = a1
                 sc[2, j] = a2
@@ -164,23 +188,20 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     for p in range(n_p):
                         q = np.float64(s[t, e, p])
                         nq += 1 if q < 0.0 else 0
-                        ok = x[t, e, p] - x[t, e, p] == 0.0
+                        ok = all_ok or x[t, e, p] - x[t, e, p] == 0.0
                         q2 = q * q if ok else 0.0
-                        w0 = wt[0, p]
-                        w1 = wt[1, p]
-                        w2 = wt[2, p]
-                        w3 = wt[3, p]
-                        w4 = wt[4, p]
-                        v0 += q2 * w0 * w0
-                        v1 += q2 * w1 * w1
-                        v2 += q2 * w2 * w2
-                        v3 += q2 * w4 * w4
-                        v4 += q2 * w3 * w3
-                        v5 += q2 * w0 * w4
-                        v6 += q2 * w1 * w4
-                        v7 += q2 * w2 * w4
-                        v8 += q2 * w0 * w3
+                        v0 += q2 * wq[0, p]
+                        v1 += q2 * wq[1, p]
+                        v2 += q2 * wq[2, p]
+                        v3 += q2 * wq[3, p]
+                        v4 += q2 * wq[4, p]
+                        v5 += q2 * wq[5, p]
+                        v6 += q2 * wq[6, p]
+                        v7 += q2 * wq[7, p]
+                        v8 += q2 * wq[8, p]
                     stats[e, 2] += nq
+                    if count_row >= 0:
+                        out[count_row + 2, t * n_e + e] = nq
                     sc[14, j] = v0
                     sc[15, j] = v1
                     sc[16, j] = v2
@@ -273,7 +294,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                 # -rho / a3; no division by a0, so an empty loss cone still gets its error bar
                 fill_ok = s0 & e0 & (m3 > TOL_SR) & (a3 != 0.0)
                 kf = m3 / (m0 * a3) if fill_ok else nan
-                qf = a0 * kf / a3
+                qf = a0 * kf / a3 if fill_ok else nan
                 var = kf * kf * v0 + qf * qf * sc[18, j] - 2 * kf * qf * sc[22, j]
                 out[22, o + j] = math.sqrt(max(var, 0.0)) if fill_ok else nan
         # ---- samples whose loss cone is unknown: NaN everywhere, flag 64
@@ -282,7 +303,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             d = dlc[t]
             if not (b == b) or not (d == d):
                 for e in range(n_e):
-                    for k in range(out.shape[0]):
+                    for k in range(count_row if count_row >= 0 else out.shape[0]):
                         out[k, t * n_e + e] = nan
                     flag[t * n_e + e] = 64
 
@@ -316,13 +337,15 @@ def _jitted(name):
         # fast-math without the no-NaN/no-inf flags: NaN tests stay valid, sums vectorise
         fastmath = {"reassoc", "contract", "arcp", "nsz"}
         py = {"partition": _partition_block_py, "scan": _value_scan_py}[name]
-        opts = {"fastmath": fastmath} if name == "partition" else {}
+        # numpy's error model: every division is guarded by a select already, and no
+        # zero-divisor branch is left to stop the vectoriser
+        opts = {"fastmath": fastmath, "error_model": "numpy"} if name == "partition" else {}
         _JIT[name] = numba.njit(cache=True, nogil=True, **opts)(py)
     return _JIT[name]
 
 
 def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats,
-                    flag=None):
+                    flag=None, count_row=-1):
     """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
 
     Parameters
@@ -354,6 +377,11 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
     flag : numpy.ndarray, optional
         (>= n * E,) int16 array receiving ``partition_flag``; None: the flags
         go to ``out[14]`` as numbers.
+    count_row : int, optional
+        When >= 0, rows ``count_row`` to ``count_row + 2`` of ``out`` receive
+        the per-(time, energy) counts of valid flux values, negative flux
+        values and negative errors (so that a lazy caller can sum the value
+        checks over its blocks afterwards).
     """
     n = x.shape[0]
     has_s = s is not None
@@ -369,7 +397,7 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
     flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
             np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso,
-            bool(has_neg), out, flag_arr, stats, _CHUNK)
+            bool(has_neg), out, flag_arr, stats, _CHUNK, int(count_row))
     if HAVE_NUMBA:
         _jitted("partition")(*args)
     else:  # pragma: no cover

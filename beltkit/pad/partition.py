@@ -236,7 +236,7 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
     return out.astype(out_dtype, copy=False)
 
 
-def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None):
+def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_counts=None):
     x = prep.flux_mask.apply(flux_blk, dtype)
     s = None
     if prep.error_source == "flux_err":
@@ -245,6 +245,8 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None):
         counts = prep.counts_mask.apply(err_blk, dtype)
         if stats is not None:
             stats[:, 2] += (counts < 0).sum(axis=(0, 2))
+        if neg_counts is not None:
+            neg_counts.append((counts < 0).sum(axis=2))
         # Poisson: sigma_N = sqrt(N), with N = 0 counted as 1 (documented convention)
         s = (np.sqrt(np.maximum(counts, 1)) * c2f_blk).astype(dtype, copy=False)
         s = np.where(np.isnan(counts), dtype.type(np.nan), s)
@@ -275,18 +277,28 @@ def _numpy_stats(x, s, stats):
 
 
 def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, dtype,
-               out=None, stats=None, flag=None):
+               out=None, stats=None, flag=None, counts=False):
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
 
     With ``flag`` (int16, n * E) the flags go there instead of ``out[14]``.
+    With ``counts`` (new arrays only) three rows follow the outputs: per time
+    and energy the number of valid flux values, of negative flux values and
+    of negative errors (the value checks, summed by the caller).
     """
-    x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats)
+    neg_counts = [] if counts else None
+    x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, neg_counts)
     if stats is None:
         stats = np.zeros((x.shape[1], 3), dtype=np.int64)
     n, n_e = x.shape[:2]
     if opts["engine"] == "numpy":
         _numpy_stats(x, s, stats)
         res = _kernel(x, s, blc, dlc, look, geom=geom, opts=opts)
+        if counts:
+            neg_err = neg_counts[0] if neg_counts else (
+                (s < 0).sum(axis=2) if s is not None else np.zeros((n, n_e)))
+            res = np.concatenate([res, np.stack([np.isfinite(x).sum(axis=2),
+                                                 (x < 0).sum(axis=2), neg_err])
+                                  .astype(res.dtype)])
         if out is None:
             return res
         out[:, : n * n_e] = res.reshape(res.shape[0], -1)
@@ -296,8 +308,9 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
     x = np.ascontiguousarray(x)
     s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
+    n_data = _n_out(s is not None)
     if out is None:
-        out = _alloc_out(_n_out(s is not None), n, n_e, dtype)
+        out = _alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
     blc = np.asarray(blc, dtype=float)
     dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
     wpre = None
@@ -311,7 +324,10 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
         cos_a1, cos_a2 = geom["cos_a1"], geom["cos_a2"]
         fold = 2.0 if geom["folded"] else 1.0
     _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
-                             opts["has_negative"], out, stats, flag)
+                             opts["has_negative"], out, stats, flag,
+                             n_data if counts else -1)
+    if neg_counts:  # Poisson errors: the negative counts are those of `counts`
+        out[n_data + 2, : n * n_e] = neg_counts[0].reshape(-1)
     return _as_3d(out, n, n_e) if ret3d else out
 
 
@@ -358,8 +374,9 @@ def _arrays(ds, prep):
     return flux, err, c2f, look
 
 
-def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None):
-    nout = _n_out(err is not None)
+def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None,
+             counts=False):
+    nout = _n_out(err is not None) + (3 if counts else 0)
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look, blc, dlc) if a is not None)
     if lazy:
@@ -388,7 +405,8 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
         lx = as_dask(look, 2)
 
         def func(f, e, c, b, d, lk):
-            return _run_block(f, e, c, b, d, lk, prep=prep, geom=geom, opts=opts, dtype=dtype)
+            return _run_block(f, e, c, b, d, lk, prep=prep, geom=geom, opts=opts, dtype=dtype,
+                              counts=counts)
 
         args = [fx, "tep", ex, "tep" if ex is not None else None,
                 cx, "tep" if cx is not None else None, bx, "t", dx, "t",
@@ -611,9 +629,28 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     >>> bool(np.isclose(float(out.fraction_precipitating[0, 0]), 1 - np.cos(blc)))
     True
     """
+    out, _ = _partition(ds, model, altitude_km, filling_band_deg=filling_band_deg,
+                        allow_negative=allow_negative, engine=engine, fill=fill)
+    return out
+
+
+def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
+               allow_negative=False, engine="auto", fill=None, defer_value_check=False):
+    """:func:`partition`, optionally leaving the value checks of lazy data to the caller.
+
+    Returns ``(out, pending)``. With ``defer_value_check`` and dask data, the
+    validator's value scan (a pass over the whole file) is skipped and the
+    engine counts the values while it computes the outputs: ``pending`` is
+    ``(stats, verify)``, a dask array to compute *together with* the outputs
+    (so that the data are read once) and a function of its value that raises
+    the :class:`ConventionError` listing every problem. Otherwise ``pending``
+    is None and the checks have been made.
+    """
     lazy = _is_lazy(ds)
+    deferred = bool(defer_value_check and lazy)
     # eager data: the value checks are gathered by the engine in its single pass
-    prep: Prepared = check(ds, model=model, allow_negative=allow_negative, check_values=lazy)
+    prep: Prepared = check(ds, model=model, allow_negative=allow_negative,
+                           check_values=lazy and not deferred)
     lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
@@ -631,12 +668,23 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     data, flags = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom,
-                           opts, dtype, stats)
-    if stats is not None:
-        problems = value_problems(prep.energy_kev, stats[:, 0] > 0, int(stats[:, 1].sum()),
-                                  int(stats[:, 2].sum()), prep.error_source, allow_negative)
+                           opts, dtype, stats, counts=deferred)
+    source = ds.encoding.get("source")
+
+    def verify(totals):
+        """Raise the ConventionError of the value checks from (valid, negative, negative err)."""
+        valid, neg, neg_err = (np.asarray(t) for t in totals)
+        problems = value_problems(prep.energy_kev, valid > 0, int(neg.sum()), int(neg_err.sum()),
+                                  prep.error_source, allow_negative)
         if problems:
-            raise ConventionError(problems, ds.encoding.get("source"))
+            raise ConventionError(problems, source)
+
+    if stats is not None:
+        verify(stats.T)
+    pending = None
+    if deferred:
+        n_data = _n_out(err is not None)
+        pending = (data[n_data:].astype(np.int64).sum(axis=1), verify)
     with_err = err is not None
     names = list(_NAMES) + (list(_ERR_NAMES) if with_err else [])
     dims = ("time", "energy")
@@ -680,4 +728,4 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     }
     if fill == "sine_power":
         out = _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative)
-    return out
+    return out, pending
