@@ -481,3 +481,35 @@ def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, 
         for s in (a, b):  # the survey needs L and MLT, derived from the GEO position
             assert np.isfinite(s["L"].values).all() and np.isfinite(s["mlt"].values).all()
             assert ((s["blc_local"] > 0) & (s["blc_local"] <= 90)).all()
+
+
+def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkeypatch):
+    # summarize checks the flux values while it writes the summary (no separate scan of
+    # the file first): a refused file still names every problem, exactly as the validator
+    # does, and leaves neither an output nor a temporary file
+    from beltkit.pad import validate
+
+    monkeypatch.setattr(batch, "_TIME_CHUNK", 16)  # several chunks: the counts are summed
+    inp = tmp_path / "in"
+    inp.mkdir()
+    ds = flux_dataset(n_time=100, seed=3)
+    bad = ds.copy(deep=True)
+    bad["flux"][5, 0, 2] = -1.0
+    bad["flux"][40, 0, 0] = -0.5
+    bad["flux"][77, 1, 4] = -2.0
+    bad["flux"][:, 2, :] = np.nan
+    bad["flux_err"][90, 3, 1] = -0.1
+    write_flux_file(inp / "bad_values.nc", bad)
+    write_flux_file(inp / "good.nc", ds)
+    want = validate(bio.open_flux(inp / "bad_values.nc", chunks=None))
+    assert len(want) == 3 and "3 negative values" in want[1]
+    results = {Path(r.input).name: r for r in batch.summarize([inp], tmp_path / "out")}
+    assert results["good.nc"].status == "ok", results["good.nc"].reason
+    r = results["bad_values.nc"]
+    assert r.status == "failed"
+    assert r.reason == "; ".join(want)
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [
+        "good.summary.nc", "run-report.jsonl"]
+    # the checksum recorded after the data is that of the input
+    with xr.open_dataset(tmp_path / "out" / "good.summary.nc") as got:
+        assert got.attrs["source_sha256"] == bio.sha256(inp / "good.nc")

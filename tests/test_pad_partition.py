@@ -356,3 +356,38 @@ def test_empty_loss_cone_keeps_a_finite_filling_error(engine):
     err = empty.loss_cone_filling_err.values.item()
     assert np.isfinite(err) and err > 0
     np.testing.assert_allclose(err, tiny.loss_cone_filling_err.values.item(), rtol=1e-6)
+
+
+def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
+    # batch runs leave the value checks of dask data to the engine's own pass (the file is
+    # read once); summed over the chunks they must name exactly the validator's problems
+    from beltkit.pad.conventions import validate
+    from beltkit.pad.partition import _partition
+
+    rng = np.random.default_rng(5)
+    j = rng.uniform(1, 50, (40, 3, 12))
+    j[3, 0, 2] = -1.0  # negatives in three different chunks
+    j[17, 2, 7] = -2.0
+    j[39, 0, 0] = -0.5
+    j[:, 1, :] = np.nan  # a dead channel
+    err = np.sqrt(np.abs(j) + 1)
+    err[25, 2, 3] = -0.1
+    ds = make_ds(j, EDGES_12, flux_err=err)
+    want = validate(ds)
+    assert len(want) == 3 and "3 negative values" in want[1]
+    out, (totals, verify) = _partition(ds.chunk(time=7), defer_value_check=True)
+    assert out["flux_trapped"].chunks is not None
+    totals = totals.compute()
+    with pytest.raises(ConventionError) as exc:
+        verify(totals)
+    assert exc.value.problems == want
+    np.testing.assert_array_equal(totals[0], [40 * 12, 0, 40 * 12])  # valid values per energy
+    # good data: the same outputs as the eager engine, and nothing raised
+    good = make_ds(np.abs(np.nan_to_num(j, nan=3.0)), EDGES_12, flux_err=np.abs(err))
+    out, (totals, verify) = _partition(good.chunk(time=7), defer_value_check=True)
+    verify(totals.compute())
+    xr.testing.assert_allclose(out.compute(), partition(good))
+    # eager data (and the public function) keep checking before returning
+    assert _partition(good, defer_value_check=True)[1] is None
+    with pytest.raises(ConventionError, match="3 negative values"):
+        partition(ds.chunk(time=7))
