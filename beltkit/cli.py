@@ -201,11 +201,35 @@ def _utc_time(text):
 
 
 def _epoch(text):
+    from .field.igrf import igrf_table
+
     try:
-        return float(text)
+        value = float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(
             f"must be a decimal year such as 2024.5, got {text!r}") from None
+    lo, hi = igrf_table().valid_range
+    if not lo <= value <= hi:  # also refuses nan
+        raise argparse.ArgumentTypeError(
+            f"must be a decimal year within {lo:.0f}-{hi:.0f} (the validity of the IGRF-14 "
+            f"coefficients that give the dipole), got {text}")
+    return value
+
+
+def _duration(text):
+    """Check a survey time window such as 1D or 6h (parsed later the same way by pandas)."""
+    import pandas as pd
+
+    try:
+        ok = pd.to_timedelta(text) > pd.Timedelta(0)
+    except (ValueError, TypeError):
+        ok = None
+    if ok is None:
+        raise argparse.ArgumentTypeError(
+            f"expected a duration such as 1D, 6h or 90min, got {text!r}")
+    if not ok:
+        raise argparse.ArgumentTypeError(f"must be a positive duration, got {text!r}")
+    return text
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -255,7 +279,7 @@ def build_parser() -> argparse.ArgumentParser:
                    metavar=("LOW", "HIGH", "STEP"), help="L bins (default: 1 8 0.5)")
     p.add_argument("--mlt-bins", nargs=3, type=float, default=(0.0, 24.0, 1.0),
                    metavar=("LOW", "HIGH", "STEP"), help="MLT bins in hours (default: 0 24 1)")
-    p.add_argument("--window", default=None, metavar="DURATION",
+    p.add_argument("--window", type=_duration, default=None, metavar="DURATION",
                    help="time windows such as 1D, 6h, 27D (default: one window)")
     p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",
                    help="zlib level, 0 = none (default: 4)")
@@ -490,9 +514,11 @@ def _cmd_survey(args, command) -> int:
     from .batch import SurveyError, survey
 
     def edges(lo, hi, step, what):
-        if step <= 0 or hi <= lo:
-            raise ValueError(f"--{what}-bins needs LOW < HIGH and STEP > 0, got "
+        if not (step > 0 and hi > lo) or not all(map(math.isfinite, (lo, hi, step))):
+            raise ValueError(f"--{what}-bins needs finite LOW < HIGH and STEP > 0, got "
                              f"{lo:g} {hi:g} {step:g}")
+        if what == "mlt" and (lo < 0 or hi > 24):
+            raise ValueError(f"--mlt-bins must lie within 0-24 h, got {lo:g} {hi:g} {step:g}")
         n = int(round((hi - lo) / step))
         return lo + step * np.arange(n + 1)
 

@@ -459,3 +459,26 @@ def test_closed_output_pipe_in_a_real_process():
         os.close(write_end)
     assert proc.returncode == 0
     assert proc.stderr == ""  # neither "[Errno 32] Broken pipe" nor "Exception ignored"
+
+
+def test_batch_options_are_checked_before_anything_runs(tmp_path, capsys):
+    for value in ("1800", "nan"):
+        assert main(["summarize", "x.nc", "--out", str(tmp_path / "o"), "--epoch", value]) == 2
+        assert f"argument --epoch: must be a decimal year within 1900-2030 (the validity of " \
+               f"the IGRF-14 coefficients that give the dipole), got {value}" in \
+            capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
+    assert main(["survey", str(tmp_path), "--out", "s.nc", "--window", "abc"]) == 2
+    assert "argument --window: expected a duration such as 1D, 6h or 90min, got 'abc'" in \
+        capsys.readouterr().err
+    assert main(["survey", str(tmp_path), "--out", "s.nc", "--window", "0D"]) == 2
+    assert "argument --window: must be a positive duration, got '0D'" in capsys.readouterr().err
+    summaries = tmp_path / "summaries"
+    summaries.mkdir()
+    (summaries / "a.summary.nc").write_bytes(b"")  # the bin check comes before any reading
+    assert main(["survey", str(summaries), "--out", str(tmp_path / "s.nc"), "--mlt-bins", "0",
+                 "30", "1"]) == 1
+    assert "--mlt-bins must lie within 0-24 h, got 0 30 1" in capsys.readouterr().err
+    assert main(["survey", str(summaries), "--out", str(tmp_path / "s.nc"), "--l-bins", "1",
+                 "nan", "0.5"]) == 1
+    assert "--l-bins needs finite LOW < HIGH and STEP > 0" in capsys.readouterr().err
