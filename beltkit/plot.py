@@ -7,7 +7,18 @@ so it runs headless under any backend), returns the
 logarithmic; colour maps are perceptually uniform and readable in greyscale
 and by colour-blind readers (``viridis``, ``cividis``); lines differ by style
 and marker as well as by colour; every axis and colour bar names its quantity
-and unit.
+and unit (fractions are dimensionless and carry no unit suffix).
+
+Data that sample only part of the sphere (telescopes, or a spectrometer with
+gaps) are partitioned over the *measured* solid angle only: their fractions
+and fluxes are shares of what was seen, not of the whole distribution. The
+figures detect this from the data (:func:`partial_coverage`: a ``coverage_*``
+below 1 or the ``partial_coverage`` bit 8 of ``partition_flag``), label such
+quantities "of the measured flux" / "over the measured solid angle" and say so
+in a note. Samples on field lines beyond ``L_VALID_MAX`` (L > 10: outside the
+outer belt, on open or strongly stretched field lines that neither a centred
+dipole nor an internal field describes) are greyed out of the fraction panels
+and survey maps.
 
 Inputs follow beltkit's conventions: a flux dataset (``flux`` on ``time``,
 ``energy`` and ``pitch_angle`` or ``look``), its summary from
@@ -34,8 +45,11 @@ from matplotlib.figure import Figure
 
 __all__ = [
     "FLUX_LABEL",
+    "L_VALID_MAX",
+    "PARTIAL_NOTE",
     "energy_time",
     "loss_cone_longitude",
+    "partial_coverage",
     "pitch_angle_distribution",
     "pitch_angle_time",
     "spectrogram",
@@ -44,6 +58,15 @@ __all__ = [
 
 FLUX_LABEL = "flux (cm$^{-2}$ s$^{-1}$ sr$^{-1}$ keV$^{-1}$)"
 _INTEGRATED_LABEL = "flux (cm$^{-2}$ s$^{-1}$ keV$^{-1}$)"
+_INTEGRATED_UNIT = "(cm$^{-2}$ s$^{-1}$ keV$^{-1}$)"
+#: Highest L-shell shown in fraction panels and survey maps. Beyond it (L > 10)
+#: the samples lie outside the outer belt, on open or strongly stretched field
+#: lines where a centred dipole (or any internal field) is not a valid
+#: description, so their L and loss cones are not meaningful.
+L_VALID_MAX = 10.0
+#: Note added to figures of partially covered data.
+PARTIAL_NOTE = ("partial coverage: {who} only part of the sphere; fractions and fluxes "
+                "are shares of the measured solid angle, not of the whole distribution")
 _LINESTYLES = ("-", "--", "-.", ":")
 _MARKERS = ("o", "s", "^", "v", "D", "P", "X", "*")
 _FLUX_CMAP = "viridis"
@@ -58,6 +81,89 @@ _LABELS = {
     "flux_quasi_trapped": "quasi-trapped " + _INTEGRATED_LABEL,
     "flux_trapped": "trapped " + _INTEGRATED_LABEL,
 }
+# the same quantities when the data cover only part of the sphere
+_PARTIAL_LABELS = {
+    "fraction_precipitating": "precipitating fraction of the measured flux (partial coverage)",
+    "fraction_quasi_trapped": "quasi-trapped fraction of the measured flux (partial coverage)",
+    "fraction_trapped": "trapped fraction of the measured flux (partial coverage)",
+    "loss_cone_filling": "loss-cone filling ratio (partial coverage)",
+    "omni_flux": "flux over the measured solid angle " + _INTEGRATED_UNIT,
+    "flux_precipitating": "precipitating flux over the measured solid angle " + _INTEGRATED_UNIT,
+    "flux_quasi_trapped": "quasi-trapped flux over the measured solid angle " + _INTEGRATED_UNIT,
+    "flux_trapped": "trapped flux over the measured solid angle " + _INTEGRATED_UNIT,
+}
+_L_MASK_NOTE = "grey: L > {l_max:g}, beyond the outer belt (dipole field not valid), not shown"
+
+
+def partial_coverage(data) -> bool:
+    """Whether a summary (or survey) comes from data covering only part of the sphere.
+
+    True when any finite ``coverage_precipitating``, ``coverage_quasi_trapped``
+    or ``coverage_trapped`` (or their survey means ``coverage_*_mean``) is
+    below 1, or when any ``partition_flag`` has the ``partial_coverage`` bit
+    (8) set. Then the partition's fractions and fluxes refer to the measured
+    solid angle only.
+
+    Parameters
+    ----------
+    data : xarray.Dataset
+        Output of :func:`beltkit.pad.partition` / :func:`beltkit.batch.summarize`
+        (or a survey holding coverage means).
+
+    Returns
+    -------
+    bool
+        False when the dataset holds no coverage information.
+
+    Examples
+    --------
+    >>> import xarray as xr
+    >>> partial_coverage(xr.Dataset({"coverage_trapped": ("time", [1.0, 0.6])}))
+    True
+    >>> partial_coverage(xr.Dataset({"partition_flag": ("time", [0, 0])}))
+    False
+    """
+    for pop in ("precipitating", "quasi_trapped", "trapped"):
+        for name in (f"coverage_{pop}", f"coverage_{pop}_mean"):
+            if name in data:
+                v = np.asarray(data[name].values, float)
+                if np.any(v[np.isfinite(v)] < 1 - 1e-6):
+                    return True
+    if "partition_flag" in data:
+        flags = np.asarray(data["partition_flag"].values)
+        if np.any((flags.astype(np.int64) & 8) != 0):
+            return True
+    return False
+
+
+def _quantity_label(quantity, partial):
+    table = _PARTIAL_LABELS if partial else _LABELS
+    return table.get(quantity, _LABELS.get(quantity, quantity.replace("_", " ")))
+
+
+def _partial_note(ds=None):
+    who = ("the telescopes sample" if ds is not None and "flux" in ds
+           and "look" in ds["flux"].dims else "the instrument samples")
+    return PARTIAL_NOTE.format(who=who)
+
+
+def _runs(mask):
+    """Start and end indices (inclusive) of the runs of True in a 1-D boolean array."""
+    m = np.concatenate([[False], np.asarray(mask, bool), [False]])
+    d = np.diff(m.astype(np.int8))
+    return np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1
+
+
+def _span_text(times):
+    """'YYYY-MM-DD HH:MM-HH:MM UTC' (or both dates when the span crosses midnight)."""
+    t = np.asarray(times, dtype="datetime64[s]")
+    t = t[~np.isnat(t)]
+    if t.size == 0:
+        return ""
+    lo, hi = str(t.min()), str(t.max())
+    if lo[:10] == hi[:10]:
+        return f"{lo[:10]} {lo[11:16]}–{hi[11:16]} UTC"
+    return f"{lo[:10]} {lo[11:16]} – {hi[:10]} {hi[11:16]} UTC"
 
 
 # --------------------------------------------------------------------------- helpers
@@ -231,7 +337,8 @@ def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=N
         north, south = float(cones["north"]), float(cones["south"])
         dlc = float(cones["dlc"])
         ax.axvspan(0, north, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
-                   label=f"bounce loss cone ({north:.1f}°, {south:.1f}°)", zorder=0)
+                   label=f"bounce loss cone: {north:.1f}° north-going / "
+                         f"{south:.1f}° south-going", zorder=0)
         ax.axvspan(180 - south, 180, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
                    zorder=0)
         if dlc > max(north, south) + 1e-6:
@@ -276,7 +383,9 @@ def energy_time(ds, *, pitch_angle=None, summary=None, ax=None, cmap=_FLUX_CMAP)
         it is drawn. Default: the summary's omnidirectional flux when a
         summary is given, else the bin nearest 90 deg (the ``side`` look).
     summary : xarray.Dataset, optional
-        Summary holding ``omni_flux``.
+        Summary holding ``omni_flux``. When it comes from partially covered
+        data (:func:`partial_coverage`) the flux is labelled as integrated
+        over the measured solid angle, which is what it is.
     ax : matplotlib.axes.Axes, optional
         Axes to draw into.
     cmap : str
@@ -289,7 +398,11 @@ def energy_time(ds, *, pitch_angle=None, summary=None, ax=None, cmap=_FLUX_CMAP)
     fig, ax = _new_axes(ax, (8.0, 3.4))
     if pitch_angle is None and summary is not None and "omni_flux" in summary:
         values = summary["omni_flux"].transpose("time", "energy")
-        label, what = "omnidirectional " + _INTEGRATED_LABEL, "omnidirectional"
+        if partial_coverage(summary):
+            label = _PARTIAL_LABELS["omni_flux"].replace(" (cm", "\n(cm")
+            what = "flux over the measured solid angle (partial coverage)"
+        else:
+            label, what = "omnidirectional " + _INTEGRATED_LABEL, "omnidirectional"
     else:
         target = 90.0 if pitch_angle is None else float(pitch_angle)
         if "look" in ds["flux"].dims:
@@ -321,7 +434,9 @@ def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
     """Pitch-angle-time spectrogram at one energy with the loss cones drawn over it.
 
     Loss-cone edges: solid white-edged lines for the bounce loss cones
-    (north below 90 deg, south above), dashed for the drift loss cone. For
+    (north below 90 deg, south above), dashed for the drift loss cone. Where
+    the two coincide everywhere (within 0.01 deg, as in a centred dipole) one
+    line labelled "bounce = drift loss cone" is drawn instead of two. For
     telescope data each look is a band of points at its axis pitch angle.
 
     Parameters
@@ -361,9 +476,19 @@ def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
                              rasterized=True)
     cones = _loss_cones_at(ds, summary)
     if cones is not None:
-        for y, style, label in (
-                (cones["north"], "-", "bounce loss cone"), (180 - cones["south"], "-", None),
-                (cones["dlc"], "--", "drift loss cone"), (180 - cones["dlc"], "--", None)):
+        lines = [(cones["north"], "-", "bounce loss cone"), (180 - cones["south"], "-", None)]
+        with np.errstate(invalid="ignore"):
+            gap = np.concatenate([np.abs(cones["dlc"] - cones["north"]).ravel(),
+                                  np.abs(cones["dlc"] - cones["south"]).ravel()])
+        gap = gap[np.isfinite(gap)]
+        if gap.size and gap.max() <= 0.01:  # coincident: one line, not one hidden under another
+            model = "dipole" if summary is None else summary.attrs.get(
+                "beltkit_field_model", "")
+            lines[0] = (cones["north"], "-", "bounce = drift loss cone"
+                        + (" (centred dipole)" if model == "dipole" else ""))
+        else:
+            lines += [(cones["dlc"], "--", "drift loss cone"), (180 - cones["dlc"], "--", None)]
+        for y, style, label in lines:
             ax.plot(times, y, color="white", lw=2.6, ls="-", zorder=3)
             ax.plot(times, y, color="black", lw=1.1, ls=style, zorder=4, label=label)
         ax.legend(loc="upper right", fontsize="small", framealpha=0.85)
@@ -378,8 +503,15 @@ def pitch_angle_time(ds, energy, *, summary=None, ax=None, cmap=_FLUX_CMAP):
     return fig
 
 
-def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, axes=None):
+def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, ax=None, axes=None,
+                l_max=L_VALID_MAX):
     """Three stacked panels over time: energy-time, pitch-angle-time and fractions.
+
+    The figure's title gives the spacecraft and the time span covered. When
+    the summary comes from partially covered data (:func:`partial_coverage`)
+    the flux and fraction panels say that they refer to the measured solid
+    angle and a note says so under the title. Fractions at L above `l_max`
+    are not drawn; those times are greyed.
 
     Parameters
     ----------
@@ -394,53 +526,101 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, axes=None):
     pitch_angle : float, optional
         Pitch angle of the top panel (default: omnidirectional flux when a
         summary is given, else nearest 90 deg).
-    axes : sequence of 3 matplotlib.axes.Axes, optional
-        Axes to draw into.
+    ax, axes : sequence of 3 matplotlib.axes.Axes, optional
+        Axes to draw into (``ax`` and ``axes`` are the same argument; give
+        one). With your own axes the time span goes into the top panel's
+        title instead of a figure title.
+    l_max : float or None
+        Highest L-shell whose fractions are drawn (default
+        :data:`L_VALID_MAX`, 10); None draws all.
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    if axes is None:
-        fig = Figure(figsize=(9.0, 8.4), layout="constrained")
+    if ax is not None and axes is not None:
+        raise TypeError("spectrogram: give the axes once, as ax= or as axes=, not both")
+    axes = ax if axes is None else axes
+    own = axes is None
+    if own:
+        fig = Figure(figsize=(9.0, 8.8), layout="constrained")
         axes = fig.subplots(3, 1, sharex=True)
     else:
+        axes = list(np.ravel(axes))
+        if len(axes) != 3:
+            raise ValueError(f"spectrogram needs 3 axes, got {len(axes)}")
         fig = axes[0].figure
     energy = 300.0 if energy is None else energy
+    partial = summary is not None and partial_coverage(summary)
     energy_time(ds, pitch_angle=pitch_angle, summary=summary, ax=axes[0])
     pitch_angle_time(ds, energy, summary=summary, ax=axes[1])
     ax = axes[2]
     times = ds["time"].values
+    L = np.asarray(ds["L"].values, float) if "L" in ds else None
+    beyond = (np.zeros(times.size, bool) if L is None or l_max is None
+              else np.isfinite(L) & (L > l_max))
     if summary is not None and "fraction_precipitating" in summary:
         e_all = np.asarray(summary["energy"].values, float)
-        frac = summary["fraction_precipitating"]
-        median = float(np.nanmedian(frac.values)) if np.isfinite(frac.values).any() else 1.0
-        band = summary["time"].size <= 3000 and "fraction_precipitating_err" in summary
+        frac = summary["fraction_precipitating"].transpose("time", "energy")
+        s_times = summary["time"].values
+        if l_max is not None and "L" in summary:
+            keep = ~(np.asarray(summary["L"].values, float) > l_max)
+        elif l_max is not None and L is not None and s_times.size == times.size:
+            keep = ~beyond
+        else:
+            keep = np.ones(s_times.size, bool)
+        fv = np.where(keep[:, None], np.asarray(frac.values, float), np.nan)
+        median = float(np.nanmedian(fv)) if np.isfinite(fv).any() else 1.0
+        has_err = "fraction_precipitating_err" in summary
+        band = summary["time"].size <= 3000 and has_err
+        if has_err:
+            ev = np.asarray(summary["fraction_precipitating_err"].transpose(
+                "time", "energy").values, float)
         for k, e in enumerate(e_all):
             colour, ls, _ = _energy_style(k, e_all.size)
-            f = frac.isel(energy=k).values
-            ax.plot(summary["time"].values, f, color=colour, ls=ls, lw=1.1,
-                    label=_energy_text(e))
+            ax.plot(s_times, fv[:, k], color=colour, ls=ls, lw=1.1, label=_energy_text(e))
             if band:
-                err = summary["fraction_precipitating_err"].isel(energy=k).values
-                ax.fill_between(summary["time"].values, f - err, f + err, color=colour,
-                                alpha=0.25, lw=0)
+                ax.fill_between(s_times, fv[:, k] - ev[:, k], fv[:, k] + ev[:, k],
+                                color=colour, alpha=0.25, lw=0)
         if median < 0.05:
             ax.set_yscale("log")
         else:
             ax.set_ylim(0, 1)
-        ax.set_ylabel("precipitating fraction (1)")
+        ax.set_ylabel(_quantity_label("fraction_precipitating", partial)
+                      .replace(" (partial coverage)", "\n(partial coverage)"))
         ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
-    if "L" in ds:
+    first, last = _runs(beyond)
+    if first.size:
+        edges = _time_edges(times)
+        for i, j in zip(first, last):
+            ax.axvspan(edges[i], edges[j + 1], facecolor="0.82", edgecolor="none", zorder=0)
+        ax.set_title(_L_MASK_NOTE.format(l_max=l_max), fontsize="small")
+    if L is not None:
         twin = ax.twinx() if summary is not None else ax
-        twin.plot(times, ds["L"].values, color="0.2", lw=1.0, ls=(0, (1, 1)), label="L")
+        shown = np.where(beyond, np.nan, L)
+        twin.plot(times, shown, color="0.2", lw=1.0, ls=(0, (1, 1)), label="L")
         twin.set_ylabel("L-shell (dipole)")
+        if first.size:
+            twin.set_ylim(0, l_max * 1.05)
         if twin is not ax:
-            twin.legend(loc="upper right", fontsize="x-small")
+            twin.legend(loc="upper right", fontsize="x-small", framealpha=0.85)
     ax.set_xlabel("time (UTC)")
     _time_axis(ax)
     for a in axes[:2]:
         a.set_xlabel("")
+    craft = ds.attrs.get("spacecraft", "")
+    span = _span_text(times)
+    heading = f"{craft}, {span}" if craft else span
+    note = _partial_note(ds) if partial else ""
+    if note:
+        import textwrap
+
+        note = textwrap.fill(note, 110)
+    if own:
+        fig.suptitle(heading + ("\n" + note if note else ""), fontsize="medium")
+    else:
+        axes[0].set_title(heading + ": " + axes[0].get_title()
+                          + ("\n" + note if note else ""), fontsize="medium")
     return fig
 
 
@@ -455,7 +635,8 @@ def _combine_cells(survey, quantity, dims):
 
 
 def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="L-time",
-               ax=None, vmin=None, vmax=None, log=None, min_count=1):
+               ax=None, vmin=None, vmax=None, log=None, min_count=1, l_max=L_VALID_MAX,
+               partial=None):
     """Map a survey quantity over L and time (or over L and MLT).
 
     Cells hold the sample-count-weighted mean of the survey's per-cell means
@@ -481,6 +662,17 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         Log colour scale (default: True for fluxes and fractions).
     min_count : int
         Cells with fewer samples are left blank.
+    l_max : float or None
+        Cells whose L-bin lies above this L-shell (default
+        :data:`L_VALID_MAX`, 10) are not coloured but drawn grey where they
+        hold data, and the title says so; None shows every cell.
+    partial : bool, optional
+        Whether the survey's summaries come from partially covered data
+        (then fractions and fluxes are labelled as shares of the measured
+        solid angle and the title carries a note). Default: detected with
+        :func:`partial_coverage` from coverage means in the survey, if any;
+        a survey without them counts as fully covered, so pass
+        ``partial=any(partial_coverage(s) for s in summaries)``.
 
     Returns
     -------
@@ -494,7 +686,8 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
     e_all = np.asarray(survey["energy"].values, float)
     k = 0 if energy is None else int(np.argmin(np.abs(e_all - float(energy))))
     s = survey.isel(energy=k)
-    label = _LABELS.get(quantity, quantity.replace("_", " "))
+    partial = partial_coverage(survey) if partial is None else bool(partial)
+    label = _quantity_label(quantity, partial)
     if kind == "L-time":
         values, total = _combine_cells(s, quantity, "mlt")
         values = values.where(total >= min_count).transpose("L", "time")
@@ -519,6 +712,12 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
     else:
         raise ValueError(f"kind must be 'L-time' or 'L-MLT', got {kind!r}")
     v = np.asarray(values.values, float)
+    l_edges = _edges_from(s, "L")
+    masked_cells = np.zeros(v.shape, bool)
+    if l_max is not None:
+        above = l_edges[:-1] >= l_max - 1e-9  # the whole L-bin lies above the limit
+        masked_cells = above[:, None] & np.isfinite(v)
+        v = np.where(above[:, None], np.nan, v)
     finite = v[np.isfinite(v)]
     if log is None:
         log = quantity.startswith(("fraction", "flux", "omni", "loss_cone"))
@@ -536,8 +735,13 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         norm = Normalize(vmin if vmin is not None else (finite.min() if finite.size else 0),
                          vmax if vmax is not None else (finite.max() if finite.size else 1))
     cmap = _FLUX_CMAP if quantity.endswith("flux") or "flux_" in quantity else _FRACTION_CMAP
-    mesh = ax.pcolormesh(x, _edges_from(s, "L"), np.ma.masked_invalid(v), norm=norm,
+    mesh = ax.pcolormesh(x, l_edges, np.ma.masked_invalid(v), norm=norm,
                          cmap=cmap, shading="flat")
+    if masked_cells.any():
+        from matplotlib.colors import ListedColormap
+
+        ax.pcolormesh(x, l_edges, np.ma.masked_where(~masked_cells, masked_cells.astype(float)),
+                      cmap=ListedColormap(["0.8"]), shading="flat")
     if xlabel:
         ax.set_xlabel(xlabel)
         ax.set_ylabel("L-shell")
@@ -547,12 +751,26 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         ax.set_rlabel_position(100)
         ax.set_xlabel("magnetic local time (h); radius: L-shell")
         where = "L-MLT"
-    title = f"{label} at {_energy_text(e_all[k])} ({where})"
+    short = _LABELS.get(quantity, label)
+    if partial and quantity.startswith("fraction"):
+        short = short.replace(" fraction", " fraction of the measured flux")
+    elif partial:
+        short = label.split(" (cm")[0]
+    title = f"{short} at {_energy_text(e_all[k])} ({where})"
     if all_zero:
         title += ": zero in every cell"
-    ax.set_title(title, fontsize="medium")
-    fig.colorbar(mesh, ax=ax, label=label + (" (1)" if quantity.startswith("fraction") else ""),
-                 pad=0.08 if kind == "L-MLT" else 0.01, shrink=0.85)
+    notes = []
+    if partial:
+        notes.append(_partial_note())
+    if masked_cells.any():
+        notes.append(_L_MASK_NOTE.format(l_max=l_max))
+    if notes:
+        import textwrap
+
+        width = 64 if kind == "L-MLT" else 110
+        title += "\n" + "\n".join(textwrap.fill(n, width) for n in notes)
+    ax.set_title(title, fontsize="medium" if not notes else "small")
+    fig.colorbar(mesh, ax=ax, label=label, pad=0.08 if kind == "L-MLT" else 0.01, shrink=0.85)
     return fig
 
 

@@ -58,7 +58,11 @@ def test_pitch_angle_distribution_bins(demo_data):
     assert ax.get_yscale() == "log"
     labels = [t.get_text() for t in ax.get_legend().get_texts()]
     assert "50 keV" in labels and "3 MeV" in labels
-    assert any(t.startswith("bounce loss cone") for t in labels)
+    cone = [t for t in labels if t.startswith("bounce loss cone")]
+    # the legend says which angle is which hemisphere's cone
+    north_text = f"{float(summary['loss_cone_north'].sel(time=STORM, method='nearest')):.1f}°"
+    assert len(cone) == 1 and f"{north_text} north-going" in cone[0]
+    assert "south-going" in cone[0]
     # three energies drawn with three different line styles (not colour alone)
     styles = {c.lines[0].get_linestyle() for c in ax.containers if c.get_label() in labels}
     assert len(ax.containers) == 3 and len(styles) == 3
@@ -88,9 +92,42 @@ def test_energy_and_pitch_angle_time_spectrograms(demo_data):
             bars = _colorbar_labels(fig)
             assert bars and all("cm$^{-2}$" in b and "keV" in b for b in bars)
             assert isinstance(fig.axes[0].collections[0].norm, LogNorm)
+        # centred dipole: the cones coincide, so one line pair with one label, not two
         fig = plot.pitch_angle_time(ds, 300.0, summary=summary)
         labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
-        assert labels == ["bounce loss cone", "drift loss cone"]
+        assert labels == ["bounce = drift loss cone (centred dipole)"]
+        dashed = [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "--"]
+        assert not dashed
+
+
+def test_pitch_angle_time_draws_a_distinct_drift_loss_cone(demo_data):
+    ds, summary = demo_data["tern"]
+    wider = summary.assign(dlc_local=summary["dlc_local"] + 2.0)  # as in a non-dipole field
+    wider.attrs["beltkit_field_model"] = "igrf"
+    fig = plot.pitch_angle_time(ds, 300.0, summary=wider)
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert labels == ["bounce loss cone", "drift loss cone"]
+    dashed = [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "--"]
+    assert len(dashed) == 2
+    np.testing.assert_allclose(dashed[0].get_ydata(), wider["dlc_local"].values)
+
+
+def _texts(fig):
+    """Every piece of text on a figure: titles, axis and colour-bar labels, legends, notes."""
+    out = [t.get_text() for t in fig.findobj(matplotlib.text.Text)]
+    return "\n".join(out)
+
+
+def test_partial_coverage_detection(demo_data):
+    # Fan bins tile the sphere; two 15-degree Quill caps do not
+    assert plot.partial_coverage(demo_data["tern"][1]) is False
+    assert plot.partial_coverage(demo_data["swift"][1]) is True
+    flags_only = xr.Dataset({"partition_flag": ("time", np.array([0, 8, 0], np.int16))})
+    assert plot.partial_coverage(flags_only) is True
+    assert plot.partial_coverage(flags_only.isel(time=[0, 2])) is False
+    survey_means = xr.Dataset({"coverage_trapped_mean": ("L", [1.0, np.nan, 0.7])})
+    assert plot.partial_coverage(survey_means) is True
+    assert plot.partial_coverage(xr.Dataset()) is False
 
 
 def test_spectrogram_three_panels(demo_data):
@@ -99,9 +136,62 @@ def test_spectrogram_three_panels(demo_data):
     assert isinstance(fig, Figure)
     panels = [a for a in fig.axes if a.get_label() != "<colorbar>"]
     assert len(panels) >= 3
-    assert panels[2].get_ylabel() == "precipitating fraction (1)"
+    assert panels[2].get_ylabel() == "precipitating fraction"  # dimensionless: no "(1)"
     assert panels[2].get_xlabel() == "time (UTC)"
     assert len(_colorbar_labels(fig)) == 2
+    assert fig.get_suptitle() == "Marram-Tern, 2027-03-09 00:00\u201323:58 UTC"
+    # full coverage: no partial-coverage wording anywhere
+    text = _texts(fig)
+    assert "partial coverage" not in text and "measured solid angle" not in text
+    assert "omnidirectional" in _colorbar_labels(fig)[0]
+
+
+def test_spectrogram_of_telescopes_says_partial_coverage(demo_data):
+    ds, summary = demo_data["swift"]
+    fig = plot.spectrogram(ds, summary)
+    panels = [a for a in fig.axes if a.get_label() != "<colorbar>"]
+    assert "precipitating fraction of the measured flux" in panels[2].get_ylabel()
+    assert "partial coverage" in panels[2].get_ylabel()
+    assert "flux over the measured solid angle" in _colorbar_labels(fig)[0]
+    assert "omnidirectional" not in _texts(fig)
+    title = fig.get_suptitle()
+    # the two orbits of the file: 06:00:00 to 09:15:09 UTC
+    assert title.startswith("Marram-Swift, 2027-03-09 06:00\u201309:15 UTC")
+    assert "only part of the sphere" in title.replace("\n", " ")
+    # fractions beyond L = 10 are not drawn; those times are greyed
+    beyond = ds["L"].values > plot.L_VALID_MAX
+    assert beyond.any() and (~beyond).any()
+    fraction_lines = [ln for ln in panels[2].get_lines() if ln.get_label().endswith("keV")
+                      or ln.get_label().endswith("MeV")]
+    assert len(fraction_lines) == ds.sizes["energy"]
+    for line in fraction_lines:
+        y = np.asarray(line.get_ydata(), float)
+        assert np.isnan(y[beyond]).all() and np.isfinite(y[~beyond]).any()
+    greyed = [p for p in panels[2].patches if p.get_facecolor()[:3] == (0.82, 0.82, 0.82)]
+    starts = np.flatnonzero(np.diff(np.concatenate([[0], beyond.astype(int)])) == 1)
+    assert len(greyed) == starts.size == 4
+    assert "L > 10" in panels[2].get_title()
+    # l_max=None draws every sample
+    fig = plot.spectrogram(ds, summary, l_max=None)
+    bottom = [a for a in fig.axes if a.get_label() != "<colorbar>"][2]
+    y = np.asarray(bottom.get_lines()[0].get_ydata(), float)
+    assert np.isfinite(y[beyond]).any()
+
+
+def test_spectrogram_accepts_ax_or_axes(demo_data):
+    ds, summary = demo_data["tern"]
+    for key in ("ax", "axes"):
+        fig = Figure(figsize=(8, 8))
+        axes = fig.subplots(3, 1)
+        out = plot.spectrogram(ds, summary, **{key: axes})
+        assert out is fig
+        # the span goes into the top panel's title when the figure is the caller's
+        assert axes[0].get_title().startswith("Marram-Tern, 2027-03-09 00:00")
+        assert axes[2].get_ylabel() == "precipitating fraction"
+    with pytest.raises(TypeError, match="ax= or as axes="):
+        plot.spectrogram(ds, summary, ax=axes, axes=axes)
+    with pytest.raises(ValueError, match="3 axes"):
+        plot.spectrogram(ds, summary, ax=axes[:2])
 
 
 @pytest.mark.parametrize("kind", ["L-time", "L-MLT"])
@@ -122,6 +212,45 @@ def test_survey_maps(demo_data, kind, quantity):
     if quantity == "omni_flux":
         assert "keV" in _colorbar_labels(fig)[0]
         assert isinstance(ax.collections[0].norm, LogNorm)
+    if quantity.startswith("fraction"):
+        assert _colorbar_labels(fig)[0] == quantity.replace("fraction_", "").replace(
+            "_", "-") + " fraction"  # dimensionless: no "(1)"
+    assert "partial coverage" not in _texts(fig)  # spectrometer survey: full coverage
+
+
+@pytest.mark.parametrize("quantity", ["fraction_precipitating", "omni_flux"])
+def test_survey_map_of_partially_covered_data(demo_data, quantity):
+    fig = plot.survey_map(demo_data["survey"], quantity, energy=160.0, kind="L-MLT",
+                          partial=True)
+    bar = _colorbar_labels(fig)[0]
+    title = fig.axes[0].get_title().replace("\n", " ")
+    if quantity == "omni_flux":
+        assert bar.startswith("flux over the measured solid angle") and "keV" in bar
+        assert "omnidirectional" not in _texts(fig)
+    else:
+        assert bar == "precipitating fraction of the measured flux (partial coverage)"
+        assert title.startswith("precipitating fraction of the measured flux at 161 keV")
+    assert "only part of the sphere" in title
+    # detected from coverage means in the survey when not given
+    survey = xr.load_dataset(demo_data["survey"])
+    with_cov = survey.assign(coverage_trapped_mean=survey["fraction_trapped_mean"] * 0 + 0.5)
+    fig = plot.survey_map(with_cov, quantity, energy=160.0)
+    assert "partial coverage" in _texts(fig)
+
+
+def test_survey_map_greys_cells_above_l_max(demo_data):
+    survey = xr.load_dataset(demo_data["survey"])
+    fig = plot.survey_map(survey, "fraction_precipitating", energy=160.0, l_max=3.0)
+    ax = fig.axes[0]
+    shown = np.ma.getmaskarray(ax.collections[0].get_array()).reshape(
+        survey.sizes["L"], survey.sizes["time"])
+    upper = survey["L_bnds"].values[:, 0] >= 3.0
+    assert shown[upper].all() and not shown[~upper].all()
+    grey = ax.collections[1].get_array()
+    assert grey.count() > 0  # the grey layer covers cells that had data above L = 3
+    assert "grey: L > 3" in ax.get_title()
+    fig = plot.survey_map(survey, "fraction_precipitating", energy=160.0)
+    assert len(fig.axes[0].collections) == 1 and "grey" not in fig.axes[0].get_title()
 
 
 def test_survey_map_refuses_unknown_quantity(demo_data):
