@@ -205,6 +205,30 @@ def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatc
     for p in pngs:
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and p.stat().st_size > 20_000
     assert not any(os.scandir(work))  # nothing written into the working directory
+    assert {"tern_survey_L_MLT.png", "swift_survey_L_MLT.png", "swift_spectrogram.png"} <= names
+
+    # the survey dials: partial-coverage wording from the summaries' coverage, for Swift only
+    import matplotlib.text
+
+    summaries = [Path(p) for p in paths if str(p).endswith(".summary.nc")]
+    assert demo._partial(summaries, "swift") and not demo._partial(summaries, "tern")
+    for craft, e_kev in (("tern", 160.0), ("swift", 190.0)):
+        partial = demo._partial(summaries, craft)
+        fig = demo._survey_dials(out / f"survey_{craft}.nc", e_kev, partial,
+                                 "note" if partial else "")
+        text = " ".join(t.get_text() for t in fig.findobj(matplotlib.text.Text))
+        assert len([a for a in fig.axes if a.name == "polar"]) == 1  # no empty quasi-trapped dial
+        assert "quasi-trapped fraction: zero in every cell" in text
+        assert "precipitating fraction" in text and "(1)" not in text
+        assert ("partial coverage" in text) is partial
+        assert ("of the measured flux" in text) is partial
+
+
+def test_swift_truth_is_documented_as_not_recovered():
+    for text in ((DATA_DEMO / "README.md").read_text(), demo.__doc__):
+        flat = " ".join(text.replace("*", "").split())
+        assert "not a recovery target" in flat
+        assert "measured solid angle" in flat
 
 
 def test_sine_power_fit_recovers_the_generator_index():
