@@ -23,14 +23,19 @@ Commands
     Write the synthetic demo mission and run the whole pipeline on it.
 
 ``beltkit motion --energy-kev E --L L --pitch-angle DEG [--species NAME]``
-    Gyration, bounce and drift timescales and the mirror point in a dipole::
+    Gyration, bounce and drift timescales and the mirror point in a dipole;
+    a ``note:`` line (JSON: ``in_bounce_loss_cone`` and ``notes``) says when
+    the pitch angle lies inside the bounce loss cone of ``--footpoint-km``::
 
         beltkit motion --energy-kev 1000 --L 4 --pitch-angle 45 --species electron
 
-``beltkit losscone --L L [--mlat DEG]`` or ``--field igrf --latitude .. --longitude ..``
-    Bounce (and drift) loss cones at a point::
+``beltkit losscone --L L [--mlat DEG]`` or ``--latitude .. --longitude .. --time ..``
+    Bounce (and drift) loss cones at a point, either from the centred-dipole
+    closed forms or at a geographic point (``--field igrf`` or ``dipole``;
+    ``--time`` is required there). The two ways cannot be mixed::
 
         beltkit losscone --L 4.5 --mlat 20 --footpoint-km 100
+        beltkit losscone --field igrf --latitude -30 --longitude -40 --time 2024-06-01T12:00
 
 Every batch command prints one line per file (``ok``, ``skipped`` or
 ``FAILED  file: reason``) and exits with 0 only when every file succeeded
