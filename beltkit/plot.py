@@ -781,7 +781,8 @@ def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf
 
     Each model is one colour and marker; the bounce loss cone is a solid
     line, the drift loss cone (the largest bounce loss cone on the drift
-    shell) dashed.
+    shell) dashed. A model whose two cones agree within 0.01 deg at every
+    longitude (the centred dipole) gets one line, "bounce = drift loss cone".
 
     Parameters
     ----------
@@ -826,11 +827,19 @@ def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf
         lon = np.asarray(d["mlon"].values, float)
         order = np.argsort(lon)
         every = max(lon.size // 12, 1)
-        ax.plot(lon[order], d["blc_equatorial"].values[order], color=colour, ls="-",
-                marker=marker, markevery=every, ms=5, lw=1.6,
-                label=f"{name}: bounce loss cone")
-        ax.plot(lon[order], d["dlc_equatorial"].values[order], color=colour, ls="--", lw=1.6,
-                label=f"{name}: drift loss cone")
+        blc = np.asarray(d["blc_equatorial"].values, float)[order]
+        dlc = np.asarray(d["dlc_equatorial"].values, float)[order]
+        gap = np.abs(dlc - blc)
+        gap = gap[np.isfinite(gap)]
+        if gap.size and gap.max() <= 0.01:  # coincident: one line, not one hidden under another
+            label = f"{name}: bounce = drift loss cone" + (
+                " (centred dipole)" if name == "dipole" else "")
+            ax.plot(lon[order], blc, color=colour, ls="-", marker=marker, markevery=every,
+                    ms=5, lw=1.6, label=label)
+            continue
+        ax.plot(lon[order], blc, color=colour, ls="-", marker=marker, markevery=every, ms=5,
+                lw=1.6, label=f"{name}: bounce loss cone")
+        ax.plot(lon[order], dlc, color=colour, ls="--", lw=1.6, label=f"{name}: drift loss cone")
     first = next(iter(data.values()))
     Lval = L if L is not None else first.attrs.get("L", first.get("L", np.nan))
     try:
