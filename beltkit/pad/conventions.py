@@ -377,20 +377,51 @@ def _check_time(ds, problems):
                         "by time and drop duplicates")
 
 
-def _check_range(ds, name, lo, hi, problems, scale=1.0):
+def _check_range(ds, name, lo, hi, problems, scale=1.0, pending=None):
+    """Append a problem if ``ds[name]`` leaves [lo, hi].
+
+    With ``pending`` (a list), a dask variable's extremes are not computed
+    here: the check is queued for :func:`_run_pending_ranges`, which computes
+    all of them in one pass.
+    """
     v = ds[name].data
     if hasattr(v, "dask"):
         import dask.array as dsa
 
+        if pending is not None:
+            pending.append((len(problems), name, lo, hi, scale, dsa.nanmin(v), dsa.nanmax(v)))
+            return
         vmin, vmax = dsa.compute(dsa.nanmin(v), dsa.nanmax(v))
     else:
         v = np.asarray(v, dtype=float)
         if v.size == 0 or np.all(np.isnan(v)):
             return
         vmin, vmax = np.nanmin(v), np.nanmax(v)
+    _range_problem(name, lo, hi, vmin, vmax, scale, problems, len(problems))
+
+
+def _range_problem(name, lo, hi, vmin, vmax, scale, problems, where):
     vmin, vmax = float(vmin) * scale, float(vmax) * scale
     if (lo is not None and vmin < lo) or (hi is not None and vmax > hi):
-        problems.append(f"{name}: values must lie in [{lo}, {hi}], got {vmin:g} to {vmax:g}")
+        problems.insert(where, f"{name}: values must lie in [{lo}, {hi}], got {vmin:g} to "
+                               f"{vmax:g}")
+
+
+def _run_pending_ranges(pending, problems):
+    """Compute the queued range checks of dask variables together (one graph)."""
+    if not pending:
+        return
+    import warnings
+
+    import dask
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN slices
+        values = dask.compute(*[(mn, mx) for *_, mn, mx in pending])
+    # insert from the last so that the recorded positions stay valid
+    for (where, name, lo, hi, scale, _, _), (vmin, vmax) in reversed(list(zip(pending,
+                                                                                 values))):
+        _range_problem(name, lo, hi, vmin, vmax, scale, problems, where)
 
 
 def _check_position_present(ds, problems):
@@ -515,6 +546,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
     # position
     other_scale: dict = {}
     has_lm, has_geo = _check_position_present(ds, problems)
+    ranges: list = []  # dask variables: their extremes computed together below
     for name, table, what, lo, hi, required in (
         ("L", _DIMENSIONLESS, "the dimensionless L-shell", 1.0, None, False),
         ("mlat", _ANGLE, "an angle", -90.0, 90.0, True),
@@ -528,7 +560,8 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                 continue
             f = _unit_factor(v, name, table, problems, what, required=required)
             other_scale[name] = f
-            _check_range(ds, name, lo, hi, problems, f)
+            _check_range(ds, name, lo, hi, problems, f, pending=ranges)
+    _run_pending_ranges(ranges, problems)
     if has_geo:
         pg = ds["position_geo"]
         if pg.ndim != 2 or pg.dims[0] != "time" or pg.shape[1] != 3:

@@ -467,6 +467,35 @@ def _thread_pool():
     return _POOL["pool"]
 
 
+def _sample_loss_cones(ds, prep, model, altitude_km, lazy):
+    """:func:`sample_loss_cones`; eager dipole closed forms split over the cores.
+
+    The closed forms are elementwise numpy passes (which release the GIL), so
+    consecutive time ranges computed in the kernel's threads and joined give
+    the same values; arrays shared between outputs (the dipole's equal bounce
+    and drift cones) stay shared.
+    """
+    closed = (model is None or (isinstance(model, str) and model == "dipole")) and (
+        "L" in ds.variables and "mlat" in ds.variables)
+    n_t = ds.sizes.get("time", 0)
+    pool = _thread_pool() if (closed and not lazy and n_t >= 4 * _BLOCK) else None
+    if pool is None:
+        return sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
+    edges = np.linspace(0, n_t, pool._max_workers + 1).astype(int)
+    parts = list(pool.map(
+        lambda k: sample_loss_cones(ds.isel(time=slice(edges[k], edges[k + 1])), prep,
+                                    model=model, altitude_km=altitude_km),
+        range(len(edges) - 1)))
+    joined, variables = {}, {}
+    for name, var in parts[0].data_vars.items():
+        pieces = [p[name].values for p in parts]
+        key = tuple(a.__array_interface__["data"][0] for a in pieces)
+        if key not in joined:
+            joined[key] = np.concatenate(pieces)
+        variables[name] = xr.Variable(var.dims, joined[key], var.attrs)
+    return xr.Dataset(variables, coords=time_coords(ds))
+
+
 _LONG = {
     "flux_precipitating": "precipitating flux integrated over the measured solid angle of "
                           "the bounce loss cone",
@@ -651,7 +680,7 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     # eager data: the value checks are gathered by the engine in its single pass
     prep: Prepared = check(ds, model=model, allow_negative=allow_negative,
                            check_values=lazy and not deferred)
-    lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
+    lc = _sample_loss_cones(ds, prep, model, altitude_km, lazy)
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
     geom = _geometry(ds, prep)
