@@ -350,24 +350,6 @@ def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_positio
     }
 
 
-def _load_positions(ds):
-    """Read the small per-time position variables (L, mlat, mlt, b_local) into memory.
-
-    They hold one number per sample (the flux holds energies x angles), so
-    this keeps memory nearly independent of the file's length while the
-    validator's range checks and the loss cones run as plain numpy passes
-    instead of one dask graph each. The large arrays stay lazy.
-    """
-    import dask
-
-    names = [n for n in _POSITION + ("b_local",)
-             if n in ds.variables and ds[n].dims == ("time",) and ds[n].chunks]
-    if names:  # one dask pass for all of them
-        values = dask.compute(*[ds[n].data for n in names])
-        ds = ds.assign({n: ds[n].copy(data=v) for n, v in zip(names, values)})
-    return ds
-
-
 _HASHER = {"pid": None, "pool": None}
 
 
@@ -416,8 +398,7 @@ def _process_file_locked(task: dict) -> FileResult:
                 return FileResult(str(src), str(out), "skipped", "up to date",
                                   _time.perf_counter() - t0)
         with _single_threaded():
-            ds = _load_positions(open_flux(src, mapping=task["mapping"],
-                                           chunks={"time": _TIME_CHUNK}))
+            ds = open_flux(src, mapping=task["mapping"], chunks={"time": _TIME_CHUNK})
             # the flux values are checked while the summary is computed (one pass over
             # the file); a refused file leaves no output (write_dataset's verify)
             summary, pending = _summary(ds, field=task["field"],
