@@ -741,6 +741,12 @@ def _losscone_geographic(args, h):
                      f"and the loss cones are undefined there; the {what} is an "
                      f"internal-field model only, and at such latitudes the real field line "
                      f"depends on the magnetospheric currents (an external-field model)")
+    elif math.isnan(L):
+        notes.append("L is undefined here: a particle mirroring at this point would mirror "
+                     "below the Earth's surface at the other end of its field line (the field "
+                     "here exceeds the field where the line meets the surface), so McIlwain's "
+                     "integral invariant does not exist; the loss cones above are still "
+                     "defined")
     elif L > 10:
         notes.append(f"L = {L:.3g} > 10: the {what} is an internal-field model only; "
                      f"L, the drift shell and the loss cones there are not reliable without "

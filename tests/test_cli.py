@@ -482,3 +482,19 @@ def test_batch_options_are_checked_before_anything_runs(tmp_path, capsys):
     assert main(["survey", str(summaries), "--out", str(tmp_path / "s.nc"), "--l-bins", "1",
                  "nan", "0.5"]) == 1
     assert "--l-bins needs finite LOW < HIGH and STEP > 0" in capsys.readouterr().err
+
+
+def test_losscone_explains_an_undefined_mcilwain_l(capsys):
+    # In 2030 the southern end of the line through (30 N, 0 E, 650 km) is weak enough
+    # that a particle mirroring at the point would mirror below the surface in the
+    # south: McIlwain's I, hence L, does not exist (McIlwain 1961 defines I between
+    # two mirror points above ground). The loss cones are still given.
+    got = json.loads(_capture(capsys, ["losscone", "--field", "igrf", "--latitude", "30",
+                                       "--longitude", "0", "--height-km", "650",
+                                       "--time", "2030-01-01T00:00", "--json"]))
+    assert math.isnan(got["L"]["value"])
+    assert got["b_local"]["value"] > got["b_foot_south"]["value"]
+    assert math.isfinite(got["blc_equatorial"]["value"])
+    [note] = got["notes"]["value"]
+    assert note.startswith("L is undefined here: a particle mirroring at this point would "
+                           "mirror below the Earth's surface")
