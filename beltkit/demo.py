@@ -409,13 +409,7 @@ def _tern_day(day_start, rng):
         "energy_bnds": (("energy", "nv"), e_bnds, {"units": "keV"}),
         "pitch_angle_bnds": (("pitch_angle", "nv"),
                              np.stack([a_edges[:-1], a_edges[1:]], -1), {"units": "degree"}),
-        "counts_to_flux": ("energy", factor, {"units": FLUX_UNITS,
-                                              "long_name": "flux per count (flux = "
-                                                           "counts_to_flux * counts)"}),
-        "geometric_factor": ((), p["geometric_factor_cm2_sr"],
-                             {"units": "cm2 sr", "long_name": "geometric factor per bin"}),
-        "accumulation_time": ((), p["accumulation_s"],
-                              {"units": "s", "long_name": "accumulation time per bin"}),
+        **_response_vars(factor, p, per="bin", accumulated="bin"),
         **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
         **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
     }
@@ -423,18 +417,42 @@ def _tern_day(day_start, rng):
     ds = xr.Dataset(
         data_vars,
         coords={
-            "time": ("time", time, {"standard_name": "time", "long_name": "time (UTC)"}),
-            "energy": ("energy", energy, {"units": "keV", "long_name": "electron kinetic energy",
-                                          "bounds": "energy_bnds"}),
+            **_time_energy_coords(time, energy),
             "pitch_angle": ("pitch_angle", alpha, {"units": "degree",
                                                    "long_name": "local pitch angle",
                                                    "bounds": "pitch_angle_bnds"}),
         },
         attrs=_common_attrs("Marram-Tern", "Fan pitch-angle spectrometer", day,
-                            "Flux = counts / (geometric_factor * accumulation_time * channel "
-                            "width); flux_err = sqrt(max(counts, 1)) likewise."),
+                            _FLUX_FROM_COUNTS),
     )
     return ds
+
+
+_FLUX_FROM_COUNTS = ("Flux = counts / (geometric_factor * accumulation_time * channel "
+                     "width); flux_err = sqrt(max(counts, 1)) likewise.")
+
+
+def _response_vars(factor, p, *, per, accumulated):
+    """Return the instrument-response variables shared by both instruments' files."""
+    return {
+        "counts_to_flux": ("energy", factor, {"units": FLUX_UNITS,
+                                              "long_name": "flux per count (flux = "
+                                                           "counts_to_flux * counts)"}),
+        "geometric_factor": ((), p["geometric_factor_cm2_sr"],
+                             {"units": "cm2 sr", "long_name": f"geometric factor per {per}"}),
+        "accumulation_time": ((), p["accumulation_s"],
+                              {"units": "s",
+                               "long_name": f"accumulation time per {accumulated}"}),
+    }
+
+
+def _time_energy_coords(time, energy):
+    """Return the time and energy coordinates shared by both instruments' files."""
+    return {
+        "time": ("time", time, {"standard_name": "time", "long_name": "time (UTC)"}),
+        "energy": ("energy", energy, {"units": "keV", "long_name": "electron kinetic energy",
+                                      "bounds": "energy_bnds"}),
+    }
 
 
 def _cap_nodes(half_angle_deg, n_theta=4, n_phi=12):
@@ -533,13 +551,7 @@ def _swift_day(day_start, rng):
                                            "telescope along its axis"}),
         "look_half_angle": ("look", np.full(2, p["half_angle_deg"]),
                             {"units": "degree", "long_name": "field-of-view half-angle"}),
-        "counts_to_flux": ("energy", factor, {"units": FLUX_UNITS,
-                                              "long_name": "flux per count (flux = "
-                                                           "counts_to_flux * counts)"}),
-        "geometric_factor": ((), p["geometric_factor_cm2_sr"],
-                             {"units": "cm2 sr", "long_name": "geometric factor per telescope"}),
-        "accumulation_time": ((), p["accumulation_s"],
-                              {"units": "s", "long_name": "accumulation time per sample"}),
+        **_response_vars(factor, p, per="telescope", accumulated="sample"),
         **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
         **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
     }
@@ -547,15 +559,12 @@ def _swift_day(day_start, rng):
     ds = xr.Dataset(
         data_vars,
         coords={
-            "time": ("time", time, {"standard_name": "time", "long_name": "time (UTC)"}),
-            "energy": ("energy", energy, {"units": "keV", "long_name": "electron kinetic energy",
-                                          "bounds": "energy_bnds"}),
+            **_time_energy_coords(time, energy),
             "look": ("look", look, {"long_name": "telescope: up = local zenith, "
                                                  "side = horizontal, across the track"}),
         },
         attrs=_common_attrs("Marram-Swift", "Quill electron telescope pair", day,
-                            "Flux = counts / (geometric_factor * accumulation_time * channel "
-                            "width); flux_err = sqrt(max(counts, 1)) likewise."),
+                            _FLUX_FROM_COUNTS),
     )
     return ds
 
