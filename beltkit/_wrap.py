@@ -139,17 +139,17 @@ def check_range(
         the allowed range and the worst offending value.
     """
     arr = as_float_array(value, name)
-    finite = arr.ravel()
-    finite = finite[~np.isnan(finite)]
-    if finite.size == 0:
-        return arr
-    bad = np.zeros(finite.shape, dtype=bool)
+    # comparisons with NaN are False: NaN never counts as out of range, and no
+    # NaN-free copy of the values is needed (two comparison passes in all)
+    flat = arr.ravel()
+    bad = None
     if lo is not None:
-        bad |= (finite <= lo) if lo_open else (finite < lo)
+        bad = (flat <= lo) if lo_open else (flat < lo)
     if hi is not None:
-        bad |= (finite >= hi) if hi_open else (finite > hi)
-    if np.any(bad):
-        worst = finite[bad][0]
+        above = (flat >= hi) if hi_open else (flat > hi)
+        bad = above if bad is None else np.logical_or(bad, above, out=bad)
+    if bad is not None and bad.any():
+        worst = flat[bad][0]
         left = "(" if lo_open else "["
         right = ")" if hi_open else "]"
         lo_s = "-inf" if lo is None else f"{lo:g}"

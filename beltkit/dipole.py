@@ -116,10 +116,16 @@ def _foot_cos2(L, altitude_km):
 # ---------------------------------------------------------------- kernels
 
 
+def _cube(x):
+    """Return x^3 by two multiplications (a pow call costs twice as much)."""
+    return x * x * x
+
+
 def _b_ratio(mlat_rad):
     """Return b(lambda) = B(lambda) / B_eq on a dipole line."""
     s = np.sin(mlat_rad)
-    c2 = np.cos(mlat_rad) ** 2
+    c2 = np.cos(mlat_rad)
+    c2 *= c2
     return np.sqrt(1.0 + 3.0 * s * s) / (c2 * c2 * c2)
 
 
@@ -283,7 +289,7 @@ def equatorial_field(L, b0_nt=B0_NT):
     >>> round(equatorial_field(2.0, b0_nt=30000.0), 1)
     3750.0
     """
-    return _b0(b0_nt) / _L(L) ** 3
+    return _b0(b0_nt) / _cube(_L(L))
 
 
 @array_api("nT", long_name="magnetic field magnitude")
@@ -316,7 +322,7 @@ def field_magnitude(L, mlat_deg, b0_nt=B0_NT):
     115.378
     """
     lam = np.deg2rad(_mlat(mlat_deg))
-    return _b0(b0_nt) / _L(L) ** 3 * _b_ratio(lam)
+    return _b0(b0_nt) / _cube(_L(L)) * _b_ratio(lam)
 
 
 @array_api("degree", long_name="footpoint magnetic latitude")
@@ -388,7 +394,7 @@ def footpoint_field(L, altitude_km=100.0, b0_nt=B0_NT):
     30000.0
     """
     cos2 = _foot_cos2(L, altitude_km)
-    return _b0(b0_nt) / np.asarray(L, dtype=float) ** 3 * _b_ratio_cos2(cos2)
+    return _b0(b0_nt) / _cube(np.asarray(L, dtype=float)) * _b_ratio_cos2(cos2)
 
 
 @array_api("R_E", long_name="field-line arc length from the equator to the footpoint")

@@ -361,7 +361,7 @@ def _check_time(ds, problems):
         return
     if np.issubdtype(t.dtype, np.datetime64):
         bad_nat = np.isnat(t)
-        tv = t.astype("datetime64[ns]").astype(np.int64)
+        tv = t.astype("datetime64[ns]", copy=False).view(np.int64)
     else:
         try:
             tv = np.asarray(t, dtype=float)
@@ -394,9 +394,12 @@ def _check_range(ds, name, lo, hi, problems, scale=1.0, pending=None):
         vmin, vmax = dsa.compute(dsa.nanmin(v), dsa.nanmax(v))
     else:
         v = np.asarray(v, dtype=float)
-        if v.size == 0 or np.all(np.isnan(v)):
+        if v.size == 0:
             return
-        vmin, vmax = np.nanmin(v), np.nanmax(v)
+        # fmin/fmax skip NaN (one pass each, no NaN-free copy); all NaN gives NaN
+        vmin, vmax = np.fmin.reduce(v, axis=None), np.fmax.reduce(v, axis=None)
+        if np.isnan(vmin):
+            return
     _range_problem(name, lo, hi, vmin, vmax, scale, problems, len(problems))
 
 
