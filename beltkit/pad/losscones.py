@@ -41,7 +41,8 @@ import numpy as np
 import xarray as xr
 
 from .. import dipole
-from ..constants import R_E_KM
+from .._threads import map_slices
+from ..constants import B0_NT, R_E_KM
 from .conventions import Prepared
 
 __all__ = ["cone_from_fields", "sample_loss_cones"]
@@ -127,8 +128,49 @@ def _finish(out, ds):
 def _var(ds, name, scale):
     v = ds[name]
     f = scale.get(name, 1.0)
-    v = v.astype(float) if f == 1.0 else v.astype(float) * f
+    v = v.astype(float, copy=False) if f == 1.0 else v.astype(float) * f
     return v.reset_coords(drop=True) if hasattr(v, "reset_coords") else v
+
+
+#: samples per slice of the eager closed forms: their temporaries stay in the core's cache
+_SLICE = 16384
+
+
+def _dipole_cones(L, mlat, b_loc, altitude_km):
+    r"""Return the local and equatorial bounce loss cones, B_loc and B_eq of a dipole (eager).
+
+    The closed forms of :mod:`beltkit.dipole` with the common factor
+    :math:`B_0/L^3` taken once: :math:`B_\mathrm{eq}/B_\mathrm{foot}` depends on the
+    footpoint latitude alone and :math:`B_\mathrm{loc}/B_\mathrm{eq}` on mlat alone.
+    Computed in cache-sized slices on the process's worker threads (numpy's
+    elementwise loops release the GIL); the arguments are checked first, whole.
+    """
+    shape = np.broadcast_shapes(np.shape(L), np.shape(mlat), np.shape(b_loc))
+    L, mlat = (np.broadcast_to(a, shape).ravel() for a in (L, mlat))
+    b_loc = None if b_loc is None else np.broadcast_to(b_loc, shape).ravel()
+    # the arguments are checked once, whole (L >= 1 and reaching the altitude, mlat)
+    dipole._foot_cos2(L, altitude_km)
+    if b_loc is None:
+        dipole._mlat(mlat, "mlat")
+    rf = 1.0 + float(altitude_km) / R_E_KM  # cos^2 of the footpoint latitude is rf / L
+    n = L.shape[0]
+    blc, blc_eq, b_eq = np.empty(n), np.empty(n), np.empty(n)
+    bl = np.empty(n) if b_loc is None else b_loc
+
+    def one(sl):
+        Ls = L[sl]
+        np.divide(B0_NT, dipole._cube(Ls), out=b_eq[sl])
+        eq_over_foot = 1.0 / dipole._b_ratio_cos2(rf / Ls)
+        if b_loc is None:
+            ratio = dipole._b_ratio(np.deg2rad(mlat[sl]))
+            np.multiply(b_eq[sl], ratio, out=bl[sl])
+        else:
+            ratio = b_loc[sl] / b_eq[sl]
+        blc[sl] = dipole._asin_deg(ratio * eq_over_foot)
+        blc_eq[sl] = dipole._asin_deg(eq_over_foot)
+
+    map_slices(one, n, _SLICE)
+    return tuple(a.reshape(shape) for a in (blc, blc_eq, bl, b_eq))
 
 
 def _dipole_path(ds, prep: Prepared, altitude_km):
@@ -140,12 +182,8 @@ def _dipole_path(ds, prep: Prepared, altitude_km):
     if L.chunks is None and mlat.chunks is None and (b_loc is None or b_loc.chunks is None):
         # eager: run the closed forms on plain arrays (no per-call xarray overhead)
         Lv, mv = L.values, mlat.values
-        b_foot = np.asarray(dipole.footpoint_field(Lv, altitude_km=altitude_km))
-        b_eq = np.asarray(dipole.equatorial_field(Lv))
-        bl = b_loc.values if b_loc is not None else np.asarray(dipole.field_magnitude(Lv, mv))
-        blc = cone_from_fields(bl, b_foot)
-        blc_eq = cone_from_fields(b_eq, b_foot)
-
+        blv = b_loc.values if b_loc is not None else None
+        blc, blc_eq, bl, b_eq = _dipole_cones(Lv, mv, blv, altitude_km)
         out = {"blc_local": blc, "dlc_local": blc, "blc_equatorial": blc_eq,
                "dlc_equatorial": blc_eq, "loss_cone_north": blc, "loss_cone_south": blc,
                "b_local": bl, "b_min": b_eq, "L": Lv, "mlat": mv}

@@ -44,11 +44,10 @@ lies inside :math:`P` (:func:`beltkit.pad.geometry.fov_fraction`), i.e.
 
 from __future__ import annotations
 
-import os
-
 import numpy as np
 import xarray as xr
 
+from .._threads import map_slices
 from ..errors import ConventionError
 from . import _kernels
 from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
@@ -81,7 +80,9 @@ FLAG_MEANINGS = {
     128: "fitted_fill_applied",
 }
 
-_BLOCK = 32768
+#: samples per block of the compiled kernel (a few blocks per core: the threads stay busy
+#: while the page faults of the fresh output memory are spread between them)
+_BLOCK = 65536
 _FOUR_PI = 4.0 * np.pi
 _TWO_PI = 2.0 * np.pi
 
@@ -207,7 +208,8 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
         if opts["has_negative"]:
             flag |= np.where((x < 0).any(axis=-1), 16, 0).astype(np.int16)
         flag |= np.where(~(m[..., 4] > 0), 32, 0).astype(np.int16)
-        flag[np.isnan(blc)] = 64
+        unknown = np.isnan(blc) | np.isnan(dlc)
+        flag[unknown] = 64
         out[14] = flag
         if s is not None:
             s2 = np.where(finite, s * s, dtype.type(0))
@@ -233,6 +235,10 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
             q = out[13] / r[..., 3]
             var = kf * kf * v[..., 0] + q * q * v[..., 4] - 2 * kf * q * v[..., 8]
             out[base + 7] = np.where(fill_ok, np.sqrt(np.maximum(var, 0)), nan)
+    # unknown loss cone: nothing can be said of the populations (as in the compiled engine)
+    out[:14, unknown] = nan
+    if s is not None:
+        out[len(_NAMES):, unknown] = nan
     return out.astype(out_dtype, copy=False)
 
 
@@ -424,76 +430,20 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
     buf = _alloc_out(nout, n_t, n_e, dtype)
     flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
 
-    def one(start):
-        stop = min(start + _BLOCK, n_t)
-        sl = slice(start, stop)
+    def one(sl):
         block_stats = np.zeros((n_e, 3), dtype=np.int64)
         _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
                    bv[sl], dv[sl], None if lv is None else lv[sl], prep=prep, geom=geom,
-                   opts=opts, dtype=dtype, out=buf[:, start * n_e: stop * n_e],
-                   stats=block_stats, flag=flag[start * n_e: stop * n_e])
+                   opts=opts, dtype=dtype, out=buf[:, sl.start * n_e: sl.stop * n_e],
+                   stats=block_stats, flag=flag[sl.start * n_e: sl.stop * n_e])
         return block_stats
 
-    starts = range(0, n_t, _BLOCK)
-    pool = _thread_pool() if len(starts) > 1 and opts["engine"] != "numpy" else None
     # the compiled kernel releases the GIL: blocks run on every core at once
-    parts = list(pool.map(one, starts)) if pool is not None else [one(s) for s in starts]
+    parts = map_slices(one, n_t, _BLOCK, parallel=opts["engine"] != "numpy")
     if stats is not None:
         for block_stats in parts:
             stats += block_stats
     return _as_3d(buf, n_t, n_e), flag.reshape(n_t, n_e)
-
-
-_POOL = {"pid": None, "pool": None}
-
-
-def _thread_pool():
-    """Return this process's worker threads for the compiled kernel (None: one core).
-
-    Made on first use and again after a fork (a child inherits no threads).
-    """
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not Linux
-        cores = os.cpu_count() or 1
-    if cores < 2:
-        return None
-    if _POOL["pid"] != os.getpid():
-        from concurrent.futures import ThreadPoolExecutor
-
-        _POOL["pool"] = ThreadPoolExecutor(max_workers=cores,
-                                           thread_name_prefix="beltkit-partition")
-        _POOL["pid"] = os.getpid()
-    return _POOL["pool"]
-
-
-def _sample_loss_cones(ds, prep, model, altitude_km, lazy):
-    """:func:`sample_loss_cones`; eager dipole closed forms split over the cores.
-
-    The closed forms are elementwise numpy passes (which release the GIL), so
-    consecutive time ranges computed in the kernel's threads and joined give
-    the same values; arrays shared between outputs (the dipole's equal bounce
-    and drift cones) stay shared.
-    """
-    closed = (model is None or (isinstance(model, str) and model == "dipole")) and (
-        "L" in ds.variables and "mlat" in ds.variables)
-    n_t = ds.sizes.get("time", 0)
-    pool = _thread_pool() if (closed and not lazy and n_t >= 4 * _BLOCK) else None
-    if pool is None:
-        return sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
-    edges = np.linspace(0, n_t, pool._max_workers + 1).astype(int)
-    parts = list(pool.map(
-        lambda k: sample_loss_cones(ds.isel(time=slice(edges[k], edges[k + 1])), prep,
-                                    model=model, altitude_km=altitude_km),
-        range(len(edges) - 1)))
-    joined, variables = {}, {}
-    for name, var in parts[0].data_vars.items():
-        pieces = [p[name].values for p in parts]
-        key = tuple(a.__array_interface__["data"][0] for a in pieces)
-        if key not in joined:
-            joined[key] = np.concatenate(pieces)
-        variables[name] = xr.Variable(var.dims, joined[key], var.attrs)
-    return xr.Dataset(variables, coords=time_coords(ds))
 
 
 _LONG = {
@@ -680,7 +630,7 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     # eager data: the value checks are gathered by the engine in its single pass
     prep: Prepared = check(ds, model=model, allow_negative=allow_negative,
                            check_values=lazy and not deferred)
-    lc = _sample_loss_cones(ds, prep, model, altitude_km, lazy)
+    lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
     geom = _geometry(ds, prep)
