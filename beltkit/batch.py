@@ -49,11 +49,12 @@ from . import __version__
 from .errors import BeltkitError, ConventionError
 from .io import (
     load_mapping,
-    open_flux,
+    open_indexed,
     read_attributes,
     remove_stale_temporaries,
     sha256,
     write_dataset,
+    write_stream,
 )
 
 __all__ = [
@@ -85,7 +86,9 @@ SURVEY_VARIABLES = (
     "loss_cone_filling",
 )
 _INPUT_SUFFIXES = (".nc", ".nc4", ".cdf", ".h5", ".hdf5")
-_TIME_CHUNK = 16384
+#: samples per slab of a summarized file (about 100 MB of float32 flux and errors in memory;
+#: a day at 1 s is one slab)
+_TIME_SLAB = 131072
 _POSITION = ("L", "mlat", "mlt")
 
 
@@ -335,6 +338,42 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False):
     return out, pending
 
 
+def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None):
+    """Summarize a lazily indexed dataset one time slab at a time.
+
+    Returns ``(slabs, finish, count)``: a generator of the summaries of consecutive
+    slabs of ``slab`` samples (each read from disk only when its turn comes,
+    partitioned eagerly by the compiled engine on every core, then dropped),
+    and a function that raises the :class:`ConventionError` of the flux-value
+    checks summed over the whole file, to call once every slab is done. The
+    structure, the time order and the positions are checked on the whole
+    file before the first slab. ``count`` is the number of slabs.
+    """
+    from .pad.conventions import check
+
+    slab = int(slab or _TIME_SLAB)
+    model = _field_model(field, epoch, ds)
+    check(ds, model=model, check_values=False)
+    n = ds.sizes.get("time", 0)
+    starts = range(0, n, slab) if n else [0]  # an empty file still gets its summary
+    state = {"totals": None, "verify": None}
+
+    def slabs():
+        for a in starts:
+            piece = ds.isel(time=slice(a, a + slab)) if n else ds
+            out, (counts, verify) = _summary(piece, field=model, altitude_km=altitude_km,
+                                             epoch=None, defer_value_check=True)
+            state["totals"] = counts if state["totals"] is None else state["totals"] + counts
+            state["verify"] = verify
+            yield out
+
+    def finish():
+        if state["verify"] is not None:
+            state["verify"](state["totals"])
+
+    return slabs(), finish, len(starts)
+
+
 def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_position) -> dict:
     return {
         "title": f"beltkit loss-cone summary of {source.name}",
@@ -398,17 +437,17 @@ def _process_file_locked(task: dict) -> FileResult:
                 return FileResult(str(src), str(out), "skipped", "up to date",
                                   _time.perf_counter() - t0)
         with _single_threaded():
-            ds = open_flux(src, mapping=task["mapping"], chunks={"time": _TIME_CHUNK})
-            # the flux values are checked while the summary is computed (one pass over
-            # the file); a refused file leaves no output (write_dataset's verify)
-            summary, pending = _summary(ds, field=task["field"],
-                                        altitude_km=settings["altitude_km"],
-                                        epoch=task["epoch"], defer_value_check=True)
+            ds = open_indexed(src, mapping=task["mapping"])
+            slabs, finish, count = _summary_slabs(ds, field=task["field"],
+                                                  altitude_km=settings["altitude_km"],
+                                                  epoch=task["epoch"])
             attrs = _summary_attrs(src, "", settings, task["epoch"],
                                    "position_geo" in ds.variables)
-            write_dataset(summary, out, compress=settings["compress"],
-                          history=task["command"], attrs=attrs, verify=pending,
-                          late_attrs=lambda: {"source_sha256": digest.result()})
+            # the flux values are checked while the summary is computed (one pass over
+            # the file); a refused file leaves no output (write_stream's finish)
+            write_stream(slabs, out, count=count, compress=settings["compress"],
+                         history=task["command"], attrs=attrs, finish=finish,
+                         late_attrs=lambda: {"source_sha256": digest.result()})
         return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0)
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         if task.get("debug"):

@@ -79,11 +79,13 @@ __all__ = [
     "load_mapping",
     "open_cdf",
     "open_flux",
+    "open_indexed",
     "read_attributes",
     "remove_stale_temporaries",
     "sha256",
     "temporary_name",
     "write_dataset",
+    "write_stream",
 ]
 
 #: Conventional names a mapping may assign (see ``docs/conventions.md``).
@@ -354,6 +356,22 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
     MappingError
         If the mapping is malformed or does not fit the file.
     """
+    ds = open_indexed(path, mapping, engine=engine)
+    if chunks is not None:
+        ds = ds.chunk(_time_chunks(ds, chunks))
+    else:
+        ds = ds.load()
+    return ds
+
+
+def open_indexed(path, mapping=None, *, engine=None) -> xr.Dataset:
+    """Open a flux file with conventional names, its arrays read only where indexed.
+
+    Like :func:`open_flux` without dask: the variables are xarray's lazily
+    indexed backend arrays, so ``ds.isel(time=slice(a, b))`` followed by
+    ``.values`` reads just that slab from disk (a CDF file is read whole).
+    Same parameters, errors and attributes as :func:`open_flux`.
+    """
     path = Path(path)
     if not path.is_file():
         raise OSError(f"{path}: no such file")
@@ -361,9 +379,9 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
         if _is_cdf(path):
             ds = open_cdf(path)
         else:
-            # no dask chunks yet: lazily indexed arrays, so that each dask chunk made
-            # below reads only its own slice (chunking the file's native layout
-            # would read a whole contiguous variable at once)
+            # lazily indexed arrays: a dask chunk made from them, or a slab taken with
+            # isel, reads only its own slice (chunking the file's native layout would
+            # read a whole contiguous variable at once)
             ds = xr.open_dataset(
                 path, engine=engine or _netcdf_engine(), chunks=None, cache=False,
                 mask_and_scale=True, decode_times=True,
@@ -374,10 +392,6 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
         raise OSError(f"{path.name}: cannot be read as netCDF or CDF ({detail})") from exc
     if mapping is not None:
         ds = apply_mapping(ds, mapping, source=path.name)
-    if chunks is not None:
-        ds = ds.chunk(_time_chunks(ds, chunks))
-    else:
-        ds = ds.load()
     ds.attrs.setdefault("source", path.name)
     ds.encoding["source"] = str(path)
     return ds
@@ -566,7 +580,14 @@ def _clean_attrs(attrs: Mapping) -> dict:
     return out
 
 
-def _encoding(ds: xr.Dataset, complevel: int, time_chunk: int) -> dict:
+def _encoding(ds: xr.Dataset, complevel: int, time_chunk: int, chunked=None) -> dict:
+    """Return the encoding: CF time, NaN fill, zlib; time chunks if compressed (or `chunked`).
+
+    Uncompressed variables are stored contiguously (HDF5 writes them fastest)
+    unless ``chunked`` is True, as an unlimited dimension requires.
+    """
+    if chunked is None:
+        chunked = complevel > 0
     encoding = {}
     bounds_names = {v.attrs.get("bounds") for v in ds.variables.values()} - {None}
     for name, var in ds.variables.items():
@@ -582,7 +603,7 @@ def _encoding(ds: xr.Dataset, complevel: int, time_chunk: int) -> dict:
         if var.ndim and var.dtype.kind in "fiubM":
             if complevel > 0:
                 enc.update(zlib=True, complevel=complevel, shuffle=True)
-            if "time" in var.dims:
+            if chunked and "time" in var.dims:
                 chunks = tuple(
                     min(time_chunk, n) if d == "time" else n for d, n in zip(var.dims, var.shape)
                 )
@@ -611,6 +632,74 @@ def _small_chunk_cache():
         yield
     finally:
         netCDF4.set_chunk_cache(*old)
+
+
+def _complevel(compress) -> int:
+    if compress is True:
+        return 4
+    if compress is False or compress is None:
+        return 0
+    complevel = int(compress)
+    if not 0 <= complevel <= 9:
+        raise ValueError(f"compress must be a zlib level 0-9, got {compress!r}")
+    return complevel
+
+
+def _prepared(ds: xr.Dataset, complevel: int, history, attrs, time_chunk: int, chunked=None):
+    """Return a shallow copy of `ds` with the written attributes, and its encoding."""
+    out = ds.copy()
+    gattrs = _clean_attrs({**out.attrs, **(attrs or {})})
+    gattrs["Conventions"] = "CF-1.8"
+    gattrs.setdefault("beltkit_version", __version__)
+    if history:
+        stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+        old = gattrs.get("history")
+        gattrs["history"] = f"{stamp} {history}" + (f"\n{old}" if old else "")
+    out.attrs = gattrs
+    for var in out.variables.values():
+        var.attrs = _clean_attrs(var.attrs)
+        # encodings inherited from an input file (chunk sizes, fill values) do not apply
+        var.encoding = {}
+    return out, _encoding(out, complevel, time_chunk, chunked)
+
+
+def _atomic_write(path: Path, fill, late_attrs=None) -> Path:
+    """Call ``fill(tmp)`` to write a temporary file beside `path`, then move it into place.
+
+    The temporary file gets the late attributes, is flushed to disk and renamed
+    over `path` (then the folder is flushed); on any error it is removed and
+    the target is left as it was.
+    """
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = temporary_name(path)
+    try:
+        with _small_chunk_cache():
+            fill(tmp)
+        if late_attrs is not None:
+            extra = _clean_attrs(late_attrs())
+            if extra:
+                import netCDF4
+
+                with netCDF4.Dataset(tmp, "a") as nc:
+                    nc.setncatts(extra)
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            tmp.unlink()
+        except FileNotFoundError:
+            pass
+        raise
+    try:
+        dir_fd = os.open(path.parent, os.O_RDONLY)
+        try:
+            os.fsync(dir_fd)
+        finally:
+            os.close(dir_fd)
+    except OSError:  # some file systems do not support fsync on folders
+        pass
+    return path
 
 
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,
@@ -656,69 +745,105 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
         The written file.
     """
     path = Path(path)
-    if compress is True:
-        complevel = 4
-    elif compress is False or compress is None:
-        complevel = 0
-    else:
-        complevel = int(compress)
-        if not 0 <= complevel <= 9:
-            raise ValueError(f"compress must be a zlib level 0-9, got {compress!r}")
-    out = ds.copy()
-    gattrs = _clean_attrs({**out.attrs, **(attrs or {})})
-    gattrs["Conventions"] = "CF-1.8"
-    gattrs.setdefault("beltkit_version", __version__)
-    if history:
-        stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-        old = gattrs.get("history")
-        gattrs["history"] = f"{stamp} {history}" + (f"\n{old}" if old else "")
-    out.attrs = gattrs
-    for var in out.variables.values():
-        var.attrs = _clean_attrs(var.attrs)
-        # encodings inherited from an input file (chunk sizes, fill values) do not apply
-        var.encoding = {}
-    encoding = _encoding(out, complevel, time_chunk)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = temporary_name(path)
-    try:
-        with _small_chunk_cache():
-            if verify is None:
-                out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                              encoding=encoding)
-            else:
-                import dask
+    out, encoding = _prepared(ds, _complevel(compress), history, attrs, time_chunk)
 
-                collection, check = verify
-                writer = out.to_netcdf(tmp, mode="w", format="NETCDF4",
-                                       engine=_netcdf_engine(), encoding=encoding,
-                                       compute=False)
-                _, value = dask.compute(writer, collection)
-                check(value)
-        if late_attrs is not None:
-            extra = _clean_attrs(late_attrs())
-            if extra:
-                import netCDF4
+    def fill(tmp):
+        if verify is None:
+            out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
+                          encoding=encoding)
+            return
+        import dask
 
-                with netCDF4.Dataset(tmp, "a") as nc:
-                    nc.setncatts(extra)
-        with open(tmp, "rb") as fh:
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
+        collection, check = verify
+        writer = out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
+                               encoding=encoding, compute=False)
+        _, value = dask.compute(writer, collection)
+        check(value)
+
+    return _atomic_write(path, fill, late_attrs)
+
+
+def write_stream(slabs, path, *, count=None, compress=True, history=None, attrs=None,
+                 time_chunk: int = 4096, finish=None, late_attrs=None) -> Path:
+    """Write datasets that follow one another in time as one CF-1.8 netCDF-4 file, atomically.
+
+    The streaming counterpart of :func:`write_dataset` for data made piece by
+    piece (a long file summarized one time slab at a time, so that memory
+    does not grow with its length): the first slab creates the file, with
+    ``time`` as its unlimited dimension and the encoding :func:`write_dataset`
+    would give it, and each later slab is encoded the same way
+    (:func:`xarray.conventions.encode_cf_variable`) and appended along
+    ``time``. Variables without a ``time`` dimension come from the first slab.
+    A single slab (``count=1``) is written as :func:`write_dataset` would,
+    with a fixed ``time`` dimension. Same temporary file, flush and rename as
+    :func:`write_dataset`.
+
+    Parameters
+    ----------
+    slabs : iterable of xarray.Dataset
+        Consecutive pieces along ``time``, each with the variables of the
+        first (not modified); consumed once, while writing.
+    path : str or os.PathLike
+        Target file.
+    count : int, optional
+        Number of slabs, when known; 1 gives the file a fixed ``time``
+        dimension (stored contiguously when uncompressed, the fastest to write).
+    compress, history, attrs, time_chunk, late_attrs
+        As for :func:`write_dataset` (``attrs`` and ``history`` are taken with
+        the first slab's global attributes).
+    finish : callable, optional
+        Called once every slab is written; if it raises, the temporary file is
+        removed and nothing is renamed into place (e.g. value checks summed
+        over the slabs).
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+    """
+    path = Path(path)
+    complevel = _complevel(compress)
+
+    def fill(tmp):
+        import netCDF4
+
+        pieces = iter(slabs)
         try:
-            tmp.unlink()
-        except FileNotFoundError:
-            pass
-        raise
-    try:
-        dir_fd = os.open(path.parent, os.O_RDONLY)
-        try:
-            os.fsync(dir_fd)
-        finally:
-            os.close(dir_fd)
-    except OSError:  # some file systems do not support fsync on folders
-        pass
-    return path
+            first = next(pieces)
+        except StopIteration:
+            raise ValueError(f"{path.name}: nothing to write (no slabs)") from None
+        unlimited = ["time"] if ("time" in first.dims and count != 1) else None
+        out, encoding = _prepared(first, complevel, history, attrs, time_chunk,
+                                  chunked=True if unlimited else None)
+        out.to_netcdf(tmp, mode="w", format="NETCDF4", engine="netcdf4", encoding=encoding,
+                      unlimited_dims=unlimited)
+        del out, first
+        if unlimited is None:
+            if next(pieces, None) is not None:
+                raise ValueError(f"{path.name}: more slabs than the count of 1 given")
+            if finish is not None:
+                finish()
+            return
+        with netCDF4.Dataset(tmp, "a") as nc:
+            nc.set_auto_maskandscale(False)  # the values are encoded by xarray below
+            start = len(nc.dimensions["time"])
+            for slab in pieces:
+                n = slab.sizes.get("time", 0)
+                for name, var in slab.variables.items():
+                    if "time" not in var.dims:
+                        continue
+                    var = var.copy(deep=False)
+                    var.attrs = {}
+                    var.encoding = dict(encoding.get(name, {}))
+                    raw = np.asarray(xr.conventions.encode_cf_variable(var, name=name).values)
+                    where = tuple(slice(start, start + n) if d == "time" else slice(None)
+                                  for d in var.dims)
+                    nc.variables[name][where] = raw
+                start += n
+        if finish is not None:
+            finish()
+
+    return _atomic_write(path, fill, late_attrs)
 
 
 def read_attributes(path) -> dict:

@@ -489,7 +489,7 @@ def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkey
     # does, and leaves neither an output nor a temporary file
     from beltkit.pad import validate
 
-    monkeypatch.setattr(batch, "_TIME_CHUNK", 16)  # several chunks: the counts are summed
+    monkeypatch.setattr(batch, "_TIME_SLAB", 16)  # several slabs: the counts are summed
     inp = tmp_path / "in"
     inp.mkdir()
     ds = flux_dataset(n_time=100, seed=3)
@@ -513,3 +513,34 @@ def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkey
     # the checksum recorded after the data is that of the input
     with xr.open_dataset(tmp_path / "out" / "good.summary.nc") as got:
         assert got.attrs["source_sha256"] == bio.sha256(inp / "good.nc")
+
+
+def test_summary_streamed_in_slabs_equals_one_slab(tmp_path, monkeypatch):
+    # a file longer than one slab is summarized slab by slab and appended along an unlimited
+    # time dimension; the file read back must equal the one written in one piece (values,
+    # encodings of time and fill values, attributes) for compressed and plain outputs
+    import netCDF4
+
+    src = write_flux_file(tmp_path / "long.nc", flux_dataset(n_time=130, seed=11))
+    for compress in (True, False):
+        whole = tmp_path / f"whole{compress}"
+        [r1] = batch.summarize([src], whole, compress=compress)
+        monkeypatch.setattr(batch, "_TIME_SLAB", 32)  # 5 slabs, the last one short
+        sliced = tmp_path / f"sliced{compress}"
+        [r2] = batch.summarize([src], sliced, compress=compress)
+        monkeypatch.undo()
+        assert r1.status == r2.status == "ok", (r1.reason, r2.reason)
+        with xr.open_dataset(r1.output) as a, xr.open_dataset(r2.output) as b:
+            assert a.sizes == b.sizes and a.sizes["time"] == 130
+            # values and variable attributes; of the global ones only the history differs
+            xr.testing.assert_identical(a.drop_attrs(deep=False), b.drop_attrs(deep=False))
+            assert {k: v for k, v in a.attrs.items() if k != "history"} == {
+                k: v for k, v in b.attrs.items() if k != "history"}
+            assert a["time"].encoding["units"] == b["time"].encoding["units"]
+        with netCDF4.Dataset(r1.output) as n1, netCDF4.Dataset(r2.output) as n2:
+            assert not n1.dimensions["time"].isunlimited()  # one slab: a fixed dimension
+            assert n2.dimensions["time"].isunlimited()
+            v1, v2 = n1["flux_trapped"], n2["flux_trapped"]
+            assert v1.filters()["zlib"] is v2.filters()["zlib"] is compress
+            assert (v1.chunking() == "contiguous") is (not compress)
+            assert v1.getncattr("_FillValue") is not None and np.isnan(v2.getncattr("_FillValue"))

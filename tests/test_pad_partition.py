@@ -377,7 +377,7 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     assert len(want) == 3 and "3 negative values" in want[1]
     out, (totals, verify) = _partition(ds.chunk(time=7), defer_value_check=True)
     assert out["flux_trapped"].chunks is not None
-    totals = totals.compute()
+    totals = totals_bad = totals.compute()
     with pytest.raises(ConventionError) as exc:
         verify(totals)
     assert exc.value.problems == want
@@ -387,18 +387,29 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     out, (totals, verify) = _partition(good.chunk(time=7), defer_value_check=True)
     verify(totals.compute())
     xr.testing.assert_allclose(out.compute(), partition(good))
-    # eager data (and the public function) keep checking before returning
-    assert _partition(good, defer_value_check=True)[1] is None
+    # eager data: the engine's own counts, which slab-by-slab callers sum over the slabs
+    slabs = [_partition(ds.isel(time=slice(a, a + 16)), defer_value_check=True)[1]
+             for a in range(0, 40, 16)]
+    summed = sum(p[0] for p in slabs)
+    np.testing.assert_array_equal(summed, totals_bad)
+    with pytest.raises(ConventionError) as exc:
+        slabs[0][1](summed)
+    assert exc.value.problems == want
+    # the public function keeps checking before it returns
     with pytest.raises(ConventionError, match="3 negative values"):
         partition(ds.chunk(time=7))
+    with pytest.raises(ConventionError, match="3 negative values"):
+        partition(ds)
 
 
+@pytest.mark.parametrize("errors", [None, "flux_err"])
 @pytest.mark.parametrize("dtype,rtol", [(np.float64, 1e-12), (np.float32, 1e-6)])
-def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol):
+def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol, errors):
     # the compiled engine takes a fused path for chunks of samples whose flux values are all
-    # finite and non-negative and a general one otherwise: 900 samples span several of its
-    # chunks, some clean and some with a missing value, a negative value or an unknown L;
-    # the numpy engine (the reference implementation) treats every sample alike
+    # finite and non-negative (and errors non-negative) and a general one otherwise: 900
+    # samples span several of its chunks, some clean and some with a missing value, a
+    # negative value, an unknown L or a negative or missing error; the numpy engine (the
+    # reference implementation) treats every sample alike
     from beltkit.pad.partition import _partition
 
     rng = np.random.default_rng(21)
@@ -408,19 +419,38 @@ def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol):
     j[610, 2, 0] = -3.0
     L = np.linspace(1.3, 7.5, n)
     L[800] = np.nan
-    ds = make_ds(j, EDGES_12, L=L, mlat=25.0 * np.sin(np.linspace(0.0, 9.0, n)))
-    fast = partition(ds, engine="numba", allow_negative=True)
-    ref = partition(ds, engine="numpy", allow_negative=True)
+    extra = {}
+    if errors == "flux_err":
+        err = (0.1 * np.abs(j) + 0.2).astype(dtype)
+        err[450, 0, 7] = -0.1  # a negative error in a chunk of its own
+        err[460, 1, 2] = np.nan
+        extra["flux_err"] = err
+    ds = make_ds(j, EDGES_12, L=L, mlat=25.0 * np.sin(np.linspace(0.0, 9.0, n)), dtype=dtype,
+                 **extra)
+    assert ds.flux.dtype == dtype
+    # the value checks are left to the caller (a negative error is refused otherwise)
+    fast, (counts, verify) = _partition(ds, engine="numba", allow_negative=True,
+                                        defer_value_check=True)
+    ref, (ref_counts, _) = _partition(ds, engine="numpy", allow_negative=True,
+                                      defer_value_check=True)
+    assert fast.flux_trapped.dtype == dtype
     xr.testing.assert_allclose(fast, ref, rtol=rtol)
     np.testing.assert_array_equal(fast.partition_flag, ref.partition_flag)
+    np.testing.assert_array_equal(counts, ref_counts)
     assert fast.partition_flag.values[800].tolist() == [64, 64, 64]  # loss cone unknown
-    assert np.isnan(fast.flux_trapped.values[300, 1]) or fast.coverage_trapped.values[300, 1] < 1
-    # the value counts gathered in the same pass (lazy batch runs) equal the data's
-    out, (totals, verify) = _partition(ds.chunk(time=400), defer_value_check=True,
-                                       allow_negative=True)
-    totals = totals.compute()
-    finite = np.isfinite(j).sum(axis=(0, 2))
-    np.testing.assert_array_equal(totals[0], finite)
-    np.testing.assert_array_equal(totals[1], (j < 0).sum(axis=(0, 2)))
-    verify(totals)
+    assert fast.coverage_trapped.values[300, 1] < 1  # a missing bin: partial coverage
+    np.testing.assert_array_equal(counts[0], np.isfinite(j).sum(axis=(0, 2)))
+    np.testing.assert_array_equal(counts[1], (j < 0).sum(axis=(0, 2)))
+    if errors:
+        np.testing.assert_array_equal(counts[2], (err < 0).sum(axis=(0, 2)))
+        assert np.isnan(fast.flux_trapped_err.values[460, 1])  # a missing error propagates
+        assert np.isfinite(fast.flux_trapped_err.values[461, 1])
+        with pytest.raises(ConventionError, match="negative uncertainties"):
+            verify(counts)
+    else:
+        verify(counts)
+    # the same counts from the lazy path, where the engine adds them to its outputs
+    out, (totals, _) = _partition(ds.chunk(time=400), defer_value_check=True,
+                                  allow_negative=True)
+    np.testing.assert_array_equal(totals.compute(), counts)
     xr.testing.assert_allclose(out.compute(), fast, rtol=rtol)

@@ -33,6 +33,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         cosd, coso, has_neg, out, flag, stats, chunk, count_row):
     n, n_e, n_p = x.shape
     xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
+    sf = s.reshape(s.shape[0], -1)
     nan = np.nan
     wt = np.empty((5, n_p))
     wq = np.empty((9, n_p))
@@ -43,18 +44,21 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
     for t0 in range(0, n, chunk):
         t1 = min(t0 + chunk, n)
         # a clean chunk (every loss cone known, every flux value finite and >= 0, no
-        # errors to propagate: the common case) takes the fused path below, which writes
+        # negative error: the common case) takes the fused path below, which writes
         # the outputs of each sample as soon as its sums are known
-        clean = not has_s
-        if clean:
-            for t in range(t0, t1):
-                clean &= (blc[t] == blc[t]) & (dlc[t] == dlc[t])
+        clean = True
+        for t in range(t0, t1):
+            clean &= (blc[t] == blc[t]) & (dlc[t] == dlc[t])
         if clean:
             n_bad = 0
             for t in range(t0, t1):
                 for i in range(n_e * n_p):
                     v = xf[t, i]
                     n_bad += 0 if (v - v == 0.0) & (v >= 0.0) else 1
+            if has_s:
+                for t in range(t0, t1):
+                    for i in range(n_e * n_p):
+                        n_bad += 1 if sf[t, i] < 0.0 else 0
             clean = n_bad == 0
         if clean:
             for e in range(n_e):
@@ -118,6 +122,20 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             om0 = _FOUR_PI * (1.0 - cb)
             om1 = _FOUR_PI * (cb - cd)
             om2 = _FOUR_PI * cd
+            if has_s:  # the weight products of the error propagation
+                for p in range(n_p):
+                    w0 = wt[0, p]
+                    w3 = wt[3, p]
+                    w4 = wt[4, p]
+                    wq[0, p] = w0 * w0
+                    wq[1, p] = wt[1, p] * wt[1, p]
+                    wq[2, p] = wt[2, p] * wt[2, p]
+                    wq[3, p] = w4 * w4
+                    wq[4, p] = w3 * w3
+                    wq[5, p] = w0 * w4
+                    wq[6, p] = wt[1, p] * w4
+                    wq[7, p] = wt[2, p] * w4
+                    wq[8, p] = w0 * w3
             if clean:  # fused: sums and outputs of the sample's energies, no scratch
                 m0 = colsum[0]
                 m1 = colsum[1]
@@ -174,21 +192,36 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         out[count_row, j] = n_p
                         out[count_row + 1, j] = 0
                         out[count_row + 2, j] = 0
+                    if has_s:  # error sums and uncertainties, as in the general path below
+                        v0 = v1 = v2 = v3 = v4 = v5 = v6 = v7 = v8 = 0.0
+                        for p in range(n_p):
+                            q = np.float64(s[t, e, p])
+                            q2 = q * q
+                            v0 += q2 * wq[0, p]
+                            v1 += q2 * wq[1, p]
+                            v2 += q2 * wq[2, p]
+                            v3 += q2 * wq[3, p]
+                            v4 += q2 * wq[4, p]
+                            v5 += q2 * wq[5, p]
+                            v6 += q2 * wq[6, p]
+                            v7 += q2 * wq[7, p]
+                            v8 += q2 * wq[8, p]
+                        f0 = pops0 * itot
+                        f1 = pops1 * itot
+                        f2 = pops2 * itot
+                        out[15, j] = (math.sqrt(v0) if s0 else nan) if e0 else 0.0
+                        out[16, j] = (math.sqrt(v1) if s1 else nan) if e1 else 0.0
+                        out[17, j] = (math.sqrt(v2) if s2 else nan) if e2 else 0.0
+                        out[18, j] = math.sqrt(v3) if m4 > 0 else nan
+                        out[19, j] = itot * math.sqrt(max(v0 - 2 * f0 * v5 + f0 * f0 * v3, 0.0))
+                        out[20, j] = itot * math.sqrt(max(v1 - 2 * f1 * v6 + f1 * f1 * v3, 0.0))
+                        out[21, j] = itot * math.sqrt(max(v2 - 2 * f2 * v7 + f2 * f2 * v3, 0.0))
+                        ok3 = fill_ok & (a3 != 0.0)
+                        kf = m3 / (m0 * a3) if ok3 else nan
+                        qf = a0 * kf / a3 if ok3 else nan
+                        var = kf * kf * v0 + qf * qf * v4 - 2 * kf * qf * v8
+                        out[22, j] = math.sqrt(max(var, 0.0)) if ok3 else nan
                 continue
-            if has_s:  # the weight products of the error propagation
-                for p in range(n_p):
-                    w0 = wt[0, p]
-                    w3 = wt[3, p]
-                    w4 = wt[4, p]
-                    wq[0, p] = w0 * w0
-                    wq[1, p] = wt[1, p] * wt[1, p]
-                    wq[2, p] = wt[2, p] * wt[2, p]
-                    wq[3, p] = w4 * w4
-                    wq[4, p] = w3 * w3
-                    wq[5, p] = w0 * w4
-                    wq[6, p] = wt[1, p] * w4
-                    wq[7, p] = wt[2, p] * w4
-                    wq[8, p] = w0 * w3
             # one vectorised scan of the sample's E x P values: any missing or negative?
             n_bad = 0
             n_low = 0

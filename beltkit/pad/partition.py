@@ -47,7 +47,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .._threads import map_slices
+from .._threads import cores, map_slices
 from ..errors import ConventionError
 from . import _kernels
 from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
@@ -439,7 +439,9 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
         return block_stats
 
     # the compiled kernel releases the GIL: blocks run on every core at once
-    parts = map_slices(one, n_t, _BLOCK, parallel=opts["engine"] != "numpy")
+    # at least two blocks per core (a slab of a file keeps every core busy too)
+    block = min(_BLOCK, max(4096, -(-n_t // (2 * cores()))))
+    parts = map_slices(one, n_t, block, parallel=opts["engine"] != "numpy")
     if stats is not None:
         for block_stats in parts:
             stats += block_stats
@@ -622,8 +624,11 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     engine counts the values while it computes the outputs: ``pending`` is
     ``(stats, verify)``, a dask array to compute *together with* the outputs
     (so that the data are read once) and a function of its value that raises
-    the :class:`ConventionError` listing every problem. Otherwise ``pending``
-    is None and the checks have been made.
+    the :class:`ConventionError` listing every problem. With eager data
+    ``stats`` is the engine's count itself, a (3, energy) integer array
+    (valid values, negative values, negative errors), which a caller that
+    partitions a file slab by slab sums before calling ``verify`` once. Without
+    ``defer_value_check`` ``pending`` is None and the checks have been made.
     """
     lazy = _is_lazy(ds)
     deferred = bool(defer_value_check and lazy)
@@ -658,9 +663,12 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         if problems:
             raise ConventionError(problems, source)
 
-    if stats is not None:
-        verify(stats.T)
     pending = None
+    if stats is not None:
+        if defer_value_check:
+            pending = (stats.T.copy(), verify)
+        else:
+            verify(stats.T)
     if deferred:
         n_data = _n_out(err is not None)
         pending = (data[n_data:].astype(np.int64).sum(axis=1), verify)
