@@ -413,11 +413,35 @@ def _process_file(task: dict) -> FileResult:
     Files are processed one at a time per process (see ``_FILE_LOCK``); run
     dask.distributed workers with one thread each, more processes for speed.
     """
+    return _committed(*_process_file_deferred(task))
+
+
+def _process_file_deferred(task: dict):
+    """Summarize one file up to the flush and rename of its output.
+
+    Returns ``(result, commit)``: ``commit`` (None when nothing was written)
+    flushes the temporary output and renames it into place; it makes no
+    netCDF call, so it runs outside ``_FILE_LOCK`` (see :func:`_committed`).
+    """
     with _FILE_LOCK:
         return _process_file_locked(task)
 
 
-def _process_file_locked(task: dict) -> FileResult:
+def _committed(result: FileResult, commit) -> FileResult:
+    """Run a file's deferred commit; return its final result (failed if the commit fails)."""
+    if commit is None:
+        return result
+    t0 = _time.perf_counter()
+    try:
+        commit()
+    except Exception as exc:
+        return FileResult(result.input, result.output, "failed",
+                          one_line(exc, Path(result.input)), result.seconds)
+    return FileResult(result.input, result.output, result.status, result.reason,
+                      result.seconds + _time.perf_counter() - t0)
+
+
+def _process_file_locked(task: dict):
     t0 = _time.perf_counter()
     src = Path(task["input"])
     out = Path(task["output"])
@@ -435,7 +459,7 @@ def _process_file_locked(task: dict) -> FileResult:
             if (attrs.get("source_sha256") == digest.result()
                     and attrs.get("beltkit_settings") == _settings_text(settings)):
                 return FileResult(str(src), str(out), "skipped", "up to date",
-                                  _time.perf_counter() - t0)
+                                  _time.perf_counter() - t0), None
         with _single_threaded():
             ds = open_indexed(src, mapping=task["mapping"])
             slabs, finish, count = _summary_slabs(ds, field=task["field"],
@@ -445,17 +469,18 @@ def _process_file_locked(task: dict) -> FileResult:
                                    "position_geo" in ds.variables)
             # the flux values are checked while the summary is computed (one pass over
             # the file); a refused file leaves no output (write_stream's finish)
-            write_stream(slabs, out, count=count, compress=settings["compress"],
-                         history=task["command"], attrs=attrs, finish=finish,
-                         late_attrs=lambda: {"source_sha256": digest.result()})
-        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0)
+            commit = write_stream(slabs, out, count=count, compress=settings["compress"],
+                                  history=task["command"], attrs=attrs, finish=finish,
+                                  late_attrs=lambda: {"source_sha256": digest.result()},
+                                  defer_commit=True)
+        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - t0), commit
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         if task.get("debug"):
             import traceback
 
             traceback.print_exc()
         return FileResult(str(src), str(out), "failed", one_line(exc, src),
-                          _time.perf_counter() - t0)
+                          _time.perf_counter() - t0), None
     finally:
         if ds is not None:
             ds.close()
@@ -595,12 +620,7 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
         elif int(workers) > 1:
             _run_processes(tasks, results, int(workers), fail_fast, emit)
         else:
-            for i, task in tasks:
-                r = _process_file(task)
-                results[i] = r
-                emit(r)
-                if fail_fast and r.status == "failed":
-                    break
+            _run_sequential(tasks, results, fail_fast, emit)
     finally:
         for i, task in tasks:
             if i not in results:
@@ -611,6 +631,41 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
         if bar is not None:
             bar.close()
     return [results[i] for i in sorted(results)]
+
+
+def _run_sequential(tasks, results, fail_fast, emit):
+    """Summarize the files one after another in this process.
+
+    Each file's flush and rename (disk waits, no netCDF call) run in a
+    background thread while the next file is summarized; a file is reported
+    once its output is in place, in input order. With ``fail_fast`` every
+    file is committed before the next one starts, so that nothing follows a
+    failure.
+    """
+    from concurrent.futures import ThreadPoolExecutor
+
+    pending = []
+
+    def settle():
+        while pending:
+            i, fut = pending.pop(0)
+            results[i] = fut.result()
+            emit(results[i])
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="beltkit-commit") as committer:
+        try:
+            for i, task in tasks:
+                r, commit = _process_file_deferred(task)
+                settle()  # the previous file, committed meanwhile
+                if commit is not None and not fail_fast:
+                    pending.append((i, committer.submit(_committed, r, commit)))
+                    continue
+                results[i] = r = _committed(r, commit)
+                emit(r)
+                if fail_fast and r.status == "failed":
+                    break
+        finally:
+            settle()
 
 
 def _run_processes(tasks, results, workers, fail_fast, emit):

@@ -663,15 +663,24 @@ def _prepared(ds: xr.Dataset, complevel: int, history, attrs, time_chunk: int, c
     return out, _encoding(out, complevel, time_chunk, chunked)
 
 
-def _atomic_write(path: Path, fill, late_attrs=None) -> Path:
+def _atomic_write(path: Path, fill, late_attrs=None, *, defer_commit=False):
     """Call ``fill(tmp)`` to write a temporary file beside `path`, then move it into place.
 
     The temporary file gets the late attributes, is flushed to disk and renamed
     over `path` (then the folder is flushed); on any error it is removed and
-    the target is left as it was.
+    the target is left as it was. With ``defer_commit`` the flush and rename
+    (which make no netCDF call) are not done here: the function that does them
+    is returned, for the caller to run once it has released its netCDF lock.
     """
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = temporary_name(path)
+
+    def discard():
+        try:
+            tmp.unlink()
+        except FileNotFoundError:
+            pass
+
     try:
         with _small_chunk_cache():
             fill(tmp)
@@ -682,24 +691,29 @@ def _atomic_write(path: Path, fill, late_attrs=None) -> Path:
 
                 with netCDF4.Dataset(tmp, "a") as nc:
                     nc.setncatts(extra)
-        with open(tmp, "rb") as fh:
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
     except BaseException:
-        try:
-            tmp.unlink()
-        except FileNotFoundError:
-            pass
+        discard()
         raise
-    try:
-        dir_fd = os.open(path.parent, os.O_RDONLY)
+
+    def commit() -> Path:
         try:
-            os.fsync(dir_fd)
-        finally:
-            os.close(dir_fd)
-    except OSError:  # some file systems do not support fsync on folders
-        pass
-    return path
+            with open(tmp, "rb") as fh:
+                os.fsync(fh.fileno())
+            os.replace(tmp, path)
+        except BaseException:
+            discard()
+            raise
+        try:
+            dir_fd = os.open(path.parent, os.O_RDONLY)
+            try:
+                os.fsync(dir_fd)
+            finally:
+                os.close(dir_fd)
+        except OSError:  # some file systems do not support fsync on folders
+            pass
+        return path
+
+    return commit if defer_commit else commit()
 
 
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,
@@ -764,7 +778,7 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
 
 
 def write_stream(slabs, path, *, count=None, compress=True, history=None, attrs=None,
-                 time_chunk: int = 4096, finish=None, late_attrs=None) -> Path:
+                 time_chunk: int = 4096, finish=None, late_attrs=None, defer_commit=False):
     """Write datasets that follow one another in time as one CF-1.8 netCDF-4 file, atomically.
 
     The streaming counterpart of :func:`write_dataset` for data made piece by
@@ -795,11 +809,17 @@ def write_stream(slabs, path, *, count=None, compress=True, history=None, attrs=
         Called once every slab is written; if it raises, the temporary file is
         removed and nothing is renamed into place (e.g. value checks summed
         over the slabs).
+    defer_commit : bool
+        Return, instead of running, the function that flushes the temporary
+        file and renames it into place (it makes no netCDF call, so a caller
+        holding a netCDF lock can release it first, or run it in another
+        thread while it goes on with the next file).
 
     Returns
     -------
-    pathlib.Path
-        The written file.
+    pathlib.Path or callable
+        The written file, or with ``defer_commit`` the function that puts it
+        in place and returns its path (and removes the temporary on failure).
     """
     path = Path(path)
     complevel = _complevel(compress)
@@ -843,7 +863,7 @@ def write_stream(slabs, path, *, count=None, compress=True, history=None, attrs=
         if finish is not None:
             finish()
 
-    return _atomic_write(path, fill, late_attrs)
+    return _atomic_write(path, fill, late_attrs, defer_commit=defer_commit)
 
 
 def read_attributes(path) -> dict:
