@@ -490,6 +490,7 @@ def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkey
     from beltkit.pad import validate
 
     monkeypatch.setattr(batch, "_TIME_SLAB", 16)  # several slabs: the counts are summed
+    monkeypatch.setattr(batch, "_STREAM_SLAB", 16)
     inp = tmp_path / "in"
     inp.mkdir()
     ds = flux_dataset(n_time=100, seed=3)
@@ -526,6 +527,7 @@ def test_summary_streamed_in_slabs_equals_one_slab(tmp_path, monkeypatch):
         whole = tmp_path / f"whole{compress}"
         [r1] = batch.summarize([src], whole, compress=compress)
         monkeypatch.setattr(batch, "_TIME_SLAB", 32)  # 5 slabs, the last one short
+        monkeypatch.setattr(batch, "_STREAM_SLAB", 32)
         sliced = tmp_path / f"sliced{compress}"
         [r2] = batch.summarize([src], sliced, compress=compress)
         monkeypatch.undo()

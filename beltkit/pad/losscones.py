@@ -161,8 +161,10 @@ def _dipole_cones(L, mlat, b_loc, altitude_km):
         Ls = L[sl]
         np.divide(B0_NT, dipole._cube(Ls), out=b_eq[sl])
         eq_over_foot = 1.0 / dipole._b_ratio_cos2(rf / Ls)
-        if b_loc is None:
-            ratio = dipole._b_ratio(np.deg2rad(mlat[sl]))
+        if b_loc is None:  # B/B_eq from cos^2(mlat) (one transcendental pass)
+            c2 = np.cos(np.deg2rad(mlat[sl]))
+            np.multiply(c2, c2, out=c2)
+            ratio = dipole._b_ratio_cos2(c2)
             np.multiply(b_eq[sl], ratio, out=bl[sl])
         else:
             ratio = b_loc[sl] / b_eq[sl]

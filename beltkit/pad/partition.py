@@ -380,8 +380,33 @@ def _arrays(ds, prep):
     return flux, err, c2f, look
 
 
+class OutputBuffers:
+    """Output memory reused from one eager partition to the next (one slab after another).
+
+    A batch run partitions a file slab by slab and writes each result out
+    before it computes the next: the next slab can then be written into the
+    same memory, which is already mapped (no page faults, no zeroing by the
+    kernel). Pass one to ``_partition(..., buffers=...)`` only when nothing
+    keeps the previous result: its arrays are overwritten.
+    """
+
+    def __init__(self):
+        self._key = None
+        self._buf = self._flag = None
+
+    def take(self, nout, n, n_e, dtype):
+        """Return ``(buf, flag)`` for ``n`` samples, reusing the last ones if they fit."""
+        key = (nout, n, n_e, np.dtype(dtype).str)
+        if key != self._key:
+            self._buf = self._flag = None  # drop the old memory before taking new
+            self._buf = _alloc_out(nout, n, n_e, dtype)
+            self._flag = np.empty(n * n_e, dtype=np.int16)
+            self._key = key
+        return self._buf, self._flag
+
+
 def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None,
-             counts=False):
+             counts=False, buffers=None):
     nout = _n_out(err is not None) + (3 if counts else 0)
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look, blc, dlc) if a is not None)
@@ -427,8 +452,11 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
     dv = np.asarray(dlc.values, dtype=float)
     lv = look.values if look is not None else None
     n_t, n_e = fv.shape[:2]
-    buf = _alloc_out(nout, n_t, n_e, dtype)
-    flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
+    if buffers is not None:
+        buf, flag = buffers.take(nout, n_t, n_e, dtype)
+    else:
+        buf = _alloc_out(nout, n_t, n_e, dtype)
+        flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
 
     def one(sl):
         block_stats = np.zeros((n_e, 3), dtype=np.int64)
@@ -616,7 +644,8 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
 
 
 def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
-               allow_negative=False, engine="auto", fill=None, defer_value_check=False):
+               allow_negative=False, engine="auto", fill=None, defer_value_check=False,
+               buffers=None):
     """:func:`partition`, optionally leaving the value checks of lazy data to the caller.
 
     Returns ``(out, pending)``. With ``defer_value_check`` and dask data, the
@@ -629,6 +658,8 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     (valid values, negative values, negative errors), which a caller that
     partitions a file slab by slab sums before calling ``verify`` once. Without
     ``defer_value_check`` ``pending`` is None and the checks have been made.
+    ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
+    the previous call's outputs, which are overwritten.
     """
     lazy = _is_lazy(ds)
     deferred = bool(defer_value_check and lazy)
@@ -652,7 +683,7 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     data, flags = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom,
-                           opts, dtype, stats, counts=deferred)
+                           opts, dtype, stats, counts=deferred, buffers=buffers)
     source = ds.encoding.get("source")
 
     def verify(totals):
