@@ -5,7 +5,8 @@ Figures:
 * time of ``beltkit.pad.partition`` on (time=10^6, energy=8, pitch_angle=12) float32
   flux (dipole loss cones from L and mlat), over the time of one weighted numpy reduction
   over pitch angle of the same array (``np.einsum("tep,p->te", flux, w)``, and also
-  ``(flux * w).sum(-1)``) -- target ratio <= 3;
+  ``(flux * w).sum(-1)``), the runs alternated and the median of 9 taken -- target
+  ratio <= 3;
 * peak memory allocated during the partition (tracemalloc) over the input array's size --
   target < 2.5;
 * the same with ``flux_err`` (errors propagated) for information;
@@ -62,6 +63,22 @@ def _median_time(func, repeats):
     return statistics.median(times)
 
 
+def _interleaved_medians(funcs, repeats):
+    """Median time of each function, run in turn ``repeats`` times.
+
+    Alternating the runs (rather than timing each one in a block) keeps a
+    change of the machine's speed during the benchmark (a shared virtual
+    machine) from falling on one side of a ratio only.
+    """
+    times = [[] for _ in funcs]
+    for _ in range(repeats):
+        for k, func in enumerate(funcs):
+            t0 = time.perf_counter()
+            func()
+            times[k].append(time.perf_counter() - t0)
+    return [statistics.median(t) for t in times]
+
+
 def _peak(func):
     tracemalloc.start()
     try:
@@ -96,15 +113,15 @@ def _dask_peak(path, n_t, chunk):
 def run(quick=False):
     """Return the benchmark rows (figure, value, unit, baseline, ratio, target, passed)."""
     n_t = 100_000 if quick else 1_000_000
-    repeats = 5
+    repeats = 9
     ds = _dataset(n_t)
     flux = ds["flux"].values
     w = np.linspace(0.5, 1.5, flux.shape[-1]).astype(np.float32)
     partition(_dataset(64))  # compile / load the numba kernel outside the timing
     partition(_dataset(64, with_err=True))
-    t_einsum = _median_time(lambda: np.einsum("tep,p->te", flux, w), repeats)
-    t_mulsum = _median_time(lambda: (flux * w).sum(-1), repeats)
-    t_part = _median_time(lambda: partition(ds), repeats)
+    t_einsum, t_mulsum, t_part = _interleaved_medians(
+        [lambda: np.einsum("tep,p->te", flux, w), lambda: (flux * w).sum(-1),
+         lambda: partition(ds)], repeats)
     peak = _peak(lambda: partition(ds))
     size = f"{n_t:.0e} x 8 x 12 float32"
     rows = [
@@ -119,7 +136,7 @@ def run(quick=False):
          "target": "ratio < 2.5", "passed": peak / flux.nbytes < 2.5},
     ]
     ds_err = _dataset(n_t, with_err=True)
-    t_err = _median_time(lambda: partition(ds_err), repeats)
+    t_err = _median_time(lambda: partition(ds_err), 5)
     peak_err = _peak(lambda: partition(ds_err))
     in_bytes = flux.nbytes * 2
     rows.append({"figure": f"partition with flux_err {size} vs einsum", "value": t_err,

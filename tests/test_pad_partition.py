@@ -454,3 +454,42 @@ def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol, errors):
                                   allow_negative=True)
     np.testing.assert_array_equal(totals.compute(), counts)
     xr.testing.assert_allclose(out.compute(), fast, rtol=rtol)
+
+
+def test_eager_dipole_loss_cones_equal_the_dipole_module():
+    # the eager path computes the per-sample dipole cones in one compiled pass; the public
+    # closed forms of beltkit.dipole (checked against textbook limits in test_dipole.py)
+    # are the reference
+    from beltkit.constants import R_E_KM
+    from beltkit.pad.conventions import check
+    from beltkit.pad.losscones import sample_loss_cones
+
+    rng = np.random.default_rng(4)
+    n = 300_000  # several slices of the worker threads
+    L = rng.uniform(1.1, 9.0, n)
+    # latitudes on each line between the equator and the 250 km footpoint
+    foot = np.degrees(np.arccos(np.sqrt((1 + 250.0 / R_E_KM) / L)))
+    mlat = rng.uniform(-1.0, 1.0, n) * foot
+    L[7] = np.nan
+    mlat[11] = np.nan
+    ds = make_ds(np.ones((n, 1, 12)), EDGES_12, L=L, mlat=mlat)
+    lc = sample_loss_cones(ds, check(ds, check_values=False), altitude_km=250.0)
+    ok = np.isfinite(L) & np.isfinite(mlat)
+    want_blc = dipole.local_loss_cone(L[ok], mlat[ok], altitude_km=250.0)
+    np.testing.assert_allclose(lc.blc_local.values[ok], want_blc, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(lc.blc_equatorial.values[ok],
+                               dipole.bounce_loss_cone(L[ok], altitude_km=250.0), rtol=1e-12)
+    np.testing.assert_allclose(lc.b_local.values[ok], dipole.field_magnitude(L[ok], mlat[ok]),
+                               rtol=1e-12)
+    np.testing.assert_allclose(lc.b_min.values[ok], dipole.equatorial_field(L[ok]), rtol=1e-12)
+    assert np.isnan(lc.blc_local.values[[7, 11]]).all()  # NaN positions stay unknown
+    assert np.isnan(lc.blc_equatorial.values[7]) and np.isfinite(lc.blc_equatorial.values[11])
+    # a measured local field replaces the model's in the local cone (sin^2 = B_loc / B_foot)
+    b_meas = 1.1 * dipole.field_magnitude(L[ok][:1000], mlat[ok][:1000])
+    ds_b = make_ds(np.ones((1000, 1, 12)), EDGES_12, L=L[ok][:1000], mlat=mlat[ok][:1000],
+                   b_local=b_meas)
+    lc_b = sample_loss_cones(ds_b, check(ds_b, check_values=False), altitude_km=250.0)
+    b_foot = dipole.footpoint_field(L[ok][:1000], altitude_km=250.0)
+    want = np.degrees(np.arcsin(np.sqrt(np.clip(b_meas / b_foot, 0, 1))))
+    np.testing.assert_allclose(lc_b.blc_local.values, want, rtol=1e-12, atol=1e-12)
+    np.testing.assert_array_equal(lc_b.b_local.values, b_meas)

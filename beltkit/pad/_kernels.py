@@ -19,7 +19,7 @@ import numpy as np
 HAVE_NUMBA = importlib.util.find_spec("numba") is not None
 _JIT = {}
 
-__all__ = ["HAVE_NUMBA", "partition_block", "value_scan"]
+__all__ = ["HAVE_NUMBA", "dipole_cones", "partition_block", "value_scan"]
 
 _TWO_PI = 2.0 * math.pi
 _FOUR_PI = 4.0 * math.pi
@@ -442,6 +442,67 @@ def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
                     n_neg[e] += 1
 
 
+def _dipole_cones_py(L, mlat, b_loc, has_b, rf, b0, blc, blc_eq, bl, b_eq):
+    r"""Dipole loss cones per sample: the closed forms of beltkit.dipole in one pass.
+
+    With :math:`c_f^2 = r_f/L` (footpoint latitude), :math:`c^2 = \cos^2\lambda`
+    and :math:`b(c^2) = \sqrt{4 - 3c^2}/c^6` (:math:`B/B_\mathrm{eq}`, as
+    ``dipole._b_ratio_cos2``): :math:`B_\mathrm{eq} = B_0/L^3`,
+    :math:`B_\mathrm{loc} = B_\mathrm{eq}\,b(c^2)` (or the measured one),
+    :math:`\sin^2\alpha_\mathrm{eq} = 1/b(c_f^2)` and
+    :math:`\sin^2\alpha_\mathrm{loc} = (B_\mathrm{loc}/B_\mathrm{eq})/b(c_f^2)`,
+    clipped to [0, 1]; NaN propagates (comparisons with NaN are false).
+    """
+    to_deg = 180.0 / math.pi
+    for i in range(L.shape[0]):
+        Li = L[i]
+        be = b0 / (Li * Li * Li)
+        cf2 = rf / Li
+        eq_over_foot = (cf2 * cf2 * cf2) / math.sqrt(4.0 - 3.0 * cf2)
+        if has_b:
+            ratio = b_loc[i] / be
+            bl[i] = b_loc[i]
+        else:
+            c = math.cos(mlat[i] * (math.pi / 180.0))
+            c2 = c * c
+            ratio = math.sqrt(4.0 - 3.0 * c2) / (c2 * c2 * c2)
+            bl[i] = be * ratio
+        b_eq[i] = be
+        r = ratio * eq_over_foot
+        r = 1.0 if r > 1.0 else r
+        r = 0.0 if r < 0.0 else r
+        q = 1.0 if eq_over_foot > 1.0 else eq_over_foot
+        q = 0.0 if q < 0.0 else q
+        blc[i] = math.asin(math.sqrt(r)) * to_deg
+        blc_eq[i] = math.asin(math.sqrt(q)) * to_deg
+
+
+def dipole_cones(L, mlat, b_loc, rf, b0, blc, blc_eq, bl, b_eq):
+    """Fill the per-sample dipole loss cones and fields (see ``_dipole_cones_py``).
+
+    Parameters
+    ----------
+    L, mlat : numpy.ndarray
+        (n,) float64 dipole L and magnetic latitude (deg), already checked.
+    b_loc : numpy.ndarray or None
+        (n,) measured local field (nT), replacing the dipole's.
+    rf : float
+        Footpoint radius over R_E (1 + altitude / R_E).
+    b0 : float
+        Equatorial surface field (nT).
+    blc, blc_eq, bl, b_eq : numpy.ndarray
+        (n,) float64 outputs: local and equatorial bounce loss cones (deg),
+        local and equatorial field (nT).
+    """
+    has_b = b_loc is not None
+    args = (L, mlat, b_loc if has_b else L, has_b, float(rf), float(b0), blc, blc_eq, bl,
+            b_eq)
+    if HAVE_NUMBA:
+        _jitted("cones")(*args)
+    else:  # pragma: no cover
+        _dipole_cones_py(*args)
+
+
 def _jitted(name):
     """Return the compiled kernel `name`, compiling (or loading from cache) once."""
     if name not in _JIT:
@@ -449,10 +510,12 @@ def _jitted(name):
 
         # fast-math without the no-NaN/no-inf flags: NaN tests stay valid, sums vectorise
         fastmath = {"reassoc", "contract", "arcp", "nsz"}
-        py = {"partition": _partition_block_py, "scan": _value_scan_py}[name]
+        py = {"partition": _partition_block_py, "scan": _value_scan_py,
+              "cones": _dipole_cones_py}[name]
         # numpy's error model: every division is guarded by a select already, and no
-        # zero-divisor branch is left to stop the vectoriser
-        opts = {"fastmath": fastmath, "error_model": "numpy"} if name == "partition" else {}
+        # zero-divisor branch is left to stop the vectoriser (NaN and inf propagate)
+        opts = ({"fastmath": fastmath, "error_model": "numpy"}
+                if name in ("partition", "cones") else {})
         _JIT[name] = numba.njit(cache=True, nogil=True, **opts)(py)
     return _JIT[name]
 

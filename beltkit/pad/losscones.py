@@ -43,6 +43,7 @@ import xarray as xr
 from .. import dipole
 from .._threads import map_slices
 from ..constants import B0_NT, R_E_KM
+from . import _kernels
 from .conventions import Prepared
 
 __all__ = ["cone_from_fields", "sample_loss_cones"]
@@ -132,8 +133,8 @@ def _var(ds, name, scale):
     return v.reset_coords(drop=True) if hasattr(v, "reset_coords") else v
 
 
-#: samples per slice of the eager closed forms: their temporaries stay in the core's cache
-_SLICE = 16384
+#: samples per slice of the eager closed forms (a slice per task of the worker threads)
+_SLICE = 65536
 
 
 def _dipole_cones(L, mlat, b_loc, altitude_km):
@@ -142,34 +143,27 @@ def _dipole_cones(L, mlat, b_loc, altitude_km):
     The closed forms of :mod:`beltkit.dipole` with the common factor
     :math:`B_0/L^3` taken once: :math:`B_\mathrm{eq}/B_\mathrm{foot}` depends on the
     footpoint latitude alone and :math:`B_\mathrm{loc}/B_\mathrm{eq}` on mlat alone.
-    Computed in cache-sized slices on the process's worker threads (numpy's
-    elementwise loops release the GIL); the arguments are checked first, whole.
+    Computed by a compiled kernel (one pass per sample; numpy's dozen passes
+    cost twice as much) in slices on the process's worker threads; the
+    arguments are checked first, whole.
     """
     shape = np.broadcast_shapes(np.shape(L), np.shape(mlat), np.shape(b_loc))
-    L, mlat = (np.broadcast_to(a, shape).ravel() for a in (L, mlat))
-    b_loc = None if b_loc is None else np.broadcast_to(b_loc, shape).ravel()
+    L, mlat = (np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=float), shape).ravel())
+               for a in (L, mlat))
+    if b_loc is not None:
+        b_loc = np.ascontiguousarray(
+            np.broadcast_to(np.asarray(b_loc, dtype=float), shape).ravel())
     # the arguments are checked once, whole (L >= 1 and reaching the altitude, mlat)
     dipole._foot_cos2(L, altitude_km)
     if b_loc is None:
         dipole._mlat(mlat, "mlat")
     rf = 1.0 + float(altitude_km) / R_E_KM  # cos^2 of the footpoint latitude is rf / L
     n = L.shape[0]
-    blc, blc_eq, b_eq = np.empty(n), np.empty(n), np.empty(n)
-    bl = np.empty(n) if b_loc is None else b_loc
+    blc, blc_eq, bl, b_eq = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
 
     def one(sl):
-        Ls = L[sl]
-        np.divide(B0_NT, dipole._cube(Ls), out=b_eq[sl])
-        eq_over_foot = 1.0 / dipole._b_ratio_cos2(rf / Ls)
-        if b_loc is None:  # B/B_eq from cos^2(mlat) (one transcendental pass)
-            c2 = np.cos(np.deg2rad(mlat[sl]))
-            np.multiply(c2, c2, out=c2)
-            ratio = dipole._b_ratio_cos2(c2)
-            np.multiply(b_eq[sl], ratio, out=bl[sl])
-        else:
-            ratio = b_loc[sl] / b_eq[sl]
-        blc[sl] = dipole._asin_deg(ratio * eq_over_foot)
-        blc_eq[sl] = dipole._asin_deg(eq_over_foot)
+        _kernels.dipole_cones(L[sl], mlat[sl], None if b_loc is None else b_loc[sl], rf,
+                              B0_NT, blc[sl], blc_eq[sl], bl[sl], b_eq[sl])
 
     map_slices(one, n, _SLICE)
     return tuple(a.reshape(shape) for a in (blc, blc_eq, bl, b_eq))
