@@ -546,6 +546,92 @@ def _process_file_locked(task: dict):
             digest.cancel()
 
 
+def _read_and_compute(task: dict, buffers):
+    """First stage of a pipelined file: read it under the netCDF lock, then summarize it.
+
+    Returns ``(result, job)``: a final result (skipped or failed) and None; or
+    None and the job for :func:`_write_job`, the summary held in memory (its
+    outputs in ``buffers``), computed with the lock released so that the
+    previous file can be written meanwhile; or ``(None, None)`` for a file
+    longer than one slab, which is streamed by :func:`_process_file` instead.
+    """
+    from .pad.conventions import check
+
+    t0 = _time.perf_counter()
+    src = Path(task["input"])
+    out = Path(task["output"])
+    settings = task["settings"]
+    digest = None
+    try:
+        if not src.is_file():
+            raise FileNotFoundError(f"{src}: no such file")
+        digest = _digest(src)
+        with _FILE_LOCK, _single_threaded():
+            if not task["overwrite"] and out.exists():
+                attrs = read_attributes(out)
+                if (attrs.get("source_sha256") == digest.result()
+                        and attrs.get("beltkit_settings") == _settings_text(settings)):
+                    return FileResult(str(src), str(out), "skipped", "up to date",
+                                      _time.perf_counter() - t0), None
+            ds = open_indexed(src, mapping=task["mapping"])
+            try:
+                model = _field_model(task["field"], task["epoch"], ds)
+                check(ds, model=model, check_values=False)
+                if ds.sizes.get("time", 0) > _TIME_SLAB:
+                    return None, None
+                # what the summary reads, in memory (counts are not used beside flux_err)
+                names = [v for v in ds.data_vars
+                         if not (v == "counts" and "flux_err" in ds.data_vars)]
+                piece = ds[names].load()
+                geo = "position_geo" in ds.variables
+            finally:
+                ds.close()
+        summary, (counts, verify) = _summary(piece, field=model,
+                                             altitude_km=settings["altitude_km"], epoch=None,
+                                             defer_value_check=True, buffers=buffers)
+        verify(counts)  # a refused file is never written
+        if task.get("next_input"):
+            _digest_ahead(Path(task["next_input"]))  # read while this file is written
+        return None, {"task": task, "summary": summary, "digest": digest, "geo": geo,
+                      "t0": t0}
+    except Exception as exc:  # one file's failure is reported, never fatal to the run
+        if task.get("debug"):
+            import traceback
+
+            traceback.print_exc()
+        if digest is not None:
+            digest.cancel()
+        return FileResult(str(src), str(out), "failed", one_line(exc, src),
+                          _time.perf_counter() - t0), None
+
+
+def _write_job(job: dict) -> FileResult:
+    """Second stage of a pipelined file: write its summary (under the lock) and commit it."""
+    task, digest = job["task"], job["digest"]
+    src, out, settings = Path(task["input"]), Path(task["output"]), task["settings"]
+    try:
+        with _FILE_LOCK:
+            known = digest.done() and digest.exception() is None
+            attrs = _summary_attrs(src, digest.result() if known else "", settings,
+                                   task["epoch"], job["geo"])
+            commit = write_stream(
+                [job["summary"]], out, count=1, compress=settings["compress"],
+                history=task["command"], attrs=attrs,
+                late_attrs=None if known else (lambda: {"source_sha256": digest.result()}),
+                defer_commit=True)
+        commit()  # flush and rename: no netCDF call, outside the lock
+        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - job["t0"])
+    except Exception as exc:
+        if task.get("debug"):
+            import traceback
+
+            traceback.print_exc()
+        return FileResult(str(src), str(out), "failed", one_line(exc, src),
+                          _time.perf_counter() - job["t0"])
+    finally:
+        digest.cancel()
+
+
 # --------------------------------------------------------------------- many files
 
 
@@ -694,17 +780,27 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
 
 
 def _run_sequential(tasks, results, fail_fast, emit):
-    """Summarize the files one after another in this process.
+    """Summarize the files one after another in this process, as a two-stage pipeline.
 
-    Each file's flush and rename (disk waits, no netCDF call) run in a
-    background thread while the next file is summarized; a file is reported
-    once its output is in place, in input order. With ``fail_fast`` every
-    file is committed before the next one starts, so that nothing follows a
-    failure.
+    File k is read (under the netCDF lock) and summarized while a background
+    thread writes, flushes and renames file k - 1; a file is reported once its
+    output is in place, in input order. Two sets of output memory alternate
+    between the stages. With ``fail_fast`` every file is finished before the
+    next one starts, so that nothing follows a failure.
     """
+    if fail_fast:
+        for i, task in tasks:
+            results[i] = r = _process_file(task)
+            emit(r)
+            if r.status == "failed":
+                break
+        return
     from concurrent.futures import ThreadPoolExecutor
 
-    pending = []
+    from .pad.partition import OutputBuffers
+
+    buffers = (OutputBuffers(), OutputBuffers())
+    pending = []  # at most one write in flight: (index, future)
 
     def settle():
         while pending:
@@ -712,27 +808,28 @@ def _run_sequential(tasks, results, fail_fast, emit):
             results[i] = fut.result()
             emit(results[i])
 
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="beltkit-commit") as committer:
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="beltkit-writer") as writer:
         try:
             for k, (i, task) in enumerate(tasks):
                 # the next input's checksum is started once this file is computed, so that
-                # the hasher works while this file is written (a single-threaded part
-                # that leaves a core free) rather than beside the compiled engine
+                # the hasher works beside the writing rather than the compiled engine
                 nxt = tasks[k + 1][1]["input"] if k + 1 < len(tasks) else None
                 if nxt is not None and Path(nxt).is_file():
                     task = {**task, "next_input": nxt}
-                r, commit = _process_file_deferred(task)
-                settle()  # the previous file, committed meanwhile
-                if commit is not None and not fail_fast:
-                    pending.append((i, committer.submit(_committed, r, commit)))
+                r, job = _read_and_compute(task, buffers[k % 2])
+                settle()  # the previous file, written meanwhile
+                if job is not None:
+                    pending.append((i, writer.submit(_write_job, job)))
                     continue
-                results[i] = r = _committed(r, commit)
+                if r is None:  # longer than one slab: streamed here, slab by slab
+                    r = _process_file(task)
+                results[i] = r
                 emit(r)
-                if fail_fast and r.status == "failed":
-                    break
         finally:
-            _digests_dropped()
-            settle()
+            try:
+                settle()
+            finally:
+                _digests_dropped()
 
 
 def _run_processes(tasks, results, workers, fail_fast, emit):

@@ -546,3 +546,41 @@ def test_summary_streamed_in_slabs_equals_one_slab(tmp_path, monkeypatch):
             assert v1.filters()["zlib"] is v2.filters()["zlib"] is compress
             assert (v1.chunking() == "contiguous") is (not compress)
             assert v1.getncattr("_FillValue") is not None and np.isnan(v2.getncattr("_FillValue"))
+
+
+def test_pipelined_run_reports_in_order_and_equals_one_file_at_a_time(tmp_path, monkeypatch):
+    # one process: file k is read and computed while file k - 1 is written; the results,
+    # the report and the outputs must be those of files run strictly one after another
+    # (--fail-fast runs them so), with a refused file and a streamed long file among them
+    inp = tmp_path / "in"
+    inp.mkdir()
+    write_flux_file(inp / "a.nc", flux_dataset(n_time=60, seed=1))
+    bad = flux_dataset(n_time=60, seed=2)
+    bad["flux"][3, 0, 0] = -1.0
+    write_flux_file(inp / "b_bad.nc", bad)
+    write_flux_file(inp / "c.nc", flux_dataset(n_time=60, seed=3))
+    write_flux_file(inp / "d_long.nc", flux_dataset(n_time=90, seed=4))
+    write_flux_file(inp / "e.nc", flux_dataset(n_time=60, seed=5))
+    monkeypatch.setattr(batch, "_TIME_SLAB", 64)  # d_long is streamed in slabs
+    monkeypatch.setattr(batch, "_STREAM_SLAB", 32)
+    lines = []
+    piped = batch.summarize([inp], tmp_path / "piped", log=lines.append)
+    names = [Path(r.input).name for r in piped]
+    assert names == ["a.nc", "b_bad.nc", "c.nc", "d_long.nc", "e.nc"]
+    assert [r.status for r in piped] == ["ok", "failed", "ok", "ok", "ok"]
+    assert "negative" in piped[1].reason
+    assert [ln.split()[0] for ln in lines] == ["ok", "FAILED", "ok", "ok", "ok"]
+    report = [json.loads(ln) for ln in (tmp_path / "piped" / "run-report.jsonl").open()]
+    assert [Path(r["file"]).name for r in report] == names
+    # the same files one at a time (no pipeline) give identical summaries
+    for r in piped:
+        if r.status != "ok":
+            continue
+        [one] = batch.summarize([r.input], tmp_path / "one", fail_fast=True)
+        assert one.status == "ok", one.reason
+        with xr.open_dataset(r.output) as a, xr.open_dataset(one.output) as b:
+            xr.testing.assert_identical(a.drop_attrs(deep=False), b.drop_attrs(deep=False))
+            assert a.attrs["source_sha256"] == b.attrs["source_sha256"] == bio.sha256(r.input)
+    assert sorted(p.name for p in (tmp_path / "piped").iterdir()) == [
+        "a.summary.nc", "c.summary.nc", "d_long.summary.nc", "e.summary.nc",
+        "run-report.jsonl"]
