@@ -520,6 +520,15 @@ def _jitted(name):
     return _JIT[name]
 
 
+_RAD = math.pi / 180.0
+
+
+def _same_view(a, b):
+    """Whether two arrays are the same view of the same memory (so equal, NaN included)."""
+    return (a.__array_interface__["data"][0] == b.__array_interface__["data"][0]
+            and a.shape == b.shape and a.strides == b.strides and a.dtype == b.dtype)
+
+
 def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats,
                     flag=None, count_row=-1):
     """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
@@ -565,11 +574,21 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
     use_pre = wpre is not None
     w_arr = wpre if use_pre else np.zeros((1, 1, 5))
     blc = np.asarray(blc, dtype=float)
-    dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
-    # the three edge cosines of every sample, in one vectorised numpy pass each
-    cosb = np.cos(np.radians(blc))
-    cosd = cosb if np.array_equal(dlc, blc, equal_nan=True) else np.cos(np.radians(dlc))
-    coso = np.cos(np.radians(np.minimum(blc + float(band), 90.0)))
+    dlc = np.asarray(dlc, dtype=float)
+    # the three edge cosines of every sample, by numpy passes made in place; the same
+    # array for both cones (the dipole's) is recognised without comparing its values
+    cosb = np.multiply(blc, _RAD)
+    np.cos(cosb, out=cosb)
+    if _same_view(dlc, blc):
+        dlc, cosd = blc, cosb
+    else:
+        dlc = np.maximum(dlc, blc)
+        cosd = np.multiply(dlc, _RAD)
+        np.cos(cosd, out=cosd)
+    coso = np.add(blc, float(band))
+    np.minimum(coso, 90.0, out=coso)
+    np.multiply(coso, _RAD, out=coso)
+    np.cos(coso, out=coso)
     flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
             np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso,

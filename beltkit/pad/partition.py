@@ -318,12 +318,12 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
     if out is None:
         out = _alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
     blc = np.asarray(blc, dtype=float)
-    dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
+    dlc = np.asarray(dlc, dtype=float)  # raised to at least blc by partition_block
     wpre = None
     if geom["kind"] == "telescope":
         outer = np.minimum(blc + opts["band_deg"], 90.0)
         wpre = _telescope_weights(np.asarray(look, dtype=float), geom["half"],
-                                  (blc, dlc, outer))
+                                  (blc, np.maximum(dlc, blc), outer))
         cos_a1 = cos_a2 = np.zeros(x.shape[2])
         fold = 1.0
     else:
@@ -466,9 +466,13 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
                    stats=block_stats, flag=flag[sl.start * n_e: sl.stop * n_e])
         return block_stats
 
-    # the compiled kernel releases the GIL: blocks run on every core at once
-    # at least two blocks per core (a slab of a file keeps every core busy too)
-    block = min(_BLOCK, max(4096, -(-n_t // (2 * cores()))))
+    # the compiled kernel releases the GIL: blocks run on every core at once; at least
+    # two blocks per core (a slab of a file keeps every core busy too), their number a
+    # multiple of the cores and their lengths equal (no core left with a short last one)
+    n_cores = cores()
+    n_blocks = max(2 * n_cores, -(-n_t // _BLOCK))
+    n_blocks = -(-n_blocks // n_cores) * n_cores
+    block = max(4096, -(-n_t // n_blocks))
     parts = map_slices(one, n_t, block, parallel=opts["engine"] != "numpy")
     if stats is not None:
         for block_stats in parts:
