@@ -18,10 +18,13 @@ rerun:
 
 Files run one after another in this process (``workers=1``), in parallel in
 ``workers`` local processes, or as tasks on an existing dask.distributed
-cluster (``scheduler=`` address or Client). Each file is one task, computed
-with dask's synchronous scheduler inside that task, so the result does not
-depend on where it ran; the file itself is streamed in chunks along ``time``,
-so memory does not grow with its length.
+cluster (``scheduler=`` address or Client). Each file is one task, so the
+result does not depend on where it ran. A file is read and partitioned in
+slabs along ``time`` (a day at 1 s is one slab; longer files stream in
+smaller ones), so memory does not grow with its length; the netCDF library
+is used by one thread at a time, and the compiled engine runs on every core
+in between. In this process, file k is read and computed while file k - 1 is
+written, flushed and renamed in a background thread.
 
 :func:`survey` bins the summaries' fractions and integrated fluxes onto an
 L x MLT (x time-window) grid and writes count, mean, median, standard

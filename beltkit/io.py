@@ -2,7 +2,8 @@
 
 Readers
 -------
-:func:`open_flux` opens a flux file lazily (dask chunks along ``time``) and
+:func:`open_flux` opens a flux file lazily (dask chunks along ``time``;
+:func:`open_indexed` without dask, each slab read where it is indexed) and
 returns an :class:`xarray.Dataset` that follows beltkit's data conventions:
 
 * netCDF files (netCDF-4/HDF5 or classic) through the ``netcdf4`` engine, or
@@ -38,7 +39,9 @@ Inputs are opened read-only and never modified.
 Writer
 ------
 :func:`write_dataset` writes a CF-1.8 netCDF-4 file compressed with zlib and
-chunked along ``time``. It writes into a temporary file in the target folder
+chunked along ``time`` (or uncompressed and contiguous); :func:`write_stream`
+writes one from consecutive slabs along ``time``. Both write into a
+temporary file in the target folder
 (named ``.<output name>.beltkit-<random>.tmp``, so leftovers are easy to find
 and :func:`remove_stale_temporaries` can remove them) and renames it over the
 target with :func:`os.replace` only once it is complete, so a reader never
@@ -369,8 +372,8 @@ def open_indexed(path, mapping=None, *, engine=None) -> xr.Dataset:
 
     Like :func:`open_flux` without dask: the variables are xarray's lazily
     indexed backend arrays, so ``ds.isel(time=slice(a, b))`` followed by
-    ``.values`` reads just that slab from disk (a CDF file is read whole).
-    Same parameters, errors and attributes as :func:`open_flux`.
+    ``.values`` reads just that slab from disk. Same parameters, errors and
+    attributes as :func:`open_flux`.
     """
     path = Path(path)
     if not path.is_file():
