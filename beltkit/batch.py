@@ -495,6 +495,16 @@ def _committed(result: FileResult, commit) -> FileResult:
                       result.seconds + _time.perf_counter() - t0)
 
 
+def _up_to_date(task: dict, digest) -> bool:
+    """Whether the task's output records its input's checksum and the present settings."""
+    out = Path(task["output"])
+    if task["overwrite"] or not out.exists():
+        return False
+    attrs = read_attributes(out)
+    return (attrs.get("source_sha256") == digest.result()
+            and attrs.get("beltkit_settings") == _settings_text(task["settings"]))
+
+
 def _process_file_locked(task: dict):
     t0 = _time.perf_counter()
     src = Path(task["input"])
@@ -508,12 +518,9 @@ def _process_file_locked(task: dict):
         # the checksum is read in another thread while the file is summarized (hashlib
         # and file reads release the GIL); it is needed before only to skip a file
         digest = _digest(src)
-        if not task["overwrite"] and out.exists():
-            attrs = read_attributes(out)
-            if (attrs.get("source_sha256") == digest.result()
-                    and attrs.get("beltkit_settings") == _settings_text(settings)):
-                return FileResult(str(src), str(out), "skipped", "up to date",
-                                  _time.perf_counter() - t0), None
+        if _up_to_date(task, digest):
+            return FileResult(str(src), str(out), "skipped", "up to date",
+                              _time.perf_counter() - t0), None
         with _single_threaded():
             ds = open_indexed(src, mapping=task["mapping"])
             nxt = task.get("next_input")
@@ -570,12 +577,9 @@ def _read_and_compute(task: dict, buffers):
             raise FileNotFoundError(f"{src}: no such file")
         digest = _digest(src)
         with _FILE_LOCK, _single_threaded():
-            if not task["overwrite"] and out.exists():
-                attrs = read_attributes(out)
-                if (attrs.get("source_sha256") == digest.result()
-                        and attrs.get("beltkit_settings") == _settings_text(settings)):
-                    return FileResult(str(src), str(out), "skipped", "up to date",
-                                      _time.perf_counter() - t0), None
+            if _up_to_date(task, digest):
+                return FileResult(str(src), str(out), "skipped", "up to date",
+                                  _time.perf_counter() - t0), None
             ds = open_indexed(src, mapping=task["mapping"])
             try:
                 model = _field_model(task["field"], task["epoch"], ds)
