@@ -720,7 +720,7 @@ def _atomic_write(path: Path, fill, late_attrs=None, *, defer_commit=False):
 
 
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,
-                  time_chunk: int = 4096, verify=None, late_attrs=None) -> Path:
+                  time_chunk: int = 4096, late_attrs=None) -> Path:
     """Write a dataset as a CF-1.8 netCDF-4 file, atomically.
 
     The data are written to a temporary file in the target folder, flushed to
@@ -745,12 +745,6 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
         Extra global attributes (override those of `ds`).
     time_chunk : int
         Chunk length along ``time`` in the file.
-    verify : tuple, optional
-        ``(collection, check)``: a dask collection computed in the same pass
-        as the data (sharing their tasks, so the input is read once), and a
-        function called with its value once the data are written; if it
-        raises, the temporary file is removed and nothing is renamed into
-        place (e.g. value checks that can only be judged after a full pass).
     late_attrs : callable, optional
         Called after the data are written; the global attributes it returns
         are added before the file is flushed and renamed (e.g. a checksum of
@@ -765,17 +759,8 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
     out, encoding = _prepared(ds, _complevel(compress), history, attrs, time_chunk)
 
     def fill(tmp):
-        if verify is None:
-            out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                          encoding=encoding)
-            return
-        import dask
-
-        collection, check = verify
-        writer = out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                               encoding=encoding, compute=False)
-        _, value = dask.compute(writer, collection)
-        check(value)
+        out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
+                      encoding=encoding)
 
     return _atomic_write(path, fill, late_attrs)
 
