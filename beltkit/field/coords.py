@@ -52,7 +52,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import FieldModelError
-from . import models as _models
+from .earth import WGS84_A_KM, WGS84_B_KM, WGS84_F
 from .models import as_model
 from .sun import ecliptic_pole_gei, gmst_deg, sun_direction_gei
 from .timeconv import decimal_year
@@ -72,12 +72,7 @@ __all__ = [
 
 FRAMES = ("GEO", "MAG", "GSE", "GSM", "SM")
 
-#: WGS-84 semi-major axis (km), a defining constant (NIMA TR8350.2).
-WGS84_A_KM = _models._WGS84_A_KM
-#: WGS-84 flattening, 1/298.257223563 (defining constant).
-WGS84_F = _models._WGS84_F
 _E2 = WGS84_F * (2.0 - WGS84_F)
-_B_KM = WGS84_A_KM * (1.0 - WGS84_F)
 _EP2 = _E2 / (1.0 - _E2)
 
 
@@ -428,7 +423,7 @@ def geo_to_geodetic(xyz_km):
     for _ in range(4):
         sb = np.sin(beta)
         cb = np.cos(beta)
-        phi = np.arctan2(z + _EP2 * _B_KM * sb**3, p - _E2 * WGS84_A_KM * cb**3)
+        phi = np.arctan2(z + _EP2 * WGS84_B_KM * sb**3, p - _E2 * WGS84_A_KM * cb**3)
         beta = np.arctan2((1.0 - WGS84_F) * np.sin(phi), np.cos(phi))
     sphi = np.sin(phi)
     h = p * np.cos(phi) + z * sphi - WGS84_A_KM * np.sqrt(1.0 - _E2 * sphi * sphi)

@@ -95,6 +95,7 @@ except ImportError:  # pragma: no cover - numba is a declared dependency
 from .._wrap import array_api
 from ..constants import R_E_KM
 from ..errors import FieldModelError
+from .earth import INSIDE_EARTH_TOLERANCE_KM, inside_earth
 from .timeconv import decimal_year
 
 __all__ = [
@@ -919,17 +920,13 @@ def igrf_field_spherical(r_km, colat_deg, lon_deg, time, *, max_degree=13,
 
 def _check_spherical(r, colat, u, s):
     """Refuse colatitudes outside 0-180 deg and points inside the Earth (NaN ignored)."""
-    from .models import _WGS84_A_KM, _WGS84_B_KM, INSIDE_EARTH_TOLERANCE_KM
-
     bad = (colat < 0.0) | (colat > 180.0)
     if np.any(bad):
         raise FieldModelError(
             f"argument 'colat_deg' must lie in [0, 180] degrees (geocentric colatitude); "
             f"got {colat[bad][0]:g}"
         )
-    a = _WGS84_A_KM - INSIDE_EARTH_TOLERANCE_KM
-    b = _WGS84_B_KM - INSIDE_EARTH_TOLERANCE_KM
-    inside = (r * s) ** 2 / (a * a) + (r * u) ** 2 / (b * b) < 1.0
+    inside = inside_earth((r * s) ** 2, r * u)
     if np.any(inside):
         raise FieldModelError(
             f"argument 'r_km': {int(inside.sum())} point(s) inside the Earth (e.g. "

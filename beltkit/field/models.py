@@ -38,6 +38,7 @@ import numpy as np
 from ..constants import R_E_KM
 from ..errors import FieldModelError
 from . import igrf as _igrf
+from .earth import INSIDE_EARTH_TOLERANCE_KM, check_positions
 from .timeconv import decimal_year
 
 __all__ = [
@@ -49,16 +50,6 @@ __all__ = [
     "check_positions",
     "dipole_coefficients",
 ]
-
-#: Points more than this far (km) below the WGS-84 ellipsoid count as inside
-#: the Earth. The ellipsoid, not the 6371.2 km reference sphere, is the
-#: surface: a ground station near a pole sits about 14 km inside that sphere.
-INSIDE_EARTH_TOLERANCE_KM = 10.0
-
-# WGS-84 defining constants (NIMA TR8350.2): semi-major axis and flattening
-_WGS84_A_KM = 6378.137
-_WGS84_F = 1.0 / 298.257223563
-_WGS84_B_KM = _WGS84_A_KM * (1.0 - _WGS84_F)
 
 #: Decimal-year resolution of :meth:`epoch_key` for time-dependent models.
 EPOCH_RESOLUTION_YEARS = 0.1
@@ -91,61 +82,6 @@ class FieldModel(Protocol):
     def epoch_key(self, time) -> str:
         """Hashable text identifying the field at ``time`` for caches."""
         ...
-
-
-def check_positions(xyz_km, name: str = "xyz_km") -> np.ndarray:
-    r"""Return positions as a float array ``(..., 3)``, refusing points inside the Earth.
-
-    Parameters
-    ----------
-    xyz_km : array_like, shape (..., 3)
-        GEO Cartesian positions in km.
-    name : str
-        Argument name for messages.
-
-    Returns
-    -------
-    numpy.ndarray
-        The positions as float64 (the input is not modified).
-
-    Raises
-    ------
-    FieldModelError
-        If the trailing axis is not 3, or a point lies more than
-        :data:`INSIDE_EARTH_TOLERANCE_KM` below the WGS-84 ellipsoid.
-        NaN points are accepted (they give NaN fields).
-
-    Notes
-    -----
-    A point is inside when
-    :math:`(x^2 + y^2)/(a - \delta)^2 + z^2/(b - \delta)^2 < 1`, with the
-    WGS-84 semi-axes *a*, *b* (NIMA TR8350.2) and the tolerance
-    :math:`\delta`.
-    """
-    if hasattr(xyz_km, "dims") and hasattr(xyz_km, "values"):
-        xyz_km = xyz_km.values
-    try:
-        xyz = np.asarray(xyz_km, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise FieldModelError(f"argument {name!r} must be numeric positions in km") from exc
-    if xyz.ndim == 0 or xyz.shape[-1] != 3:
-        raise FieldModelError(
-            f"argument {name!r} must have a trailing axis of length 3 (x, y, z in km, GEO); "
-            f"got shape {xyz.shape}"
-        )
-    a = _WGS84_A_KM - INSIDE_EARTH_TOLERANCE_KM
-    b = _WGS84_B_KM - INSIDE_EARTH_TOLERANCE_KM
-    q = (xyz[..., 0] ** 2 + xyz[..., 1] ** 2) / (a * a) + xyz[..., 2] ** 2 / (b * b)
-    inside = q < 1.0  # NaN compares False
-    if np.any(inside):
-        r = np.sqrt(np.sum(xyz**2, axis=-1))[inside]
-        raise FieldModelError(
-            f"argument {name!r}: {int(inside.sum())} point(s) lie inside the Earth "
-            f"(e.g. radius {r.flat[0]:.1f} km, more than {INSIDE_EARTH_TOLERANCE_KM:g} km "
-            f"below the WGS-84 surface); positions must be GEO Cartesian in km "
-            f"(multiply R_E values by {R_E_KM} km)"
-        )
-    return xyz
 
 
 def dipole_coefficients(time, *, allow_extrapolation: bool = False):
