@@ -42,4 +42,4 @@ def __dir__():
     return sorted(__all__)
 
 
-from .pad import accessor as _accessor  # noqa: E402,F401
+from . import accessor as _accessor  # noqa: E402,F401  (registers ds.beltkit; cheap)

@@ -5,17 +5,15 @@ Registered on :class:`xarray.Dataset` when :mod:`beltkit` is imported::
     import beltkit
     out = ds.beltkit.partition()
 
-Every method returns a new object and leaves the dataset untouched.
+Registering it is cheap: the pitch-angle engine (:mod:`beltkit.pad`) is
+imported when the accessor is first used. Every method forwards its keyword
+arguments to the function of the same name, whose defaults apply, returns a
+new object and leaves the dataset untouched.
 """
 
 from __future__ import annotations
 
 import xarray as xr
-
-from .conventions import validate as _validate
-from .equatorial import to_equatorial as _to_equatorial
-from .fit import fit_sine_power as _fit_sine_power
-from .partition import partition as _partition
 
 __all__ = ["BeltkitAccessor"]
 
@@ -36,8 +34,10 @@ class BeltkitAccessor:
     def __init__(self, ds):
         if not isinstance(ds, xr.Dataset):  # pragma: no cover - xarray passes Datasets
             raise TypeError("the beltkit accessor works on xarray.Dataset objects")
+        from .pad.conventions import validate
+
         self._ds = ds
-        self._problems = _validate(ds, check_values=False)
+        self._problems = validate(ds, check_values=False)
 
     @property
     def problems(self):
@@ -50,66 +50,64 @@ class BeltkitAccessor:
         Parameters
         ----------
         **kwargs
-            ``model``, ``allow_negative``, ``check_values``.
+            Passed to :func:`beltkit.pad.validate`.
 
         Returns
         -------
         list of str
             The problems; empty when the dataset follows the conventions.
         """
-        return _validate(self._ds, **kwargs)
+        from .pad.conventions import validate
 
-    def partition(self, model=None, altitude_km=100.0, **kwargs):
+        return validate(self._ds, **kwargs)
+
+    def partition(self, **kwargs):
         """Split the flux into populations (see :func:`beltkit.pad.partition`).
 
         Parameters
         ----------
-        model : None, str or FieldModel
-            Field model for the loss cones.
-        altitude_km : float
-            Footpoint altitude (km).
         **kwargs
-            ``filling_band_deg``, ``allow_negative``, ``engine``.
+            Passed to :func:`beltkit.pad.partition` (``model``, ``altitude_km``, ...).
 
         Returns
         -------
         xarray.Dataset
             The partition outputs.
         """
-        return _partition(self._ds, model=model, altitude_km=altitude_km, **kwargs)
+        from .pad.partition import partition
 
-    def to_equatorial(self, model=None, alpha_eq_deg=None, **kwargs):
+        return partition(self._ds, **kwargs)
+
+    def to_equatorial(self, **kwargs):
         """Map to equatorial pitch angle (see :func:`beltkit.pad.to_equatorial`).
 
         Parameters
         ----------
-        model : None, str or FieldModel
-            Field model.
-        alpha_eq_deg : array_like, optional
-            Equatorial pitch-angle grid (deg).
         **kwargs
-            ``altitude_km``, ``method``.
+            Passed to :func:`beltkit.pad.to_equatorial` (``model``, ``alpha_eq_deg``, ...).
 
         Returns
         -------
         xarray.Dataset
             The mapped distribution.
         """
-        return _to_equatorial(self._ds, model=model, alpha_eq_deg=alpha_eq_deg, **kwargs)
+        from .pad.equatorial import to_equatorial
 
-    def fit_sine_power(self, model=None, **kwargs):
+        return to_equatorial(self._ds, **kwargs)
+
+    def fit_sine_power(self, **kwargs):
         """Fit A sin^n(alpha) to the trapped bins (see :func:`beltkit.pad.fit_sine_power`).
 
         Parameters
         ----------
-        model : None, str or FieldModel
-            Field model for the trapped range.
         **kwargs
-            ``altitude_km``, ``method``, ``max_iter``.
+            Passed to :func:`beltkit.pad.fit_sine_power` (``model``, ...).
 
         Returns
         -------
         xarray.Dataset
             The fit parameters and their uncertainties.
         """
-        return _fit_sine_power(self._ds, model=model, **kwargs)
+        from .pad.fit import fit_sine_power
+
+        return fit_sine_power(self._ds, **kwargs)
