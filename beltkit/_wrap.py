@@ -26,22 +26,9 @@ from collections.abc import Callable
 import numpy as np
 
 from .errors import PhysicsError
+from .units import conversion_factor, l_shell_factor
 
 __all__ = ["array_api", "as_float_array", "check_range", "to_output"]
-
-# unit attribute spellings accepted for an argument that promises `unit`, with
-# the factor that converts a value in that spelling to `unit`.
-_EQUIVALENT = {
-    "keV": {"keV": 1.0, "kev": 1.0, "MeV": 1e3, "mev": 1e3, "eV": 1e-3, "ev": 1e-3},
-    "nT": {"nT": 1.0, "nt": 1.0, "T": 1e9, "tesla": 1e9, "G": 1e5, "gauss": 1e5},
-    "deg": {
-        "deg": 1.0, "degree": 1.0, "degrees": 1.0,
-        "rad": 180.0 / np.pi, "radian": 180.0 / np.pi,
-    },
-    "km": {"km": 1.0, "m": 1e-3},
-    "1": {"1": 1.0, "": 1.0, "R_E": 1.0, "Re": 1.0},
-    "s": {"s": 1.0, "second": 1.0, "seconds": 1.0},
-}
 
 
 def _unit_of_argument(name: str) -> str | None:
@@ -51,7 +38,7 @@ def _unit_of_argument(name: str) -> str | None:
     if name.endswith("_nt"):
         return "nT"
     if name.endswith("_deg"):
-        return "deg"
+        return "degree"
     if name.endswith("_km"):
         return "km"
     if name == "L":
@@ -65,14 +52,13 @@ def _convert_dataarray(name, value):
     have = value.attrs.get("units")
     if want is None or have is None:
         return value
-    table = _EQUIVALENT[want]
-    if have not in table:
+    factor = l_shell_factor(have) if want == "1" else conversion_factor(have, want)
+    if factor is None:
         raise PhysicsError(
             f"argument {name!r} must be in {want!r}, but its DataArray has units {have!r}; "
             f"convert it first (for example `{name}=da * factor` with "
             f"`da.attrs['units'] = {want!r}`)"
         )
-    factor = table[have]
     if factor == 1.0:
         return value
     out = value * factor

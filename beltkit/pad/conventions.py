@@ -14,13 +14,13 @@ the engines, so that no full-size copy of the data is made.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
 
 import numpy as np
 import xarray as xr
 
 from ..errors import ConventionError
+from ..units import conversion_factor, l_shell_factor
 
 __all__ = [
     "FLUX_UNITS",
@@ -38,52 +38,15 @@ FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 #: Canonical unit of solid-angle-integrated (or omnidirectional) flux.
 INTEGRATED_FLUX_UNITS = "cm-2 s-1 keV-1"
 
-# size of each unit in the canonical base unit of its kind (cm, s, sr, keV)
-_BASE = {
-    "cm": ("length", 1.0), "m": ("length", 100.0), "mm": ("length", 0.1),
-    "km": ("length", 1e5),
-    "s": ("time", 1.0), "sec": ("time", 1.0), "ms": ("time", 1e-3),
-    "sr": ("solid_angle", 1.0), "ster": ("solid_angle", 1.0),
-    "eV": ("energy", 1e-3), "keV": ("energy", 1.0), "MeV": ("energy", 1e3),
-    "GeV": ("energy", 1e6),
-}
-_FLUX_DIMENSIONS = {"length": -2, "time": -1, "solid_angle": -1, "energy": -1}
-_TOKEN = re.compile(r"^([A-Za-z]+)\^?(?:\*\*)?(-?\d+)?$")
-
-_ANGLE = {"degree": 1.0, "degrees": 1.0, "deg": 1.0, "rad": 180.0 / np.pi,
-          "radian": 180.0 / np.pi, "radians": 180.0 / np.pi}
-_ENERGY = {"keV": 1.0, "MeV": 1e3, "eV": 1e-3, "GeV": 1e6}
-_FIELD = {"nT": 1.0, "T": 1e9, "tesla": 1e9, "G": 1e5, "gauss": 1e5}
-_DISTANCE = {"km": 1.0, "m": 1e-3}
-_HOURS = {"h": 1.0, "hour": 1.0, "hours": 1.0, "hr": 1.0}
-_DIMENSIONLESS = {"1": 1.0, "": 1.0, "R_E": 1.0, "Re": 1.0, "RE": 1.0}
+# the unit each kind of variable is converted to (any spelling beltkit.units parses)
+_ANGLE = "degree"
+_ENERGY = "keV"
+_FIELD = "nT"
+_DISTANCE = "km"
+_HOURS = "hour"
+_DIMENSIONLESS = "1"  # L: dimensionless, or in Earth radii
 
 _BLOCK = 65536
-
-
-def _parse_units(text):
-    """Return {kind: exponent} and the factor to canonical units, or None."""
-    s = str(text).strip()
-    if not s:
-        return None
-    s = s.replace("**", "^").replace("(", " ").replace(")", " ")
-    parts = s.split("/")
-    dims: dict[str, int] = {}
-    factor = 1.0
-    for k, part in enumerate(parts):
-        sign = 1 if k == 0 else -1
-        for tok in re.split(r"[\s.*]+", part.strip()):
-            if not tok or tok in ("1", "#"):
-                continue
-            m = _TOKEN.match(tok.replace("^", ""))
-            if m is None or m.group(1) not in _BASE:
-                return None
-            kind, size = _BASE[m.group(1)]
-            exp = sign * (int(m.group(2)) if m.group(2) else 1)
-            dims[kind] = dims.get(kind, 0) + exp
-            factor *= size**exp
-    dims = {k: v for k, v in dims.items() if v != 0}
-    return dims, factor
 
 
 def flux_unit_factor(units):
@@ -92,8 +55,9 @@ def flux_unit_factor(units):
     Parameters
     ----------
     units : str
-        A UDUNITS-style unit string, e.g. ``"cm-2 s-1 sr-1 MeV-1"``,
-        ``"cm^-2 s^-1 sr^-1 keV^-1"`` or ``"1/(cm2 s sr keV)"``.
+        A unit string in the UDUNITS grammar or a CDF spelling
+        (:mod:`beltkit.units`), e.g. ``"cm-2 s-1 sr-1 MeV-1"``,
+        ``"1/(cm2 s sr keV)"`` or ``"cm!E-2!N s!E-1!N sr!E-1!N keV!E-1!N"``.
 
     Returns
     -------
@@ -108,13 +72,7 @@ def flux_unit_factor(units):
     >>> flux_unit_factor("counts") is None
     True
     """
-    parsed = _parse_units(units)
-    if parsed is None:
-        return None
-    dims, factor = parsed
-    if dims != _FLUX_DIMENSIONS:
-        return None
-    return factor
+    return conversion_factor(units, FLUX_UNITS)
 
 
 @dataclass(frozen=True)
@@ -249,18 +207,21 @@ def _mask_of(var, problems, name):
     return tuple(fills), vmin, vmax
 
 
-def _unit_factor(var, name, table, problems, what, required=True):
+def _unit_factor(var, name, want, problems, what, required=True):
     units = var.attrs.get("units")
     if units is None:
         if required:
-            problems.append(f"{name}: missing 'units' attribute; set it to {next(iter(table))!r} "
-                            f"({what})")
+            problems.append(f"{name}: missing 'units' attribute; set it to {want!r} ({what})")
         return 1.0
-    if str(units) not in table:
-        problems.append(f"{name}: units {units!r} not recognised for {what}; "
-                        f"use one of {sorted(k for k in table if k)}")
+    if want == _DIMENSIONLESS:
+        factor = l_shell_factor(str(units))
+    else:
+        factor = conversion_factor(str(units), want)
+    if factor is None:
+        problems.append(f"{name}: units {units!r} are not {what}; give its 'units' attribute "
+                        f"as {want!r} or another unit of that kind (UDUNITS spelling)")
         return 1.0
-    return table[str(units)]
+    return factor
 
 
 def _is_true(value):
