@@ -49,7 +49,7 @@ import numpy as np
 import xarray as xr
 
 from . import __version__
-from .errors import BeltkitError, ConventionError
+from .errors import ConventionError, SurveyError
 from .io import (
     load_mapping,
     open_indexed,
@@ -95,14 +95,6 @@ _TIME_SLAB = 131072
 #: samples per slab of files longer than one slab (peak memory below a one-slab file's)
 _STREAM_SLAB = 65536
 _POSITION = ("L", "mlat", "mlt")
-
-
-class SurveyError(BeltkitError, ValueError):
-    """Summaries that cannot be surveyed; ``problems`` holds one line per file."""
-
-    def __init__(self, problems):
-        self.problems = list(problems)
-        super().__init__("; ".join(self.problems))
 
 
 @dataclass

@@ -9,7 +9,9 @@ __all__ = [
     "BeltkitError",
     "ConventionError",
     "FieldModelError",
+    "MappingError",
     "PhysicsError",
+    "SurveyError",
 ]
 
 
@@ -50,3 +52,15 @@ class FieldModelError(BeltkitError, ValueError):
     Examples: a point inside the Earth, a date outside the coefficient
     table's validity, a field line that does not close.
     """
+
+
+class MappingError(BeltkitError, ValueError):
+    """A variable-name mapping is malformed or does not fit the file it is applied to."""
+
+
+class SurveyError(BeltkitError, ValueError):
+    """Summaries that cannot be surveyed; ``problems`` holds one line per file."""
+
+    def __init__(self, problems):
+        self.problems = list(problems)
+        super().__init__("; ".join(self.problems))

@@ -67,7 +67,7 @@ import numpy as np
 import xarray as xr
 
 from . import __version__
-from .errors import BeltkitError
+from .errors import MappingError
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -119,10 +119,6 @@ TEMP_SUFFIX = ".tmp"
 _TEMP_MARK = ".beltkit-"
 
 _CDF_MAGIC = (b"\xcd\xf3\x00\x01", b"\xcd\xf2\x60\x02", b"\x00\x00\xff\xff")
-
-
-class MappingError(BeltkitError, ValueError):
-    """A variable-name mapping is malformed or does not fit the file it is applied to."""
 
 
 # --------------------------------------------------------------------------- checksums
