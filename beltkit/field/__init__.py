@@ -4,7 +4,8 @@ Field models share one small interface (:class:`FieldModel`): the field
 vector in GEO Cartesian coordinates at arrays of points and times. The
 centred dipole of an epoch (:class:`CenteredDipole`) is the fast default; the
 International Geomagnetic Reference Field (:class:`IGRF`, IAGA IGRF-14) is the
-real main field.
+real main field. :class:`T89` adds Tsyganenko's (1989) Kp-parameterised
+external field to either.
 
 Names are imported from their modules on first use.
 """
@@ -19,6 +20,8 @@ _EXPORTS = {
     "CenteredDipole": "models",
     "IGRF": "models",
     "as_model": "models",
+    # t89.py
+    "T89": "t89",
     # igrf.py
     "igrf_coefficients": "igrf",
     "igrf_field_spherical": "igrf",

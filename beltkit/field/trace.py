@@ -5,8 +5,11 @@ lines that are still being integrated, and only the loop over integration
 steps is a Python loop. Each line is followed from its start point in both
 directions until it crosses the stop altitude (the crossing is refined by a
 secant search on the length of the last step, so footpoints carry the full
-accuracy of the integrator), or until it escapes beyond a maximum radius or
-exceeds a maximum number of steps (then it is flagged ``open``; tracing never
+accuracy of the integrator), or until it escapes beyond a maximum radius, leaves the model's outer
+boundary (a model with an ``inside(xyz_km, time)`` method, such as
+:class:`beltkit.field.T89`, whose validity ends at a magnetopause), or
+exceeds a maximum number of steps (then it is flagged ``open``, with the
+reason in ``open_reason``; it never gets a footpoint, and tracing never
 hangs).
 
 Method
@@ -40,8 +43,8 @@ import xarray as xr
 from ..constants import R_E_KM
 from ..errors import FieldModelError, PhysicsError
 
-__all__ = ["BLOCK_LINES", "FieldLines", "blocks", "integral_invariant", "time_block", "trace",
-           "trace_lines"]
+__all__ = ["BLOCK_LINES", "OPEN_REASONS", "FieldLines", "blocks", "integral_invariant",
+           "time_block", "trace", "trace_lines"]
 
 # Dormand-Prince 5(4) tableau (Dormand & Prince 1980; Hairer et al. 1993, table 5.2).
 _A = (
@@ -57,6 +60,9 @@ _A = (
 _E = (71 / 57600, 0.0, -71 / 16695, 71 / 1920, -17253 / 339200, 22 / 525, -1 / 40)
 
 _GAUSS_NODES = 64
+#: Codes of ``open_reason`` (CF flag values) and their meanings.
+OPEN_REASONS = {0: "closed_or_unresolved", 1: "beyond_max_radius", 2: "outside_model_boundary",
+                3: "step_limit"}
 # relative excess of a mirror field over a footpoint field still placed on the footpoint
 _FOOT_TOL = 1e-7
 #: Lines traced together in one batch by the high-level functions (bounds memory:
@@ -101,6 +107,15 @@ class _Field:
         self.per_line = per_line
         self.n_lines = max(int(n_lines), 1)
         self.evaluations = 0
+        # optional outer boundary of the model (None: the model is valid everywhere)
+        self.inside_fn = getattr(model, "inside", None)
+
+    def inside(self, x, idx):
+        """Return True where points lie inside the model's boundary (all True without one)."""
+        if self.inside_fn is None:
+            return np.ones(x.shape[0], dtype=bool)
+        t = self.time[idx % self.n_lines] if self.per_line else self.time
+        return np.asarray(self.inside_fn(x, t), dtype=bool).reshape(x.shape[0])
 
     def __call__(self, x, idx):
         # indices may address half-lines (line + n_lines for the southward half)
@@ -147,6 +162,7 @@ class _Half:
     b_foot: np.ndarray  # (N,)
     length: np.ndarray  # (N,) arc length from start to the foot
     open: np.ndarray  # (N,) bool, escaped or out of steps
+    reason: np.ndarray  # (N,) int8, OPEN_REASONS code
     steps: np.ndarray  # (N,) accepted steps
     rec_idx: np.ndarray  # samples: line index
     rec_s: np.ndarray  # samples: arc length from the start (>0)
@@ -165,6 +181,7 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
     b_foot = np.full(n, np.nan)
     length = np.full(n, np.nan)
     is_open = np.zeros(n, dtype=bool)
+    reason = np.zeros(n, dtype=np.int8)
     steps = np.zeros(n, dtype=np.int64)
     rec = []
 
@@ -197,7 +214,14 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
         r_new = np.linalg.norm(x_new, axis=1)
         crossed = accept & (r_new < r_stop)
         escaped = accept & (r_new > r_max)
-        moved = accept & ~crossed & ~escaped
+        beyond = accept & ~crossed & ~escaped
+        if field.inside_fn is not None and np.any(beyond):
+            # the model's outer boundary: a line leaving it is open, never given a footpoint
+            b_idx = np.flatnonzero(beyond)
+            beyond[b_idx] = ~field.inside(x_new[b_idx], idx[b_idx])
+        else:
+            beyond[:] = False
+        moved = accept & ~crossed & ~escaped & ~beyond
 
         done = np.zeros(idx.size, dtype=bool)
         if np.any(crossed):
@@ -215,7 +239,12 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
             done[c] = True
         if np.any(escaped):
             is_open[idx[escaped]] = True
+            reason[idx[escaped]] = 1
             done |= escaped
+        if np.any(beyond):
+            is_open[idx[beyond]] = True
+            reason[idx[beyond]] = 2
+            done |= beyond
         if np.any(bad_field):
             # a model that cannot answer at a trial point: the line stays unresolved (NaN)
             done |= bad_field & (h <= 1e-6 * r)
@@ -234,6 +263,7 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
             out_of_steps |= ~done
         if np.any(out_of_steps):
             is_open[idx[out_of_steps]] = True
+            reason[idx[out_of_steps]] = 3
             done |= out_of_steps
         keep = ~done
         idx, x, k1, s, r, h = idx[keep], x[keep], k1[keep], s[keep], r[keep], h[keep]
@@ -247,7 +277,7 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
         rec_idx = np.zeros(0, dtype=np.int64)
         rec_s = rec_b = np.zeros(0)
         rec_x = np.zeros((0, 3))
-    return _Half(foot, b_foot, length, is_open, steps, rec_idx, rec_s, rec_b, rec_x)
+    return _Half(foot, b_foot, length, is_open, reason, steps, rec_idx, rec_s, rec_b, rec_x)
 
 
 def _hermite_crossing(x0, k0, x1, k1, h, sign, r_stop):
@@ -286,7 +316,8 @@ def _split_halves(both, n):
         sel = (both.rec_idx >= lo) & (both.rec_idx < lo + n)
         part = slice(lo, lo + n)
         out.append(_Half(both.foot[part], both.b_foot[part], both.length[part],
-                         both.open[part], both.steps[part], both.rec_idx[sel] - lo,
+                         both.open[part], both.reason[part], both.steps[part],
+                         both.rec_idx[sel] - lo,
                          both.rec_s[sel], both.rec_b[sel], both.rec_x[sel]))
     return out
 
@@ -364,7 +395,8 @@ class FieldLines:
     length : ndarray (N,)
         Total arc length between the footpoints, km.
     open : ndarray (N,) of bool
-        The line escaped beyond the maximum radius or ran out of steps.
+        The line escaped beyond the maximum radius, left the model's outer
+        boundary (or started outside it) or ran out of steps.
     s, log_b : ndarray (N, K)
         Samples of arc length (km) and ln(|B| / nT) along each line, sorted by
         ``s``; padded at the end with the line's last value.
@@ -374,6 +406,9 @@ class FieldLines:
         Accepted integration steps (both directions).
     evaluations : int
         Field evaluations used (points).
+    open_reason : ndarray (N,) of int8, optional
+        Why a line is open (:data:`OPEN_REASONS`; the first reason met in
+        the northern half, else the southern); 0 for lines not open.
     """
 
     start: np.ndarray
@@ -393,6 +428,7 @@ class FieldLines:
     n_samples: np.ndarray
     steps: np.ndarray
     evaluations: int
+    open_reason: np.ndarray | None = None
 
     @property
     def closed(self):
@@ -633,6 +669,11 @@ def trace_lines(
         u, b = field(x0[fi], fi)
         unit0[fi] = u
         b0[fi] = b
+    # start points outside the model's outer boundary are open at once (not traced)
+    start_out = np.zeros(n, dtype=bool)
+    if field.inside_fn is not None and np.any(finite):
+        start_out[fi] = ~field.inside(x0[fi], fi)
+    b_trace = np.where(start_out, np.nan, b0)
     # depth below the stop radius that a trial step may reach (the crossing is then refined)
     # (the field models refuse points more than ~10 km inside the WGS-84 surface)
     slack = max(min(0.5 * altitude_km, 50.0), 1.0)
@@ -640,11 +681,15 @@ def trace_lines(
                   max_steps=max_steps, slack=slack)
     sign = np.concatenate([np.ones(n), -np.ones(n)])
     both = _trace_half(field, np.concatenate([x0, x0]), np.concatenate([unit0, unit0]),
-                       np.concatenate([b0, b0]), sign, **common)
+                       np.concatenate([b_trace, b_trace]), sign, **common)
     north, south = _split_halves(both, n)
+    for half in (north, south):
+        half.open[start_out] = True
+        half.reason[start_out] = 2
 
     s, lb, xs, n_samples, len_n = _assemble(north, south, n, x0, b0)
     is_open = north.open | south.open
+    open_reason = np.where(north.reason > 0, north.reason, south.reason).astype(np.int8)
     closed = ~is_open & np.isfinite(north.length) & np.isfinite(south.length)
     b_min, s_min, x_min = _refine_minimum(field, s, lb, xs, n_samples, closed & (n_samples >= 3))
     s, lb, n_samples = _insert_minimum(s, lb, n_samples, s_min, b_min, closed)
@@ -676,6 +721,7 @@ def trace_lines(
         n_samples=n_samples,
         steps=north.steps + south.steps,
         evaluations=field.evaluations,
+        open_reason=open_reason,
     )
 
 
@@ -869,6 +915,7 @@ def _lines_from_dataset(ds):
         xyz_min=ds["xyz_min"].values, b_min=ds["b_min"].values, s_min=ds["s_min"].values,
         length=ds["length"].values, open=ds["open"].values.astype(bool), s=s, log_b=lb,
         n_samples=ns, steps=nan, evaluations=0,
+        open_reason=ds["open_reason"].values if "open_reason" in ds else None,
     )
 
 
@@ -905,7 +952,10 @@ def trace(
         Largest step as a fraction of the geocentric distance (also keeps the
         samples of :math:`|B|` dense enough for the integral invariant).
     max_radius_re : float, default 30
-        A line reaching beyond this radius (R_E) is flagged open.
+        A line reaching beyond this radius (R_E) is flagged open. A model
+        with an outer boundary (``model.inside(xyz_km, time)``, e.g.
+        :class:`beltkit.field.T89`) also stops lines that leave it, or start
+        outside it: they are open, never given a footpoint.
     max_steps : int, default 3000
         A line needing more steps in one direction is flagged open.
     samples : bool, default False
@@ -919,7 +969,9 @@ def trace(
         ``b_min``, ``b_start`` (nT); ``xyz_foot_north``, ``xyz_foot_south``,
         ``xyz_min``, ``xyz_start`` (GEO km); ``length``, ``s_min``,
         ``s_start`` (km, arc length from the northern footpoint); ``open``
-        (bool); ``steps``. NaN for open lines (``open`` True) and NaN start
+        (bool); ``open_reason`` (:data:`OPEN_REASONS`: 1 beyond
+        ``max_radius_re``, 2 outside the model's boundary, 3 step limit);
+        ``steps``. NaN for open lines (``open`` True) and NaN start
         points (``open`` False).
 
     Raises
@@ -970,8 +1022,16 @@ def _concat_lines(parts):
                  "steps"):
         fields[name] = np.concatenate([getattr(p, name) for p in parts])
     n = fields["b_min"].size
+    fields["open_reason"] = np.concatenate([_reasons(p) for p in parts])
     return FieldLines(s=np.zeros((n, 0)), log_b=np.zeros((n, 0)),
                       evaluations=sum(p.evaluations for p in parts), **fields)
+
+
+def _reasons(lines):
+    """``open_reason`` of a :class:`FieldLines` (3, step limit, for open lines without one)."""
+    if lines.open_reason is not None:
+        return np.asarray(lines.open_reason, dtype=np.int8)
+    return np.where(lines.open, 3, 0).astype(np.int8)
 
 
 def lines_to_dataset(lines, altitude_km=100.0, samples=False):
@@ -1008,7 +1068,13 @@ def lines_to_dataset(lines, altitude_km=100.0, samples=False):
         "s_min": v(lines.s_min, "km", "arc length from the northern footpoint to the minimum"),
         "s_start": v(lines.s_start, "km", "arc length from the northern footpoint to the start"),
         "open": xr.Variable(("line",), lines.open,
-                            {"long_name": "line escaped or exceeded the step limit"}),
+                            {"long_name": "line escaped, left the model's outer boundary or "
+                                          "exceeded the step limit (no footpoint)"}),
+        "open_reason": xr.Variable(
+            ("line",), _reasons(lines),
+            {"long_name": "why the field line is open",
+             "flag_values": np.array(sorted(OPEN_REASONS), dtype=np.int8),
+             "flag_meanings": " ".join(OPEN_REASONS[k] for k in sorted(OPEN_REASONS))}),
         "steps": xr.Variable(("line",), lines.steps, {"units": "1",
                                                      "long_name": "accepted integration steps"}),
     }
