@@ -51,7 +51,9 @@ cones of 90 deg).
 Cache
 -----
 The table depends on the model, its epoch key (IGRF: the decimal year to
-0.1 yr), the altitude, the L grid and the number of longitudes; it is
+0.1 yr; :class:`~beltkit.field.T89`: the Kp level, the internal model and
+the UTC hour, since the external field turns with the dipole tilt and the
+Sun), the altitude, the L grid and the number of longitudes; it is
 written (atomically) as netCDF under ``$BELTKIT_CACHE_DIR`` or
 ``$XDG_CACHE_HOME/beltkit`` or ``~/.cache/beltkit``, named by a hash of all
 of these and the table format version, so a batch over a year of data
@@ -107,6 +109,17 @@ def cache_dir() -> Path:
     if xdg:
         return Path(xdg) / "beltkit"
     return Path.home() / ".cache" / "beltkit"
+
+
+def _fixed_model(model, time):
+    """Return the model with its activity fixed at ``time`` (a T89 Kp series -> one level).
+
+    A model whose parameters change with time (``at_time(time)``) is frozen at the
+    activity of the table's time, so the table, its key and its identity (``repr``)
+    all describe one level.
+    """
+    at_time = getattr(model, "at_time", None)
+    return at_time(time) if at_time is not None else model
 
 
 def _epoch_of(model, time):
@@ -353,6 +366,7 @@ def drift_shell_table(
     t = np.asarray(time)
     if t.size != 1:
         raise PhysicsError("argument 'time' of drift_shell_table must be a single time")
+    model = _fixed_model(model, t.reshape(-1)[0])
     key, t_eval = _epoch_of(model, t.reshape(-1)[0])
     path, ident = _table_path(model, key, altitude_km, lv, n_lon)
     if cache and not refresh and path.exists():
@@ -622,6 +636,7 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
     """
     altitude_km = _check_altitude(altitude_km)
     lv = _check_l_values([float(L)])
+    model = _fixed_model(model, np.asarray(time).reshape(-1)[0])
     key, t_eval = _epoch_of(model, np.asarray(time).reshape(-1)[0])
     table = _build_table(model, t_eval, altitude_km, lv, n_lon, **trace_options)
     tb = table.isel(L=0)
