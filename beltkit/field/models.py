@@ -48,6 +48,7 @@ __all__ = [
     "IGRF",
     "as_model",
     "check_positions",
+    "model_inside",
     "dipole_coefficients",
 ]
 
@@ -62,7 +63,22 @@ class FieldModel(Protocol):
     Attributes
     ----------
     name : str
-        Short identifier, e.g. ``"dipole"`` or ``"igrf"``.
+        Short identifier, e.g. ``"dipole"``, ``"igrf"`` or ``"t89"``.
+
+    Notes
+    -----
+    Optional methods, honoured where present (:func:`model_inside`):
+
+    ``inside(xyz_km, time) -> bool array``
+        The model's region of validity (e.g. the magnetopause of
+        :class:`~beltkit.field.T89`); field-line tracing stops lines that
+        leave it and reports them open. Models without it (the dipole, IGRF)
+        are valid everywhere above the surface.
+    ``at_time(time) -> FieldModel``
+        The model with its time-varying parameters (e.g. a Kp series) fixed
+        at ``time``; cached tables are built with it.
+    ``cache_epoch(time)``
+        The time at which a table cached under ``epoch_key(time)`` is built.
     """
 
     name: str
@@ -346,6 +362,31 @@ class IGRF:
     cache_key = epoch_key
 
 
+def model_inside(model, xyz_km, time) -> np.ndarray:
+    """Return True where points lie inside a model's region of validity.
+
+    Parameters
+    ----------
+    model : FieldModel
+        A model, with or without the optional ``inside(xyz_km, time)``.
+    xyz_km : array_like, shape (..., 3)
+        GEO Cartesian positions in km.
+    time : datetime64, datetime, str, float or array_like
+        Broadcast against ``xyz_km[..., 0]``.
+
+    Returns
+    -------
+    numpy.ndarray of bool, shape ``(...)``
+        ``model.inside(xyz_km, time)``, or True everywhere for models
+        without a boundary (finite points; NaN points give False).
+    """
+    fn = getattr(model, "inside", None)
+    xyz = np.asarray(xyz_km, dtype=float)
+    if fn is None:
+        return np.all(np.isfinite(xyz), axis=-1)
+    return np.asarray(fn(xyz, time), dtype=bool)
+
+
 def as_model(spec=None) -> FieldModel:
     """Turn a model specification into a field model.
 
@@ -376,7 +417,7 @@ def as_model(spec=None) -> FieldModel:
             return IGRF()
         raise FieldModelError(
             f"argument 'model': unknown field model {spec!r}; use 'dipole', 'igrf' or a "
-            f"FieldModel object such as beltkit.field.IGRF()"
+            f"FieldModel object such as beltkit.field.IGRF() or beltkit.field.T89(kp=3)"
         )
     if isinstance(spec, FieldModel):
         return spec
