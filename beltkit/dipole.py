@@ -60,6 +60,8 @@ __all__ = [
     "local_pitch_angle",
     "mirror_altitude",
     "mirror_mlat",
+    "mirror_sin2_cos2",
+    "fold_pitch_angle",
     "radius",
 ]
 
@@ -134,10 +136,32 @@ def _b_ratio_cos2(c2):
     return np.sqrt(4.0 - 3.0 * c2) / (c2 * c2 * c2)
 
 
-def _fold(alpha_deg):
-    """Return the pitch angle folded into [0, 90] and a mask of angles above 90."""
+def fold_pitch_angle(alpha_deg):
+    r"""Fold pitch angles into [0, 90] deg (unchecked kernel).
+
+    Parameters
+    ----------
+    alpha_deg : numpy.ndarray
+        Pitch angles in degrees, already checked to lie in [0, 180].
+
+    Returns
+    -------
+    folded : numpy.ndarray
+        :math:`\min(\alpha, 180^\circ - \alpha)`: a particle and its mirror image
+        moving the other way along the line share mirror points and loss cones.
+    upper : numpy.ndarray of bool
+        Where the angle was above 90 deg.
+
+    Examples
+    --------
+    >>> fold_pitch_angle(np.array([30.0, 150.0]))[0]
+    array([30., 30.])
+    """
     upper = alpha_deg > 90.0
     return np.where(upper, 180.0 - alpha_deg, alpha_deg), upper
+
+
+_fold = fold_pitch_angle
 
 
 def _asin_deg(s2):
@@ -174,7 +198,7 @@ def _mirror_lat_sc(s, c):
     Both are passed so that callers holding y = sin(alpha_eq) can give
     c = (1 - y)(1 + y) without loss of precision near the equator.
     """
-    w, u = _mirror_sin2_cos2(s, c)
+    w, u = mirror_sin2_cos2(s, c)
     return np.arctan2(np.sqrt(w), np.sqrt(u))
 
 
@@ -182,12 +206,26 @@ def _mirror_lat_sc(s, c):
 _SOLVER_BLOCK = 1 << 15
 
 
-def _mirror_sin2_cos2(s, c):
-    """Return (sin^2, cos^2) of the mirror latitude, each to full relative precision.
+def mirror_sin2_cos2(s, c):
+    r"""Return (sin^2, cos^2) of the mirror latitude, each to full relative precision.
 
-    ``s`` and ``c`` are sin^2 and cos^2 of the equatorial pitch angle (folded to
-    [0, 90] deg). See :func:`_mirror_mlat_rad` for the two Newton branches.
-    Large arrays are solved in blocks of bounded size.
+    An unchecked kernel of :func:`mirror_mlat` for callers that already hold
+    :math:`\sin^2\alpha_{eq}` and :math:`\cos^2\alpha_{eq}` (the bounce and
+    drift integrals of :mod:`beltkit.motion`).
+
+    Parameters
+    ----------
+    s, c : numpy.ndarray
+        :math:`\sin^2` and :math:`\cos^2` of the equatorial pitch angle
+        (folded to [0, 90] deg).
+
+    Returns
+    -------
+    sin2, cos2 : numpy.ndarray
+        Of the mirror latitude :math:`\lambda_m`, the root of
+        :math:`\cos^6\lambda_m = s \sqrt{1 + 3 \sin^2\lambda_m}` (see
+        :func:`_mirror_mlat_rad` for the two Newton branches). Large arrays are
+        solved in blocks of bounded size.
     """
     s, c = np.broadcast_arrays(np.asarray(s, dtype=float), np.asarray(c, dtype=float))
     if s.size <= _SOLVER_BLOCK:
@@ -203,7 +241,7 @@ def _mirror_sin2_cos2(s, c):
 
 
 def _mirror_block(s, c):
-    """Solve the mirror condition for one block (see :func:`_mirror_sin2_cos2`)."""
+    """Solve the mirror condition for one block (see :func:`mirror_sin2_cos2`)."""
     w_out = np.full(s.shape, np.nan)
     u_out = np.full(s.shape, np.nan)
     with np.errstate(invalid="ignore"):
@@ -471,7 +509,7 @@ def mirror_mlat(alpha_eq_deg):
     >>> round(mirror_mlat(10.0), 3)
     52.453
     """
-    a, _ = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    a, _ = fold_pitch_angle(_pitch(alpha_eq_deg, "alpha_eq_deg"))
     return np.rad2deg(_mirror_mlat_rad(a))
 
 
@@ -507,7 +545,7 @@ def mirror_altitude(L, alpha_eq_deg):
     6371.2
     """
     L = _L(L)
-    a, _ = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    a, _ = fold_pitch_angle(_pitch(alpha_eq_deg, "alpha_eq_deg"))
     lam = _mirror_mlat_rad(a)
     return R_E_KM * (L * np.cos(lam) ** 2 - 1.0)
 
@@ -542,7 +580,7 @@ def local_pitch_angle(alpha_eq_deg, mlat_deg):
     >>> round(local_pitch_angle(30.0, 20.0), 3)
     40.514
     """
-    a, upper = _fold(_pitch(alpha_eq_deg, "alpha_eq_deg"))
+    a, upper = fold_pitch_angle(_pitch(alpha_eq_deg, "alpha_eq_deg"))
     lam = np.deg2rad(_mlat(mlat_deg))
     s2 = np.sin(np.deg2rad(a)) ** 2 * _b_ratio(lam)
     with np.errstate(invalid="ignore"):
@@ -577,7 +615,7 @@ def equatorial_pitch_angle(alpha_local_deg, mlat_deg):
     >>> round(equatorial_pitch_angle(90.0, 20.0), 3)
     50.323
     """
-    a, upper = _fold(_pitch(alpha_local_deg, "alpha_local_deg"))
+    a, upper = fold_pitch_angle(_pitch(alpha_local_deg, "alpha_local_deg"))
     lam = np.deg2rad(_mlat(mlat_deg))
     out = _asin_deg(np.sin(np.deg2rad(a)) ** 2 / _b_ratio(lam))
     return np.where(upper, 180.0 - out, out)

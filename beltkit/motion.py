@@ -74,7 +74,7 @@ import scipy.constants as _sc
 
 from ._wrap import array_api, check_range
 from .constants import B0_NT, KEV_J, R_E_M
-from .dipole import _fold, _mirror_sin2_cos2
+from .dipole import fold_pitch_angle, mirror_sin2_cos2
 from .errors import PhysicsError
 from .particles import get_species
 
@@ -240,7 +240,7 @@ def _integrals(y, with_d=True):
         for start in range(0, sel.size, step):
             idx = sel[start:start + step]
             yb = yf[idx]
-            w, u = _mirror_sin2_cos2(yb * yb, (1.0 - yb) * (1.0 + yb))
+            w, u = mirror_sin2_cos2(yb * yb, (1.0 - yb) * (1.0 + yb))
             if kind == "x":
                 tv, dv = _block_algebraic(np.sqrt(w), u, rule, with_d)
             else:
@@ -260,7 +260,7 @@ def _y(y):
 def _y_from_alpha(alpha_eq_deg):
     a = check_range(alpha_eq_deg, "alpha_eq_deg", lo=0.0, hi=180.0,
                     hint="Pitch angles are in degrees, 0-180")
-    folded, _ = _fold(a)
+    folded, _ = fold_pitch_angle(a)
     return np.sin(np.deg2rad(folded))
 
 
