@@ -65,6 +65,8 @@ Validity and limits
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
 from ..constants import R_E_KM
@@ -152,6 +154,11 @@ _XLD2 = 40.0  # its width squared
 _SXC = 4.0  # closure-current X-confinement centre
 _XLWC2 = 50.0  # its width squared
 _RE = R_E_KM
+_BLOCK = 512  # points per thread work item
+# smaller inputs run single-threaded (and always in forked child processes, where
+# GNU OpenMP is not safe)
+_MIN_THREADED = 50_000
+_IMPORT_PID = os.getpid()
 
 
 def kp_level(kp):
@@ -314,13 +321,12 @@ def _point(x, y, z, sps, cps, psi, c):  # noqa: PLR0915 - one model evaluation
 if _nb is not None:
     _point_c = _nb.njit(cache=True, error_model="numpy", inline="always")(_point)
 
-    @_nb.njit(cache=True, error_model="numpy", parallel=True)
-    def _kernel_geo(xyz_km, rot, tilt, im, lev, coef, out):  # pragma: no cover - compiled
+    @_nb.njit(cache=True, error_model="numpy", inline="always")
+    def _rows(lo, hi, xyz_km, rot, tilt, im, lev, coef, out):  # pragma: no cover - compiled
         """GEO points -> GEO external field; rot/tilt per time (index im), level per point."""
-        n = xyz_km.shape[0]
         per_t = im.shape[0] > 1
         per_l = lev.shape[0] > 1
-        for i in _nb.prange(n):
+        for i in range(lo, hi):
             j = im[i] if per_t else 0
             k = lev[i] if per_l else lev[0]
             px, py, pz = xyz_km[i, 0], xyz_km[i, 1], xyz_km[i, 2]
@@ -337,6 +343,22 @@ if _nb is not None:
             out[i, 0] = r[0, 0] * bx + r[1, 0] * by + r[2, 0] * bz
             out[i, 1] = r[0, 1] * bx + r[1, 1] * by + r[2, 1] * bz
             out[i, 2] = r[0, 2] * bx + r[1, 2] * by + r[2, 2] * bz
+
+    @_nb.njit(cache=True, error_model="numpy", parallel=True)
+    def _par_kernel(xyz_km, rot, tilt, im, lev, coef, out):  # pragma: no cover - compiled
+        n = xyz_km.shape[0]
+        for blk in _nb.prange((n + _BLOCK - 1) // _BLOCK):
+            lo = blk * _BLOCK
+            _rows(lo, min(n, lo + _BLOCK), xyz_km, rot, tilt, im, lev, coef, out)
+
+    @_nb.njit(cache=True, error_model="numpy")
+    def _ser_kernel(xyz_km, rot, tilt, im, lev, coef, out):  # pragma: no cover - compiled
+        _rows(0, xyz_km.shape[0], xyz_km, rot, tilt, im, lev, coef, out)
+
+    def _kernel_geo(xyz_km, *args):
+        """Threaded for large inputs (a parallel launch costs milliseconds), else serial."""
+        threaded = xyz_km.shape[0] >= _MIN_THREADED and os.getpid() == _IMPORT_PID
+        (_par_kernel if threaded else _ser_kernel)(xyz_km, *args)
 else:  # pragma: no cover
     _kernel_geo = None
 
