@@ -544,6 +544,7 @@ class T89:
             self._series = _as_kp_series(kp, kp_time)
             self.level = None
             self.kp = None
+        self._frame_cache = {}
 
     def __repr__(self):
         if self._series is None:
@@ -593,6 +594,17 @@ class T89:
         norm = np.hypot(sps, cps)
         return m, np.stack([sps / norm, cps / norm, psi], axis=-1)
 
+    def _frames_one(self, t0):
+        """:meth:`_frames` of one datetime64, remembered (tracing asks again and again)."""
+        key = int(np.asarray(t0, dtype="datetime64[ns]").astype(np.int64))
+        hit = self._frame_cache.get(key)
+        if hit is None:
+            if len(self._frame_cache) > 64:
+                self._frame_cache.clear()
+            hit = self._frames(np.asarray(t0, dtype="datetime64[ns]"))
+            self._frame_cache[key] = hit
+        return hit
+
     def tilt_deg(self, time):
         r"""Dipole tilt :math:`\psi` (deg) at the times, :math:`\sin\psi = \hat D\cdot\hat X`."""
         return np.degrees(self._frames(time)[1][..., 2])
@@ -608,7 +620,7 @@ class T89:
             t0 = t.reshape(-1)[0]
             if np.isnat(t0):
                 return np.full(lead + (3,), np.nan)
-            rot, tilt = self._frames(t0)
+            rot, tilt = self._frames_one(t0)
             rot, tilt = rot[None], tilt[None]
             im = np.zeros(1, np.int64)
             lev = np.asarray(self.levels(t0)).reshape(1).astype(np.int64)
@@ -669,8 +681,15 @@ class T89:
         """
         from .coords import convert
 
-        g = np.asarray(convert(np.asarray(xyz_km, float), time, "GEO", "GSM",
-                               model=self.internal)) / R_E_KM
+        xyz = np.asarray(xyz_km, dtype=float)
+        t = np.asarray(time)
+        if t.dtype.kind != "M":
+            t = as_datetime64(time)
+        if t.size == 1 and not np.isnat(t.reshape(-1)[0]):
+            rot = self._frames_one(t.reshape(-1)[0])[0]
+            g = xyz @ rot.T / R_E_KM
+        else:
+            g = np.asarray(convert(xyz, t, "GEO", "GSM", model=self.internal)) / R_E_KM
         r = np.sqrt(np.sum(g * g, axis=-1))
         with np.errstate(invalid="ignore", divide="ignore"):
             rmp = magnetopause_radius_re(g[..., 0] / r)
