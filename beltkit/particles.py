@@ -37,22 +37,27 @@ from typing import NamedTuple
 import numpy as np
 import scipy.constants as _sc
 
-from ._wrap import array_api, check_range
+from ._wrap import array_api, as_float_array, check_range
 from .constants import GAUSS_PER_NT, KEV_J, MEV_J, NT
 from .errors import PhysicsError
+from .units import conversion_factor
 
 __all__ = [
+    "PSD_CONSTANT",
+    "PSD_UNITS",
     "SPECIES",
     "Species",
     "beta",
     "first_invariant",
     "first_invariant_si",
+    "flux_from_phase_space_density",
     "get_species",
     "gyrofrequency",
     "gyroperiod",
     "gyroradius",
     "lorentz_factor",
     "momentum",
+    "phase_space_density",
     "pv",
     "speed",
 ]
@@ -526,3 +531,131 @@ def first_invariant_si(energy_kev, pitch_angle_deg, b_nt, species="electron"):
     """
     mu = _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, get_species(species))
     return mu * MEV_J / 1e-4  # MeV -> J, per gauss -> per tesla (1 G = 1e-4 T)
+
+
+#: Factor C of f = C j / p^2: f in (c/(cm MeV))^3 from j in cm-2 s-1 sr-1 keV-1 and p
+#: in MeV/c. Derived (see :func:`phase_space_density`): 10^3 keV per MeV over the
+#: speed of light in cm/s, 1e3 / 2.99792458e10 = 3.33564e-8 (the often-quoted
+#: 3.325e-8 is a rounding, from memory).
+PSD_CONSTANT = _sc.kilo / (_sc.speed_of_light / _sc.centi)
+
+#: UDUNITS spelling of the trade's phase-space density unit (c/(cm MeV))^3.
+PSD_UNITS = "(299792458 m s-1)3 cm-3 MeV-3"
+_FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
+
+
+def _p2_mev2(energy_kev, sp):
+    """Return (p c)^2 in MeV^2."""
+    e = _energy(energy_kev)
+    return e * (e + 2.0 * sp.rest_energy_kev) * 1e-6
+
+
+def _flux_in_canonical_units(flux):
+    """Convert a DataArray flux to cm-2 s-1 sr-1 keV-1 (refusing other units); pass others."""
+    import xarray as xr
+
+    if not isinstance(flux, xr.DataArray) or "units" not in flux.attrs:
+        return flux
+    factor = conversion_factor(flux.attrs["units"], _FLUX_UNITS)
+    if factor is None:
+        raise PhysicsError(
+            f"argument 'flux' must be a differential directional flux in {_FLUX_UNITS!r}, "
+            f"but its DataArray has units {flux.attrs['units']!r}; convert it first"
+        )
+    if factor == 1.0:
+        return flux
+    out = flux * factor
+    out.attrs = {**flux.attrs, "units": _FLUX_UNITS}
+    return out
+
+
+def phase_space_density(flux, energy_kev, species="electron"):
+    r"""Phase-space density from differential directional flux, in the trade's unit.
+
+    .. math:: f = C\,\frac{j}{p^2}, \qquad C = \frac{10^3}{c\,[\mathrm{cm\,s^{-1}}]}
+        = 3.3356 \times 10^{-8}
+
+    with :math:`j` in cm-2 s-1 sr-1 keV-1, :math:`p` in MeV/c and :math:`f`
+    in :math:`(c/(\mathrm{cm\,MeV}))^3`.
+
+    Parameters
+    ----------
+    flux : array_like or xarray.DataArray
+        Differential directional flux :math:`j` in cm-2 s-1 sr-1 keV-1
+        (a DataArray in another spelling of a directional differential flux,
+        e.g. per MeV, is converted; any other unit is refused).
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (> 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`f` in :math:`(c/(\mathrm{cm\,MeV}))^3`, units attribute
+        :data:`PSD_UNITS` (the same unit in the UDUNITS grammar). NaN propagates.
+
+    Notes
+    -----
+    Derivation. The particles crossing an area :math:`dA` in time :math:`dt`
+    with momentum in :math:`d^3p = p^2\,dp\,d\Omega` number
+    :math:`f\,v\,p^2\,dp\,d\Omega\,dA\,dt`; the flux counts them as
+    :math:`j\,dE\,d\Omega\,dA\,dt`. With :math:`dE = v\,dp` (from
+    :math:`E^2 = p^2c^2 + m_0^2c^4`) this gives :math:`j = p^2 f`
+    (Liouville; e.g. Schulz & Lanzerotti 1974, ch. 1; Roederer 1970). In
+    the trade's units, 1 keV^-1 = 10^3 MeV^-1 and
+    :math:`\mathrm{cm^{-2}\,s^{-1}\,MeV^{-1}}\,(\mathrm{MeV}/c)^{-2}
+    = c^2\,\mathrm{cm^{-2}\,s^{-1}\,MeV^{-3}}
+    = (c^3\,\mathrm{cm^{-3}\,MeV^{-3}}) / (c\,[\mathrm{cm\,s^{-1}}])`,
+    so :math:`C = 10^3 / 2.99792458\times10^{10} = 3.33564\times10^{-8}`
+    (:data:`PSD_CONSTANT`, computed from :mod:`scipy.constants`; the
+    3.325e-8 quoted in places is a rounding of it).
+
+    Examples
+    --------
+    >>> f"{phase_space_density(1.0, 1000.0, 'electron'):.5e}"
+    '1.64968e-08'
+    """
+    return _psd(_flux_in_canonical_units(flux), energy_kev, species)
+
+
+@array_api(PSD_UNITS, long_name="phase-space density", name="psd")
+def _psd(flux, energy_kev, species):
+    sp = get_species(species)
+    j = as_float_array(flux, "flux")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return PSD_CONSTANT * j / _p2_mev2(energy_kev, sp)
+
+
+@array_api(_FLUX_UNITS, long_name="differential directional flux", name="flux")
+def flux_from_phase_space_density(psd, energy_kev, species="electron"):
+    r"""Differential directional flux from phase-space density (inverse of the above).
+
+    .. math:: j = \frac{p^2 f}{C}, \qquad C = 10^3 / c\,[\mathrm{cm\,s^{-1}}]
+
+    Parameters
+    ----------
+    psd : array_like or xarray.DataArray
+        Phase-space density :math:`f` in :math:`(c/(\mathrm{cm\,MeV}))^3`.
+    energy_kev : array_like or xarray.DataArray
+        Kinetic energy in keV (>= 0).
+    species : str or Species
+        Particle species.
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        :math:`j` in cm-2 s-1 sr-1 keV-1.
+
+    Notes
+    -----
+    See :func:`phase_space_density` for the derivation of :math:`C`.
+
+    Examples
+    --------
+    >>> round(flux_from_phase_space_density(phase_space_density(5.0, 300.0), 300.0), 12)
+    5.0
+    """
+    sp = get_species(species)
+    f = as_float_array(psd, "psd")
+    return f * _p2_mev2(energy_kev, sp) / PSD_CONSTANT

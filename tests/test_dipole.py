@@ -292,3 +292,88 @@ def test_local_loss_cone_refuses_points_inside_the_earth():
     lam_surface_ok = np.degrees(np.arccos(np.sqrt(1.0 / 2.0))) - 0.1
     assert dipole.local_loss_cone(2.0, lam_surface_ok) == 90.0
     assert np.isnan(dipole.local_loss_cone(2.0, np.nan))
+
+
+# ---------------------------------------------------------------- second invariant K
+
+
+def _k_quad(L, alpha_eq_deg, b0_nt=B0_NT):
+    # Independent route: scipy quad of K = int sqrt(B_m - B) ds along the dipole line in
+    # latitude, ds = L R_E cos(l) sqrt(1 + 3 sin^2 l) dl (Roederer 1970), between the
+    # mirror points found by brentq; field in G, arc length in R_E.
+    lam_m = math.radians(_mirror_lat_brentq(alpha_eq_deg))
+    b_eq = b0_nt * 1e-5 / L**3
+    b_m = b_eq / math.sin(math.radians(alpha_eq_deg)) ** 2
+
+    def f(lam):
+        b = b_eq * math.sqrt(1 + 3 * math.sin(lam) ** 2) / math.cos(lam) ** 6
+        return math.sqrt(max(b_m - b, 0.0)) * L * math.cos(lam) * math.sqrt(
+            1 + 3 * math.sin(lam) ** 2)
+
+    return 2 * quad(f, 0.0, lam_m, epsabs=0, epsrel=1e-13, limit=400)[0]
+
+
+@pytest.mark.parametrize("alpha", [0.5, 2.0, 5.0, 10.0, 20.0, 35.0, 45.0, 60.0, 75.0, 85.0,
+                                   89.0])
+@pytest.mark.parametrize("L", [1.5, 4.0, 6.6])
+def test_second_invariant_k_against_quadrature(L, alpha):
+    # dipole K vs independent scipy quad, to 1e-8 (issue 17)
+    assert dipole.second_invariant_k(L, alpha) == pytest.approx(_k_quad(L, alpha), rel=1e-8)
+
+
+def test_second_invariant_k_limits_and_nudge():
+    # Y(0) = 2 int_0^1 sqrt(1 + 3x^2) dx = 2 + asinh(sqrt 3)/sqrt 3 = 2 T(0) (textbook
+    # integral); K = 0 at 90 deg; near 90 deg K ~ (1 - y^2), harmonic bounce (Walt 1994)
+    assert dipole.second_invariant_integral(0.0) == pytest.approx(
+        2 + math.asinh(math.sqrt(3)) / math.sqrt(3), rel=1e-15)
+    y0 = dipole.second_invariant_integral(0.0)
+    assert y0 * (1 - 2e-4) < dipole.second_invariant_integral(1e-6) < y0
+    assert dipole.second_invariant_k(3.0, 90.0) == 0.0
+    assert dipole.second_invariant_k(3.0, 150.0) == dipole.second_invariant_k(3.0, 30.0)
+    # nudge: 1e-6 deg change in the pitch angle moves K by more than the 1e-8 tolerance
+    assert abs(dipole.second_invariant_k(4.0, 30.000001) / _k_quad(4.0, 30.0) - 1) > 1e-8
+    k = dipole.second_invariant_k(np.array([[2.0], [5.0]]), np.array([10.0, 50.0]))
+    assert k.shape == (2, 2)
+    assert np.all(np.diff(k, axis=1) < 0)  # K decreases with pitch angle
+
+
+def test_second_invariant_k_dataarray():
+    L = xr.DataArray([3.0, 5.0], dims="time")
+    k = dipole.second_invariant_k(L, 40.0)
+    assert k.attrs["units"] == "G0.5 R_E" and k.dims == ("time",)
+    with pytest.raises(PhysicsError, match="alpha_eq_deg"):
+        dipole.second_invariant_k(3.0, 190.0)
+
+
+def test_invariants_to_pitch_energy_round_trip():
+    # inverse returns (alpha_eq, E) whose forward mu (beltkit.particles.first_invariant at
+    # the equator) and K (this module, checked against quad above) match to 1e-8 (issue 17)
+    from beltkit.particles import first_invariant
+
+    rng = np.random.default_rng(7)
+    n = 4000
+    L = rng.uniform(1.2, 9.0, n)
+    alpha = np.concatenate([rng.uniform(0.05, 89.99, n - 200), 10 ** rng.uniform(-3, -1, 100),
+                            90 - 10 ** rng.uniform(-4, -1, 100)])
+    mu = 10 ** rng.uniform(-1, 4, n)
+    for species in ("electron", "proton"):
+        k = dipole.second_invariant_k(L, alpha)
+        a, e = dipole.invariants_to_pitch_energy(mu, k, L, species)
+        np.testing.assert_allclose(dipole.second_invariant_k(L, a), k, rtol=1e-8)
+        np.testing.assert_allclose(first_invariant(e, a, dipole.equatorial_field(L), species),
+                                   mu, rtol=1e-8)
+        np.testing.assert_allclose(a, alpha, rtol=1e-8)
+    # K = 0: equatorially mirroring; mu = p^2 / (2 m0 B_eq) then fixes E
+    a, e = dipole.invariants_to_pitch_energy(1000.0, 0.0, 5.0)
+    assert a == 90.0
+    assert first_invariant(e, 90.0, dipole.equatorial_field(5.0)) == pytest.approx(1000.0)
+    with pytest.raises(PhysicsError, match="k_g05_re"):
+        dipole.invariants_to_pitch_energy(100.0, -0.1, 5.0)
+
+
+def test_invariants_to_pitch_energy_dataarrays():
+    t = xr.DataArray([4.0, 5.0, 6.0], dims="time")
+    mu = xr.DataArray([100.0, 1000.0], dims="mu")
+    a, e = dipole.invariants_to_pitch_energy(mu, 0.1, t)
+    assert a.dims == ("mu", "time") or a.dims == ("time", "mu")
+    assert a.attrs["units"] == "degree" and e.attrs["units"] == "keV"
