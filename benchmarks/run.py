@@ -11,7 +11,7 @@ the same data (a plain ``numpy.sqrt`` pass, a single weighted numpy reduction,
 an xarray open-load-rewrite, or the reference IGRF library), so the ratio, not
 the absolute time, is what a target constrains. The suites live beside this
 file (``bench_physics.py``, ``bench_pad.py``, ``bench_batch.py``,
-``bench_igrf.py``, ``bench_field.py``); each has ``run(quick=False)``
+``bench_igrf.py``, ``bench_field.py``, ``bench_t89.py``); each has ``run(quick=False)``
 returning rows with the keys ``figure, value, unit, baseline, ratio, target,
 passed``.
 """
@@ -28,7 +28,7 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field")
+SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field", "bench_t89")
 
 
 def _fmt(value):

@@ -6,7 +6,7 @@ import sys
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field")
+SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field", "bench_t89")
 
 
 def test_quick_benchmark_runs_every_suite(tmp_path):
