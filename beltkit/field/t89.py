@@ -16,9 +16,12 @@ terms proportional to the square of the dipole tilt). The field is the sum
 of four parts, written in GSM (the ring current and the tail current
 sheet in the solar-magnetic frame, rotated by the tilt :math:`\psi`):
 
-* a ring current, a sheet of thickness :math:`D_{RC}` that thickens from
-  night to day, with field :math:`\propto \partial_\rho\,[(a_{RC} + \zeta)^2
-  + \rho^2]^{-3/2}`-type vector potential terms;
+* a ring current with vector potential :math:`A_\phi \propto \rho\,
+  [(a_{RC} + \zeta)^2 + \rho^2]^{-3/2}`, :math:`\zeta = (z_r^2 +
+  D_{RC}^2)^{1/2}` (:math:`z_r`: height above the warped current sheet),
+  whose half-thickness :math:`D_{RC}` grows from night to day (so
+  :math:`B_z \propto [2(a_{RC}+\zeta)^2 - \rho^2] / [(a_{RC}+\zeta)^2 +
+  \rho^2]^{5/2}` plus a term from the sheet's slope);
 * the tail current sheet (two modes, amplitudes :math:`A_1 + A_{16}\psi^2`
   and :math:`A_2 + A_{17}\psi^2`), warped and hinged at distance
   :math:`R_c` along the dipole-tilt direction, confined in X and Y by
