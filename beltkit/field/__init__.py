@@ -43,6 +43,10 @@ _EXPORTS = {
     "mcilwain_l": "lshell",
     "hilton_l": "lshell",
     "dipole_l": "lshell",
+    # invariants.py
+    "second_invariant_k": "invariants",
+    "lstar": "invariants",
+    "LSTAR_REASONS": "invariants",
     # losscone.py
     "loss_cones": "losscone",
     "drift_shell_table": "losscone",
