@@ -1,34 +1,16 @@
-"""Solid-angle geometry of bins and telescope fields of view against outside references."""
+"""Solid-angle geometry of bins and telescope looks against outside references."""
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from scipy import integrate
 
 from beltkit.pad import (
     band_overlap_solid_angle,
     band_solid_angle,
     band_weights,
-    cap_intersection_area,
-    fov_fraction,
-    fov_fraction_below,
+    look_solid_angles,
 )
-
-
-def _cap_overlap_quadrature(r1, r2, d):
-    """Intersection of caps (radius r1 about z, r2 about an axis d away) by scipy quadrature."""
-    r1, r2, d = np.radians([r1, r2, d])
-
-    def arc(theta):  # azimuthal extent (rad) of the second cap on the circle of colatitude theta
-        if np.sin(theta) * np.sin(d) == 0.0:
-            return 2 * np.pi * float(np.cos(theta - d) >= np.cos(r2))
-        c = (np.cos(r2) - np.cos(theta) * np.cos(d)) / (np.sin(theta) * np.sin(d))
-        return 2 * np.arccos(np.clip(c, -1, 1))
-
-    pts = [p for p in (abs(d - r2), d + r2) if 0 < p < r1]
-    return integrate.quad(lambda th: np.sin(th) * arc(th), 0, r1, points=pts or None,
-                          limit=200, epsabs=1e-13)[0]
 
 
 def test_full_sphere_and_hemisphere():
@@ -61,54 +43,38 @@ def test_weights_sum_to_one_per_bin(a1, width, blc, extra):
     assert total == pytest.approx(1.0, abs=1e-9)
 
 
-@pytest.mark.parametrize("r1,r2,d", [(30, 20, 25), (60, 15, 70), (80, 45, 100), (10, 30, 5),
-                                     (90, 30, 100), (45, 45, 90), (50, 10, 20), (5, 5, 9.9)])
-def test_cap_intersection_matches_quadrature(r1, r2, d):
-    # reference: direct integration over the first cap with scipy.integrate.quad
-    ref = _cap_overlap_quadrature(r1, r2, d)
-    assert cap_intersection_area(r1, r2, d) == pytest.approx(ref, rel=1e-9, abs=1e-12)
-
-
-def test_fov_fraction_symmetry_and_containment():
-    # a field of view centred at 90 deg is split in half by the 90-deg plane (symmetry)
-    assert fov_fraction(90.0, 20.0, 0.0, 90.0) == pytest.approx(0.5, abs=1e-12)
-    # a field of view entirely inside a range lies wholly in it
-    assert fov_fraction(10.0, 20.0, 0.0, 180.0) == pytest.approx(1.0, abs=1e-12)
-    assert fov_fraction(60.0, 10.0, 45.0, 75.0) == pytest.approx(1.0, abs=1e-12)
-    assert fov_fraction(60.0, 10.0, 0.0, 40.0) == pytest.approx(0.0, abs=1e-12)
-    # a hemispherical field of view along B: the part below r is the cap of r (spherical geometry)
-    r = 23.0
-    assert fov_fraction_below(0.0, 90.0, r) == pytest.approx(1 - np.cos(np.radians(r)), rel=1e-12)
-
-
-@pytest.mark.parametrize("axis,half,r", [(30.0, 20.0, 25.0), (150.0, 25.0, 160.0),
-                                         (95.0, 30.0, 100.0), (170.0, 15.0, 178.0)])
-def test_fov_fraction_matches_quadrature(axis, half, r):
-    # reference: the cap intersection by scipy quadrature over the field of view
-    cap = 2 * np.pi * (1 - np.cos(np.radians(half)))
-    if r <= 90:
-        ref = _cap_overlap_quadrature(half, r, axis) / cap
-    else:  # directions above r are those within 180 - r of the anti-field direction
-        ref = 1 - _cap_overlap_quadrature(half, 180 - r, 180 - axis) / cap
-    assert fov_fraction_below(axis, half, r) == pytest.approx(ref, rel=1e-9)
-
-
-def test_fov_fraction_is_sensitive_to_the_half_angle():
-    # nudge: a 0.1-degree change of the half-angle changes the split measurably
-    a = fov_fraction_below(20.0, 15.0, 10.0)
-    b = fov_fraction_below(20.0, 15.1, 10.0)
-    assert abs(a - b) > 1e-4
-
-
 @settings(max_examples=40, deadline=None)
-@given(axis=st.floats(0, 180), half=st.floats(1, 90), cuts=st.lists(st.floats(0, 180),
-                                                                     min_size=1, max_size=4))
-def test_fov_fractions_of_a_partition_sum_to_one(axis, half, cuts):
+@given(looks=st.lists(st.tuples(st.floats(0, 180), st.floats(1, 90)), min_size=1, max_size=4),
+       cuts=st.lists(st.floats(0, 180), min_size=1, max_size=4))
+def test_look_solid_angles_of_a_partition_add_up_to_the_union_of_the_bands(looks, cuts):
+    # the ranges of a partition of [0, 180] share out the union of the swept bands once
+    # (no pitch angle counted twice); the union's solid angle is summed here from the
+    # merged intervals, 2 pi (cos a1 - cos a2) each (spherical geometry)
+    axis = np.array([a for a, _ in looks])
+    half = np.array([h for _, h in looks])
     edges = np.concatenate([[0.0], np.sort(cuts), [180.0]])
-    parts = fov_fraction(axis, half, edges[:-1], edges[1:])
-    assert float(np.sum(parts)) == pytest.approx(1.0, abs=1e-9)
+    parts = sum(look_solid_angles(axis, half, r1, r2).sum()
+                for r1, r2 in zip(edges[:-1], edges[1:]))
+    bands = sorted(zip(np.maximum(axis - half, 0), np.minimum(axis + half, 180)))
+    union, (lo, hi) = 0.0, bands[0]
+    for a1, a2 in bands[1:]:
+        if a1 > hi:
+            union += band_solid_angle(lo, hi)
+            lo, hi = a1, a2
+        else:
+            hi = max(hi, a2)
+    union += band_solid_angle(lo, hi)
+    assert float(parts) == pytest.approx(float(union), rel=1e-9, abs=1e-12)
+
+
+def test_look_solid_angles_is_sensitive_to_the_half_angle():
+    # nudge: a 0.1-degree change of the half-angle changes the split measurably
+    a = look_solid_angles([20.0], [15.0], 0.0, 10.0)[0]
+    b = look_solid_angles([20.0], [15.1], 0.0, 10.0)[0]
+    assert abs(a - b) > 1e-4
 
 
 def test_nan_propagates():
     assert np.isnan(band_weights(np.nan, 10, 0, 5))
-    assert np.isnan(fov_fraction(np.nan, 10, 0, 5))
+    # a look without a pitch angle samples nothing
+    assert look_solid_angles([np.nan, 30.0], [10.0, 10.0], 0.0, 180.0).tolist()[0] == 0.0

@@ -218,19 +218,18 @@ def test_telescope_hemispheres_reproduce_isotropic_fractions():
     np.testing.assert_allclose(out.omni_flux.values, 4 * np.pi * 7.0, rtol=1e-12)
 
 
-def test_telescope_flux_is_apportioned_by_field_of_view_fraction():
-    from beltkit.pad import fov_fraction
-
+def test_telescope_flux_is_apportioned_by_its_swept_band():
+    # gyrotropy: a look stands for the band [axis - half, axis + half] it sweeps; its share of
+    # a population is the band's solid angle inside it, 2 pi (cos a1 - cos a2) (spherical
+    # geometry); the two bands here do not overlap
     L = 1.4  # wide loss cone
     ds = make_telescope_ds(np.array([[[10.0, 4.0]]]), [20.0, 90.0], [15.0, 15.0], L=L)
     out = partition(ds)
-    blc = float(out.blc_local[0])
-    swept = [2 * np.pi * (np.cos(np.radians(5)) - np.cos(np.radians(35))),
-             2 * np.pi * (np.cos(np.radians(75)) - np.cos(np.radians(105)))]
-    f0 = float(fov_fraction(20.0, 15.0, 0.0, blc))  # telescope 0 inside the loss cone part
-    expect_prec = 10.0 * swept[0] * f0 + 4.0 * swept[1] * float(fov_fraction(90.0, 15.0, 0, blc))
-    assert 0 < f0 < 1
-    assert float(out.flux_precipitating[0, 0]) == pytest.approx(expect_prec, rel=1e-12)
+    blc = np.radians(float(out.blc_local[0]))
+    assert np.radians(5) < blc < np.radians(35)  # the edge lies inside the first band
+    inside = 2 * np.pi * (np.cos(np.radians(5)) - np.cos(blc))
+    assert float(out.flux_precipitating[0, 0]) == pytest.approx(10.0 * inside, rel=1e-12)
+    assert float(out.solid_angle_precipitating[0, 0]) == pytest.approx(inside, rel=1e-12)
     # the 0-5 deg and 35-75 deg bands are never seen: coverage below 1 and flagged
     assert float(out.coverage_precipitating[0, 0]) < 1
     assert int(out.partition_flag[0, 0]) & 8

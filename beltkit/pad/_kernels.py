@@ -30,14 +30,17 @@ _CHUNK = 256
 
 
 def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, cosb,
-                        cosd, coso, has_neg, out, flag, stats, chunk, count_row):
+                        cosd, coso, cosn, coss, hrow, has_neg, out, flag, stats, chunk,
+                        count_row):
     n, n_e, n_p = x.shape
     xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
     sf = s.reshape(s.shape[0], -1)
     nan = np.nan
-    wt = np.empty((5, n_p))
-    wq = np.empty((9, n_p))
-    colsum = np.empty(5)
+    hemi = hrow >= 0  # losses per hemisphere: weight rows 5-6, outputs from row hrow
+    n_w = 7 if hemi else 5
+    wt = np.empty((7, n_p))
+    wq = np.empty((13, n_p))
+    colsum = np.empty(7)
     n_rows = 23  # 0-13 sums, 14-22 error sums
     # rows padded apart (not a multiple of 4 KiB): no cache-set aliasing between them
     sc = np.empty((n_rows, max(chunk, 1) * n_e + 24))
@@ -93,9 +96,11 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             cb = cosb[t]
             cd = cosd[t]
             co = coso[t]
+            cn = cosn[t]
+            cs = coss[t]
             if use_pre:
                 for p in range(n_p):
-                    for k in range(5):
+                    for k in range(n_w):
                         wt[k, p] = wpre[t, p, k]
             else:
                 for p in range(n_p):
@@ -114,7 +119,15 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     wt[2, p] = max(cdm - cdp, 0.0) * fold
                     wt[3, p] = max(cop - cbp + cbm - com, 0.0) * fold
                     wt[4, p] = full * fold
-            for k in range(5):
+                    if hemi:  # lost north [0, lcn], lost south [180 - lcs, 180]; a folded
+                        # bin adds its mirror image [180 - a2, 180 - a1]
+                        cnp = _TWO_PI * (c1 - min(max(cn, c2), c1))
+                        cnm = _TWO_PI * (c1 - min(max(-cn, c2), c1))
+                        csp = _TWO_PI * (c1 - min(max(cs, c2), c1))
+                        csm = _TWO_PI * (c1 - min(max(-cs, c2), c1))
+                        wt[5, p] = max(cnp + (fold - 1.0) * (full - cnm), 0.0)
+                        wt[6, p] = max(full - csm + (fold - 1.0) * csp, 0.0)
+            for k in range(n_w):
                 acc = 0.0
                 for p in range(n_p):
                     acc += wt[k, p]
@@ -122,6 +135,15 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             om0 = _FOUR_PI * (1.0 - cb)
             om1 = _FOUR_PI * (cb - cd)
             om2 = _FOUR_PI * cd
+            om5 = _TWO_PI * (1.0 - cn)
+            om6 = _TWO_PI * (1.0 - cs)
+            if has_s and hemi:
+                for p in range(n_p):
+                    w4 = wt[4, p]
+                    wq[9, p] = wt[5, p] * wt[5, p]
+                    wq[10, p] = wt[6, p] * wt[6, p]
+                    wq[11, p] = wt[5, p] * w4
+                    wq[12, p] = wt[6, p] * w4
             if has_s:  # the weight products of the error propagation
                 for p in range(n_p):
                     w0 = wt[0, p]
@@ -158,15 +180,30 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                           + (4 if e2 > s2 else 0) + (8 if part else 0)
                           + (0 if m4 > 0.0 else 32))
                 fill_ok = s0 & e0 & (m3 > TOL_SR)
+                e5 = om5 > TOL_SR
+                e6 = om6 > TOL_SR
+                s5 = colsum[5] > TOL_SR
+                s6 = colsum[6] > TOL_SR
                 for e in range(n_e):
-                    a0 = a1 = a2 = a3 = a4 = 0.0
-                    for p in range(n_p):
-                        v = np.float64(x[t, e, p])
-                        a0 += v * wt[0, p]
-                        a1 += v * wt[1, p]
-                        a2 += v * wt[2, p]
-                        a3 += v * wt[3, p]
-                        a4 += v * wt[4, p]
+                    a0 = a1 = a2 = a3 = a4 = a5 = a6 = 0.0
+                    if hemi:  # one read of the values for all seven sums
+                        for p in range(n_p):
+                            v = np.float64(x[t, e, p])
+                            a0 += v * wt[0, p]
+                            a1 += v * wt[1, p]
+                            a2 += v * wt[2, p]
+                            a3 += v * wt[3, p]
+                            a4 += v * wt[4, p]
+                            a5 += v * wt[5, p]
+                            a6 += v * wt[6, p]
+                    else:
+                        for p in range(n_p):
+                            v = np.float64(x[t, e, p])
+                            a0 += v * wt[0, p]
+                            a1 += v * wt[1, p]
+                            a2 += v * wt[2, p]
+                            a3 += v * wt[3, p]
+                            a4 += v * wt[4, p]
                     pops0 = (a0 if s0 else nan) if e0 else 0.0
                     pops1 = (a1 if s1 else nan) if e1 else 0.0
                     pops2 = (a2 if s2 else nan) if e2 else 0.0
@@ -188,6 +225,13 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     out[12, j] = m2
                     out[13, j] = a0 * (m3 / (m0 * a3)) if (fill_ok & (a3 != 0.0)) else nan
                     flag[j] = flag_t
+                    if hemi:
+                        pops5 = (a5 if s5 else nan) if e5 else 0.0
+                        pops6 = (a6 if s6 else nan) if e6 else 0.0
+                        out[hrow, j] = pops5
+                        out[hrow + 1, j] = pops6
+                        out[hrow + 2, j] = pops5 * itot
+                        out[hrow + 3, j] = pops6 * itot
                     if count_row >= 0:
                         out[count_row, j] = n_p
                         out[count_row + 1, j] = 0
@@ -221,6 +265,23 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         qf = a0 * kf / a3 if ok3 else nan
                         var = kf * kf * v0 + qf * qf * v4 - 2 * kf * qf * v8
                         out[22, j] = math.sqrt(max(var, 0.0)) if ok3 else nan
+                        if hemi:
+                            u9 = u10 = u11 = u12 = 0.0
+                            for p in range(n_p):
+                                q = np.float64(s[t, e, p])
+                                q2 = q * q
+                                u9 += q2 * wq[9, p]
+                                u10 += q2 * wq[10, p]
+                                u11 += q2 * wq[11, p]
+                                u12 += q2 * wq[12, p]
+                            f5 = pops5 * itot
+                            f6 = pops6 * itot
+                            out[hrow + 4, j] = (math.sqrt(u9) if s5 else nan) if e5 else 0.0
+                            out[hrow + 5, j] = (math.sqrt(u10) if s6 else nan) if e6 else 0.0
+                            out[hrow + 6, j] = itot * math.sqrt(
+                                max(u9 - 2 * f5 * u11 + f5 * f5 * v3, 0.0))
+                            out[hrow + 7, j] = itot * math.sqrt(
+                                max(u10 - 2 * f6 * u12 + f6 * f6 * v3, 0.0))
                 continue
             # one vectorised scan of the sample's E x P values: any missing or negative?
             n_bad = 0
@@ -232,7 +293,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             all_ok = n_bad == 0
             for e in range(n_e):
                 j = j0 + e
-                a0 = a1 = a2 = a3 = a4 = 0.0
+                a0 = a1 = a2 = a3 = a4 = a5 = a6 = 0.0
                 if n_bad == 0 and n_low == 0:  # every bin sampled: the measured solid
                     for p in range(n_p):      # angles are the weights' sums
                         v = np.float64(x[t, e, p])
@@ -241,15 +302,20 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         a2 += v * wt[2, p]
                         a3 += v * wt[3, p]
                         a4 += v * wt[4, p]
+                        if hemi:
+                            a5 += v * wt[5, p]
+                            a6 += v * wt[6, p]
                     m0 = colsum[0]
                     m1 = colsum[1]
                     m2 = colsum[2]
                     m3 = colsum[3]
                     m4 = colsum[4]
+                    m5 = colsum[5] if hemi else 0.0
+                    m6 = colsum[6] if hemi else 0.0
                     nf = n_p
                     ng = 0
                 else:
-                    m0 = m1 = m2 = m3 = m4 = 0.0
+                    m0 = m1 = m2 = m3 = m4 = m5 = m6 = 0.0
                     nf = 0
                     ng = 0
                     for p in range(n_p):
@@ -269,6 +335,11 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         m2 += fin * wt[2, p]
                         m3 += fin * wt[3, p]
                         m4 += fin * wt[4, p]
+                        if hemi:
+                            a5 += vv * wt[5, p]
+                            a6 += vv * wt[6, p]
+                            m5 += fin * wt[5, p]
+                            m6 += fin * wt[6, p]
                 stats[e, 0] += nf
                 stats[e, 1] += ng
                 if count_row >= 0:
@@ -318,6 +389,42 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     sc[20, j] = v6
                     sc[21, j] = v7
                     sc[22, j] = v8
+                if hemi:  # losses per hemisphere of this (time, energy), written at once
+                    jo = t * n_e + e
+                    pops0 = (a0 if m0 > TOL_SR else nan) if om0 > TOL_SR else 0.0
+                    pops1 = (a1 if m1 > TOL_SR else nan) if om1 > TOL_SR else 0.0
+                    pops2 = (a2 if m2 > TOL_SR else nan) if om2 > TOL_SR else 0.0
+                    total = pops0 + pops1 + pops2
+                    itot = 1.0 / total if total > 0 else nan
+                    e5 = om5 > TOL_SR
+                    e6 = om6 > TOL_SR
+                    s5 = m5 > TOL_SR
+                    s6 = m6 > TOL_SR
+                    pops5 = (a5 if s5 else nan) if e5 else 0.0
+                    pops6 = (a6 if s6 else nan) if e6 else 0.0
+                    out[hrow, jo] = pops5
+                    out[hrow + 1, jo] = pops6
+                    out[hrow + 2, jo] = pops5 * itot
+                    out[hrow + 3, jo] = pops6 * itot
+                    if has_s:
+                        u9 = u10 = u11 = u12 = 0.0
+                        for p in range(n_p):
+                            q = np.float64(s[t, e, p])
+                            ok = all_ok or x[t, e, p] - x[t, e, p] == 0.0
+                            q2 = q * q if ok else 0.0
+                            u9 += q2 * wq[9, p]
+                            u10 += q2 * wq[10, p]
+                            u11 += q2 * wq[11, p]
+                            u12 += q2 * wq[12, p]
+                        f5 = pops5 * itot
+                        f6 = pops6 * itot
+                        u3 = sc[17, j]
+                        out[hrow + 4, jo] = (math.sqrt(u9) if s5 else nan) if e5 else 0.0
+                        out[hrow + 5, jo] = (math.sqrt(u10) if s6 else nan) if e6 else 0.0
+                        out[hrow + 6, jo] = itot * math.sqrt(
+                            max(u9 - 2 * f5 * u11 + f5 * f5 * u3, 0.0))
+                        out[hrow + 7, jo] = itot * math.sqrt(
+                            max(u10 - 2 * f6 * u12 + f6 * f6 * u3, 0.0))
         if clean:
             continue
         # ---- pass 2: the outputs of the chunk. One short loop per group of rows, each
@@ -530,7 +637,7 @@ def _same_view(a, b):
 
 
 def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats,
-                    flag=None, count_row=-1):
+                    flag=None, count_row=-1, cones_ns=None, hemi_row=-1):
     """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
 
     Parameters
@@ -540,7 +647,9 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
     s : numpy.ndarray or None
         1-sigma errors (n, E, P).
     wpre : numpy.ndarray or None
-        Precomputed weights (n, P, 5) (telescopes); None for fixed bins.
+        Precomputed weights (n, P, 7) (telescopes): precipitating,
+        quasi-trapped, trapped, band outside the loss cone, whole look, lost
+        north, lost south; None for fixed bins.
     cos_a1, cos_a2 : numpy.ndarray
         Cosines of the bin edges (P,), used when ``wpre`` is None.
     fold : float
@@ -567,12 +676,20 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
         the per-(time, energy) counts of valid flux values, negative flux
         values and negative errors (so that a lazy caller can sum the value
         checks over its blocks afterwards).
+    cones_ns : tuple of numpy.ndarray, optional
+        ``(loss_cone_north, loss_cone_south)`` (n,) in degrees, needed when
+        ``hemi_row >= 0``.
+    hemi_row : int, optional
+        When >= 0, rows ``hemi_row`` to ``hemi_row + 3`` receive
+        ``flux_lost_north``, ``flux_lost_south``, ``fraction_lost_north``,
+        ``fraction_lost_south`` and, with errors, the next four rows their
+        uncertainties.
     """
     n = x.shape[0]
     has_s = s is not None
     s_arr = s if has_s else np.zeros((1, 1, 1), dtype=x.dtype)
     use_pre = wpre is not None
-    w_arr = wpre if use_pre else np.zeros((1, 1, 5))
+    w_arr = wpre if use_pre else np.zeros((1, 1, 7))
     blc = np.asarray(blc, dtype=float)
     dlc = np.asarray(dlc, dtype=float)
     # the three edge cosines of every sample, by numpy passes made in place; the same
@@ -585,14 +702,27 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
         dlc = np.maximum(dlc, blc)
         cosd = np.multiply(dlc, _RAD)
         np.cos(cosd, out=cosd)
+    if hemi_row >= 0:
+        cos_ns = []
+        for c in cones_ns:
+            c = np.asarray(c, dtype=float)
+            if _same_view(c, blc):  # the dipole's: one cone for every purpose
+                cos_ns.append(cosb)
+            else:
+                cc = np.multiply(c, _RAD)
+                np.cos(cc, out=cc)
+                cos_ns.append(cc)
+        cosn, coss = cos_ns
+    else:
+        cosn = coss = cosb
     coso = np.add(blc, float(band))
     np.minimum(coso, 90.0, out=coso)
     np.multiply(coso, _RAD, out=coso)
     np.cos(coso, out=coso)
     flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
-            np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso,
-            bool(has_neg), out, flag_arr, stats, _CHUNK, int(count_row))
+            np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso, cosn,
+            coss, int(hemi_row), bool(has_neg), out, flag_arr, stats, _CHUNK, int(count_row))
     if HAVE_NUMBA:
         _jitted("partition")(*args)
     else:  # pragma: no cover

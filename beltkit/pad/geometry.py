@@ -1,9 +1,14 @@
-r"""Exact solid-angle geometry of pitch-angle bins and telescope fields of view.
+r"""Exact solid-angle geometry of pitch-angle bins and telescope looks.
 
 Gyrotropy is assumed throughout: the directional flux depends on the pitch
 angle only, so a pitch-angle band :math:`[a_1, a_2]` is a zone of the unit
 sphere around the field direction with solid angle
 :math:`2\pi(\cos a_1 - \cos a_2)` (spherical geometry).
+
+A telescope look is treated like a bin: under gyrotropy it stands for the
+band of pitch angles that its field of view sweeps over a gyration
+(:func:`swept_band`), with its flux uniform over that band; overlapping looks
+share the pitch angles they both cover (:func:`look_bands`).
 
 All functions broadcast their arguments (numpy rules), take angles in degrees
 and never modify their inputs.
@@ -17,9 +22,8 @@ __all__ = [
     "band_solid_angle",
     "band_overlap_solid_angle",
     "band_weights",
-    "cap_intersection_area",
-    "fov_fraction_below",
-    "fov_fraction",
+    "look_bands",
+    "look_solid_angles",
     "swept_band",
 ]
 
@@ -109,128 +113,111 @@ def band_weights(a1_deg, a2_deg, r1_deg, r2_deg):
         return np.where(full > 0, part / np.where(full > 0, full, 1.0), np.nan)
 
 
-def cap_intersection_area(r1_deg, r2_deg, d_deg):
-    r"""Area (sr) of the intersection of two spherical caps.
+def look_bands(look_deg, half_deg):
+    r"""Split the union of the looks' swept bands into intervals, with each look's share.
 
-    Caps of angular radii ``r1`` and ``r2`` (each at most 90 deg) whose
-    centres are ``d`` apart (0-180 deg). For partial overlap
-    (:math:`|r_1 - r_2| < d < r_1 + r_2`)
+    Look :math:`k` of axis pitch angle :math:`\alpha_k` and half-angle
+    :math:`\theta_k` stands for the band
+    :math:`[\max(0, \alpha_k - \theta_k), \min(180, \alpha_k + \theta_k)]`
+    that it sweeps over a gyration, with solid angle :math:`\Omega_k`
+    (:func:`swept_band`). The band edges of all looks cut :math:`[0, 180]`
+    into intervals :math:`m`, each covered by a fixed set :math:`K_m` of looks.
+    The flux of interval :math:`m` is taken from the looks that cover it,
+    weighted by their band solid angles,
 
     .. math::
-        A = 2\left[\pi - \arccos\frac{\cos d - \cos r_1\cos r_2}
-        {\sin r_1 \sin r_2}
-        - \cos r_1 \arccos\frac{\cos r_2 - \cos d \cos r_1}{\sin d \sin r_1}
-        - \cos r_2 \arccos\frac{\cos r_1 - \cos d \cos r_2}{\sin d \sin r_2}
-        \right]
+        j_m = \sum_{k \in K_m} c_{mk} j_k, \qquad
+        c_{mk} = \frac{\Omega_k}{\sum_{k' \in K_m} \Omega_{k'}},
 
-    (Gauss-Bonnet applied to the lens bounded by two small circles; the form
-    of Tovchigrechko & Vakser 2001, Protein Sci. 10, 1572, from memory, and
-    verified in the tests against direct 2-D quadrature with
-    ``scipy.integrate``). Disjoint caps give 0; a cap inside the other gives
-    the smaller cap's area :math:`2\pi(1 - \cos r)`.
+    so the union of the bands is counted once and no pitch angle twice
+    (gyrotropy; band solid angle :math:`2\pi(\cos a_1 - \cos a_2)`, spherical
+    geometry).
 
     Parameters
     ----------
-    r1_deg, r2_deg : array_like
-        Cap angular radii (deg), in [0, 90].
-    d_deg : array_like
-        Angular distance between the centres (deg), in [0, 180].
+    look_deg : array_like
+        Look pitch angles (deg, 0-180), shape ``(..., K)``; NaN: the look
+        samples nothing.
+    half_deg : array_like
+        Field-of-view half-angles (deg, > 0), broadcast against ``look_deg``.
 
     Returns
     -------
-    numpy.ndarray
-        Intersection area in sr.
-    """
-    r1 = np.radians(np.asarray(r1_deg, dtype=float))
-    r2 = np.radians(np.asarray(r2_deg, dtype=float))
-    d = np.radians(np.asarray(d_deg, dtype=float))
-    r1, r2, d = np.broadcast_arrays(r1, r2, d)
-    c1, c2, cd = np.cos(r1), np.cos(r2), np.cos(d)
-    s1, s2, sd = np.sin(r1), np.sin(r2), np.sin(d)
-    partial = (d > np.abs(r1 - r2)) & (d < r1 + r2)
-    # safe denominators outside the partial-overlap branch
-    s12 = np.where(partial, s1 * s2, 1.0)
-    sd1 = np.where(partial, sd * s1, 1.0)
-    sd2 = np.where(partial, sd * s2, 1.0)
-    t0 = np.arccos(np.clip((cd - c1 * c2) / s12, -1.0, 1.0))
-    t1 = np.arccos(np.clip((c2 - cd * c1) / sd1, -1.0, 1.0))
-    t2 = np.arccos(np.clip((c1 - cd * c2) / sd2, -1.0, 1.0))
-    lens = 2.0 * (np.pi - t0 - c1 * t1 - c2 * t2)
-    smaller = _TWO_PI * (1.0 - np.maximum(c1, c2))
-    inside = d <= np.abs(r1 - r2)
-    out = np.where(partial, lens, np.where(inside, smaller, 0.0))
-    out = np.where(np.isnan(r1) | np.isnan(r2) | np.isnan(d), np.nan, out)
-    return np.clip(out, 0.0, None)
-
-
-def fov_fraction_below(axis_deg, half_angle_deg, r_deg):
-    r"""Fraction of a circular field of view with pitch angle below ``r``.
-
-    The field of view is a spherical cap of half-angle ``delta`` (<= 90 deg)
-    around a look direction at pitch angle ``theta0``. The set of directions
-    with pitch angle below ``r`` is the cap of radius ``r`` around the field
-    direction, so the fraction is the two caps' intersection area over the
-    field of view's area :math:`2\pi(1 - \cos\delta)`. For ``r > 90`` the
-    complement cap around the anti-field direction (radius ``180 - r``,
-    distance ``180 - theta0``) is used, which keeps every cap at most a
-    hemisphere.
-
-    Parameters
-    ----------
-    axis_deg : array_like
-        Pitch angle of the field-of-view axis (deg, 0-180).
-    half_angle_deg : array_like
-        Field-of-view half-angle (deg, 0 < delta <= 90).
-    r_deg : array_like
-        Pitch-angle threshold (deg, 0-180).
-
-    Returns
-    -------
-    numpy.ndarray
-        Fraction in [0, 1].
-    """
-    axis = np.asarray(axis_deg, dtype=float)
-    delta = np.asarray(half_angle_deg, dtype=float)
-    r = np.asarray(r_deg, dtype=float)
-    cap = _TWO_PI * (1.0 - np.cos(np.radians(delta)))
-    low = cap_intersection_area(np.minimum(r, 90.0), delta, axis) / cap
-    high = 1.0 - cap_intersection_area(np.clip(180.0 - r, 0.0, 90.0), delta, 180.0 - axis) / cap
-    return np.clip(np.where(r <= 90.0, low, high), 0.0, 1.0)
-
-
-def fov_fraction(axis_deg, half_angle_deg, r1_deg, r2_deg):
-    r"""Fraction of a circular field of view inside the pitch-angle range ``[r1, r2]``.
-
-    .. math:: f = F(r_2) - F(r_1)
-
-    with :math:`F` from :func:`fov_fraction_below` (exact cap geometry; no
-    Monte Carlo).
-
-    Parameters
-    ----------
-    axis_deg : array_like
-        Pitch angle of the look direction (deg).
-    half_angle_deg : array_like
-        Field-of-view half-angle (deg, <= 90).
-    r1_deg, r2_deg : array_like
-        Range edges (deg), ``r1 <= r2``.
-
-    Returns
-    -------
-    numpy.ndarray
-        Fraction in [0, 1].
+    a1, a2 : numpy.ndarray
+        Interval edges (deg), shape ``(..., 2K - 1)``; unused intervals have
+        zero width.
+    share : numpy.ndarray
+        :math:`c_{mk}`, shape ``(..., 2K - 1, K)``; each row sums to 1 over the
+        covering looks and to 0 where no look covers the interval.
 
     Examples
     --------
-    >>> round(float(fov_fraction(90.0, 20.0, 0.0, 90.0)), 12)
-    0.5
+    >>> a1, a2, c = look_bands([30.0, 50.0], [20.0, 20.0])
+    >>> a1.tolist(), a2.tolist()
+    ([10.0, 30.0, 50.0], [30.0, 50.0, 70.0])
+    >>> c[0].tolist(), c[2].tolist()
+    ([1.0, 0.0], [0.0, 1.0])
     """
-    return np.clip(
-        fov_fraction_below(axis_deg, half_angle_deg, r2_deg)
-        - fov_fraction_below(axis_deg, half_angle_deg, r1_deg),
-        0.0,
-        1.0,
-    )
+    look = np.asarray(look_deg, dtype=float)
+    half = np.broadcast_to(np.asarray(half_deg, dtype=float), look.shape)
+    lo, hi = swept_band(look, half)
+    valid = np.isfinite(lo) & np.isfinite(hi) & (hi > lo)
+    lo = np.where(valid, lo, 180.0)
+    hi = np.where(valid, hi, 180.0)
+    pts = np.sort(np.concatenate([lo, hi], axis=-1), axis=-1)
+    a1 = pts[..., :-1]
+    a2 = pts[..., 1:]
+    mid = 0.5 * (a1 + a2)[..., :, None]
+    cover = (valid[..., None, :] & (lo[..., None, :] <= mid) & (mid < hi[..., None, :])
+             & (a2 > a1)[..., :, None])
+    omega = np.where(valid, band_solid_angle(lo, hi), 0.0)[..., None, :]
+    weighted = np.where(cover, omega, 0.0)
+    den = weighted.sum(axis=-1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(den > 0, weighted / np.where(den > 0, den, 1.0), 0.0)
+    return a1, a2, share
+
+
+def look_solid_angles(look_deg, half_deg, r1_deg, r2_deg):
+    r"""Solid angle (sr) that each look stands for inside the pitch-angle range ``[r1, r2]``.
+
+    .. math::
+        \Omega_{kP} = \sum_m c_{mk}\, 2\pi\max\left(0,
+        \cos\max(a_{1m}, r_1) - \cos\min(a_{2m}, r_2)\right)
+
+    with the intervals :math:`[a_{1m}, a_{2m}]` and shares :math:`c_{mk}` of
+    :func:`look_bands`. A range's flux is then :math:`\sum_k j_k \Omega_{kP}`
+    and its measured solid angle :math:`\sum_k \Omega_{kP}`, the solid angle of
+    (range :math:`\cap` union of the bands). For one look, or looks whose bands
+    do not overlap, :math:`\Omega_{kP}` is simply the solid angle of (band
+    :math:`\cap` range).
+
+    Parameters
+    ----------
+    look_deg : array_like
+        Look pitch angles (deg), shape ``(..., K)``.
+    half_deg : array_like
+        Field-of-view half-angles (deg), broadcast against ``look_deg``.
+    r1_deg, r2_deg : array_like
+        Range edges (deg), shape ``(...)`` (one range per row of looks).
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape ``(..., K)``, sr.
+
+    Examples
+    --------
+    >>> # look axis 75 deg, half-angle 15 deg: band [60, 90]; its share below 62 deg
+    >>> om = look_solid_angles([75.0], [15.0], 0.0, 62.0) / band_solid_angle(60.0, 90.0)
+    >>> round(float(om[0]), 4)
+    0.0611
+    """
+    a1, a2, share = look_bands(look_deg, half_deg)
+    r1 = np.asarray(r1_deg, dtype=float)[..., None]
+    r2 = np.asarray(r2_deg, dtype=float)[..., None]
+    ov = band_overlap_solid_angle(a1, a2, r1, r2)
+    return np.einsum("...m,...mk->...k", ov, share)
 
 
 def swept_band(axis_deg, half_angle_deg):

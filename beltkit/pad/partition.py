@@ -33,13 +33,27 @@ With independent bin errors :math:`\sigma_i`
 the second from :math:`\partial f_P/\partial j_i`, which keeps the correlation
 of numerator and denominator.
 
-Telescopes (dimension ``look``): telescope :math:`k` with axis pitch angle
-:math:`\theta_k` and half-angle :math:`\delta_k` sweeps the band
-:math:`[\theta_k - \delta_k, \theta_k + \delta_k]` of solid angle
-:math:`\Omega_k` over a gyration; its flux is apportioned to population
-:math:`P` by the exact fraction :math:`c_{kP}` of its field-of-view cap that
-lies inside :math:`P` (:func:`beltkit.pad.geometry.fov_fraction`), i.e.
-:math:`\Omega_{kP} = c_{kP}\Omega_k` takes the place of the bin overlap.
+Telescopes (dimension ``look``): under gyrotropy look :math:`k` with pitch
+angle :math:`\theta_k` and half-angle :math:`\delta_k` stands for the band
+:math:`[\max(0, \theta_k - \delta_k), \min(180, \theta_k + \delta_k)]` (solid
+angle :math:`\Omega_k`) that it sweeps over a gyration, with its flux uniform
+over the band exactly as a bin. Overlapping bands are combined without
+counting any pitch angle twice: the union of the bands is cut into intervals
+:math:`m`, each taking its flux from the looks that cover it weighted by their
+band solid angles, :math:`c_{mk} = \Omega_k / \sum_{k' \ni m}\Omega_{k'}`
+(:func:`beltkit.pad.geometry.look_bands`), so
+:math:`\Omega_{kP} = \sum_m c_{mk}\Omega_{mP}` takes the place of the bin
+overlap. Where a look has no value at an energy, the union of that energy is
+formed from the looks that have one.
+
+Losses per hemisphere (pitch angles below 90 deg move along B, toward the
+northern footpoint): lost north :math:`[0, \alpha_N]`, lost south
+:math:`[180 - \alpha_S, 180]`, with the direction-resolved local cones
+:math:`\sin^2\alpha_{N,S} = B_\mathrm{loc}/B_{N,S}`; the same exact split,
+fractions of the same total and uncertainties as the populations above.
+:math:`\alpha_B = \max(\alpha_N, \alpha_S)`, so the two lie inside the
+precipitating range and add up to it when :math:`\alpha_N = \alpha_S` (centred
+dipole).
 """
 
 from __future__ import annotations
@@ -51,7 +65,7 @@ from .._threads import cores, map_slices
 from ..errors import ConventionError
 from . import _kernels
 from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
-from .geometry import fov_fraction_below
+from .geometry import look_bands
 from .losscones import sample_loss_cones, time_coords
 
 __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition"]
@@ -66,8 +80,12 @@ _NAMES = (
 )
 _ERR_NAMES = [f"flux_{p}_err" for p in _POPS] + ["omni_flux_err"] + [
     f"fraction_{p}_err" for p in _POPS] + ["loss_cone_filling_err"]
-#: Names of the per-(time, energy) outputs (uncertainties add ``_err``).
-OUTPUT_NAMES = tuple(_NAMES)
+_HEMIS = ("north", "south")
+_HEMI_NAMES = [f"flux_lost_{h}" for h in _HEMIS] + [f"fraction_lost_{h}" for h in _HEMIS]
+_HEMI_ERR_NAMES = [f"{name}_err" for name in _HEMI_NAMES]
+#: Names of the per-(time, energy) outputs (uncertainties add ``_err``); the losses per
+#: hemisphere (``flux_lost_*``, ``fraction_lost_*``) come last.
+OUTPUT_NAMES = tuple(_NAMES + _HEMI_NAMES)
 #: Bits of ``partition_flag``.
 FLAG_MEANINGS = {
     1: "precipitating_unsampled",
@@ -90,65 +108,90 @@ _TWO_PI = 2.0 * np.pi
 # ------------------------------------------------------------------ weights
 
 
-def _bin_weights(cos_a1, cos_a2, cos_edges, folded):
-    """Solid-angle weights (n, P, 5) of fixed bins: prec, qt, trapped, outside band, full."""
-    cb, cd, co = cos_edges  # cos of blc, dlc, blc + band (each (n,))
+#: weight columns: 0-2 populations, 3 the band outside the loss cone, 4 the whole bin,
+#: 5 lost north, 6 lost south
+_N_W = 7
 
-    def cum(c):  # solid angle of each bin below pitch angle arccos(c)
-        return _TWO_PI * (cos_a1 - np.clip(c[:, None], cos_a2, cos_a1))
+
+def _range_weights(cos_a1, cos_a2, cos_edges, folded):
+    """Solid-angle weights (n, P, 7) of intervals [a1, a2] (cosines, (P,) or (n, P)).
+
+    Columns: precipitating, quasi-trapped, trapped, band outside the loss cone,
+    whole interval, lost north ``[0, lcn]``, lost south ``[180 - lcs, 180]``.
+    """
+    cb, cd, co, cn, cs = (c[:, None] for c in cos_edges)  # cosines of the edges, (n, 1)
+
+    def cum(c):  # solid angle of each interval below the pitch angle arccos(c)
+        return _TWO_PI * (cos_a1 - np.clip(c, cos_a2, cos_a1))
 
     full = _TWO_PI * (cos_a1 - cos_a2)
     c_b, c_d, c_o = cum(cb), cum(cd), cum(co)
     c_bm, c_dm, c_om = cum(-cb), cum(-cd), cum(-co)
-    w = np.empty((cb.shape[0], cos_a1.shape[0], 5))
+    c_n, c_sm = cum(cn), cum(-cs)
+    w = np.empty(np.broadcast_shapes(c_b.shape, np.shape(full)) + (_N_W,))
     w[..., 0] = c_b + full - c_bm
     w[..., 1] = c_d - c_b + c_bm - c_dm
     w[..., 2] = c_dm - c_d
     w[..., 3] = c_o - c_b + c_bm - c_om
     w[..., 4] = full
+    w[..., 5] = c_n
+    w[..., 6] = full - c_sm
+    if folded:  # each folded bin also stands for its mirror image [180 - a2, 180 - a1]
+        w[..., :5] *= 2.0  # the populations are symmetric
+        w[..., 5] += full - cum(-cn)  # mirror image below lcn
+        w[..., 6] += cum(cs)  # mirror image above 180 - lcs
     np.maximum(w, 0.0, out=w)
-    if folded:  # each folded bin also stands for its mirror image; populations are symmetric
-        w *= 2.0
     return w
 
 
-def _telescope_weights(axis_deg, half_deg, edges_deg):
-    """Weights (n, K, 5) of telescopes from exact field-of-view cap fractions."""
-    blc, dlc, outer = edges_deg
-    lo = np.maximum(axis_deg - half_deg, 0.0)
-    hi = np.minimum(axis_deg + half_deg, 180.0)
-    swept = _TWO_PI * (np.cos(np.radians(lo)) - np.cos(np.radians(hi)))
+def _bin_weights(cos_a1, cos_a2, cos_edges, folded):
+    """Solid-angle weights (n, P, 7) of fixed pitch-angle bins (see :func:`_range_weights`)."""
+    return _range_weights(cos_a1, cos_a2, cos_edges, folded)
 
-    def frac(r):
-        return fov_fraction_below(axis_deg, half_deg, r[:, None])
 
-    f_b, f_d, f_o = frac(blc), frac(dlc), frac(outer)
-    f_bm, f_dm, f_om = frac(180.0 - blc), frac(180.0 - dlc), frac(180.0 - outer)
-    w = np.empty(axis_deg.shape + (5,))
-    w[..., 0] = f_b + 1.0 - f_bm
-    w[..., 1] = f_d - f_b + f_bm - f_dm
-    w[..., 2] = f_dm - f_d
-    w[..., 3] = f_o - f_b + f_bm - f_om
-    w[..., 4] = 1.0
-    np.maximum(w, 0.0, out=w)
-    w *= swept[..., None]
-    w[np.isnan(axis_deg)] = 0.0  # a look without a pitch angle samples nothing
-    return w
+def _telescope_weights(look_deg, half_deg, cos_edges):
+    """Weights (n, K, 7) of telescope looks: the union of their swept bands.
+
+    Each elementary interval of the union (:func:`beltkit.pad.geometry.look_bands`)
+    is split among the populations like a bin, and its solid angles are shared
+    among the looks that cover it in proportion to their band solid angles.
+    """
+    a1, a2, share = look_bands(look_deg, half_deg)  # (n, M), (n, M), (n, M, K)
+    wm = _range_weights(np.cos(np.radians(a1)), np.cos(np.radians(a2)), cos_edges, False)
+    return np.einsum("nmk,nmp->nkp", share, wm)
+
+
+def _edge_cosines(blc, dlc, outer, lcn, lcs):
+    return tuple(np.cos(np.radians(np.asarray(a, dtype=float)))
+                 for a in (blc, dlc, outer, lcn, lcs))
 
 
 # ------------------------------------------------------------------ kernel
 
 
-def _n_out(with_err):
-    return len(_NAMES) + (len(_ERR_NAMES) if with_err else 0)
+def _out_names(with_err, hemispheres):
+    """Names of the output rows, in the order the kernels write them."""
+    names = list(_NAMES) + (list(_ERR_NAMES) if with_err else [])
+    if hemispheres:
+        names += _HEMI_NAMES + (_HEMI_ERR_NAMES if with_err else [])
+    return names
 
 
-def _kernel(x, s, blc, dlc, look, *, geom, opts):
+def _n_out(with_err, hemispheres):
+    return len(_out_names(with_err, hemispheres))
+
+
+def _hemi_row(with_err, hemispheres):
+    """First row of the hemisphere outputs (-1 without them)."""
+    return len(_NAMES) + (len(_ERR_NAMES) if with_err else 0) if hemispheres else -1
+
+
+def _kernel(x, s, cones, look, *, geom, opts):
     """Partition one time block.
 
     x : (n, E, P) flux, already scaled and masked; s : (n, E, P) 1-sigma or None;
-    blc, dlc : (n,) degrees; look : (n, K) look pitch angles or None.
-    Returns (n_out, n, E).
+    cones : (blc, dlc, lcn, lcs), each (n,) degrees; look : (n, K) look pitch angles
+    or None. Returns (n_out, n, E).
     """
     out_dtype = x.dtype
     x = np.asarray(x, dtype=np.float64)  # reference path: float64 throughout
@@ -156,46 +199,50 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
     dtype = x.dtype
     n, n_e, _ = x.shape
     band = opts["band_deg"]
-    blc = np.asarray(blc, dtype=float)
-    dlc = np.maximum(np.asarray(dlc, dtype=float), blc)
+    hemi = opts.get("hemispheres", True)
+    blc, dlc, lcn, lcs = (np.asarray(c, dtype=float) for c in cones)
+    dlc = np.maximum(dlc, blc)
     outer = np.minimum(blc + band, 90.0)
+    cos_edges = _edge_cosines(blc, dlc, outer, lcn, lcs)
     if geom["kind"] == "bins":
-        cos_edges = (np.cos(np.radians(blc)), np.cos(np.radians(dlc)),
-                     np.cos(np.radians(outer)))
         w64 = _bin_weights(geom["cos_a1"], geom["cos_a2"], cos_edges, geom["folded"])
     else:
-        w64 = _telescope_weights(np.asarray(look, dtype=float), geom["half"], (blc, dlc, outer))
+        w64 = _telescope_weights(np.asarray(look, dtype=float), geom["half"], cos_edges)
     w64[np.isnan(blc)] = np.nan
     w = w64.astype(dtype, copy=False)
     finite = np.isfinite(x)
     all_finite = bool(finite.all())
     x0 = x if all_finite else np.where(finite, x, dtype.type(0))
-    r = np.matmul(x0, w)  # (n, E, 5)
+    r = np.matmul(x0, w)  # (n, E, 7)
     if all_finite:
         m = np.broadcast_to(w.sum(axis=1)[:, None, :], r.shape)
     else:
         m = np.matmul(finite.astype(dtype), w)
-    cb = np.cos(np.radians(blc))
-    cd = np.cos(np.radians(dlc))
-    co = np.cos(np.radians(outer))
+    cb, cd, co, cn, cs = cos_edges
     omega = np.stack([_FOUR_PI * (1.0 - cb), _FOUR_PI * (cb - cd), _FOUR_PI * cd,
-                      _FOUR_PI * (cb - co)], axis=-1)[:, None, :]  # (n,1,4)
+                      _FOUR_PI * (cb - co), _FOUR_PI + 0 * cb, _TWO_PI * (1.0 - cn),
+                      _TWO_PI * (1.0 - cs)], axis=-1)[:, None, :]  # (n, 1, 7)
     omega = np.where(omega > _kernels.TOL_SR, omega, 0.0)
-    out = np.empty((_n_out(s is not None), n, n_e), dtype=dtype)
+    names = _out_names(s is not None, hemi)
+    out = np.empty((len(names), n, n_e), dtype=dtype)
     nan = dtype.type(np.nan)
+    hrow = _hemi_row(s is not None, hemi)
     with np.errstate(invalid="ignore", divide="ignore"):
-        sampled = m[..., :4] > _kernels.TOL_SR
+        sampled = m > _kernels.TOL_SR
         nonempty = np.broadcast_to(omega > 0, sampled.shape)
-        pops = np.where(nonempty, np.where(sampled, r[..., :4], nan), 0.0)
-        cov = np.where(nonempty, np.minimum(m[..., :4] / np.where(omega > 0, omega, 1), 1), 1.0)
+        pops = np.where(nonempty, np.where(sampled, r, nan), 0.0)
+        cov = np.where(nonempty, np.minimum(m / np.where(omega > 0, omega, 1), 1), 1.0)
         total = pops[..., 0] + pops[..., 1] + pops[..., 2]
         good_total = total > 0
-        frac = np.where(good_total[..., None], pops[..., :3] / total[..., None], nan)
+        frac = np.where(good_total[..., None], pops / total[..., None], nan)
         out[0:3] = np.moveaxis(pops[..., :3], -1, 0)
         out[3] = np.where(m[..., 4] > 0, r[..., 4], nan)
-        out[4:7] = np.moveaxis(frac, -1, 0)
+        out[4:7] = np.moveaxis(frac[..., :3], -1, 0)
         out[7:10] = np.moveaxis(cov[..., :3], -1, 0)
         out[10:13] = np.moveaxis(m[..., :3], -1, 0)
+        if hemi:
+            out[hrow:hrow + 2] = np.moveaxis(pops[..., 5:7], -1, 0)
+            out[hrow + 2:hrow + 4] = np.moveaxis(frac[..., 5:7], -1, 0)
         mean_in = r[..., 0] / m[..., 0]
         mean_out = r[..., 3] / m[..., 3]
         fill_ok = sampled[..., 0] & nonempty[..., 0] & sampled[..., 3] & (mean_out != 0)
@@ -213,18 +260,21 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
         out[14] = flag
         if s is not None:
             s2 = np.where(finite, s * s, dtype.type(0))
-            we = np.empty(w.shape[:2] + (9,), dtype=dtype)
+            we = np.empty(w.shape[:2] + (13,), dtype=dtype)
             we[..., 0:3] = w[..., 0:3] ** 2
             we[..., 3] = w[..., 4] ** 2
             we[..., 4] = w[..., 3] ** 2
             we[..., 5:8] = w[..., 0:3] * w[..., 4:5]
             we[..., 8] = w[..., 0] * w[..., 3]
-            v = np.matmul(s2, we)  # (n, E, 9)
+            we[..., 9:11] = w[..., 5:7] ** 2
+            we[..., 11:13] = w[..., 5:7] * w[..., 4:5]
+            v = np.matmul(s2, we)  # (n, E, 13)
             base = len(_NAMES)
             for k in range(3):
                 out[base + k] = np.where(nonempty[..., k],
                                          np.where(sampled[..., k], np.sqrt(v[..., k]), nan), 0.0)
             out[base + 3] = np.where(m[..., 4] > 0, np.sqrt(v[..., 3]), nan)
+            # d f_P / d j_i = (Omega_iP - f_P Omega_i) / F_tot
             for k in range(3):
                 f = frac[..., k]
                 var = (v[..., k] - 2 * f * v[..., 5 + k] + f * f * v[..., 3]) / (total * total)
@@ -235,10 +285,19 @@ def _kernel(x, s, blc, dlc, look, *, geom, opts):
             q = out[13] / r[..., 3]
             var = kf * kf * v[..., 0] + q * q * v[..., 4] - 2 * kf * q * v[..., 8]
             out[base + 7] = np.where(fill_ok, np.sqrt(np.maximum(var, 0)), nan)
+            if hemi:
+                for h in range(2):
+                    k = 5 + h
+                    out[hrow + 4 + h] = np.where(
+                        nonempty[..., k], np.where(sampled[..., k], np.sqrt(v[..., 9 + h]), nan),
+                        0.0)
+                    f = frac[..., k]
+                    var = ((v[..., 9 + h] - 2 * f * v[..., 11 + h] + f * f * v[..., 3])
+                           / (total * total))
+                    out[hrow + 6 + h] = np.where(good_total, np.sqrt(np.maximum(var, 0)), nan)
     # unknown loss cone: nothing can be said of the populations (as in the compiled engine)
     out[:14, unknown] = nan
-    if s is not None:
-        out[len(_NAMES):, unknown] = nan
+    out[15:, unknown] = nan
     return out.astype(out_dtype, copy=False)
 
 
@@ -282,23 +341,66 @@ def _numpy_stats(x, s, stats):
         stats[:, 2] += (s < 0).sum(axis=(0, 2))
 
 
-def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, dtype,
+def _overlap_rows(x, look, half):
+    """(time, energy) indices where overlapping looks lack a value at that energy.
+
+    There the union of the bands (and every look's share of it) differs from
+    the sample's full set of looks, so those rows are partitioned again with
+    the looks that have a value.
+    """
+    look = np.asarray(look, dtype=float)
+    lo = np.maximum(look - half, 0.0)
+    hi = np.minimum(look + half, 180.0)
+    ok = np.isfinite(lo) & np.isfinite(hi) & (hi > lo)
+    pair = (ok[:, :, None] & ok[:, None, :] & (lo[:, :, None] < hi[:, None, :])
+            & (lo[:, None, :] < hi[:, :, None]))
+    k = look.shape[1]
+    pair &= ~np.eye(k, dtype=bool)
+    overlapping = pair.any(axis=(1, 2))
+    if not overlapping.any():
+        return None
+    missing = (~np.isfinite(x) & ok[:, None, :]).any(axis=2) & overlapping[:, None]
+    if not missing.any():
+        return None
+    return np.nonzero(missing)
+
+
+def _repartition_rows(rows, x, s, cones, look, geom, opts):
+    """Return the outputs (n_out, r) of ``rows``, each with only the looks that have a value."""
+    ti, ei = rows
+    xs = x[ti, ei][:, None, :]
+    ss = None if s is None else s[ti, ei][:, None, :]
+    lk = np.where(np.isfinite(xs[:, 0, :]), np.asarray(look, dtype=float)[ti], np.nan)
+    sub = _kernel(xs, ss, tuple(np.asarray(c, dtype=float)[ti] for c in cones), lk, geom=geom,
+                  opts=opts)
+    return sub[:, :, 0]
+
+
+def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
                out=None, stats=None, flag=None, counts=False):
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
 
-    With ``flag`` (int16, n * E) the flags go there instead of ``out[14]``.
-    With ``counts`` (new arrays only) three rows follow the outputs: per time
-    and energy the number of valid flux values, of negative flux values and
-    of negative errors (the value checks, summed by the caller).
+    ``cones`` is ``(blc, dlc, lcn, lcs)`` per sample (deg). With ``flag``
+    (int16, n * E) the flags go there instead of ``out[14]``. With ``counts``
+    (new arrays only) three rows follow the outputs: per time and energy the
+    number of valid flux values, of negative flux values and of negative
+    errors (the value checks, summed by the caller).
     """
     neg_counts = [] if counts else None
     x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, neg_counts)
     if stats is None:
         stats = np.zeros((x.shape[1], 3), dtype=np.int64)
     n, n_e = x.shape[:2]
+    hemi = opts.get("hemispheres", True)
+    n_data = _n_out(s is not None, hemi)
+    rows = None
+    if geom["kind"] == "telescope":
+        rows = _overlap_rows(x, look, geom["half"])
     if opts["engine"] == "numpy":
         _numpy_stats(x, s, stats)
-        res = _kernel(x, s, blc, dlc, look, geom=geom, opts=opts)
+        res = _kernel(x, s, cones, look, geom=geom, opts=opts)
+        if rows is not None:
+            res[:, rows[0], rows[1]] = _repartition_rows(rows, x, s, cones, look, geom, opts)
         if counts:
             neg_err = neg_counts[0] if neg_counts else (
                 (s < 0).sum(axis=2) if s is not None else np.zeros((n, n_e)))
@@ -314,16 +416,15 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
     x = np.ascontiguousarray(x)
     s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
-    n_data = _n_out(s is not None)
     if out is None:
         out = _alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
-    blc = np.asarray(blc, dtype=float)
-    dlc = np.asarray(dlc, dtype=float)  # raised to at least blc by partition_block
+    blc, dlc, lcn, lcs = (np.asarray(c, dtype=float) for c in cones)
+    # dlc is raised to at least blc by partition_block
     wpre = None
     if geom["kind"] == "telescope":
         outer = np.minimum(blc + opts["band_deg"], 90.0)
         wpre = _telescope_weights(np.asarray(look, dtype=float), geom["half"],
-                                  (blc, np.maximum(dlc, blc), outer))
+                                  _edge_cosines(blc, np.maximum(dlc, blc), outer, lcn, lcs))
         cos_a1 = cos_a2 = np.zeros(x.shape[2])
         fold = 1.0
     else:
@@ -331,7 +432,15 @@ def _run_block(flux_blk, err_blk, c2f_blk, blc, dlc, look, *, prep, geom, opts, 
         fold = 2.0 if geom["folded"] else 1.0
     _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
                              opts["has_negative"], out, stats, flag,
-                             n_data if counts else -1)
+                             n_data if counts else -1,
+                             cones_ns=(lcn, lcs) if hemi else None,
+                             hemi_row=_hemi_row(s is not None, hemi))
+    if rows is not None:
+        j = rows[0] * n_e + rows[1]
+        sub = _repartition_rows(rows, x, s, cones, look, geom, opts)
+        out[:n_data, j] = sub
+        if flag is not None:
+            flag[j] = sub[14]
     if neg_counts:  # Poisson errors: the negative counts are those of `counts`
         out[n_data + 2, : n * n_e] = neg_counts[0].reshape(-1)
     return _as_3d(out, n, n_e) if ret3d else out
@@ -405,17 +514,18 @@ class OutputBuffers:
         return self._buf, self._flag
 
 
-def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None,
+def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
              counts=False, buffers=None):
-    nout = _n_out(err is not None) + (3 if counts else 0)
+    """Partition outputs ``(data, flags)``; ``cones`` is ``(blc, dlc, lcn, lcs)`` (DataArrays)."""
+    nout = _n_out(err is not None, opts.get("hemispheres", True)) + (3 if counts else 0)
     lazy = any(getattr(a, "chunks", None) is not None
-               for a in (flux, err, c2f, look, blc, dlc) if a is not None)
+               for a in (flux, err, c2f, look) + tuple(cones) if a is not None)
     if lazy:
         import dask.array as dsa
 
         tchunks = flux.chunks[0] if flux.chunks is not None else None
         if tchunks is None:
-            for a in (blc, dlc, err, look):
+            for a in tuple(cones) + (err, look):
                 if a is not None and a.chunks is not None:
                     tchunks = a.chunks[0]
                     break
@@ -431,16 +541,15 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
         fx = as_dask(flux, 3)
         ex = as_dask(err, 3)
         cx = as_dask(c2f, 3)
-        bx = as_dask(blc, 1)
-        dx = as_dask(dlc, 1)
+        bx, dx, nx, sx = (as_dask(c, 1) for c in cones)
         lx = as_dask(look, 2)
 
-        def func(f, e, c, b, d, lk):
-            return _run_block(f, e, c, b, d, lk, prep=prep, geom=geom, opts=opts, dtype=dtype,
-                              counts=counts)
+        def func(f, e, c, b, d, cn, cs, lk):
+            return _run_block(f, e, c, (b, d, cn, cs), lk, prep=prep, geom=geom, opts=opts,
+                              dtype=dtype, counts=counts)
 
         args = [fx, "tep", ex, "tep" if ex is not None else None,
-                cx, "tep" if cx is not None else None, bx, "t", dx, "t",
+                cx, "tep" if cx is not None else None, bx, "t", dx, "t", nx, "t", sx, "t",
                 lx, "tk" if lx is not None else None]
         data = dsa.blockwise(func, "vte", *args, new_axes={"v": nout}, dtype=dtype,
                              concatenate=True)
@@ -448,8 +557,8 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
     fv = flux.values
     ev = err.values if err is not None else None
     cv = c2f.values if c2f is not None else None
-    bv = np.asarray(blc.values, dtype=float)
-    dv = np.asarray(dlc.values, dtype=float)
+    # the same memory for several cones (the dipole's) stays shared: the kernel sees it
+    cv4 = tuple(np.asarray(c.values, dtype=float) for c in cones)
     lv = look.values if look is not None else None
     n_t, n_e = fv.shape[:2]
     if buffers is not None:
@@ -461,7 +570,7 @@ def _compute(flux, err, c2f, blc, dlc, look, prep, geom, opts, dtype, stats=None
     def one(sl):
         block_stats = np.zeros((n_e, 3), dtype=np.int64)
         _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
-                   bv[sl], dv[sl], None if lv is None else lv[sl], prep=prep, geom=geom,
+                   tuple(c[sl] for c in cv4), None if lv is None else lv[sl], prep=prep, geom=geom,
                    opts=opts, dtype=dtype, out=buf[:, sl.start * n_e: sl.stop * n_e],
                    stats=block_stats, flag=flag[sl.start * n_e: sl.stop * n_e])
         return block_stats
@@ -499,6 +608,14 @@ _LONG = {
     "solid_angle_trapped": "measured solid angle of the trapped population",
     "loss_cone_filling": "mean directional flux inside the bounce loss cone over that in the "
                          "band just outside it",
+    "flux_lost_north": "flux moving toward the northern footpoint inside its loss cone "
+                       "(pitch angle below loss_cone_north), integrated over the measured "
+                       "solid angle",
+    "flux_lost_south": "flux moving toward the southern footpoint inside its loss cone "
+                       "(pitch angle above 180 degree minus loss_cone_south), integrated over "
+                       "the measured solid angle",
+    "fraction_lost_north": "fraction of the integrated flux lost at the northern footpoint",
+    "fraction_lost_south": "fraction of the integrated flux lost at the southern footpoint",
     "partition_flag": "partition quality flags",
 }
 
@@ -686,8 +803,9 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
     opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
-    data, flags = _compute(flux, err, c2f, lc["blc_local"], lc["dlc_local"], look, prep, geom,
-                           opts, dtype, stats, counts=deferred, buffers=buffers)
+    cones = tuple(lc[k] for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
+    data, flags = _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats,
+                           counts=deferred, buffers=buffers)
     source = ds.encoding.get("source")
 
     def verify(totals):
@@ -705,10 +823,10 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         else:
             verify(stats.T)
     if deferred:
-        n_data = _n_out(err is not None)
+        n_data = _n_out(err is not None, opts.get("hemispheres", True))
         pending = (data[n_data:].astype(np.int64).sum(axis=1), verify)
     with_err = err is not None
-    names = list(_NAMES) + (list(_ERR_NAMES) if with_err else [])
+    names = _out_names(with_err, opts.get("hemispheres", True))
     dims = ("time", "energy")
     out_vars = {}
     for k, name in enumerate(names):
