@@ -7,11 +7,16 @@ References used here:
   read directly from the shipped file by plain text parsing.
 * Analytic properties of the potential field (linearity in the coefficients,
   the centred dipole's closed form).
+* The plain numpy reference engine of ``tests/igrf_reference.py`` (itself
+  checked against ppigrf here), for the compiled kernels.
 """
 
 import datetime as dt
+import subprocess
+import sys
 from pathlib import Path
 
+import igrf_reference as ref_engine
 import numpy as np
 import ppigrf
 import pytest
@@ -19,7 +24,7 @@ import pytest
 import beltkit
 from beltkit.constants import R_E_KM
 from beltkit.errors import FieldModelError
-from beltkit.field import IGRF, CenteredDipole, FieldModel, as_model, igrf
+from beltkit.field import IGRF, CenteredDipole, FieldModel, as_model, igrf, igrf_table
 from beltkit.field.coords import geodetic_to_geo
 from beltkit.field.timeconv import decimal_year
 
@@ -64,9 +69,10 @@ def test_spherical_components_match_ppigrf(t):
     rng = np.random.default_rng(int(t * 100))
     r, colat, lon = _random_points(rng, 2000)
     ref = ppigrf.igrf_gc(r, colat, lon, _ppigrf_datetime(t))
-    for backend in ("numba", "numpy"):
-        g, h = igrf.igrf_coefficients(t)
-        ours = igrf.synth_spherical(r, colat, lon, g, h, backend=backend)
+    g, h = igrf.igrf_coefficients(t)
+    # the compiled engine and the numpy reference of tests/igrf_reference.py
+    for synth in (igrf.synth_spherical, ref_engine.synth_spherical):
+        ours = synth(r, colat, lon, g, h)
         for a, b in zip(ours, ref):
             assert np.max(np.abs(a - b[0])) < 0.1  # issue 6: better than 0.1 nT
     ours = igrf.igrf_field_spherical(r, colat, lon, t)
@@ -234,26 +240,110 @@ def test_numba_kernel_equals_numpy_reference():
         :, None
     ]
     g, h = igrf.igrf_coefficients(2008.8)
-    a = igrf.synth_geo(xyz, g, h, backend="numba")
-    b = igrf.synth_geo(xyz, g, h, backend="numpy")
-    np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-8)
-    # per-point times: numba interpolates point by point, numpy groups by interval
+    np.testing.assert_allclose(igrf.synth_geo(xyz, g, h), ref_engine.synth_geo(xyz, g, h),
+                               rtol=1e-11, atol=1e-8)
+    # per-point times: the kernel forms each point's coefficients from the linear
+    # pieces of igrf_table.time_interpolation; the reference groups points by table
+    # interval and combines B(g_k) + (t - T_k) B(gdot_k) (linearity in the coefficients)
     times = np.linspace(1950.0, 2029.9, 5000)
-    np.testing.assert_allclose(
-        igrf.igrf_field_cartesian(xyz, times, backend="numba"),
-        igrf.igrf_field_cartesian(xyz, times, backend="numpy"),
-        rtol=1e-11,
-        atol=1e-8,
-    )
+    np.testing.assert_allclose(igrf.igrf_field_cartesian(xyz, times),
+                               ref_engine.field_cartesian(xyz, times), rtol=1e-11, atol=1e-8)
+    r = np.linalg.norm(xyz, axis=1)
+    colat = np.degrees(np.arccos(xyz[:, 2] / r))
+    lon = np.degrees(np.arctan2(xyz[:, 1], xyz[:, 0]))
+    for a, b in zip(igrf.igrf_field_spherical(r, colat, lon, times, max_degree=9),
+                    ref_engine.field_spherical(r, colat, lon, times, max_degree=9)):
+        np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-8)
     for deg in (1, 2, 7):
         m = IGRF(max_degree=deg)
         gg, hh = m.coefficients(2008.8)
-        np.testing.assert_allclose(
-            igrf.synth_geo(xyz, gg, hh, backend="numba"),
-            igrf.synth_geo(xyz, gg, hh, backend="numpy"),
-            rtol=1e-11,
-            atol=1e-8,
+        np.testing.assert_allclose(igrf.synth_geo(xyz, gg, hh), ref_engine.synth_geo(xyz, gg, hh),
+                                   rtol=1e-11, atol=1e-8)
+        np.testing.assert_allclose(igrf.igrf_field_cartesian(xyz, times, max_degree=deg),
+                                   ref_engine.field_cartesian(xyz, times, max_degree=deg),
+                                   rtol=1e-11, atol=1e-8)
+
+
+def test_one_time_rule_for_every_path():
+    # The per-point-time kernels and the one-time path (coefficients_at + synth_geo /
+    # synth_spherical) use the same linear pieces (IGRF prescription, linear in the
+    # decimal year); times on and next to epochs, the 2025-2030 secular variation,
+    # the 2030.0 end and a truncated model.
+    times = np.array([1900.0, 1952.7, 1999.999, 2000.0, 2000.001, 2012.3, 2024.99, 2025.0,
+                      2027.6, 2030.0])
+    rng = np.random.default_rng(17)
+    r, colat, lon = _random_points(rng, times.size)
+    th, ph = np.radians(colat), np.radians(lon)
+    xyz = np.stack([r * np.sin(th) * np.cos(ph), r * np.sin(th) * np.sin(ph), r * np.cos(th)], -1)
+    for deg in (13, 6):
+        per_point = igrf.igrf_field_cartesian(xyz, times, max_degree=deg)
+        sph = igrf.igrf_field_spherical(r, colat, lon, times, max_degree=deg)
+        interp = igrf_table.time_interpolation(times, max_degree=deg)
+        g_all, h_all = interp.coefficients()
+        for i, t in enumerate(times):
+            g, h, nmax = igrf.coefficients_at(t, deg)
+            np.testing.assert_array_equal(g_all[i], g)
+            np.testing.assert_array_equal(h_all[i], h)
+            np.testing.assert_allclose(per_point[i], igrf.synth_geo(xyz[i], g, h, nmax=nmax),
+                                       rtol=1e-12, atol=1e-9)
+            one = igrf.synth_spherical(r[i], colat[i], lon[i], g, h)
+            np.testing.assert_allclose([c[i] for c in sph], one, rtol=1e-12, atol=1e-9)
+    # nudge: 0.001 yr (9 h) of secular variation already breaks the 1e-9 nT agreement
+    g, h, nmax = igrf.coefficients_at(2012.301)
+    assert np.max(np.abs(per_point[5] - igrf.synth_geo(xyz[5], g, h, nmax=nmax))) > 1e-6
+    # a single coefficient of the pieces, against the table text (IAGA IGRF-14 columns)
+    c20, c25 = _table_column(2020.0), _table_column(2025.0)
+    g10, h11 = igrf_table.time_interpolation(2023.0).coefficients(1, 0)[0], \
+        igrf_table.time_interpolation(2023.0).coefficients(1, 1)[1]
+    assert g10 == pytest.approx(c20[(1, 0)] + 0.6 * (c25[(1, 0)] - c20[(1, 0)]), abs=1e-9)
+    assert h11 == pytest.approx(c20[(1, -1)] + 0.6 * (c25[(1, -1)] - c20[(1, -1)]), abs=1e-9)
+    with pytest.raises(FieldModelError, match="not in the model"):
+        igrf_table.time_interpolation(2023.0, max_degree=3).coefficients(4, 0)
+
+
+def test_max_degree_checked_once_for_every_path():
+    for bad in (0, 14):
+        with pytest.raises(FieldModelError, match="max_degree' must be 1-13"):
+            igrf.igrf_coefficients(2020.0, max_degree=bad)
+        with pytest.raises(FieldModelError, match="max_degree' must be 1-13"):
+            igrf.igrf_field_cartesian(np.array([7000.0, 0.0, 0.0]), 2020.0, max_degree=bad)
+        with pytest.raises(FieldModelError, match="max_degree' must be 1-13"):
+            igrf.igrf_field_spherical(7000.0, 45.0, 0.0, 2020.0, max_degree=bad)
+
+
+def test_backend_keyword_is_deprecated():
+    # one release of grace for the former engine switch (issue 14)
+    xyz = np.array([[7000.0, 100.0, -200.0], [0.0, 8000.0, 3000.0]])
+    g, h = igrf.igrf_coefficients(2020.0)
+    plain = igrf.synth_geo(xyz, g, h)
+    with pytest.warns(DeprecationWarning, match="backend"):
+        np.testing.assert_array_equal(igrf.synth_geo(xyz, g, h, backend="numba"), plain)
+    with pytest.warns(DeprecationWarning, match="backend"):
+        igrf.synth_spherical(7000.0, 45.0, 10.0, g, h, backend="numba")
+    with pytest.warns(DeprecationWarning, match="backend"):
+        np.testing.assert_array_equal(
+            igrf.igrf_field_cartesian(xyz, 2020.0, backend="numba"),
+            igrf.igrf_field_cartesian(xyz, 2020.0),
         )
+    with pytest.warns(DeprecationWarning, match="backend"):
+        igrf.igrf_field_spherical(7000.0, 45.0, 10.0, 2020.0, backend="numba")
+    with pytest.raises(FieldModelError, match="backend='numpy' is no longer available"):
+        igrf.synth_geo(xyz, g, h, backend="numpy")
+    with pytest.raises(FieldModelError, match="backend='numpy' is no longer available"):
+        igrf.igrf_field_spherical(7000.0, 45.0, 10.0, 2020.0, backend="numpy")
+    with pytest.raises(FieldModelError, match="only None or 'numba'"):
+        igrf.igrf_field_cartesian(xyz, 2020.0, backend="fortran")
+    with pytest.warns(DeprecationWarning, match="DEFAULT_BACKEND"):
+        assert igrf.DEFAULT_BACKEND == "numba"
+
+
+def test_importing_igrf_does_not_load_the_pad_engine():
+    code = ("import sys, beltkit.field.igrf; "
+            "print(sorted(m for m in sys.modules if m.startswith('beltkit')))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout
+    assert "beltkit.field.igrf_table" in out and "beltkit.field.igrf_kernels" in out
+    assert "beltkit.pad" not in out
 
 
 def test_per_point_times_are_elementwise():
