@@ -166,13 +166,15 @@ def _z0(z0, name="z0"):
 
 def _profile(u, z):
     """Return f / f(alpha0) at u = alpha / alpha0 >= 0 (unchecked kernel)."""
-    u, z = np.broadcast_arrays(np.asarray(u, float), np.asarray(z, float))
+    u = np.asarray(u, dtype=float)
+    z = np.asarray(z, dtype=float)
+    l0, _, g = _bessel(z)  # functions of z alone: on z's own shape, before broadcasting
     inside = u < 1.0
-    with np.errstate(over="ignore", invalid="ignore"):
-        zu = z * u
-        # I0(z u) / I0(z) = exp(z u - z) i0e(z u) / i0e(z): no overflow for large z
-        pin = np.exp(zu - z) * _sp.i0e(zu) / _sp.i0e(z)
-        pout = 1.0 + z * _g(z) * np.log(np.where(inside, 1.0, u))
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        zu = z * np.where(inside, u, 0.0)
+        # I0(z u) / I0(z) = exp(z u - ln I0(z)) i0e(z u): no overflow for large z
+        pin = np.exp(zu - l0) * _sp.i0e(zu)
+        pout = 1.0 + z * g * np.log(np.where(inside, 1.0, u))
     return np.where(inside, pin, pout)
 
 
@@ -751,7 +753,9 @@ def _regime_attrs():
 # ---------------------------------------------------------------- from data
 
 # cells in u = alpha_eq / alpha0: 50 uniform inside the cone, geometric outside to 64
-_U_EDGES = np.concatenate([np.linspace(0.0, 1.0, 51), 1.04 ** np.arange(1, 107)])
+_U_EDGES = np.concatenate([np.linspace(0.0, 1.0, 101), np.linspace(1.0, 1.5, 101)[1:],
+                           1.5 * 1.03 ** np.arange(1, 129)])
+_N_INSIDE = 100
 # z0 grid of the per-sample response tables (t = ln z)
 _T_GRID = np.linspace(np.log(1e-3), np.log(1e3), 193)
 _SAMPLE_BLOCK = 2048
@@ -787,23 +791,36 @@ def _cell_table():
     return _CELL_TABLE["p"]
 
 
-def _band_cumulative(cos1, cos2, cphi):
+def _band_cumulative(cos1, cos2, c):
     """Solid angle of bands [a1, a2] (cosines) at local angles below phi on both sides.
 
-    cos1, cos2 : (n, P); cphi : (n, M) cosines of phi in [0, 90] deg. Returns (n, P, M).
+    ``c`` = cos(phi), phi in [0, 90] deg; broadcast as numpy arrays.
     """
-    c1 = cos1[:, :, None]
-    c2 = cos2[:, :, None]
-    c = cphi[:, None, :]
-    return 2.0 * np.pi * ((c1 - np.clip(c, c2, c1)) + (np.clip(-c, c2, c1) - c2))
+    return 2.0 * np.pi * ((cos1 - np.clip(c, cos2, cos1)) + (np.clip(-c, cos2, cos1) - cos2))
 
 
 def _cell_weights(cos1, cos2, coef, cphi):
-    """Weights (n, M-1) over the u cells of the flux-weighted mean sum_i coef_i j_i."""
+    """Weights (n, cells) over the u cells of the flux-weighted mean sum_i coef_i j_i.
+
+    The cumulative weight below a local angle, sum_i (coef_i / Omega_i) S_i, is
+    piecewise linear in cos(phi) with breaks at the band edges: it is computed
+    exactly at the breaks (one matrix product) and interpolated linearly there.
+    ``cos1``, ``cos2`` are (P,) for fixed bins or (n, 1) for one band per sample.
+    """
     omega = 2.0 * np.pi * (cos1 - cos2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(omega > 0, coef / omega, 0.0)
-    cum = np.einsum("np,npm->nm", w, _band_cumulative(cos1, cos2, cphi))
+        w = np.where(omega > 0, coef / np.where(omega > 0, omega, 1.0), 0.0)
+    if cos1.ndim == 2:  # one band per sample
+        cum = w * _band_cumulative(cos1, cos2, cphi)
+        return np.diff(cum, axis=-1)
+    breaks = np.unique(np.clip(np.concatenate([cos1, cos2, -cos1, -cos2, [0.0, 1.0]]),
+                               0.0, 1.0))
+    gb = w @ _band_cumulative(cos1[:, None], cos2[:, None], breaks[None, :])  # (n, B)
+    j = np.clip(np.searchsorted(breaks, cphi), 1, breaks.size - 1)
+    x0, x1 = breaks[j - 1], breaks[j]
+    g0 = np.take_along_axis(gb, j - 1, axis=-1)
+    g1 = np.take_along_axis(gb, j, axis=-1)
+    cum = g0 + (g1 - g0) * (cphi - x0) / (x1 - x0)
     return np.diff(cum, axis=-1)
 
 
@@ -943,9 +960,18 @@ def _response_tables(a1, a2, cn, cd, c):
     rtab = np.full((n, n_z), np.nan)
     share_num = np.full(n, np.nan)
     share_den = np.full(n, np.nan)
-    n_in = 50  # cells inside the cone
-    cos1_all = np.cos(np.radians(a1))
-    cos2_all = np.cos(np.radians(a2))
+    n_in = _N_INSIDE  # cells inside the cone
+    if a1.ndim == 2 and not np.all(a1 == a1[:1]):  # telescopes: one band per mean
+        kn = np.argmax(np.nan_to_num(cn), axis=1)[:, None]
+        kd = np.argmax(np.nan_to_num(cd), axis=1)[:, None]
+        bands = [(np.take_along_axis(a, k, axis=1) for a in (a1, a2)) for k in (kn, kd)]
+        bands = [tuple(np.cos(np.radians(b)) for b in pair) for pair in bands]
+        coefs = (np.ones((n, 1)), np.ones((n, 1)))
+    else:
+        c1 = np.cos(np.radians(np.atleast_2d(a1)[0]))
+        c2 = np.cos(np.radians(np.atleast_2d(a2)[0]))
+        bands = [(c1, c2), (c1, c2)]
+        coefs = (np.nan_to_num(cn), np.nan_to_num(cd))
     for start in range(0, n, _SAMPLE_BLOCK):
         sl = slice(start, min(start + _SAMPLE_BLOCK, n))
         a0 = np.radians(c["blc_equatorial"][sl])[:, None]
@@ -955,10 +981,14 @@ def _response_tables(a1, a2, cn, cd, c):
             s_loc = np.sin(aeq) * np.sqrt(ratio_b)
             cphi = np.sqrt(np.clip(1.0 - s_loc * s_loc, 0.0, 1.0))  # cos of local angle
         cphi[:, -1] = 0.0  # the last cell takes every pitch angle beyond it (local 90 deg)
-        cos1 = np.broadcast_to(cos1_all, a1.shape)[sl]
-        cos2 = np.broadcast_to(cos2_all, a2.shape)[sl]
-        wn = _cell_weights(cos1, cos2, np.nan_to_num(cn[sl]), cphi)
-        wd = _cell_weights(cos1, cos2, np.nan_to_num(cd[sl]), cphi)
+        cphi = np.nan_to_num(cphi, nan=1.0)
+        out = []
+        for (b1, b2), coef in zip(bands, coefs):
+            if b1.ndim == 2:
+                out.append(_cell_weights(b1[sl], b2[sl], coef[sl], cphi))
+            else:
+                out.append(_cell_weights(b1, b2, coef[sl], cphi))
+        wn, wd = out
         with np.errstate(invalid="ignore", divide="ignore"):
             rtab[sl] = (wn @ ptab) / (wd @ ptab)
             share_num[sl] = wn[:, :n_in].sum(axis=1) / wn.sum(axis=1)
@@ -990,7 +1020,7 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
     mean the solid-angle average of :func:`loss_cone_profile` over the local
     pitch angles it covers mapped to the equator
     (:math:`\sin^2\alpha_{eq} = \sin^2\alpha\, B_{min}/B_{local}`; the profile is
-    averaged in closed form over 155 cells of :math:`\alpha_{eq}/\alpha_0`).
+    averaged in closed form over 328 cells of :math:`\alpha_{eq}/\alpha_0`).
     :math:`R` falls monotonically from 1 at :math:`z_0 = 0`, so
     :math:`[r - k\sigma, r + k\sigma]` maps to an interval of :math:`z_0`, and
     through :math:`D = \alpha_0^2/(z_0^2\tau)` to one of :math:`D`.
@@ -1077,7 +1107,9 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
         upper_only = (r_hi >= rtab[:, :1]) & ~above
         lower_only = (r_lo <= r_inf) & ~above
     z = _invert_tables(r, rtab)
-    z_lo = np.where(upper_only, 0.0, _invert_tables(r_hi, rtab))
+    # beyond the table's largest z0 (1e3) only that lower bound is known
+    z_lo = np.where(upper_only, 0.0, np.where(r_hi <= r_inf, np.exp(_T_GRID[-1]),
+                                              _invert_tables(r_hi, rtab)))
     z_hi = np.where(lower_only, np.inf, _invert_tables(r_lo, rtab))
     z = np.where((r >= rtab[:, :1]) | (r <= r_inf), np.nan, z)
     dead = above | unresolved[:, None] | no_data
