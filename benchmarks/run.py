@@ -28,7 +28,8 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field", "bench_t89")
+SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field", "bench_t89",
+          "bench_diffusion")
 
 
 def _fmt(value):
