@@ -100,13 +100,11 @@ from .earth import INSIDE_EARTH_TOLERANCE_KM, inside_earth
 from .igrf_kernels import geo_field, geo_field_timed, spherical_field, spherical_field_timed
 from .igrf_table import (
     IGRFTable,
-    coefficient_rates,
     coefficients_at,
     effective_degree,
     igrf_coefficients,
     igrf_table,
     load_shc,
-    table_interval,
     time_interpolation,
 )
 from .timeconv import decimal_year
@@ -122,12 +120,6 @@ __all__ = [
     "synth_spherical",
     "igrf_table",
 ]
-
-# Kept for beltkit.field.models, which still calls these by their former private names;
-# the public ones are beltkit.field.igrf_table.table_interval / coefficient_rates.
-_interval = table_interval
-_rates = coefficient_rates
-
 
 def __getattr__(name):
     if name == "DEFAULT_BACKEND":

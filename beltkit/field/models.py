@@ -39,6 +39,7 @@ from ..constants import R_E_KM
 from ..errors import FieldModelError
 from . import igrf as _igrf
 from .earth import INSIDE_EARTH_TOLERANCE_KM, check_positions
+from .igrf_table import time_interpolation
 from .timeconv import decimal_year
 
 __all__ = [
@@ -122,12 +123,9 @@ def dipole_coefficients(time, *, allow_extrapolation: bool = False):
         return g[1, 0].copy(), g[1, 1].copy(), h[1, 1].copy()
     # interpolate only the three first-degree coefficients (per-sample times of a
     # long data set would make the full (..., 14, 14) tables very large)
-    table = _igrf.igrf_table()
-    k, dt = _igrf._interval(t, table, allow_extrapolation, "time")
-    gdot, hdot = _igrf._rates(table)
-    g10 = table.g[k, 1, 0] + dt * gdot[k, 1, 0]
-    g11 = table.g[k, 1, 1] + dt * gdot[k, 1, 1]
-    h11 = table.h[k, 1, 1] + dt * hdot[k, 1, 1]
+    interp = time_interpolation(t, max_degree=1, allow_extrapolation=allow_extrapolation)
+    g10 = interp.coefficients(1, 0)[0]
+    g11, h11 = interp.coefficients(1, 1)
     return g10, g11, h11
 
 
