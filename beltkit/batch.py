@@ -61,6 +61,7 @@ from .io import (
 )
 
 __all__ = [
+    "FIELD_CHOICES",
     "FileResult",
     "SUMMARY_SUFFIX",
     "REPORT_NAME",
@@ -235,13 +236,34 @@ def _pad_function(name):
     return getattr(pad, name)
 
 
+#: Field models that ``field=`` names ("auto": IGRF with ``position_geo``, else the dipole).
+FIELD_CHOICES = ("auto", "dipole", "igrf")
+
+
+def _check_field(field, epoch):
+    """Refuse an unknown field name, or an epoch override with a model that does not take one."""
+    if not isinstance(field, str):
+        return
+    if field not in FIELD_CHOICES:
+        raise ValueError(f"field model must be 'auto', 'dipole' or 'igrf', got {field!r}")
+    if field != "dipole" and epoch is not None:
+        raise ValueError(f"an epoch override applies to the dipole model only, not to "
+                         f"field={field!r}: the IGRF is evaluated at each sample's time (drop "
+                         f"--epoch, or use --field dipole)")
+
+
 def _field_model(field, epoch, ds):
-    """Return the ``model`` argument for :func:`beltkit.pad.partition`."""
-    name = field if isinstance(field, str) else getattr(field, "name", None)
+    """Return the ``model`` argument for :func:`beltkit.pad.partition`.
+
+    ``"auto"`` becomes the IGRF where the dataset carries ``position_geo``
+    and the centred dipole (closed forms from ``L`` and ``mlat``) otherwise.
+    """
     if not isinstance(field, str):
         return field
-    if name not in ("dipole", "igrf"):
-        raise ValueError(f"field model must be 'dipole' or 'igrf', got {field!r}")
+    _check_field(field, epoch)
+    name = field
+    if name == "auto":
+        name = "igrf" if "position_geo" in ds.variables else "dipole"
     if name == "dipole":
         if epoch is None or "position_geo" not in ds.variables:
             # closed forms from L and mlat; the dipole's strength cancels in the loss cones
@@ -249,9 +271,6 @@ def _field_model(field, epoch, ds):
         from .field import CenteredDipole
 
         return CenteredDipole(epoch=epoch)
-    if epoch is not None:
-        raise ValueError("an epoch override applies to the dipole model only; the IGRF is "
-                         "evaluated at each sample's time (drop --epoch, or use --field dipole)")
     from .field import as_model
 
     return as_model("igrf")
@@ -291,7 +310,7 @@ def _settings_text(settings: dict) -> str:
 # ---------------------------------------------------------------------- one file
 
 
-def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
+def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
                       epoch=None) -> xr.Dataset:
     """Partition one flux dataset and keep the position for the survey.
 
@@ -299,19 +318,21 @@ def summarize_dataset(ds: xr.Dataset, *, field="dipole", altitude_km=100.0,
     ----------
     ds : xarray.Dataset
         Convention-following flux dataset (lazy or not; not modified).
-    field : {"dipole", "igrf"} or FieldModel
-        Field model for the loss cones.
+    field : {"auto", "dipole", "igrf"} or FieldModel
+        Field model for the loss cones. "auto" (default): the IGRF at each
+        sample's time where the dataset carries ``position_geo``, else the
+        centred dipole from ``L`` and ``mlat``.
     altitude_km : float
         Footpoint altitude of the loss cones.
     epoch : float or str, optional
         Epoch of the dipole (decimal year); used when the dataset gives its
-        position in GEO coordinates.
+        position in GEO coordinates (``field="dipole"`` only).
 
     Returns
     -------
     xarray.Dataset
         :func:`beltkit.pad.partition`'s result plus ``L``, ``mlat`` and ``mlt``
-        per time when the input has them.
+        per time when the input has them; its attributes name the model used.
     """
     return _summary(ds, field=field, altitude_km=altitude_km, epoch=epoch)[0]
 
@@ -338,20 +359,22 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
 def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
     """Summarize a lazily indexed dataset one time slab at a time.
 
-    Returns ``(slabs, finish, count)``: a generator of the summaries of consecutive
+    Returns ``(slabs, finish, count, record)``: a generator of the summaries of consecutive
     slabs of ``slab`` samples (each read from disk only when its turn comes,
     partitioned eagerly by the compiled engine on every core, then dropped),
     and a function that raises the :class:`ConventionError` of the flux-value
     checks summed over the whole file, to call once every slab is done. The
     structure, the time order and the positions are checked on the whole
-    file before the first slab. ``count`` is the number of slabs.
+    file before the first slab. ``count`` is the number of slabs; ``record`` the
+    field model's name and the file's low-altitude note (:func:`_model_record`).
     ``computed``, if given, is called once the last slab is computed (before
     it is written).
     """
     from .pad.conventions import check
 
     model = _field_model(field, epoch, ds)
-    check(ds, model=model, check_values=False)
+    prep = check(ds, model=model, check_values=False)
+    record = _model_record(ds, model, prep)
     n = ds.sizes.get("time", 0)
     if slab is None:  # a file up to one slab long in one piece; longer ones in smaller slabs
         slab = _TIME_SLAB if n <= _TIME_SLAB else _STREAM_SLAB
@@ -377,7 +400,19 @@ def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
         if state["verify"] is not None:
             state["verify"](state["totals"])
 
-    return slabs(), finish, len(starts)
+    return slabs(), finish, len(starts), record
+
+
+def _model_record(ds, model, prep) -> tuple:
+    """Return ``(name, note)``: the resolved model's name and its low-altitude note for a file.
+
+    The note (empty unless the centred dipole is used for samples below
+    2,000 km) is computed on the whole file, so that it does not depend on
+    how the file is cut into slabs.
+    """
+    from .pad.losscones import dipole_low_altitude_note, model_name
+
+    return model_name(model), dipole_low_altitude_note(ds, prep, model)
 
 
 _BUFFERS = {"pid": None, "buffers": None}
@@ -393,19 +428,26 @@ def _slab_buffers():
     return _BUFFERS["buffers"]
 
 
-def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_position) -> dict:
-    return {
+def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_position,
+                   record) -> dict:
+    name, note = record
+    attrs = {
         "title": f"beltkit loss-cone summary of {source.name}",
         "source": source.name,
         "source_sha256": digest,
         "beltkit_version": __version__,
-        "field_model": settings["field"],
-        "field_epoch": _epoch_text(settings["field"], epoch, geo_position),
+        "field_model": name,
+        "field_model_requested": settings["field"],
+        "field_epoch": _epoch_text(name, epoch, geo_position),
         "footpoint_altitude_km": float(settings["altitude_km"]),
         "beltkit_settings": _settings_text(settings),
         "comment": "precipitating / quasi-trapped / trapped populations as defined in "
                    "beltkit's docs/conventions.md (bounce and drift loss cones)",
     }
+    if note:  # the whole file's note (a slab's own may miss samples of other slabs)
+        attrs["field_model_note"] = note
+        attrs["beltkit_field_model_note"] = note
+    return attrs
 
 
 _HASHER = {"pid": None, "pool": None}
@@ -516,7 +558,7 @@ def _process_file_locked(task: dict):
         with _single_threaded():
             ds = open_indexed(src, mapping=task["mapping"])
             nxt = task.get("next_input")
-            slabs, finish, count = _summary_slabs(
+            slabs, finish, count, record = _summary_slabs(
                 ds, field=task["field"], altitude_km=settings["altitude_km"],
                 epoch=task["epoch"],
                 # the next input's checksum is read while this summary is written
@@ -525,7 +567,7 @@ def _process_file_locked(task: dict):
             # otherwise it is added once the data are written
             known = digest.done() and digest.exception() is None
             attrs = _summary_attrs(src, digest.result() if known else "", settings,
-                                   task["epoch"], "position_geo" in ds.variables)
+                                   task["epoch"], "position_geo" in ds.variables, record)
             # the flux values are checked while the summary is computed (one pass over
             # the file); a refused file leaves no output (write_stream's finish)
             commit = write_stream(
@@ -575,7 +617,7 @@ def _read_and_compute(task: dict, buffers):
             ds = open_indexed(src, mapping=task["mapping"])
             try:
                 model = _field_model(task["field"], task["epoch"], ds)
-                check(ds, model=model, check_values=False)
+                prep = check(ds, model=model, check_values=False)
                 if ds.sizes.get("time", 0) > _TIME_SLAB:
                     return None, None
                 # what the summary reads, in memory (counts are not used beside flux_err)
@@ -583,6 +625,7 @@ def _read_and_compute(task: dict, buffers):
                          if not (v == "counts" and "flux_err" in ds.data_vars)]
                 piece = ds[names].load()
                 geo = "position_geo" in ds.variables
+                record = _model_record(piece, model, prep)
             finally:
                 ds.close()
         summary, (counts, verify) = _summary(piece, field=model,
@@ -592,7 +635,7 @@ def _read_and_compute(task: dict, buffers):
         if task.get("next_input"):
             _digest_ahead(Path(task["next_input"]))  # read while this file is written
         return None, {"task": task, "summary": summary, "digest": digest, "geo": geo,
-                      "t0": t0}
+                      "record": record, "t0": t0}
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         if task.get("debug"):
             import traceback
@@ -612,7 +655,7 @@ def _write_job(job: dict) -> FileResult:
         with _FILE_LOCK:
             known = digest.done() and digest.exception() is None
             attrs = _summary_attrs(src, digest.result() if known else "", settings,
-                                   task["epoch"], job["geo"])
+                                   task["epoch"], job["geo"], job["record"])
             commit = write_stream(
                 [job["summary"]], out, count=1, compress=settings["compress"],
                 history=task["command"], attrs=attrs,
@@ -647,7 +690,7 @@ def _format_line(r: FileResult) -> str:
     return f"FAILED  {r.input}: {r.reason}"
 
 
-def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
+def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
               debug=False) -> list[FileResult]:
@@ -660,12 +703,19 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
     out_dir : str or path
         Output folder (created if needed); gets ``<stem>.summary.nc`` per input
         and ``run-report.jsonl``.
-    field : {"dipole", "igrf"}
-        Field model of the loss cones.
+    field : {"auto", "dipole", "igrf"}
+        Field model of the loss cones. "auto" (default) chooses per file: the
+        IGRF at each sample's time where the file carries ``position_geo``,
+        else the centred dipole from ``L`` and ``mlat`` (an ``L`` declared
+        non-dipole by its ``L_definition`` attribute is then refused). Each
+        summary records the model it used in ``field_model`` (and the request
+        in ``field_model_requested``); a dipole summary of samples below
+        2,000 km altitude carries ``field_model_note``.
     altitude_km : float
         Footpoint altitude of the loss cones (km).
     epoch : float or str, optional
-        Dipole epoch override (decimal year), used for GEO positions.
+        Dipole epoch override (decimal year), used for GEO positions
+        (``field="dipole"`` only).
     mapping : str, path or dict, optional
         Variable-name mapping for non-conventional files (see :mod:`beltkit.io`).
     compress : bool or int
@@ -700,14 +750,12 @@ def summarize(inputs, out_dir, *, field="dipole", altitude_km=100.0, epoch=None,
     beltkit.io.MappingError
         If the mapping file itself is malformed (nothing is run).
     ValueError
-        For an unknown field model, an epoch with the IGRF, or workers < 1.
+        For an unknown field model, an epoch with a model other than the
+        dipole, or workers < 1.
     """
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
-    if isinstance(field, str) and field not in ("dipole", "igrf"):
-        raise ValueError(f"field model must be 'dipole' or 'igrf', got {field!r}")
-    if field == "igrf" and epoch is not None:
-        _field_model(field, epoch, xr.Dataset())  # raises the explanatory error
+    _check_field(field, epoch)
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
@@ -1040,8 +1088,11 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
                                 f"files of one instrument setting at a time")
             for key in ("field_model", "footpoint_altitude_km"):
                 if str(info["global"].get(key)) != str(ref["global"].get(key)):
+                    fix = (" (field=\"auto\" chooses per file: survey the files of each "
+                           "model apart, or summarize them all with one --field)"
+                           if key == "field_model" else "")
                     problems.append(f"{p}: {key} {info['global'].get(key)!r} differs from "
-                                    f"{ref['global'].get(key)!r} in {ref_path}")
+                                    f"{ref['global'].get(key)!r} in {ref_path}{fix}")
         names = [n for n in SURVEY_VARIABLES if all(n in i["vars"] for _, i in infos)]
         if not names:
             problems.append("the summaries share none of the variables "
@@ -1136,10 +1187,19 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
         "source_sha256": json.dumps({p.name: sha256(p) for p, _ in infos}),
         "beltkit_version": __version__,
         "field_model": g.get("field_model", "unknown"),
+        "field_model_by_file": json.dumps({p.name: i["global"].get("field_model", "unknown")
+                                           for p, i in infos}),
         "field_epoch": g.get("field_epoch", "unknown"),
         "footpoint_altitude_km": g.get("footpoint_altitude_km", np.nan),
         "time_window": "all samples" if time_window is None else str(time_window),
     }
+    noted = [(p.name, i["global"]["field_model_note"]) for p, i in infos
+             if i["global"].get("field_model_note")]
+    if noted:  # e.g. the centred dipole below 2,000 km: said once, with the files it concerns
+        attrs["field_model_note"] = (
+            f"{len(noted)} of {len(infos)} summaries (" + ", ".join(n for n, _ in noted)
+            + ") hold samples below 2000 km altitude partitioned in the centred dipole, which "
+            "has no quasi-trapped population there (see each summary's field_model_note)")
     ds = xr.Dataset(data_vars, coords=coords, attrs=attrs)
     if command is None:
         command = f"beltkit.batch.survey({len(infos)} file(s), {str(out_file)!r})"

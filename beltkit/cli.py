@@ -9,6 +9,11 @@ Commands
 
         beltkit summarize data/*.nc --out summaries --workers 2
 
+    ``--field auto`` (the default) uses the IGRF at each sample's time for a
+    file that carries ``position_geo`` and the centred dipole for one that
+    carries only ``L`` and ``mlat``; ``--field dipole`` or ``igrf`` forces
+    one model. Each summary names the model it used (``field_model``).
+
 ``beltkit survey SUMMARY... --out FILE``
     Bin summaries onto an L x MLT (x time-window) grid::
 
@@ -256,12 +261,15 @@ def build_parser() -> argparse.ArgumentParser:
                                    "file into DIR, plus DIR/run-report.jsonl.")
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
-    p.add_argument("--field", choices=("dipole", "igrf"), default="dipole",
-                   help="field model of the loss cones (default: dipole)")
+    p.add_argument("--field", choices=("auto", "dipole", "igrf"), default="auto",
+                   help="field model of the loss cones (default: auto = the IGRF at each "
+                        "sample's time for files with position_geo, the centred dipole for "
+                        "files with only L and mlat); each summary records the model used")
     p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
     p.add_argument("--epoch", type=_epoch, default=None, metavar="YEAR",
-                   help="dipole epoch as a decimal year (default: the dipole of 2020.0)")
+                   help="dipole epoch as a decimal year, with --field dipole (default: the "
+                        "dipole of 2020.0)")
     p.add_argument("--mapping", metavar="TOML", default=None,
                    help="variable-name mapping file for files with other names")
     p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",

@@ -447,13 +447,15 @@ def test_epoch_override_is_recorded_and_part_of_the_settings(tmp_path):
     [r] = batch.summarize([src], tmp_path / "o")
     with xr.open_dataset(r.output) as ds:
         assert ds.attrs["field_epoch"].startswith("2020")
-    [r] = batch.summarize([src], tmp_path / "o", epoch=2015.5)
+    [r] = batch.summarize([src], tmp_path / "o", field="dipole", epoch=2015.5)
     assert r.status == "ok"  # other settings: redone, not skipped
     with xr.open_dataset(r.output) as ds:
         assert ds.attrs["field_epoch"] == "2015.5 (fixed by the caller)"
         assert json.loads(ds.attrs["beltkit_settings"])["epoch"] == "2015.5"
-    [r] = batch.summarize([src], tmp_path / "o", epoch=2015.5)
+    [r] = batch.summarize([src], tmp_path / "o", field="dipole", epoch=2015.5)
     assert (r.status, r.reason) == ("skipped", "up to date")
+    with pytest.raises(ValueError, match="use --field dipole"):  # auto: no epoch override
+        batch.summarize([src], tmp_path / "o", epoch=2015.5)
 
 
 def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, capsys):
@@ -467,8 +469,10 @@ def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, 
     src = write_flux_file(tmp_path / "leo.nc", ds)
     assert main(["summarize", str(src), "--out", str(tmp_path / "igrf"), "--field",
                  "igrf"]) == 0
-    assert main(["summarize", str(src), "--out", str(tmp_path / "dip"), "--epoch",
-                 "2015.0"]) == 0
+    assert main(["summarize", str(src), "--out", str(tmp_path / "dip"), "--field", "dipole",
+                 "--epoch", "2015.0"]) == 0
+    # the default --field auto: a file with position_geo gets the IGRF
+    assert main(["summarize", str(src), "--out", str(tmp_path / "auto")]) == 0
     assert main(["summarize", str(src), "--out", str(tmp_path / "bad"), "--field", "igrf",
                  "--epoch", "2015"]) == 1
     assert "epoch override applies to the dipole model only" in capsys.readouterr().err
@@ -478,6 +482,14 @@ def test_geographic_positions_with_igrf_and_with_a_fixed_dipole_epoch(tmp_path, 
         assert (a.attrs["field_model"], a.attrs["field_epoch"]) == ("igrf",
                                                                      "time of each sample")
         assert b.attrs["field_epoch"] == "2015.0 (fixed by the caller)"
+        assert b.attrs["field_model"] == "dipole"
+        # 650 km in the dipole: the note that nothing can be quasi-trapped there
+        assert "no quasi-trapped population" in b.attrs["field_model_note"]
+        assert "field_model_note" not in a.attrs
+        with xr.open_dataset(tmp_path / "auto" / "leo.summary.nc") as c:
+            assert (c.attrs["field_model"], c.attrs["field_model_requested"]) == ("igrf",
+                                                                                  "auto")
+            np.testing.assert_array_equal(c["dlc_local"].values, a["dlc_local"].values)
         for s in (a, b):  # the survey needs L and MLT, derived from the GEO position
             assert np.isfinite(s["L"].values).all() and np.isfinite(s["mlt"].values).all()
             assert ((s["blc_local"] > 0) & (s["blc_local"] <= 90)).all()

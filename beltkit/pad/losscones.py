@@ -26,13 +26,21 @@ Two paths:
 
 * centred dipole closed forms of :mod:`beltkit.dipole` from ``L`` and
   ``mlat`` (``model=None`` or ``"dipole"``); there :math:`B_N = B_S = B_d`,
-  so the drift loss cone equals the bounce loss cone;
+  so the drift loss cone equals the bounce loss cone. ``L`` must be a
+  centred-dipole L (the equatorial distance of the dipole field line through
+  the sample, in Earth radii); an ``L`` whose attribute ``L_definition``
+  declares another definition (``"mcilwain"``, ``"roederer"``, ...) is
+  refused there;
 * any field model through :func:`beltkit.field.loss_cones`, at
   ``position_geo`` or at the position rebuilt from ``L``, ``mlat``, ``mlt``
   (dipole field line in SM coordinates, converted to GEO).
 
 A measured ``b_local`` in the dataset replaces the model's local field in the
 local cones on both paths.
+
+:func:`resolve_model` turns ``model="auto"`` into a model for a dataset: the
+IGRF at each sample's time where the data carry ``position_geo``, the centred
+dipole where they carry only ``L`` and ``mlat``.
 """
 
 from __future__ import annotations
@@ -43,10 +51,27 @@ import xarray as xr
 from .. import dipole
 from .._threads import map_slices
 from ..constants import B0_NT, R_E_KM
+from ..errors import ConventionError
 from . import _kernels
 from .conventions import Prepared
 
-__all__ = ["cone_from_fields", "sample_loss_cones"]
+__all__ = [
+    "DIPOLE_L_DEFINITIONS",
+    "LOW_ALTITUDE_KM",
+    "L_DEFINITION_ATTR",
+    "cone_from_fields",
+    "dipole_low_altitude_note",
+    "model_name",
+    "resolve_model",
+    "sample_loss_cones",
+]
+
+#: Attribute of ``L`` that declares how the L-shell was computed.
+L_DEFINITION_ATTR = "L_definition"
+#: Values of ``L_definition`` that mean a centred-dipole L (the only L the dipole path takes).
+DIPOLE_L_DEFINITIONS = ("dipole", "centred_dipole", "centered_dipole")
+#: Below this altitude (km) the centred dipole's lack of a quasi-trapped population is noted.
+LOW_ALTITUDE_KM = 2000.0
 
 _DEG = {"units": "degree"}
 
@@ -85,6 +110,112 @@ def cone_from_fields(b_here, b_mirror):
 
 def _is_dipole_closed_form(model):
     return model is None or (isinstance(model, str) and model == "dipole")
+
+
+def resolve_model(ds, model="auto"):
+    """Return the field model a dataset is partitioned in.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset (only the names of its position variables are looked at).
+    model : "auto", None, "dipole", "igrf" or FieldModel
+        ``"auto"``: ``"igrf"`` (IGRF at each sample's time) when the dataset
+        carries ``position_geo``, else ``"dipole"`` (closed forms from ``L``
+        and ``mlat``). Anything else is returned unchanged.
+
+    Returns
+    -------
+    None, str or FieldModel
+
+    Examples
+    --------
+    >>> import xarray as xr
+    >>> resolve_model(xr.Dataset({"L": ("time", [4.0]), "mlat": ("time", [0.0])}))
+    'dipole'
+    >>> resolve_model(xr.Dataset({"position_geo": (("time", "xyz"), [[7000.0, 0, 0]])}))
+    'igrf'
+    """
+    if isinstance(model, str) and model == "auto":
+        return "igrf" if "position_geo" in ds.variables else "dipole"
+    return model
+
+
+def model_name(model) -> str:
+    """Name of a (resolved) model for output attributes: "dipole", "igrf", or the model's name.
+
+    Examples
+    --------
+    >>> model_name(None), model_name("igrf")
+    ('dipole', 'igrf')
+    """
+    if model is None:
+        return "dipole"
+    return str(getattr(model, "name", model))
+
+
+def _check_dipole_l(ds):
+    """Refuse an ``L`` declared as other than a centred-dipole L (the dipole path)."""
+    if "L" not in ds.variables:
+        return
+    declared = ds["L"].attrs.get(L_DEFINITION_ATTR)
+    if declared is None or str(declared).strip().lower() in DIPOLE_L_DEFINITIONS:
+        return
+    raise ConventionError(
+        [f"L: its {L_DEFINITION_ATTR} is {str(declared)!r}, not a centred-dipole L, and the "
+         "centred-dipole loss cones need a dipole L: give the geographic position "
+         "('position_geo', (time, 3) GEO km; the default model='auto' then uses the IGRF at "
+         "each sample's time) or pass a field model (model='igrf' or a FieldModel)"],
+        ds.encoding.get("source"))
+
+
+def dipole_low_altitude_note(ds, prep: Prepared, model) -> str:
+    r"""Return the note for a dipole partition of samples below :data:`LOW_ALTITUDE_KM`, or "".
+
+    In a centred dipole the drift loss cone equals the bounce loss cone, so
+    nothing is quasi-trapped; at low altitude the real field's drift loss
+    cone is much wider (over the South Atlantic the field is weakest), so the
+    dipole's empty quasi-trapped population is a property of the model.
+    The altitude is :math:`(r - R_E)`, with :math:`r = L R_E\cos^2\lambda`
+    (dipole field line) or :math:`|\mathbf{r}_{GEO}|`.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Validated flux dataset (``L`` and ``mlat``, or ``position_geo``).
+    prep : Prepared
+        Its description (unit factors of the position variables).
+    model : None, str or FieldModel
+        The resolved model (see :func:`resolve_model`).
+
+    Returns
+    -------
+    str
+        The note, or "" when the model is not the centred dipole or every
+        sample lies at or above :data:`LOW_ALTITUDE_KM`.
+    """
+    if model_name(model) != "dipole":
+        return ""
+    scale = prep.other_scale
+    if "L" in ds.variables and "mlat" in ds.variables:
+        L = np.asarray(ds["L"].values, dtype=float) * scale.get("L", 1.0)
+        lam = np.radians(np.asarray(ds["mlat"].values, dtype=float) * scale.get("mlat", 1.0))
+        r_km = L * np.cos(lam) ** 2 * R_E_KM
+    elif "position_geo" in ds.variables:
+        xyz = np.asarray(ds["position_geo"].values, dtype=float)
+        r_km = np.linalg.norm(xyz, axis=-1) * scale.get("position_geo", 1.0)
+    else:
+        return ""
+    alt = r_km - R_E_KM
+    alt = alt[np.isfinite(alt)]
+    low = int(np.count_nonzero(alt < LOW_ALTITUDE_KM))
+    if low == 0:
+        return ""
+    return (f"{low} of {alt.size} samples lie below {LOW_ALTITUDE_KM:g} km altitude, where the "
+            "centred dipole has no quasi-trapped population (its drift loss cone equals the "
+            "bounce loss cone); the real field's drift loss cone is wider there. Give "
+            "'position_geo' (model='auto' then uses the IGRF) or pass model='igrf' to see the "
+            "quasi-trapped population")
 
 
 def _attrs(long_name, units="degree"):
@@ -170,6 +301,7 @@ def _dipole_cones(L, mlat, b_loc, altitude_km):
 
 
 def _dipole_path(ds, prep: Prepared, altitude_km):
+    _check_dipole_l(ds)
     L = _var(ds, "L", prep.other_scale)
     mlat = _var(ds, "mlat", prep.other_scale)
     L.attrs = {"units": "1"}
@@ -289,9 +421,11 @@ def sample_loss_cones(ds, prep: Prepared, model=None, altitude_km=100.0):
         Dataset that passed :func:`beltkit.pad.conventions.check`.
     prep : Prepared
         Its description (unit factors of the position variables).
-    model : None, "dipole", "igrf" or FieldModel
-        None or "dipole" with ``L``/``mlat`` uses the dipole closed forms;
-        anything else (or a dataset with only ``position_geo``) uses
+    model : None, "auto", "dipole", "igrf" or FieldModel
+        None or "dipole" with ``L``/``mlat`` uses the dipole closed forms
+        (refused for an ``L`` declared non-dipole by ``L_definition``);
+        "auto" is resolved by :func:`resolve_model`; anything else (or a
+        dataset with only ``position_geo``) uses
         :func:`beltkit.field.loss_cones`.
     altitude_km : float
         Footpoint altitude at which particles count as lost (km).
@@ -304,6 +438,7 @@ def sample_loss_cones(ds, prep: Prepared, model=None, altitude_km=100.0):
         ``b_local``, ``b_min`` (nT), ``L``, ``mlat`` and, when known, ``mlt``.
         Lazy when the dataset is dask-backed.
     """
+    model = resolve_model(ds, model)
     has_lm = "L" in ds.variables and "mlat" in ds.variables
     if _is_dipole_closed_form(model) and has_lm:
         return _dipole_path(ds, prep, altitude_km)

@@ -66,7 +66,13 @@ from ..errors import ConventionError
 from . import _kernels
 from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
 from .geometry import look_bands
-from .losscones import sample_loss_cones, time_coords
+from .losscones import (
+    dipole_low_altitude_note,
+    model_name,
+    resolve_model,
+    sample_loss_cones,
+    time_coords,
+)
 
 __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition"]
 
@@ -680,8 +686,8 @@ def _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative):
     return out
 
 
-def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
-              allow_negative=False, engine="auto", fill=None):
+def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
+              allow_negative=False, engine="auto", fill=None, hemispheres=True):
     r"""Split a pitch-angle flux dataset into precipitating, quasi-trapped and trapped flux.
 
     Parameters
@@ -690,10 +696,15 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         Flux dataset following ``docs/conventions.md`` (pitch-angle bins or
         telescopes). Numpy- or dask-backed (chunked along ``time``); never
         modified.
-    model : None, "dipole", "igrf" or FieldModel, optional
-        Field model for the loss cones. None/"dipole" with ``L`` and ``mlat``
-        uses the centred-dipole closed forms (drift loss cone = bounce loss
-        cone); a model object or "igrf" uses :func:`beltkit.field.loss_cones`.
+    model : "auto", None, "dipole", "igrf" or FieldModel, optional
+        Field model for the loss cones. "auto" (default): the IGRF at each
+        sample's time where the dataset carries ``position_geo``, else the
+        centred dipole (:func:`beltkit.pad.losscones.resolve_model`).
+        None/"dipole" with ``L`` and ``mlat`` uses the centred-dipole closed
+        forms (drift loss cone = bounce loss cone; ``L`` must be a dipole L,
+        see ``L_definition`` in docs/conventions.md); a model object or
+        "igrf" uses :func:`beltkit.field.loss_cones`. The model used is
+        recorded in the attribute ``beltkit_field_model``.
     altitude_km : float
         Altitude of the footpoints where particles are lost (km).
     filling_band_deg : float, keyword-only
@@ -713,6 +724,11 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         and omnidirectional flux, and set flag bit 128. Coverage and the
         ``_err`` outputs still describe the measured part only. Pitch-angle
         bins only.
+    hemispheres : bool, keyword-only
+        True (default): also compute the losses per hemisphere,
+        ``flux_lost_north``, ``flux_lost_south``, ``fraction_lost_north``,
+        ``fraction_lost_south`` (and their ``_err``), in the same pass. False
+        leaves them out (less output memory).
 
     Returns
     -------
@@ -724,9 +740,14 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         ``flux_trapped``, ``omni_flux`` (cm-2 s-1 keV-1, over the measured
         solid angle), ``fraction_*``, ``coverage_*`` (1), ``solid_angle_*``
         (sr), ``loss_cone_filling`` (1), ``partition_flag`` (bits in
-        :data:`FLAG_MEANINGS`) and, when ``flux_err`` or ``counts`` exist,
-        each uncertainty as ``<name>_err``. Float32 input gives float32
-        outputs. Dask input gives dask outputs.
+        :data:`FLAG_MEANINGS`), the losses per hemisphere ``flux_lost_north``,
+        ``flux_lost_south`` (cm-2 s-1 keV-1), ``fraction_lost_north``,
+        ``fraction_lost_south`` (1) unless ``hemispheres=False``, and, when
+        ``flux_err`` or ``counts`` exist, each uncertainty as ``<name>_err``. Float32 input gives float32
+        outputs. Dask input gives dask outputs. Attributes record the field
+        model used (``beltkit_field_model``) and, when the centred dipole is
+        used for samples below 2,000 km altitude, a note that it has no
+        quasi-trapped population there (``beltkit_field_model_note``).
 
     Raises
     ------
@@ -760,13 +781,14 @@ def partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     True
     """
     out, _ = _partition(ds, model, altitude_km, filling_band_deg=filling_band_deg,
-                        allow_negative=allow_negative, engine=engine, fill=fill)
+                        allow_negative=allow_negative, engine=engine, fill=fill,
+                        hemispheres=hemispheres)
     return out
 
 
-def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
+def _partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
-               buffers=None):
+               buffers=None, hemispheres=True):
     """:func:`partition`, optionally leaving the value checks of lazy data to the caller.
 
     Returns ``(out, pending)``. With ``defer_value_check`` and dask data, the
@@ -782,6 +804,7 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
     the previous call's outputs, which are overwritten.
     """
+    model = resolve_model(ds, model)
     lazy = _is_lazy(ds)
     deferred = bool(defer_value_check and lazy)
     # eager data: the value checks are gathered by the engine in its single pass
@@ -801,7 +824,8 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     if engine == "numba" and not _kernels.HAVE_NUMBA:
         raise ImportError("engine='numba' needs numba installed (pip install numba)")
     use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
-    opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use}
+    opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use,
+            "hemispheres": bool(hemispheres)}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     cones = tuple(lc[k] for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
     data, flags = _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats,
@@ -858,7 +882,7 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
     out = xr.Dataset(out_vars, coords=time_coords(ds)).assign_coords(energy=energy)
     out.attrs = {
         "title": "beltkit pitch-angle partition",
-        "beltkit_field_model": str(getattr(model, "name", model or "dipole")),
+        "beltkit_field_model": model_name(model),
         "beltkit_footpoint_altitude_km": float(altitude_km),
         "beltkit_filling_band_deg": float(filling_band_deg),
         "beltkit_assumptions": "gyrotropic flux; populations from the bounce (min of the two "
@@ -866,6 +890,9 @@ def _partition(ds, model=None, altitude_km=100.0, *, filling_band_deg=10.0,
         "beltkit_uncertainty_source": prep.error_source or "none",
         "beltkit_fill": fill or "none",
     }
+    note = dipole_low_altitude_note(ds, prep, model)
+    if note:
+        out.attrs["beltkit_field_model_note"] = note
     if fill == "sine_power":
         out = _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative)
     return out, pending
