@@ -1062,7 +1062,8 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
         ``strong_diffusion_lifetime`` (s), ``lifetime`` with ``_lower``/``_upper``
         (s), ``diffusion_regime`` (:data:`REGIME_MEANINGS`) and
         ``diffusion_flag`` (:data:`FLAG_MEANINGS`); per time
-        ``diffusion_loss_cone`` (the equatorial :math:`\alpha_0`, degree). The
+        ``diffusion_loss_cone`` (the equatorial :math:`\alpha_0`, degree) and
+        ``diffusion_field_ratio`` (:math:`B_{min}/B_{local}`). The
         conventions are in the attributes.
 
     Notes
@@ -1178,6 +1179,9 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
             "flag_meanings": " ".join(FLAG_MEANINGS.values())}),
         "diffusion_loss_cone": (("time",), c["blc_equatorial"], _attrs(
             "equatorial bounce loss cone alpha0 used for z0", "degree")),
+        "diffusion_field_ratio": (("time",), c["b_min"] / c["b_local"], _attrs(
+            "minimum field on the line over the field at the sample (maps local pitch "
+            "angles to the equator)", "1")),
     }
     energy = xr.Variable("energy", prep.energy_kev, {"units": "keV",
                                                     "long_name": "kinetic energy"})
