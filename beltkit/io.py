@@ -16,12 +16,12 @@ returns an :class:`xarray.Dataset` that follows beltkit's data conventions:
 
       # my-instrument.toml
       [variables]                  # beltkit name = name in the file
-      time = "Epoch"
-      flux = "FEDU"
-      energy = "FEDU_Energy"
-      pitch_angle = "FEDU_Alpha"
-      L = "L_dipole"
-      mlat = "MagLat"
+      time = "t_utc"
+      flux = "eflux_pa"
+      energy = "eflux_pa_energy"
+      pitch_angle = "eflux_pa_angle"
+      L = "lshell_dip"
+      mlat = "mag_lat"
 
       [units]                      # beltkit name = UDUNITS unit (overrides the file)
       flux = "cm-2 s-1 sr-1 keV-1"

@@ -328,17 +328,17 @@ def test_cdf_input_gives_the_same_summary_as_netcdf(tmp_path):
 
 def test_mapping_file_through_the_command(tmp_path, capsys):
     ds = flux_dataset(n_time=30)
-    odd = ds.rename_vars({"flux": "FEDU", "L": "Lshell"}).rename({"energy": "E_chan"})
-    odd["FEDU"].attrs.pop("units")
+    odd = ds.rename_vars({"flux": "eflux_pa", "L": "lshell_dip"}).rename({"energy": "E_chan"})
+    odd["eflux_pa"].attrs.pop("units")
     src = tmp_path / "odd.nc"
     odd.to_netcdf(src)
     m = tmp_path / "names.toml"
-    m.write_text('[variables]\nflux = "FEDU"\nL = "Lshell"\nenergy = "E_chan"\n'
+    m.write_text('[variables]\nflux = "eflux_pa"\nL = "lshell_dip"\nenergy = "E_chan"\n'
                  '[units]\nflux = "cm-2 s-1 sr-1 keV-1"\n')
     assert main(["summarize", str(src), "--out", str(tmp_path / "o"), "--mapping", str(m)]) == 0
     assert (tmp_path / "o" / "odd.summary.nc").exists()
     # a broken mapping stops the run before any file, with one line naming the key
-    m.write_text('[variables]\nfluxes = "FEDU"\n')
+    m.write_text('[variables]\nfluxes = "eflux_pa"\n')
     assert main(["summarize", str(src), "--out", str(tmp_path / "o2"), "--mapping",
                  str(m)]) == 1
     err = capsys.readouterr().err

@@ -73,11 +73,11 @@ def test_cdf_input_equals_netcdf_input(tmp_path):
 
 MAPPING_TOML = """
 [variables]
-time = "Epoch"
-flux = "FEDU"
+time = "t_utc"
+flux = "eflux_pa"
 energy = "E_chan"
 pitch_angle = "alpha"
-L = "Lm"
+L = "lshell_dip"
 
 [units]
 flux = "cm-2 s-1 sr-1 keV-1"
@@ -91,8 +91,8 @@ pitch_angle = "alpha_bin"
 def _odd_file(tmp_path):
     ds = flux_dataset(n_time=30)
     ds["flux"].attrs.pop("units")
-    odd = ds.rename_vars({"flux": "FEDU", "L": "Lm", "pitch_angle": "alpha"})
-    odd = odd.rename_dims({"pitch_angle": "alpha_bin"}).rename({"time": "Epoch",
+    odd = ds.rename_vars({"flux": "eflux_pa", "L": "lshell_dip", "pitch_angle": "alpha"})
+    odd = odd.rename_dims({"pitch_angle": "alpha_bin"}).rename({"time": "t_utc",
                                                                 "energy": "E_chan"})
     path = tmp_path / "odd.nc"
     odd.to_netcdf(path)
@@ -106,7 +106,7 @@ def test_mapping_file_renames_and_sets_units(tmp_path):
     ds = bio.open_flux(path, mapping=m)
     assert ds["flux"].dims == ("time", "energy", "pitch_angle")
     assert ds["flux"].attrs["units"] == FLUX_UNITS
-    assert "L" in ds and "Lm" not in ds
+    assert "L" in ds and "lshell_dip" not in ds
     np.testing.assert_array_equal(ds["pitch_angle"].values, ref["pitch_angle"].values)
     np.testing.assert_array_equal(ds["flux"].values, ref["flux"].values)
     assert ds.indexes["time"].equals(ref.indexes["time"])
@@ -132,9 +132,9 @@ def test_bad_mapping_file_is_refused_naming_file_and_key(tmp_path, text, words):
 def test_mapping_naming_a_missing_variable_names_file_and_key(tmp_path):
     path = write_flux_file(tmp_path / "plain.nc", n_time=10)
     with pytest.raises(bio.MappingError) as err:
-        bio.open_flux(path, mapping={"variables": {"flux": "FEDU"}})
+        bio.open_flux(path, mapping={"variables": {"flux": "eflux_pa"}})
     msg = str(err.value)
-    assert "plain.nc" in msg and "[variables] flux = 'FEDU'" in msg
+    assert "plain.nc" in msg and "[variables] flux = 'eflux_pa'" in msg
 
 
 def _nc_info(path, var):

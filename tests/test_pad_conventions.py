@@ -175,7 +175,7 @@ def test_missing_flux_still_reports_the_other_missing_pieces():
     # A file with another naming scheme (flux, energy and L renamed) must hear about
     # every missing piece at once, not only the first.
     ds = make_ds(np.ones((2, 1, 12)), np.linspace(0, 180, 13))
-    renamed = ds.rename({"flux": "FEDU", "L": "Lshell"}).rename({"energy": "E_chan"})
+    renamed = ds.rename({"flux": "eflux_pa", "L": "lshell_dip"}).rename({"energy": "E_chan"})
     problems = validate(renamed)
     assert any(p.startswith("flux: missing") for p in problems)
     assert any(p.startswith("energy: missing") for p in problems)
