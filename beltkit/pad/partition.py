@@ -743,10 +743,11 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
         :data:`FLAG_MEANINGS`), the losses per hemisphere ``flux_lost_north``,
         ``flux_lost_south`` (cm-2 s-1 keV-1), ``fraction_lost_north``,
         ``fraction_lost_south`` (1) unless ``hemispheres=False``, and, when
-        ``flux_err`` or ``counts`` exist, each uncertainty as ``<name>_err``. Float32 input gives float32
-        outputs. Dask input gives dask outputs. Attributes record the field
-        model used (``beltkit_field_model``) and, when the centred dipole is
-        used for samples below 2,000 km altitude, a note that it has no
+        ``flux_err`` or ``counts`` exist, each uncertainty as ``<name>_err``.
+        Float32 input gives float32 outputs. Dask input gives dask outputs.
+        Attributes record the field model used (``beltkit_field_model``) and,
+        when the centred dipole is used for samples below 2,000 km altitude, a
+        note that it has no
         quasi-trapped population there (``beltkit_field_model_note``).
 
     Raises
