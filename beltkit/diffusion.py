@@ -448,8 +448,14 @@ def _solve(kind, y, u1=None, u2=None):
         q_lo, _ = _q(kind, np.full(y.shape, _T_LO), u1, u2)
         q_hi, _ = _q(kind, np.full(y.shape, _T_HI), u1, u2)
         ok = np.isfinite(y) & (y > q_lo) & (y < q_hi)
-        # start from the centre-to-edge inversion (the same small-z law)
-        t0 = np.clip(_guess("centre_edge", y), _T_LO + 1.0, _T_HI - 1.0)
+        if u1.size and np.all(u1 == u1[0]) and np.all(u2 == u2[0]):
+            # one pair of angles for all: a table of its own gives a close start
+            tt = np.linspace(_T_LO, _T_HI, 4001)
+            qq, dq = _q(kind, tt, np.full(tt.shape, u1[0]), np.full(tt.shape, u2[0]))
+            _TABLES["two_angles"] = (qq, tt, 1.0 / dq)
+            t0 = np.clip(_guess("two_angles", y), _T_LO, _T_HI)
+        else:  # start from the centre-to-edge inversion (the same small-z law)
+            t0 = np.clip(_guess("centre_edge", y), _T_LO + 1.0, _T_HI - 1.0)
     idx = np.flatnonzero(ok)
     tc = t0[idx]
     lo = np.full(idx.size, _T_LO)
