@@ -46,6 +46,7 @@ from matplotlib.figure import Figure
 __all__ = [
     "FLUX_LABEL",
     "L_VALID_MAX",
+    "MIN_CONE_WIDTH_DEG",
     "PARTIAL_NOTE",
     "diffusion_overview",
     "energy_time",
@@ -65,6 +66,8 @@ _INTEGRATED_UNIT = "(cm$^{-2}$ s$^{-1}$ keV$^{-1}$)"
 #: lines where a centred dipole (or any internal field) is not a valid
 #: description, so their L and loss cones are not meaningful.
 L_VALID_MAX = 10.0
+#: Narrowest shading of a loss cone on the pitch-angle plot (degree); the true edge is a line.
+MIN_CONE_WIDTH_DEG = 1.5
 #: Note added to figures of partially covered data.
 PARTIAL_NOTE = ("partial coverage: {who} only part of the sphere; fractions and fluxes "
                 "are shares of the measured solid angle, not of the whole distribution")
@@ -267,6 +270,13 @@ def _loss_cones_at(ds, summary, time=None):
     return None
 
 
+def _cone_digits(angle_deg):
+    """Decimals that show a loss-cone angle with two significant digits (at least one)."""
+    if not np.isfinite(angle_deg) or angle_deg >= 1.0:
+        return 1
+    return int(min(4, max(1, 1 - np.floor(np.log10(max(angle_deg, 1e-4))))))
+
+
 def _title(ds, sample=None):
     craft = ds.attrs.get("spacecraft", "")
     text = craft
@@ -288,7 +298,10 @@ def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=N
     """Plot the pitch-angle distribution at one time, one curve per energy.
 
     The bounce loss cones (towards the northern footpoint below 90 deg, the
-    southern above) are shaded and hatched; the band between the bounce and
+    southern above) are shaded and hatched, at least
+    :data:`MIN_CONE_WIDTH_DEG` wide so that a narrow cone stays visible, and
+    their true edges are drawn as dashed lines (the legend gives the angles
+    and says when the shading is widened); the band between the bounce and
     drift loss cones (where quasi-trapped particles are) is shaded lighter.
     Pitch-angle bins are drawn at their centres with their widths as
     horizontal bars; telescope looks at their axis pitch angle with the
@@ -337,11 +350,19 @@ def pitch_angle_distribution(ds, summary=None, time=None, *, energies=None, ax=N
     if cones is not None:
         north, south = float(cones["north"]), float(cones["south"])
         dlc = float(cones["dlc"])
-        ax.axvspan(0, north, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
-                   label=f"bounce loss cone: {north:.1f}° north-going / "
-                         f"{south:.1f}° south-going", zorder=0)
-        ax.axvspan(180 - south, 180, facecolor="0.75", edgecolor="0.35", hatch="//", lw=0,
-                   zorder=0)
+        # a narrow cone is shaded at least MIN_CONE_WIDTH_DEG wide (and its true edge drawn
+        # as a line), so that a cone of a fraction of a degree does not vanish on 0-180 deg
+        narrow = min(north, south) < MIN_CONE_WIDTH_DEG
+        ax.axvspan(0, max(north, MIN_CONE_WIDTH_DEG), facecolor="0.75", edgecolor="0.35",
+                   hatch="//", lw=0,
+                   label=f"bounce loss cone: {north:.{_cone_digits(north)}f}° north-going / "
+                         f"{south:.{_cone_digits(south)}f}° south-going"
+                         + (f" (shaded at least {MIN_CONE_WIDTH_DEG:g}° wide)" if narrow
+                            else ""), zorder=0)
+        ax.axvspan(180 - max(south, MIN_CONE_WIDTH_DEG), 180, facecolor="0.75",
+                   edgecolor="0.35", hatch="//", lw=0, zorder=0)
+        for edge in (north, 180 - south):  # the true edges, as lines over the shading
+            ax.axvline(edge, color="0.15", lw=1.0, ls=(0, (4, 2)), zorder=1)
         if dlc > max(north, south) + 1e-6:
             ax.axvspan(north, dlc, facecolor="0.9", edgecolor="0.55", hatch="..", lw=0,
                        label=f"drift loss cone ({dlc:.1f}°): quasi-trapped", zorder=0)
@@ -728,9 +749,11 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         vmin, vmax = (0.0, 1.0) if vmin is None and vmax is None else (vmin, vmax)
     if log:
         pos = finite[finite > 0]
-        lo = vmin if vmin is not None else (np.percentile(pos, 2) if pos.size else 1e-4)
+        lo = vmin if vmin is not None else (pos.min() if pos.size else 1e-4)
         hi = vmax if vmax is not None else (pos.max() if pos.size else 1.0)
-        norm = LogNorm(lo, max(hi, lo * 10))
+        if not hi > lo:  # one value: a narrow range around it, not a forced decade
+            lo, hi = lo / 1.05, lo * 1.05
+        norm = LogNorm(lo, hi)
         v = np.where(v > 0, v, np.nan)
     else:
         norm = Normalize(vmin if vmin is not None else (finite.min() if finite.size else 0),
@@ -749,8 +772,8 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         _time_axis(ax)
         where = "L-time"
     else:
-        ax.set_rlabel_position(100)
-        ax.set_xlabel("magnetic local time (h); radius: L-shell")
+        ax.set_xlabel("magnetic local time (h); radius: L-shell" + _place_l_labels(
+            ax, x, np.isfinite(v) | masked_cells, l_edges))
         where = "L-MLT"
     short = _LABELS.get(quantity, label)
     if partial and quantity.startswith("fraction"):
@@ -771,8 +794,75 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
         width = 64 if kind == "L-MLT" else 110
         title += "\n" + "\n".join(textwrap.fill(n, width) for n in notes)
     ax.set_title(title, fontsize="medium" if not notes else "small")
-    fig.colorbar(mesh, ax=ax, label=label, pad=0.08 if kind == "L-MLT" else 0.01, shrink=0.85)
+    bar = fig.colorbar(mesh, ax=ax, label=label, pad=0.08 if kind == "L-MLT" else 0.01,
+                       shrink=0.6 if kind == "L-MLT" else 0.85)
+    if isinstance(norm, LogNorm):
+        _log_ticks(bar, norm.vmin, norm.vmax)
     return fig
+
+
+def _nice_log_ticks(lo, hi, most=7):
+    """Tick values in [lo, hi] at 1 (or 1, 2, 5, or finer) times powers of ten.
+
+    The coarsest set with three ticks or more is taken (two when even the
+    finest has no third), so that a colour scale spanning a factor of three
+    still has labelled ticks.
+    """
+    fallback = np.array([lo, hi])
+    for mantissas in ((1.0,), (1.0, 2.0, 5.0), (1.0, 1.5, 2.0, 3.0, 5.0, 7.0),
+                      tuple(np.round(np.arange(1.0, 10.0, 0.5), 1)),
+                      tuple(np.round(np.arange(1.0, 10.0, 0.1), 1))):
+        k = np.arange(np.floor(np.log10(lo)) - 1, np.ceil(np.log10(hi)) + 1)
+        cand = np.unique((np.asarray(mantissas)[None, :] * 10.0 ** k[:, None]).ravel())
+        ticks = cand[(cand >= lo * (1 - 1e-9)) & (cand <= hi * (1 + 1e-9))]
+        if ticks.size > most:
+            ticks = ticks[:: -(-ticks.size // most)]
+        if ticks.size >= 3:
+            return ticks
+        if ticks.size == 2 and fallback.size == 2 and fallback[0] == lo:
+            fallback = ticks
+    return fallback
+
+
+def _log_ticks(bar, lo, hi):
+    """Readable labelled ticks on a log colour bar whatever its range."""
+    from matplotlib.ticker import FuncFormatter, NullLocator
+
+    if hi / lo >= 100:  # two decades or more: matplotlib's own decade ticks read well
+        return
+    bar.set_ticks(_nice_log_ticks(lo, hi))
+    bar.ax.yaxis.set_minor_locator(NullLocator())
+    bar.ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:.3g}"))
+
+
+def _place_l_labels(ax, theta_edges, has_data, l_edges):
+    """Put the polar L labels off the data; return a suffix for the axis label, or "".
+
+    The labels go in the MLT sector where the most ring labels fall on
+    cells without data (ties: the sector with fewest data cells, so an empty
+    sector wins). Ring labels that would still sit on data there are left
+    blank, and the ring values are then returned for the axis label.
+    """
+    has_data = np.asarray(has_data, bool)  # (L, mlt)
+    ticks = np.array([t for t in ax.get_yticks() if l_edges[0] < t < l_edges[-1]])
+    if ticks.size == 0:
+        return ""
+    # a label at L = t covers the cells on both sides of the ring
+    below = np.clip(np.searchsorted(l_edges, ticks, side="left") - 1, 0, has_data.shape[0] - 1)
+    above = np.clip(np.searchsorted(l_edges, ticks, side="right") - 1, 0,
+                    has_data.shape[0] - 1)
+    on_data = has_data[below] | has_data[above]  # (tick, mlt)
+    free = (~on_data).sum(axis=0)
+    score = free * (has_data.shape[0] + 1) - has_data.sum(axis=0)
+    best = int(np.argmax(score))
+    mid = 0.5 * (theta_edges[best] + theta_edges[best + 1])
+    # in the data's angle (set_rlabel_position composes it with the data transform)
+    ax.set_rlabel_position(np.degrees(mid) % 360.0)
+    ax.set_yticks(ticks)
+    ax.set_yticklabels(["" if on_data[k, best] else f"{t:g}" for k, t in enumerate(ticks)])
+    if not on_data[:, best].any():
+        return ""
+    return "\nrings: L = " + ", ".join(f"{t:g}" for t in ticks)
 
 
 # --------------------------------------------------------------------------- field models
@@ -853,6 +943,56 @@ def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf
     ax.set_title(f"Equatorial loss cones vs magnetic longitude, {Ltext}, "
                  f"footpoints at {altitude_km:g} km", fontsize="medium")
     ax.legend(fontsize="small", framealpha=0.85)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+__all__.append("psd_radial_profiles")
+
+
+def psd_radial_profiles(profiles, *, ax=None, cmap=_FLUX_CMAP):
+    """Phase-space density against L* at fixed (mu, K), one line per pass, coloured by time.
+
+    Parameters
+    ----------
+    profiles : xarray.Dataset
+        Output of :func:`beltkit.psd.radial_profiles` (``psd`` (pass, lstar),
+        ``pass_time``, ``direction``).
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into.
+    cmap : str, keyword-only
+        Colour map of the pass times (earliest dark).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Log-scaled f against L*; solid lines outbound passes, dashed inbound;
+        a colour bar gives each pass's middle time.
+    """
+    from matplotlib import colormaps
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
+
+    fig, ax = _new_axes(ax, (7.0, 4.5))
+    times = np.asarray(profiles["pass_time"].values, dtype="datetime64[ns]")
+    hours = (times - times.min()) / np.timedelta64(1, "h")
+    norm = Normalize(vmin=0.0, vmax=max(float(hours.max()), 1e-9))
+    colours = colormaps[cmap]
+    lstar = np.asarray(profiles["lstar"].values, dtype=float)
+    direction = np.asarray(profiles["direction"].values)
+    for p in range(profiles.sizes["pass"]):
+        f = np.asarray(profiles["psd"].isel({"pass": p}).values, dtype=float)
+        ax.plot(lstar, f, color=colours(norm(hours[p])), lw=1.6, marker=".",
+                ls="-" if direction[p] > 0 else "--")
+    ax.set_yscale("log")
+    ax.set_xlabel("L*")
+    ax.set_ylabel("phase-space density (c/(cm MeV))$^3$")
+    mu = profiles.attrs.get("mu_mev_per_g", np.nan)
+    k = profiles.attrs.get("k_g05_re", np.nan)
+    ax.set_title(f"f at mu = {mu:g} MeV/G, K = {k:g} G$^{{1/2}}$ R$_E$ "
+                 "(solid outbound, dashed inbound)", fontsize="medium")
+    bar = fig.colorbar(ScalarMappable(norm=norm, cmap=colours), ax=ax)
+    bar.set_label(f"hours after {_time_text(times.min())}")
     ax.grid(alpha=0.3)
     return fig
 
