@@ -811,23 +811,30 @@ def _cell_weights(cos1, cos2, coef, cphi):
     The cumulative weight below a local angle, sum_i (coef_i / Omega_i) S_i, is
     piecewise linear in cos(phi) with breaks at the band edges: it is computed
     exactly at the breaks (one matrix product) and interpolated linearly there.
-    ``cos1``, ``cos2`` are (P,) for fixed bins or (n, 1) for one band per sample.
+    ``cos1``, ``cos2`` are (P,) for fixed bins (``coef`` may then be a tuple of
+    coefficient arrays sharing the interpolation) or (n, 1) for one band per sample.
     """
     omega = 2.0 * np.pi * (cos1 - cos2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(omega > 0, coef / np.where(omega > 0, omega, 1.0), 0.0)
+        inv = np.where(omega > 0, 1.0 / np.where(omega > 0, omega, 1.0), 0.0)
+    w = tuple(c * inv for c in coef) if isinstance(coef, tuple) else coef * inv
     if cos1.ndim == 2:  # one band per sample
         cum = w * _band_cumulative(cos1, cos2, cphi)
         return np.diff(cum, axis=-1)
     breaks = np.unique(np.clip(np.concatenate([cos1, cos2, -cos1, -cos2, [0.0, 1.0]]),
                                0.0, 1.0))
-    gb = w @ _band_cumulative(cos1[:, None], cos2[:, None], breaks[None, :])  # (n, B)
+    # the interpolation plan (break index and fraction) is shared by every weight row
     j = np.clip(np.searchsorted(breaks, cphi), 1, breaks.size - 1)
     x0, x1 = breaks[j - 1], breaks[j]
-    g0 = np.take_along_axis(gb, j - 1, axis=-1)
-    g1 = np.take_along_axis(gb, j, axis=-1)
-    cum = g0 + (g1 - g0) * (cphi - x0) / (x1 - x0)
-    return np.diff(cum, axis=-1)
+    frac = (cphi - x0) / (x1 - x0)
+    s_breaks = _band_cumulative(cos1[:, None], cos2[:, None], breaks[None, :])  # (P, B)
+    out = []
+    for wk in (w if isinstance(w, tuple) else (w,)):
+        gb = wk @ s_breaks  # (n, B)
+        g0 = np.take_along_axis(gb, j - 1, axis=-1)
+        g1 = np.take_along_axis(gb, j, axis=-1)
+        out.append(np.diff(g0 + (g1 - g0) * frac, axis=-1))
+    return tuple(out) if isinstance(w, tuple) else out[0]
 
 
 def _cone_share(a1, a2, blc):
@@ -1003,13 +1010,12 @@ def _response_tables(a1, a2, cn, cd, c):
             cphi = np.sqrt(np.clip(1.0 - s_loc * s_loc, 0.0, 1.0))  # cos of local angle
         cphi[:, -1] = 0.0  # the last cell takes every pitch angle beyond it (local 90 deg)
         cphi = np.nan_to_num(cphi, nan=1.0)
-        out = []
-        for (b1, b2), coef in zip(bands, coefs):
-            if b1.ndim == 2:
-                out.append(_cell_weights(b1[sl], b2[sl], coef[sl], cphi))
-            else:
-                out.append(_cell_weights(b1, b2, coef[sl], cphi))
-        wn, wd = out
+        if bands[0][0].ndim == 2:
+            wn, wd = (_cell_weights(b1[sl], b2[sl], coef[sl], cphi)
+                      for (b1, b2), coef in zip(bands, coefs))
+        else:  # fixed bins: one interpolation plan for both means
+            wn, wd = _cell_weights(bands[0][0], bands[0][1], (coefs[0][sl], coefs[1][sl]),
+                                   cphi)
         with np.errstate(invalid="ignore", divide="ignore"):
             rtab[sl] = (wn @ ptab) / (wd @ ptab)
             share_num[sl] = wn[:, :n_in].sum(axis=1) / wn.sum(axis=1)
