@@ -177,3 +177,21 @@ def test_psd_radial_profiles_figure():
     assert len(ax.lines) == prof.sizes["pass"]
     assert ax.get_yscale() == "log"
     assert [ln.get_linestyle() for ln in ax.lines] == ["-", "--", "-"]
+
+
+def test_psd_output_cf_units_and_netcdf(tmp_path):
+    # CF: every data variable carries a UDUNITS-parseable unit or flag attributes (the
+    # CF conventions, sect. 3.1 and 3.5); the dataset writes to netCDF and reads back
+    from beltkit.units import parse_units
+
+    out = psd.at_fixed_invariants(_analytic_dataset(np.linspace(3.0, 6.0, 5), n_energy=6),
+                                  [100.0, 300.0], [0.05, 0.2])
+    for name, var in {**out.data_vars, **out.coords}.items():
+        if "flag_masks" in var.attrs or name == "time":
+            continue
+        assert parse_units(var.attrs["units"]) is not None, name
+    path = tmp_path / "psd.nc"
+    out.to_netcdf(path)
+    back = xr.open_dataset(path)
+    xr.testing.assert_allclose(back.psd, out.psd)
+    assert back.psd.attrs["units"] == PSD_UNITS
