@@ -12,7 +12,7 @@ begins on 2027-03-09 at 04:30 UTC with an injection of 50-300 keV electrons
 into the outer zone and a rise of pitch-angle diffusion that fills the loss
 cones, decaying over the following day while MeV electrons build up.
 
-* **Marram-Swift**, a small satellite in a 650 km circular orbit of 97.9 deg
+* **Marram-Dunlin**, a small satellite in a 650 km circular orbit of 97.9 deg
   inclination, carries the **Quill** pair of electron telescopes: ``up`` looks
   at the local zenith and ``side`` horizontally across the track, both with a
   15 deg half-angle field of view, 1 s cadence, 4 energy channels
@@ -65,31 +65,41 @@ weaker footpoint field at 100 km), quasi-trapped between the bounce and the
 drift loss cones, trapped outside the drift loss cone. In the centred dipole
 every field line of a drift shell has the same footpoint field, so the two
 loss cones coincide and the true quasi-trapped fraction is exactly zero:
-that is physics, not an omission. Quasi-trapped flux appears only in a
-non-dipole field (run the pipeline with ``field="igrf"`` on ``position_geo``).
+that is a property of the centred dipole, not of the real field. In the
+IGRF at low altitude the drift loss cone is much wider than the bounce loss
+cone (at 650 km and L < 2.5 away from the South Atlantic nothing is stably
+trapped), so :func:`run_demo` summarises Marram-Dunlin, whose files carry
+``position_geo``, with ``field="auto"`` (the IGRF at each sample's time),
+and its figures show a quasi-trapped population. Marram-Tern, whose truth is
+the recovery target, is summarised in the centred dipole the truth is
+defined in (``field="dipole"``).
 
 * Spectrometer (Marram-Tern): the truth is what the pipeline estimates from
   the *expected* measured flux: the solid-angle-weighted share of each
   population in the bins' expected fluxes (background included), split
   exactly at the loss-cone edges, so an unbiased pipeline recovers it to
   within its Poisson uncertainty.
-* Telescopes (Marram-Swift): two looks cannot cover the sphere, so the truth
+* Telescopes (Marram-Dunlin): two looks cannot cover the sphere, so the truth
   there is the fraction of the model's omnidirectional flux (background
   excluded) in each population at the satellite. **This truth is not a
   recovery target.** The pipeline partitions telescope data over the
-  *measured* solid angle only (two 15 deg caps; every Swift sample carries
+  *measured* solid angle only (two 15 deg caps; every Dunlin sample carries
   the ``partial_coverage`` flag), so its fractions and ``omni_flux`` are
   shares of what the telescopes saw, a different quantity from the
   physical shares of the whole distribution; nothing in beltkit recovers the
   latter from these data, and the recovery tests use the spectrometer only.
-  The Swift truth is kept as a reference of the model, e.g. to show how far
-  the measured shares can be from the physical ones.
+  The Dunlin truth is kept as a reference of the model, e.g. to show how far
+  the measured shares can be from the physical ones; it is the centred
+  dipole's (quasi-trapped zero), while the pipeline partitions Dunlin in the
+  IGRF.
 
 Orbit geometry uses beltkit's own frames (:mod:`beltkit.field.sun`,
 :mod:`beltkit.field.coords`: sidereal time, the Sun's direction, magnetic
-latitude and MLT of the IGRF-14 centred dipole of the date); ``L``, ``mlat``
-and ``b_local`` are the centred-dipole values (:mod:`beltkit.dipole`) that
-beltkit's default field model uses, so truth and pipeline agree.
+latitude and MLT of the IGRF-14 centred dipole of the date); ``L`` (declared
+``L_definition = "dipole"``) and ``mlat`` are the centred-dipole values
+(:mod:`beltkit.dipole`) the model is written in. Marram-Tern's files also
+carry the dipole ``b_local``; Marram-Dunlin's carry none, so that its IGRF
+partition takes the IGRF's own field at the satellite.
 """
 
 from __future__ import annotations
@@ -112,9 +122,9 @@ SCENARIO = {
     "start": "2027-03-08T00:00:00",
     "n_days": 3,
     "storm_onset": "2027-03-09T04:30:00",
-    # Marram-Swift: circular low orbit. The period follows Kepler's third law
+    # Marram-Dunlin: circular low orbit. The period follows Kepler's third law
     # for a = R_E + 650 km (tests check it against astropy's GM_earth).
-    "swift": {
+    "dunlin": {
         "altitude_km": 650.0,
         "inclination_deg": 97.9,
         "period_s": 5855.0,
@@ -306,18 +316,22 @@ def _common_attrs(name, instrument, day, comment):
     }
 
 
-def _position_vars(time, xyz_geo, mlat, mlt, L, b_local):
+def _position_vars(time, xyz_geo, mlat, mlt, L, b_local=None):
     f32 = "float32"
-    return {
-        "L": ("time", L.astype(f32), {"units": "1", "long_name": "dipole L-shell"}),
+    out = {
+        "L": ("time", L.astype(f32), {"units": "1", "long_name": "dipole L-shell",
+                                      "L_definition": "dipole"}),
         "mlat": ("time", mlat.astype(f32),
                  {"units": "degree", "long_name": "magnetic latitude (dipole)"}),
         "mlt": ("time", mlt.astype(f32), {"units": "hour", "long_name": "magnetic local time"}),
-        "b_local": ("time", b_local.astype(f32),
-                    {"units": "nT", "long_name": "field magnitude at the spacecraft (dipole)"}),
         "position_geo": (("time", "xyz"), xyz_geo.astype(f32),
                          {"units": "km", "long_name": "spacecraft position, GEO Cartesian"}),
     }
+    if b_local is not None:
+        out["b_local"] = ("time", b_local.astype(f32),
+                          {"units": "nT",
+                           "long_name": "field magnitude at the spacecraft (dipole)"})
+    return out
 
 
 def _truth_vars(dims, prec, quasi, trapped, filling, index, comment):
@@ -466,8 +480,8 @@ def _cap_nodes(half_angle_deg, n_theta=4, n_phi=12):
     return np.repeat(theta, n_phi), np.tile(phi, n_theta), weights
 
 
-def _swift_day(day_start, rng):
-    p = SCENARIO["swift"]
+def _dunlin_day(day_start, rng):
+    p = SCENARIO["dunlin"]
     t_start = np.datetime64(SCENARIO["start"], "ns")
     first = day_start + np.timedelta64(int(p["first_orbit_utc_h"] * 3600), "s")
     n = int(round(p["orbits_per_day"] * p["period_s"] / p["cadence_s"]))
@@ -481,7 +495,6 @@ def _swift_day(day_start, rng):
     normal_geo = _gei_to_geo(np.broadcast_to(normal, pos.shape), time)
     xyz_mag, mlat, mlt, r_re = _magnetic(xyz_geo, time)
     L, mlat, mlt = (_f32(v) for v in (dipole.l_from_position(r_re, mlat), mlat, mlt))
-    b_local = np.asarray(dipole.field_magnitude(L, mlat), float)
 
     # field direction of the dipole (moment along -z_MAG): b ~ z - 3 (z.r) r
     from .field.coords import convert
@@ -534,7 +547,8 @@ def _swift_day(day_start, rng):
                "shares of the model's omnidirectional flux at the satellite (instrument "
                "background excluded); two telescopes cannot sample the whole sphere. Bounce "
                "and drift loss cones coincide in a dipole, so the true quasi-trapped fraction "
-               "is 0.")
+               "is 0; the real field's (IGRF) drift loss cone is wider at this altitude, and "
+               "the demo partitions these files in the IGRF.")
     look = np.array(["up", "side"])
     data_vars = {
         "flux": (("time", "energy", "look"), flux.astype("float32"),
@@ -552,7 +566,8 @@ def _swift_day(day_start, rng):
         "look_half_angle": ("look", np.full(2, p["half_angle_deg"]),
                             {"units": "degree", "long_name": "field-of-view half-angle"}),
         **_response_vars(factor, p, per="telescope", accumulated="sample"),
-        **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
+        # no b_local: the field at the satellite is left to the model it is partitioned in
+        **_position_vars(time, xyz_geo, mlat, mlt, L),
         **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
     }
     day = str(day_start)[:10]
@@ -563,14 +578,15 @@ def _swift_day(day_start, rng):
             "look": ("look", look, {"long_name": "telescope: up = local zenith, "
                                                  "side = horizontal, across the track"}),
         },
-        attrs=_common_attrs("Marram-Swift", "Quill electron telescope pair", day,
+        attrs=_common_attrs("Marram-Dunlin", "Quill electron telescope pair", day,
                             _FLUX_FROM_COUNTS),
     )
     return ds
 
 
 # --------------------------------------------------------------------------- public API
-def generate(out_dir, *, seed=20261201, n_days=None, spacecraft=("tern", "swift")) -> list[Path]:
+def generate(out_dir, *, seed=20261201, n_days=None,
+             spacecraft=("tern", "dunlin")) -> list[Path]:
     """Write the synthetic Marram scenario as day-files of netCDF.
 
     Parameters
@@ -581,14 +597,14 @@ def generate(out_dir, *, seed=20261201, n_days=None, spacecraft=("tern", "swift"
         Seed of the Poisson counts; the same seed gives the same data values.
     n_days : int, optional
         Number of days from the scenario's start (default 3, the whole storm).
-    spacecraft : sequence of {"tern", "swift"}
+    spacecraft : sequence of {"tern", "dunlin"}
         Which spacecraft to write.
 
     Returns
     -------
     list of pathlib.Path
         The files written, ``marram_tern_fan_synthetic_YYYYMMDD.nc`` and
-        ``marram_swift_quill_synthetic_YYYYMMDD.nc``, in time order per
+        ``marram_dunlin_quill_synthetic_YYYYMMDD.nc``, in time order per
         spacecraft.
 
     Notes
@@ -611,14 +627,14 @@ def generate(out_dir, *, seed=20261201, n_days=None, spacecraft=("tern", "swift"
     n_days = SCENARIO["n_days"] if n_days is None else int(n_days)
     if not 1 <= n_days <= SCENARIO["n_days"]:
         raise ValueError(f"n_days must be 1-{SCENARIO['n_days']}, got {n_days}")
-    unknown = set(spacecraft) - {"tern", "swift"}
+    unknown = set(spacecraft) - {"tern", "dunlin"}
     if unknown:
-        raise ValueError(f"unknown spacecraft {sorted(unknown)}; choose from 'tern', 'swift'")
+        raise ValueError(f"unknown spacecraft {sorted(unknown)}; choose from 'tern', 'dunlin'")
     start = np.datetime64(SCENARIO["start"], "ns")
     builders = {"tern": (_tern_day, "marram_tern_fan"),
-                "swift": (_swift_day, "marram_swift_quill")}
+                "dunlin": (_dunlin_day, "marram_dunlin_quill")}
     written = []
-    for k, name in enumerate(("tern", "swift")):
+    for k, name in enumerate(("tern", "dunlin")):
         if name not in spacecraft:
             continue
         build, stem = builders[name]
@@ -705,7 +721,7 @@ def _survey_dials(survey, e_kev, partial, caption=""):
     zero_quasi = _all_zero(survey, "fraction_quasi_trapped", e_kev)
     if not zero_quasi:
         quantities.append("fraction_quasi_trapped")
-    fig = Figure(figsize=(6.6 * len(quantities), 7.6), layout="constrained")
+    fig = Figure(figsize=(7.0 * len(quantities), 7.6), layout="constrained")
     axes = []
     for k, quantity in enumerate(quantities):
         ax = fig.add_subplot(1, len(quantities), k + 1, projection="polar")
@@ -715,16 +731,15 @@ def _survey_dials(survey, e_kev, partial, caption=""):
     if notes:
         import textwrap
 
-        ax = axes[0]
-        ax.set_xlabel(ax.get_xlabel() + "\n\n" + "\n".join(
-            textwrap.fill(n, 76 * len(quantities)) for n in notes), fontsize="small")
+        fig.supxlabel("\n".join(textwrap.fill(n, 95 * len(quantities)) for n in notes),
+                      fontsize="small")
     return fig
 
 
 def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
     """Draw the demonstration figures as PNG files.
 
-    Quantities from partially covered data (the Swift telescopes) are
+    Quantities from partially covered data (the Dunlin telescopes) are
     labelled as shares of the measured solid angle, detected from the
     summaries' coverage (:func:`beltkit.plot.partial_coverage`), not from the
     spacecraft's name; fractions beyond L = 10 (:data:`beltkit.plot.L_VALID_MAX`)
@@ -737,7 +752,7 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
     summaries : sequence of path
         Their summaries (same order).
     surveys : dict of str to path
-        Survey files keyed by spacecraft (``"tern"``, ``"swift"``).
+        Survey files keyed by spacecraft (``"tern"``, ``"dunlin"``).
     fig_dir : str or os.PathLike
         Folder for the PNG files.
 
@@ -769,12 +784,12 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
                                            energies=[50, 160, 520, 1700, 3000]),
              "tern_pitch_angle_distribution.png")
         save(plot.spectrogram(ds, summary, energy=300.0), "tern_spectrogram.png")
-    swift = pairs.get(f"marram_swift_quill_synthetic_{storm_day}.nc")
-    if swift is not None:
-        with xr.open_dataset(swift[0]) as ds, xr.open_dataset(swift[1]) as summary:
+    dunlin = pairs.get(f"marram_dunlin_quill_synthetic_{storm_day}.nc")
+    if dunlin is not None:
+        with xr.open_dataset(dunlin[0]) as ds, xr.open_dataset(dunlin[1]) as summary:
             ds, summary = ds.load(), summary.load()
-        save(plot.spectrogram(ds, summary, energy=300.0), "swift_spectrogram.png")
-    for craft, e_kev in (("tern", 160.0), ("swift", 190.0)):
+        save(plot.spectrogram(ds, summary, energy=300.0), "dunlin_spectrogram.png")
+    for craft, e_kev in (("tern", 160.0), ("dunlin", 190.0)):
         if craft not in surveys:
             continue
         partial = _partial(summaries, craft)
@@ -791,10 +806,11 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     """Generate the scenario, run the pipeline on it and draw the figures.
 
     Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
-    summary per file (``summaries/``, :func:`beltkit.batch.summarize`, centred
-    dipole), one survey per spacecraft (``survey_tern.nc``, hourly windows, and
-    ``survey_swift.nc``, daily windows; :func:`beltkit.batch.survey`) and PNG
-    figures (``figures/``, :func:`demo_figures`).
+    summary per file (``summaries/``, :func:`beltkit.batch.summarize`: Tern in
+    the centred dipole its truth is defined in, Dunlin with ``field="auto"``,
+    i.e. the IGRF at each sample's time), one survey per spacecraft
+    (``survey_tern.nc``, hourly windows, and ``survey_dunlin.nc``, daily windows;
+    :func:`beltkit.batch.survey`) and PNG figures (``figures/``, :func:`demo_figures`).
 
     Parameters
     ----------
@@ -812,16 +828,24 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
 
     out = Path(out_dir)
     data_files = generate(out / "data", n_days=n_days)
-    results = batch.summarize(data_files, out / "summaries", field="dipole", overwrite=True)
+    results = []
+    # Tern's truth (the recovery target) is defined in the centred dipole; Dunlin's files
+    # carry position_geo, so field="auto" partitions them in the IGRF at each sample's time
+    for craft, field in (("tern", "dipole"), ("dunlin", "auto")):
+        files = [d for d in data_files if f"_{craft}_" in Path(d).name]
+        if files:
+            results += batch.summarize(files, out / "summaries", field=field, overwrite=True)
+    order = {str(d): k for k, d in enumerate(data_files)}
+    results.sort(key=lambda r: order.get(r.input, len(order)))
     bad = [r for r in results if r.status == "failed"]
     if bad:
         raise RuntimeError("demo summaries failed: " + "; ".join(
             f"{r.input}: {r.reason}" for r in bad))
     summaries = [Path(r.output) for r in results]
     surveys = {}
-    # Swift's bins reach L = 12 so that the survey maps show (grey) where data
+    # Dunlin's bins reach L = 12 so that the survey maps show (grey) where data
     # beyond beltkit.plot.L_VALID_MAX = 10 were left out
-    for craft, window, l_top, l_step in (("tern", "1h", 7.0, 0.25), ("swift", "1D", 12.0, 0.5)):
+    for craft, window, l_top, l_step in (("tern", "1h", 7.0, 0.25), ("dunlin", "1D", 12.0, 0.5)):
         files = [s for s in summaries if f"_{craft}_" in s.name]
         if files:
             surveys[craft] = Path(batch.survey(files, out / f"survey_{craft}.nc",

@@ -21,7 +21,7 @@ from beltkit import demo, pad
 ROOT = Path(__file__).resolve().parents[1]
 DATA_DEMO = ROOT / "data_demo"
 TERN = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
-SWIFT = sorted(DATA_DEMO.glob("marram_swift_quill_synthetic_*.nc"))
+DUNLIN = sorted(DATA_DEMO.glob("marram_dunlin_quill_synthetic_*.nc"))
 
 
 @pytest.fixture(scope="module")
@@ -36,12 +36,14 @@ def tern_results():
     for path in TERN:
         with xr.open_dataset(path) as ds:
             ds = ds.load()
-        out.append((ds, pad.partition(ds).compute()))
+        # the truth is defined in the centred dipole: partitioned there, as the demo does
+        # (the files carry position_geo, so the default model="auto" would use the IGRF)
+        out.append((ds, pad.partition(ds, model="dipole").compute()))
     return out
 
 
 def test_committed_files_exist_and_are_small():
-    assert len(TERN) == 3 and len(SWIFT) == 3
+    assert len(TERN) == 3 and len(DUNLIN) == 3
     total = sum(p.stat().st_size for p in DATA_DEMO.iterdir() if p.is_file())
     assert total < 10e6, f"data_demo holds {total / 1e6:.1f} MB"
     assert (DATA_DEMO / "README.md").read_text().lower().count("synthetic") >= 2
@@ -49,7 +51,7 @@ def test_committed_files_exist_and_are_small():
 
 def test_regenerating_gives_identical_values(regenerated):
     names = sorted(p.name for p in regenerated)
-    assert names == sorted(p.name for p in TERN + SWIFT)
+    assert names == sorted(p.name for p in TERN + DUNLIN)
     for path in regenerated:
         with xr.open_dataset(path) as new, xr.open_dataset(DATA_DEMO / path.name) as old:
             assert sorted(new.variables) == sorted(old.variables)
@@ -67,7 +69,7 @@ def test_other_seed_changes_counts_only(tmp_path):
                                       old["true_fraction_precipitating"].values)
 
 
-@pytest.mark.parametrize("path", TERN + SWIFT, ids=lambda p: p.name)
+@pytest.mark.parametrize("path", TERN + DUNLIN, ids=lambda p: p.name)
 def test_files_follow_the_conventions_and_say_synthetic(path):
     with xr.open_dataset(path) as ds:
         assert pad.validate(ds) == []
@@ -79,7 +81,7 @@ def test_files_follow_the_conventions_and_say_synthetic(path):
         total = (ds["true_fraction_precipitating"] + ds["true_fraction_quasi_trapped"]
                  + ds["true_fraction_trapped"])
         np.testing.assert_allclose(total.values, 1.0, atol=1e-6)
-        # centred dipole: bounce and drift loss cones coincide, no quasi-trapped population
+        # generator truth in the centred dipole: the cones coincide, nothing quasi-trapped
         assert float(np.abs(ds["true_fraction_quasi_trapped"]).max()) == 0.0
 
 
@@ -93,7 +95,7 @@ def test_orbits_as_stated():
     from beltkit.constants import R_E_KM
 
     gm = GM_earth.to_value("km3 / s2")
-    with xr.open_dataset(SWIFT[0]) as ds:
+    with xr.open_dataset(DUNLIN[0]) as ds:
         r = np.linalg.norm(ds["position_geo"].values, axis=-1)
         np.testing.assert_allclose(r - R_E_KM, 650.0, atol=0.01)
         # high-inclination orbit: magnetic latitudes beyond 70 deg both ways
@@ -104,10 +106,10 @@ def test_orbits_as_stated():
         assert abs(r.min() - (R_E_KM + 600.0)) < 5.0
         assert abs(r.max() / R_E_KM - 5.8) < 0.01
         assert float(np.abs(ds["mlat"]).max()) < 25.0
-    swift, tern = demo.SCENARIO["swift"], demo.SCENARIO["tern"]
-    a_swift = R_E_KM + swift["altitude_km"]
+    dunlin, tern = demo.SCENARIO["dunlin"], demo.SCENARIO["tern"]
+    a_dunlin = R_E_KM + dunlin["altitude_km"]
     a_tern = 0.5 * (R_E_KM + tern["perigee_altitude_km"] + tern["apogee_re"] * R_E_KM)
-    for a, period in ((a_swift, swift["period_s"]), (a_tern, tern["period_s"])):
+    for a, period in ((a_dunlin, dunlin["period_s"]), (a_tern, tern["period_s"])):
         assert period == pytest.approx(2 * math.pi * math.sqrt(a**3 / gm), rel=2e-4)
 
 
@@ -146,7 +148,7 @@ def _standardised_residuals(tern_results, population, scale=1.0):
 
 @pytest.mark.parametrize("population", ["precipitating", "trapped"])
 def test_pipeline_recovers_true_fractions_within_uncertainty(tern_results, population):
-    """Pipeline (default centred dipole) on the spectrometer data against the generator truth.
+    """Pipeline (centred dipole) on the spectrometer data against the generator truth.
 
     The truth is the populations' share of the *expected* measured flux, so
     an unbiased estimator with honest 1-sigma errors puts about 68% of the
@@ -198,33 +200,60 @@ def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatc
     paths = demo.run_demo(out, n_days=2)
     assert paths and all(Path(p).is_file() for p in paths)
     names = {Path(p).name for p in paths}
-    assert {"survey_tern.nc", "survey_swift.nc", "run-report.jsonl"} <= names
+    assert {"survey_tern.nc", "survey_dunlin.nc", "run-report.jsonl"} <= names
     assert sum(n.endswith(".summary.nc") for n in names) == 4
     pngs = [Path(p) for p in paths if str(p).endswith(".png")]
     assert len(pngs) >= 6
     for p in pngs:
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and p.stat().st_size > 20_000
     assert not any(os.scandir(work))  # nothing written into the working directory
-    assert {"tern_survey_L_MLT.png", "swift_survey_L_MLT.png", "swift_spectrogram.png"} <= names
+    assert {"tern_survey_L_MLT.png", "dunlin_survey_L_MLT.png", "dunlin_spectrogram.png"} <= names
 
-    # the survey dials: partial-coverage wording from the summaries' coverage, for Swift only
+    # the survey dials: partial-coverage wording from the summaries' coverage, for Dunlin only
     import matplotlib.text
 
     summaries = [Path(p) for p in paths if str(p).endswith(".summary.nc")]
-    assert demo._partial(summaries, "swift") and not demo._partial(summaries, "tern")
-    for craft, e_kev in (("tern", 160.0), ("swift", 190.0)):
+    assert demo._partial(summaries, "dunlin") and not demo._partial(summaries, "tern")
+    for craft, e_kev in (("tern", 160.0), ("dunlin", 190.0)):
         partial = demo._partial(summaries, craft)
         fig = demo._survey_dials(out / f"survey_{craft}.nc", e_kev, partial,
                                  "note" if partial else "")
         text = " ".join(t.get_text() for t in fig.findobj(matplotlib.text.Text))
-        assert len([a for a in fig.axes if a.name == "polar"]) == 1  # no empty quasi-trapped dial
-        assert "quasi-trapped fraction: zero in every cell" in text
+        dials = len([a for a in fig.axes if a.name == "polar"])
+        if craft == "tern":  # centred dipole: no empty quasi-trapped dial, a note instead
+            assert dials == 1 and "quasi-trapped fraction: zero in every cell" in text
+        else:  # IGRF at 650 km: the quasi-trapped population is drawn
+            assert dials == 2 and "zero in every cell" not in text
+            assert "quasi-trapped fraction of the measured flux" in text
         assert "precipitating fraction" in text and "(1)" not in text
         assert ("partial coverage" in text) is partial
         assert ("of the measured flux" in text) is partial
 
 
-def test_swift_truth_is_documented_as_not_recovered():
+def test_demo_summaries_record_their_field_models(tmp_path):
+    """Tern in the centred dipole (its truth's model), Dunlin in the IGRF with quasi-trapped flux.
+
+    Independent expectations (common practice): in the IGRF at 650 km the
+    drift loss cone is wider than the bounce loss cone almost everywhere, so
+    a quasi-trapped share appears; the centred dipole has none, and Tern's
+    perigee (600 km) lies below 2,000 km, so its dipole summaries say so.
+    """
+    from beltkit import batch
+
+    tern = batch.summarize(TERN[:1], tmp_path, field="dipole")[0]
+    dunlin = batch.summarize(DUNLIN[:1], tmp_path)[0]  # field="auto"
+    with xr.open_dataset(tern.output) as t, xr.open_dataset(dunlin.output) as d:
+        assert t.attrs["field_model"] == "dipole"
+        assert "no quasi-trapped population" in t.attrs["field_model_note"]
+        assert (d.attrs["field_model"], d.attrs["field_model_requested"]) == ("igrf", "auto")
+        assert "field_model_note" not in d.attrs
+        gap = (d["dlc_local"] - d["blc_local"]).values
+        assert np.nanmedian(gap) > 5.0  # degrees
+        qt = d["fraction_quasi_trapped"].values
+        assert np.nanmax(qt) > 0.5 and np.mean(qt[np.isfinite(qt)] > 0.01) > 0.5
+
+
+def test_dunlin_truth_is_documented_as_not_recovered():
     for text in ((DATA_DEMO / "README.md").read_text(), demo.__doc__):
         flat = " ".join(text.replace("*", "").split())
         assert "not a recovery target" in flat
