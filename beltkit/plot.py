@@ -542,7 +542,9 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, ax=None, axe
     summary : xarray.Dataset, optional
         Its summary; adds the loss cones to the middle panel and the
         precipitating fraction per energy (with its uncertainty band) to the
-        bottom one, which also shows L on a second axis.
+        bottom one, which also shows L on a second axis and, where the field
+        model gives one (not the centred dipole), the quasi-trapped fraction
+        at the middle panel's energy as a thick black line.
     energy : float, optional
         Energy of the middle panel in keV (default: the channel nearest 300 keV).
     pitch_angle : float, optional
@@ -604,12 +606,21 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, ax=None, axe
             if band:
                 ax.fill_between(s_times, fv[:, k] - ev[:, k], fv[:, k] + ev[:, k],
                                 color=colour, alpha=0.25, lw=0)
+        ylabel = _quantity_label("fraction_precipitating", partial)
+        if "fraction_quasi_trapped" in summary:  # drawn where the model gives it (not a dipole)
+            qv = np.where(keep[:, None], np.asarray(summary["fraction_quasi_trapped"].transpose(
+                "time", "energy").values, float), np.nan)
+            if np.any(np.isfinite(qv) & (qv > 0)):
+                kq = int(np.argmin(np.abs(e_all - energy)))
+                ax.plot(s_times, qv[:, kq], color="black", lw=1.8, ls="-", zorder=3,
+                        label=f"quasi-trapped, {_energy_text(e_all[kq])}")
+                ylabel = ylabel.replace("precipitating fraction",
+                                        "precipitating (per energy) and\nquasi-trapped fraction")
         if median < 0.05:
             ax.set_yscale("log")
         else:
             ax.set_ylim(0, 1)
-        ax.set_ylabel(_quantity_label("fraction_precipitating", partial)
-                      .replace(" (partial coverage)", "\n(partial coverage)"))
+        ax.set_ylabel(ylabel.replace(" (partial coverage)", "\n(partial coverage)"))
         ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
     first, last = _runs(beyond)
     if first.size:

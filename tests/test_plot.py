@@ -26,13 +26,15 @@ DATA_DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 def demo_data(tmp_path_factory):
     """Storm day of both spacecraft (committed demo files), summaries, a spectrometer survey."""
     out = {}
-    for craft, stem in (("tern", "marram_tern_fan"), ("swift", "marram_swift_quill")):
+    for craft, stem in (("tern", "marram_tern_fan"), ("dunlin", "marram_dunlin_quill")):
         with xr.open_dataset(DATA_DEMO / f"{stem}_synthetic_20270309.nc") as ds:
             ds = ds.load()
-        out[craft] = (ds, pad.partition(ds).compute())
+        # Tern as the demo runs it (centred dipole); Dunlin with the default model="auto",
+        # which its position_geo makes the IGRF
+        out[craft] = (ds, pad.partition(ds, model="dipole" if craft == "tern" else "auto"))
     root = tmp_path_factory.mktemp("plotdata")
     tern_files = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
-    results = batch.summarize(tern_files, root / "summaries")
+    results = batch.summarize(tern_files, root / "summaries", field="dipole")
     assert all(r.status == "ok" for r in results), [r.reason for r in results]
     out["survey"] = batch.survey([r.output for r in results], root / "survey.nc",
                                  time_window="3h")
@@ -73,7 +75,7 @@ def test_pitch_angle_distribution_bins(demo_data):
 
 
 def test_pitch_angle_distribution_telescopes_and_existing_axes(demo_data):
-    ds, summary = demo_data["swift"]
+    ds, summary = demo_data["dunlin"]
     fig = Figure()
     ax = fig.add_subplot()
     out = plot.pitch_angle_distribution(ds, summary, ds["time"].values[500], ax=ax)
@@ -82,7 +84,7 @@ def test_pitch_angle_distribution_telescopes_and_existing_axes(demo_data):
 
 
 def test_energy_and_pitch_angle_time_spectrograms(demo_data):
-    for craft in ("tern", "swift"):
+    for craft in ("tern", "dunlin"):
         ds, summary = demo_data[craft]
         for fig in (plot.energy_time(ds, summary=summary),
                     plot.energy_time(ds, pitch_angle=90.0),
@@ -92,12 +94,14 @@ def test_energy_and_pitch_angle_time_spectrograms(demo_data):
             bars = _colorbar_labels(fig)
             assert bars and all("cm$^{-2}$" in b and "keV" in b for b in bars)
             assert isinstance(fig.axes[0].collections[0].norm, LogNorm)
-        # centred dipole: the cones coincide, so one line pair with one label, not two
         fig = plot.pitch_angle_time(ds, 300.0, summary=summary)
         labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
-        assert labels == ["bounce = drift loss cone (centred dipole)"]
         dashed = [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "--"]
-        assert not dashed
+        if craft == "tern":  # centred dipole: the cones coincide, one line pair, one label
+            assert labels == ["bounce = drift loss cone (centred dipole)"]
+            assert not dashed
+        else:  # IGRF at 650 km: a distinct (wider) drift loss cone
+            assert labels == ["bounce loss cone", "drift loss cone"] and len(dashed) == 2
 
 
 def test_pitch_angle_time_draws_a_distinct_drift_loss_cone(demo_data):
@@ -121,7 +125,7 @@ def _texts(fig):
 def test_partial_coverage_detection(demo_data):
     # Fan bins tile the sphere; two 15-degree Quill caps do not
     assert plot.partial_coverage(demo_data["tern"][1]) is False
-    assert plot.partial_coverage(demo_data["swift"][1]) is True
+    assert plot.partial_coverage(demo_data["dunlin"][1]) is True
     flags_only = xr.Dataset({"partition_flag": ("time", np.array([0, 8, 0], np.int16))})
     assert plot.partial_coverage(flags_only) is True
     assert plot.partial_coverage(flags_only.isel(time=[0, 2])) is False
@@ -147,22 +151,32 @@ def test_spectrogram_three_panels(demo_data):
 
 
 def test_spectrogram_of_telescopes_says_partial_coverage(demo_data):
-    ds, summary = demo_data["swift"]
+    ds, summary = demo_data["dunlin"]
     fig = plot.spectrogram(ds, summary)
     panels = [a for a in fig.axes if a.get_label() != "<colorbar>"]
-    assert "precipitating fraction of the measured flux" in panels[2].get_ylabel()
-    assert "partial coverage" in panels[2].get_ylabel()
+    ylabel = panels[2].get_ylabel().replace("\n", " ")
+    assert "quasi-trapped fraction of the measured flux" in ylabel  # IGRF: quasi-trapped drawn
+    assert ylabel.startswith("precipitating (per energy)") and "partial coverage" in ylabel
+    quasi = [ln for ln in panels[2].get_lines() if ln.get_label().startswith("quasi-trapped")]
+    assert [ln.get_label() for ln in quasi] == ["quasi-trapped, 190 keV"]
+    k = int(np.argmin(np.abs(summary["energy"].values - 300.0)))
+    expected = summary["fraction_quasi_trapped"].isel(energy=k).values.astype(float)
+    drawn = np.asarray(quasi[0].get_ydata(), float)
+    shown = np.isfinite(drawn)
+    np.testing.assert_allclose(drawn[shown], expected[shown])
+    assert np.nanmax(drawn) > 0.5
     assert "flux over the measured solid angle" in _colorbar_labels(fig)[0]
     assert "omnidirectional" not in _texts(fig)
     title = fig.get_suptitle()
     # the two orbits of the file: 06:00:00 to 09:15:09 UTC
-    assert title.startswith("Marram-Swift, 2027-03-09 06:00\u201309:15 UTC")
+    assert title.startswith("Marram-Dunlin, 2027-03-09 06:00\u201309:15 UTC")
     assert "only part of the sphere" in title.replace("\n", " ")
     # fractions beyond L = 10 are not drawn; those times are greyed
     beyond = ds["L"].values > plot.L_VALID_MAX
     assert beyond.any() and (~beyond).any()
-    fraction_lines = [ln for ln in panels[2].get_lines() if ln.get_label().endswith("keV")
-                      or ln.get_label().endswith("MeV")]
+    fraction_lines = [ln for ln in panels[2].get_lines()
+                      if ln.get_label().endswith(("keV", "MeV"))
+                      and not ln.get_label().startswith("quasi")]
     assert len(fraction_lines) == ds.sizes["energy"]
     for line in fraction_lines:
         y = np.asarray(line.get_ydata(), float)
@@ -290,3 +304,103 @@ def test_plot_functions_do_not_modify_inputs(demo_data):
     plot.spectrogram(ds, summary)
     plot.pitch_angle_distribution(ds, summary, STORM)
     xr.testing.assert_identical(ds, before)
+
+
+# ------------------------------------------------------------------ figures that do not mislead
+
+
+def _colour_bar(fig):
+    return next(a for a in fig.axes if a.get_label() == "<colorbar>")
+
+
+@pytest.mark.parametrize("span", [3.0, 1.2])
+def test_log_colour_scale_follows_the_data(demo_data, span):
+    """A log scale spans the data's finite range, not a forced decade, with labelled ticks."""
+    survey = xr.load_dataset(demo_data["survey"])
+    mean = survey["omni_flux_mean"]
+    finite = np.isfinite(mean)
+    # values from 2e5 to span * 2e5 where the survey has data
+    ramp = np.linspace(0.0, 1.0, mean.size).reshape(mean.shape)
+    values = 2e5 * span ** ramp
+    survey["omni_flux_mean"] = mean.copy(data=np.where(finite, values, np.nan))
+    fig = plot.survey_map(survey, "omni_flux", energy=160.0)
+    norm = fig.axes[0].collections[0].norm
+    shown = np.ma.compressed(fig.axes[0].collections[0].get_array())
+    assert isinstance(norm, LogNorm)
+    # limits = the finite range of what is drawn (the old scale spanned 10x the minimum)
+    assert norm.vmin == pytest.approx(shown.min()) and norm.vmax == pytest.approx(shown.max())
+    assert norm.vmax / norm.vmin == pytest.approx(shown.max() / shown.min())
+    assert norm.vmax / norm.vmin < span * 1.0001  # nudge: not a forced decade
+    bar = _colour_bar(fig)
+    ticks = [t for t in bar.get_yticks() if norm.vmin <= t <= norm.vmax]
+    labels = [t.get_text() for t in bar.get_yticklabels() if t.get_text()]
+    assert len(ticks) >= 2 and len(labels) >= 2  # readable: at least two labelled values
+    for text in labels:  # plain numbers, each within the scale
+        assert norm.vmin * 0.999 <= float(text) <= norm.vmax * 1.001
+
+
+def test_nice_log_ticks_cover_the_range():
+    # 1-2-5 ticks over decades; finer mantissas for short ranges (always two or more)
+    np.testing.assert_allclose(plot._nice_log_ticks(1.0, 1000.0), [1, 10, 100, 1000])
+    np.testing.assert_allclose(plot._nice_log_ticks(1e5, 3e5), [1e5, 1.5e5, 2e5, 3e5])
+    ticks = plot._nice_log_ticks(0.21, 0.24)
+    assert ticks.size >= 2 and ticks.min() >= 0.21 and ticks.max() <= 0.24
+
+
+def _label_angles(ax):
+    """Data angle (rad) and L of every non-empty radial tick label of a polar axes."""
+    out = []
+    inv = ax.transData.inverted()
+    for label in ax.get_yticklabels():
+        if label.get_text():
+            theta, r = inv.transform(label.get_transform().transform(label.get_position()))
+            out.append((theta % (2 * np.pi), r, float(label.get_text())))
+    return out
+
+
+def test_polar_l_labels_do_not_sit_on_data(demo_data):
+    survey = xr.load_dataset(demo_data["survey"])
+    fig = plot.survey_map(survey, "fraction_precipitating", energy=160.0, kind="L-MLT")
+    fig.canvas.draw()
+    ax = fig.axes[0]
+    cells = np.ma.getmaskarray(ax.collections[0].get_array()).reshape(
+        survey.sizes["L"], survey.sizes["mlt"])  # True: no data
+    l_edges = np.append(survey["L_bnds"].values[:, 0], survey["L_bnds"].values[-1, 1])
+    m_edges = np.append(survey["mlt_bnds"].values[:, 0], survey["mlt_bnds"].values[-1, 1])
+    placed = _label_angles(ax)
+    assert placed
+    for theta, r, value in placed:
+        j = int(np.searchsorted(m_edges / 24 * 2 * np.pi, theta, side="right") - 1)
+        assert r == pytest.approx(value)
+        near = (l_edges[:-1] < value + 0.3) & (l_edges[1:] > value - 0.3)
+        assert cells[near, j].all(), (value, j)  # no data cell under or beside the label
+    # every sector full of data: no label inside the dial, the rings named in the axis label
+    full = survey.copy()
+    full["fraction_precipitating_mean"] = full["fraction_precipitating_mean"].fillna(0.01)
+    full["fraction_precipitating_count"] = full["fraction_precipitating_count"] + 1
+    fig = plot.survey_map(full, "fraction_precipitating", energy=160.0, kind="L-MLT")
+    ax = fig.axes[0]
+    assert not [t for t in ax.get_yticklabels() if t.get_text()]
+    assert "rings: L = 2, 3" in ax.get_xlabel()
+
+
+@pytest.mark.parametrize(("cone", "text"), [(0.2, "0.20°"), (5.0, "5.0°")])
+def test_a_narrow_loss_cone_stays_visible(demo_data, cone, text):
+    ds, summary = demo_data["tern"]
+    narrow = summary.assign(loss_cone_north=summary["loss_cone_north"] * 0 + cone,
+                            loss_cone_south=summary["loss_cone_south"] * 0 + cone,
+                            blc_local=summary["blc_local"] * 0 + cone,
+                            dlc_local=summary["dlc_local"] * 0 + cone)
+    fig = plot.pitch_angle_distribution(ds, narrow, STORM)
+    ax = fig.axes[0]
+    spans = [p for p in ax.patches if p.get_label().startswith("bounce loss cone")]
+    width = spans[0].get_width()
+    # shaded at least MIN_CONE_WIDTH_DEG wide (1.5 deg of 180: visible), never narrower
+    assert width == pytest.approx(max(cone, plot.MIN_CONE_WIDTH_DEG))
+    # the true edges as lines at the cone angle and 180 minus it
+    edges = sorted(float(ln.get_xdata()[0]) for ln in ax.get_lines()
+                   if len(ln.get_xdata()) == 2 and ln.get_xdata()[0] == ln.get_xdata()[1])
+    assert edges == pytest.approx([cone, 180.0 - cone])
+    label = spans[0].get_label()
+    assert f"{text} north-going / {text} south-going" in label  # two significant digits
+    assert ("shaded at least" in label) is (cone < plot.MIN_CONE_WIDTH_DEG)
