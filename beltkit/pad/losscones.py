@@ -198,20 +198,23 @@ def dipole_low_altitude_note(ds, prep: Prepared, model) -> str:
         return ""
     scale = prep.other_scale
     if "L" in ds.variables and "mlat" in ds.variables:
-        L = np.asarray(ds["L"].values, dtype=float) * scale.get("L", 1.0)
-        lam = np.radians(np.asarray(ds["mlat"].values, dtype=float) * scale.get("mlat", 1.0))
-        r_km = L * np.cos(lam) ** 2 * R_E_KM
+        # r / R_E = L cos^2(mlat), in place (a few passes over the time axis only)
+        c = np.cos(np.radians(np.asarray(ds["mlat"].values, dtype=float)
+                              * scale.get("mlat", 1.0)))
+        r = np.asarray(ds["L"].values, dtype=float) * scale.get("L", 1.0) * c
+        r *= c
+        r_limit = 1.0 + LOW_ALTITUDE_KM / R_E_KM
     elif "position_geo" in ds.variables:
         xyz = np.asarray(ds["position_geo"].values, dtype=float)
-        r_km = np.linalg.norm(xyz, axis=-1) * scale.get("position_geo", 1.0)
+        r = np.linalg.norm(xyz, axis=-1) * scale.get("position_geo", 1.0)
+        r_limit = R_E_KM + LOW_ALTITUDE_KM
     else:
         return ""
-    alt = r_km - R_E_KM
-    alt = alt[np.isfinite(alt)]
-    low = int(np.count_nonzero(alt < LOW_ALTITUDE_KM))
+    low = int(np.count_nonzero(r < r_limit))  # NaN compares False
     if low == 0:
         return ""
-    return (f"{low} of {alt.size} samples lie below {LOW_ALTITUDE_KM:g} km altitude, where the "
+    total = int(np.count_nonzero(np.isfinite(r)))
+    return (f"{low} of {total} samples lie below {LOW_ALTITUDE_KM:g} km altitude, where the "
             "centred dipole has no quasi-trapped population (its drift loss cone equals the "
             "bounce loss cone); the real field's drift loss cone is wider there. Give "
             "'position_geo' (model='auto' then uses the IGRF) or pass model='igrf' to see the "
