@@ -32,6 +32,7 @@ from . import dipole
 from .constants import B0_NT, GAUSS_PER_NT, R_E_KM
 from .errors import PhysicsError
 from .particles import PSD_CONSTANT, PSD_UNITS, get_species
+from .units import l_shell_factor
 
 __all__ = ["PSD_FLAG_MEANINGS", "at_fixed_invariants", "passes", "radial_profiles"]
 
@@ -43,7 +44,6 @@ PSD_FLAG_MEANINGS = {
     8: "lstar_undefined",
 }
 
-_GRID = np.arange(0.5, 180.0, 1.0)  # equatorial pitch-angle grid of the mapping (deg)
 
 
 def _as_1d(values, name):
@@ -54,21 +54,36 @@ def _as_1d(values, name):
 
 
 def _fold(flux):
-    """Fold (..., 180 grid) about 90 deg: geometric mean of the two halves where both exist."""
-    lo = flux[..., :90]
-    hi = flux[..., 90:][..., ::-1]
+    """Fold (..., 2G grid symmetric about 90) about 90 deg: geometric mean of both halves."""
+    g = flux.shape[-1] // 2
+    lo = flux[..., :g]
+    hi = flux[..., g:][..., ::-1]
     with np.errstate(invalid="ignore", divide="ignore"):
         both = np.isfinite(lo) & np.isfinite(hi) & (lo > 0) & (hi > 0)
         gm = np.sqrt(np.where(both, lo * hi, np.nan))
     return np.where(both, gm, np.where(np.isfinite(lo), lo, hi))
 
 
-def _interp_block(flux, err, e_q, a_q, blc, lstar, *, energy, p2_grid):
-    """Interpolate ln f at (e_q, a_q) per sample; flux (n, E, 180) -> f (n, mu, k)."""
+def _grid_cells(lo_hi):
+    """Grid points (0.5 + j deg, j in 0..89) bracketing every [lo, hi] of alpha_eq."""
+    js = []
+    for lo, hi in np.asarray(lo_hi, dtype=float).reshape(2, -1).T:
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            continue
+        j0 = int(np.clip(np.floor(lo - 0.5), 0, 89))
+        j1 = int(np.clip(np.floor(hi - 0.5) + 1, 0, 89))
+        js.append(np.arange(j0, j1 + 1))
+    j = np.unique(np.concatenate(js)) if js else np.array([44, 45])
+    if j.size < 2:
+        j = np.unique(np.concatenate([j, np.clip(j + 1, 0, 89), np.clip(j - 1, 0, 89)]))
+    return 0.5 + j.astype(float)
+
+
+def _interp_block(flux, err, e_q, a_q, blc, lstar, *, energy, p2_grid, grid):
+    """Interpolate ln f at (e_q, a_q) per sample; flux (n, E, 2G) -> f (n, mu, k)."""
     n, n_e, _ = flux.shape
     fl = _fold(np.asarray(flux, dtype=float))
     er = _fold(np.asarray(err, dtype=float))
-    grid = _GRID[:90]
     with np.errstate(invalid="ignore", divide="ignore"):
         lnf = np.log(PSD_CONSTANT * fl / p2_grid[None, :, None])
         rel = er / fl
@@ -81,10 +96,11 @@ def _interp_block(flux, err, e_q, a_q, blc, lstar, *, energy, p2_grid):
     we = np.clip((x - ln_e[i]) / (ln_e[i + 1] - ln_e[i]), 0.0, 1.0)
     # pitch angle: linear in alpha_eq on the folded 1-degree grid (clamped within the
     # outer half-degree, which the end cells still cover)
-    a = np.clip(a_q, grid[0], grid[-1])
+    a = np.clip(a_q, 0.5, 89.5)
     out_a = ~(a_q >= 0.0)
     j = np.clip(np.searchsorted(grid, a) - 1, 0, grid.size - 2)
-    wa = (a - grid[j]) / (grid[j + 1] - grid[j])
+    # grid cells are 1 degree wide by construction (_grid_cells)
+    wa = np.clip((a - grid[j]) / (grid[j + 1] - grid[j]), 0.0, 1.0)
     rows = np.arange(n)[:, None, None]
     ii = np.where(out_e, 0, i)
     jj = np.broadcast_to(j[:, None, :], ii.shape)
@@ -251,7 +267,9 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
     Notes
     -----
     The flux is mapped to the equator by :func:`beltkit.pad.to_equatorial`
-    on a 1-degree grid, folded about 90 deg (geometric mean of both halves
+    on the cells of a 1-degree grid that the requested K reach (from the
+    range of :math:`\alpha_{eq}` over the data, one small eager pass over the
+    position columns), folded about 90 deg (geometric mean of both halves
     where both are measured), converted to :math:`f` at the measured
     energies and interpolated bilinearly in :math:`(\ln E, \alpha_{eq})` in
     :math:`\ln f`; its relative uncertainty is propagated with the same
@@ -268,17 +286,18 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
     if np.any(mu <= 0) or np.any(k < 0):
         raise PhysicsError("mu_mev_per_g must be > 0 MeV/G and k_g05_re >= 0 G^(1/2) R_E")
     dipole_path = model is None or (isinstance(model, str) and model.strip().lower() == "dipole")
-    eq = to_equatorial(ds, model=None if dipole_path else model, alpha_eq_deg=_GRID,
-                       altitude_km=altitude_km)
-    flux = eq["flux_equatorial"]
-    err = eq["flux_equatorial_err"] if "flux_equatorial_err" in eq else xr.full_like(flux, np.nan)
-    energy = np.asarray(eq["energy"].values, dtype=float)
     sp = get_species(species)
-    p2_grid = energy * (energy + 2.0 * sp.rest_energy_kev) * 1e-6
     mu_da = xr.DataArray(mu, dims="mu")
     k_da = xr.DataArray(k, dims="k")
     if dipole_path:
-        L = eq["L"].reset_coords(drop=True)
+        if "L" not in ds.variables:
+            raise PhysicsError("at_fixed_invariants in the centred dipole needs 'L' (and "
+                               "'mlat') in the dataset; with only 'position_geo' pass "
+                               "model='igrf' (or another field model)")
+        factor = l_shell_factor(ds["L"].attrs.get("units", "1"))
+        if factor is None:
+            raise PhysicsError(f"'L' has units {ds['L'].attrs.get('units')!r}; use '1' or 'R_E'")
+        L = (ds["L"].reset_coords(drop=True) * factor).assign_attrs(units="1")
         a_eq, e_q = dipole.invariants_to_pitch_energy(mu_da, k_da, L, species, B0_NT)
         a_eq = a_eq.isel(mu=0, drop=True).transpose("time", "k")
         e_q = e_q.transpose("time", "mu", "k")
@@ -287,7 +306,7 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
     else:
         a_s, bm_s, l_s, cadence, m = _model_nodes(ds, model, k, lstar_cadence_s, altitude_km,
                                                   n_mlt, trace_options)
-        tcoord = {"time": eq["time"]}
+        tcoord = {"time": ds["time"]}
         a_eq = xr.DataArray(a_s, dims=("time", "k"), coords=tcoord)
         bm = xr.DataArray(bm_s, dims=("time", "k"), coords=tcoord)
         lst = xr.DataArray(l_s, dims=("time", "k"), coords=tcoord)
@@ -295,6 +314,17 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
         how = (f"beltkit.field.lstar ({getattr(m, 'name', type(m).__name__)}, {n_mlt} MLTs) "
                f"at a cadence of {cadence:g} s, interpolated linearly in time to the samples "
                "(as are alpha_eq and ln B_m)")
+    # the equatorial grid: the 1-degree cells that the requested K reach somewhere (the
+    # per-K range of alpha_eq over the data, computed here: one value per sample and K)
+    lo_hi = xr.concat([a_eq.min("time"), a_eq.max("time")], "end").values
+    grid_lo = _grid_cells(lo_hi)
+    grid = np.concatenate([grid_lo, 180.0 - grid_lo[::-1]])
+    eq = to_equatorial(ds, model=None if dipole_path else model, alpha_eq_deg=grid,
+                       altitude_km=altitude_km)
+    flux = eq["flux_equatorial"]
+    err = eq["flux_equatorial_err"] if "flux_equatorial_err" in eq else xr.full_like(flux, np.nan)
+    energy = np.asarray(eq["energy"].values, dtype=float)
+    p2_grid = energy * (energy + 2.0 * sp.rest_energy_kev) * 1e-6
     if flux.chunks is not None:
         ch = flux.chunksizes["time"]
         e_q = e_q.chunk({"time": ch})
@@ -305,7 +335,7 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
     f, f_err, flag = xr.apply_ufunc(
         _interp_block, flux.rename(alpha_eq="_a"), err.rename(alpha_eq="_a"), e_q, a_eq, blc,
         lst,
-        kwargs=dict(energy=energy, p2_grid=p2_grid),
+        kwargs=dict(energy=energy, p2_grid=p2_grid, grid=grid_lo),
         input_core_dims=[["energy", "_a"], ["energy", "_a"], ["mu", "k"], ["k"], [], ["k"]],
         output_core_dims=[["mu", "k"], ["mu", "k"], ["mu", "k"]],
         dask="parallelized", output_dtypes=[float, float, np.int8],
