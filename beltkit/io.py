@@ -6,8 +6,8 @@ Readers
 :func:`open_indexed` without dask, each slab read where it is indexed) and
 returns an :class:`xarray.Dataset` that follows beltkit's data conventions:
 
-* netCDF files (netCDF-4/HDF5 or classic) through the ``netcdf4`` engine, or
-  ``h5netcdf`` when netCDF4-python is not importable;
+* netCDF files (netCDF-4/HDF5 or classic) through the ``netcdf4`` engine
+  (netCDF4-python, a dependency);
 * NASA CDF files through :mod:`cdflib` (variables read record range by record
   range on demand, so a CDF is lazy too);
 * files whose names do not follow the conventions through a *mapping*: a small
@@ -308,15 +308,6 @@ def _is_cdf(path: Path) -> bool:
     return head in _CDF_MAGIC
 
 
-def _netcdf_engine() -> str:
-    try:
-        import netCDF4  # noqa: F401
-
-        return "netcdf4"
-    except ImportError:  # pragma: no cover - netCDF4 is a dependency
-        return "h5netcdf"
-
-
 def _time_chunks(ds: xr.Dataset, chunks):
     if chunks == "auto":
         return {"time": "auto"} if "time" in ds.dims else {}
@@ -339,7 +330,8 @@ def open_flux(path, mapping=None, chunks="auto", *, engine=None) -> xr.Dataset:
         length); a dict is passed to :meth:`xarray.Dataset.chunk` after the
         mapping (so use conventional dimension names); None loads eagerly.
     engine : str, optional
-        netCDF engine (``"netcdf4"`` or ``"h5netcdf"``); default netcdf4.
+        xarray netCDF engine; default ``"netcdf4"`` (another, such as
+        ``"h5netcdf"``, must be installed separately).
 
     Returns
     -------
@@ -382,7 +374,7 @@ def open_indexed(path, mapping=None, *, engine=None) -> xr.Dataset:
             # isel, reads only its own slice (chunking the file's native layout would
             # read a whole contiguous variable at once)
             ds = xr.open_dataset(
-                path, engine=engine or _netcdf_engine(), chunks=None, cache=False,
+                path, engine=engine or "netcdf4", chunks=None, cache=False,
                 mask_and_scale=True, decode_times=True,
             )
     except (OSError, ValueError, KeyError, RuntimeError) as exc:
@@ -620,11 +612,8 @@ WRITE_CHUNK_CACHE_BYTES = 1 << 20
 
 @contextlib.contextmanager
 def _small_chunk_cache():
-    try:
-        import netCDF4
-    except ImportError:  # pragma: no cover - h5netcdf engine
-        yield
-        return
+    import netCDF4
+
     old = netCDF4.get_chunk_cache()
     netCDF4.set_chunk_cache(WRITE_CHUNK_CACHE_BYTES, old[1], old[2])
     try:
@@ -755,8 +744,7 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
     out, encoding = _prepared(ds, _complevel(compress), history, attrs, time_chunk)
 
     def fill(tmp):
-        out.to_netcdf(tmp, mode="w", format="NETCDF4", engine=_netcdf_engine(),
-                      encoding=encoding)
+        out.to_netcdf(tmp, mode="w", format="NETCDF4", engine="netcdf4", encoding=encoding)
 
     return _atomic_write(path, fill, late_attrs)
 

@@ -62,10 +62,10 @@ builds it about ten times at most.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -75,6 +75,7 @@ from scipy.interpolate import CubicSpline, PchipInterpolator
 from .._wrap import as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
+from ..io import temporary_name
 from .lshell import _broadcast_time, _leading, hilton_l, l_to_surface, needs_surface
 from .trace import _as_start_points, blocks, time_block, trace_lines
 
@@ -357,9 +358,9 @@ def drift_shell_table(
     See the module docstring for the drift-shell label (McIlwain L of
     particles mirroring at the weaker footpoint) and the interpolation.
     The cache file name holds a hash of the model, epoch key, altitude, L
-    grid, ``n_lon`` and :data:`TABLE_VERSION`; files are written to a
-    temporary name in the cache folder and moved into place with
-    :func:`os.replace`.
+    grid, ``n_lon`` and :data:`TABLE_VERSION`; files (netCDF-3, written by
+    scipy) go to a temporary name in the cache folder, are flushed to disk
+    and moved into place with :func:`os.replace`.
     """
     altitude_km = _check_altitude(altitude_km)
     lv = _check_l_values(l_values)
@@ -369,14 +370,10 @@ def drift_shell_table(
     model = _fixed_model(model, t.reshape(-1)[0])
     key, t_eval = _epoch_of(model, t.reshape(-1)[0])
     path, ident = _table_path(model, key, altitude_km, lv, n_lon)
-    if cache and not refresh and path.exists():
-        try:
-            with xr.open_dataset(path, engine="h5netcdf") as f:
-                ds = f.load()
-            if ds.attrs.get("cache_identity") == ident:
-                return ds
-        except (OSError, ValueError, KeyError):
-            pass  # unreadable or foreign file: rebuild it
+    if cache and not refresh:
+        stored = _read_table(path, ident)
+        if stored is not None:
+            return stored
     ds = _build_table(model, t_eval, altitude_km, lv, n_lon, **trace_options)
     ds.attrs.update(
         {
@@ -393,20 +390,57 @@ def drift_shell_table(
         }
     )
     if cache:
-        _write_atomic(ds, path)
+        _write_table(ds, path)
     return ds
 
 
-def _write_atomic(ds, path):
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".nc", dir=path.parent)
-    os.close(fd)
+# The cache is read and written with xarray's "scipy" engine (netCDF-3, pure Python,
+# scipy being a runtime dependency), never through the netCDF-C/HDF5 libraries: a
+# table can be built or read while another thread of the process writes a summary
+# through netCDF4 (beltkit.batch's pipelined summarize computes file k while file
+# k-1 is written), and those C libraries are not thread-safe.
+
+
+def _read_table(path, ident):
+    """Return the cached table at `path` if it is readable and its identity is `ident`, else None.
+
+    An unreadable or foreign file (a table of an older beltkit included) is
+    not trusted: the caller rebuilds it and writes it over.
+    """
+    if not path.exists():
+        return None
     try:
-        ds.to_netcdf(tmp, engine="h5netcdf")
+        with open(path, "rb") as fh, xr.open_dataset(fh, engine="scipy") as f:
+            ds = f.load()  # (the file object is closed here even when parsing fails)
+    except (OSError, ValueError, TypeError, KeyError, RuntimeError):
+        return None
+    return ds if ds.attrs.get("cache_identity") == ident else None
+
+
+def _write_table(ds, path):
+    """Write the table atomically: temporary file beside `path`, fsync, :func:`os.replace`.
+
+    The same sequence as :mod:`beltkit.io`'s writer (with its temporary names,
+    so :func:`beltkit.io.remove_stale_temporaries` knows leftovers), kept here
+    because that writer goes through netCDF-C (see the note above).
+    """
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = temporary_name(path)
+    try:
+        ds.to_netcdf(tmp, engine="scipy")
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
         os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+        raise
+    with contextlib.suppress(OSError):  # some file systems cannot fsync a folder
+        dir_fd = os.open(path.parent, os.O_RDONLY)
+        try:
+            os.fsync(dir_fd)
+        finally:
+            os.close(dir_fd)
 
 
 def _asin_deg(ratio):
