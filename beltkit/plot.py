@@ -621,13 +621,21 @@ def spectrogram(ds, summary=None, *, energy=None, pitch_angle=None, ax=None, axe
         else:
             ax.set_ylim(0, 1)
         ax.set_ylabel(ylabel.replace(" (partial coverage)", "\n(partial coverage)"))
-        ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
+        quasi_drawn = ylabel.startswith("precipitating (per energy)")
+        if quasi_drawn:  # two kinds of lines fill the panel: the legend goes above it
+            ax.legend(fontsize="x-small", ncols=5, loc="lower left", bbox_to_anchor=(0, 1.0),
+                      borderaxespad=0.2, framealpha=0.85)
+        else:
+            ax.legend(fontsize="x-small", ncols=4, loc="upper left", framealpha=0.85)
+    else:
+        quasi_drawn = False
     first, last = _runs(beyond)
     if first.size:
         edges = _time_edges(times)
         for i, j in zip(first, last):
             ax.axvspan(edges[i], edges[j + 1], facecolor="0.82", edgecolor="none", zorder=0)
-        ax.set_title(_L_MASK_NOTE.format(l_max=l_max), fontsize="small")
+        ax.set_title(_L_MASK_NOTE.format(l_max=l_max), fontsize="small",
+                     pad=22 if quasi_drawn else 6)
     if L is not None:
         twin = ax.twinx() if summary is not None else ax
         shown = np.where(beyond, np.nan, L)
