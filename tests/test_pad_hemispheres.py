@@ -11,6 +11,7 @@ import datetime as dt
 import numpy as np
 import ppigrf
 import pytest
+import xarray as xr
 from scipy import integrate
 from test_pad_support import make_ds
 
@@ -43,7 +44,7 @@ def test_centred_dipole_hemispheres_add_up_to_the_precipitating_flux(engine):
     j[..., 6:] += 4.0  # up- and down-going flux differ
     ds = make_ds(j, EDGES_12, L=[1.3, 1.6, 2.2], mlat=[0.0, 20.0, -15.0],
                  flux_err=0.1 * j)
-    out = partition(ds, engine=engine)
+    out = partition(ds, engine=engine, hemispheres=True)
     # centred dipole: B_N = B_S, both cones equal the bounce loss cone
     np.testing.assert_array_equal(out.loss_cone_north.values, out.blc_local.values)
     np.testing.assert_array_equal(out.loss_cone_south.values, out.blc_local.values)
@@ -75,14 +76,15 @@ def test_folded_bins_lose_the_same_flux_at_both_ends():
     # folded data stand for both directions: with equal cones, each end gets half of the
     # precipitating flux
     j = np.linspace(1, 6, 6)[None, None, :]
-    out = partition(make_ds(j, np.linspace(0, 90, 7), L=1.5, folded=True))
+    out = partition(make_ds(j, np.linspace(0, 90, 7), L=1.5, folded=True), hemispheres=True)
     np.testing.assert_allclose(out.flux_lost_north.values, out.flux_lost_south.values,
                                rtol=1e-12)
     np.testing.assert_allclose(out.flux_lost_north.values, 0.5 * out.flux_precipitating.values,
                                rtol=1e-12)
     full = make_ds(np.concatenate([j, j[..., ::-1]], axis=-1), EDGES_12, L=1.5)
     np.testing.assert_allclose(out.flux_lost_north.values,
-                               partition(full).flux_lost_north.values, rtol=1e-12)
+                               partition(full, hemispheres=True).flux_lost_north.values,
+                               rtol=1e-12)
 
 
 def test_hemisphere_uncertainties_follow_the_jacobian():
@@ -92,13 +94,13 @@ def test_hemisphere_uncertainties_follow_the_jacobian():
     j = rng.uniform(1, 10, (1, 1, 12))
     s = rng.uniform(0.1, 1.0, (1, 1, 12))
     L, mlat = 1.35, 12.0  # cones of about 50 deg: edges inside bins
-    out = partition(make_ds(j, EDGES_12, L=L, mlat=mlat, flux_err=s))
+    out = partition(make_ds(j, EDGES_12, L=L, mlat=mlat, flux_err=s), hemispheres=True)
     h = 1e-6 * j[0, 0]
     jj = np.repeat(j, 24, axis=0)
     for i in range(12):
         jj[2 * i, 0, i] += h[i]
         jj[2 * i + 1, 0, i] -= h[i]
-    pert = partition(make_ds(jj, EDGES_12, L=L, mlat=mlat))
+    pert = partition(make_ds(jj, EDGES_12, L=L, mlat=mlat), hemispheres=True)
     for name in ("flux_lost_north", "flux_lost_south", "fraction_lost_north",
                  "fraction_lost_south"):
         v = pert[name].values[:, 0]
@@ -153,7 +155,7 @@ def test_off_equator_igrf_hemispheres_match_an_independent_calculation():
     ds = make_ds(j, EDGES_12).drop_vars(["L", "mlat"])
     ds = ds.assign_coords(time=[t0])
     ds["position_geo"] = (("time", "xyz"), x0[None, :], {"units": "km"})
-    out = partition(ds, model="igrf")
+    out = partition(ds, model="igrf", hemispheres=True)
     assert float(out.loss_cone_north[0]) == pytest.approx(lc_n, abs=2e-3)
     assert float(out.loss_cone_south[0]) == pytest.approx(lc_s, abs=2e-3)
     assert float(out.blc_local[0]) == pytest.approx(max(lc_n, lc_s), abs=2e-3)
@@ -170,3 +172,21 @@ def test_off_equator_igrf_hemispheres_match_an_independent_calculation():
         gap = _binned_integral(EDGES_12, j[0, e], lc_n, lc_s)
         assert float(out.flux_precipitating[0, e] - out.flux_lost_north[0, e]
                      - out.flux_lost_south[0, e]) == pytest.approx(gap, rel=1e-3)
+
+
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
+def test_hemispheres_on_request_change_nothing_else(engine):
+    rng = np.random.default_rng(6)
+    j = rng.uniform(1, 10, (5, 2, 12))
+    j[1, 0, 3] = np.nan  # the general path of the compiled kernel too
+    ds = make_ds(j, EDGES_12, L=np.linspace(1.3, 3, 5), flux_err=0.1 * j)
+    full = partition(ds, engine=engine, hemispheres=True)
+    lean = partition(ds, engine=engine)  # the default leaves them out
+    hemi = [n for n in full.data_vars if "_lost_" in n]
+    assert len(hemi) == 8 and not [n for n in lean.data_vars if "_lost_" in n]
+    xr.testing.assert_identical(full.drop_vars(hemi), lean)
+    # the sample with a missing bin still splits exactly (direct quadrature, bin 3 unsampled)
+    blc = float(full.blc_local[1])
+    jj = np.where(np.isnan(j[1, 0]), 0.0, j[1, 0])
+    assert float(full.flux_lost_north[1, 0]) == pytest.approx(
+        _binned_integral(EDGES_12, jj, 0.0, blc), rel=1e-9)

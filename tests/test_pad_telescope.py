@@ -91,7 +91,7 @@ def test_populations_match_an_independent_band_integration(case, n, engine):
     lo, hi = _bands(axis, half)
     j_look = np.array([_band_mean(a, b, n) for a, b in zip(lo, hi)]) * 1e3
     ds = make_telescope_ds(j_look[None, None, :], axis, half, L=L)
-    out = partition(ds, engine=engine)
+    out = partition(ds, engine=engine, hemispheres=True)
     assert float(out.blc_local[0]) == pytest.approx(blc, rel=1e-14)
     ref = {p: _reference(axis, half, j_look, r) for p, r in _populations(blc).items()}
     total = ref["precipitating"][0] + ref["trapped"][0]
@@ -145,17 +145,17 @@ def test_a_look_without_a_value_leaves_the_union_to_the_others(engine):
     err = np.array([[[0.5, np.nan, 0.2], [0.5, 0.9, 0.2]]])
     ds = make_telescope_ds(flux, axis, half, L=1.5)
     ds["flux_err"] = (("time", "energy", "look"), err, {"units": ds.flux.attrs["units"]})
-    out = partition(ds, engine=engine)
+    out = partition(ds, engine=engine, hemispheres=True)
     keep = [0, 2]
     ds_two = make_telescope_ds(flux[:, :1, keep], np.array(axis)[keep], np.array(half)[keep],
                                L=1.5)
     ds_two["flux_err"] = (("time", "energy", "look"), err[:, :1, keep],
                           {"units": ds.flux.attrs["units"]})
-    two = partition(ds_two, engine=engine)
+    two = partition(ds_two, engine=engine, hemispheres=True)
     ds_all = make_telescope_ds(flux[:, 1:], axis, half, L=1.5)
     ds_all["flux_err"] = (("time", "energy", "look"), err[:, 1:],
                           {"units": ds.flux.attrs["units"]})
-    full = partition(ds_all, engine=engine)
+    full = partition(ds_all, engine=engine, hemispheres=True)
     for name in ("flux_precipitating", "flux_trapped", "solid_angle_precipitating",
                  "coverage_trapped", "fraction_precipitating", "fraction_precipitating_err",
                  "flux_lost_north", "flux_lost_north_err", "partition_flag"):
@@ -177,8 +177,8 @@ def test_engines_agree_on_overlapping_looks_with_errors():
                            mlat=np.linspace(-30, 30, n_t))
     ds["look_pitch_angle"] = (("time", "look"), look, {"units": "degree"})
     ds["flux_err"] = (("time", "energy", "look"), 0.1 * flux, {"units": ds.flux.attrs["units"]})
-    a = partition(ds, engine="numba")
-    b = partition(ds, engine="numpy")
+    a = partition(ds, engine="numba", hemispheres=True)
+    b = partition(ds, engine="numpy", hemispheres=True)
     for name in a.data_vars:
         # atol: an error bar that cancels to ~1e-10 keeps only its rounding
         np.testing.assert_allclose(a[name].values, b[name].values, rtol=1e-11, atol=1e-8,
