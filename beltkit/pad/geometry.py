@@ -223,10 +223,14 @@ def look_solid_angles(look_deg, half_deg, r1_deg, r2_deg):
 def swept_band(axis_deg, half_angle_deg):
     """Pitch-angle band swept by a circular field of view over a gyration.
 
+    Under gyrotropy the look stands for this band, with its flux uniform over
+    it (as a pitch-angle bin).
+
     Parameters
     ----------
     axis_deg : array_like
-        Pitch angle of the look direction (deg).
+        Pitch angle of the look direction (deg): that of the particles that
+        enter the detector, 180 deg minus the angle between boresight and B.
     half_angle_deg : array_like
         Field-of-view half-angle (deg).
 
