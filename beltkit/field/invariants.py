@@ -76,6 +76,7 @@ from ..constants import GAUSS_PER_NT, R_E_KM
 from ..dipole import y_integral_kernel
 from ..errors import PhysicsError
 from .coords import frame_matrix
+from .lshell import kp_level_variable, model_attrs
 from .trace import blocks, time_block, trace_lines
 
 __all__ = ["LSTAR_REASONS", "lstar", "second_invariant_k"]
@@ -496,8 +497,11 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
         ``k`` (G0.5 R_E), ``b_mirror`` (nT), ``i_invariant`` (km),
         ``dipole_b0`` (nT; :math:`k_0 = B_0 R_E^3`) and ``drift_shell_xyz``
         (GEO km, ``mlt`` x ``xyz``: the start points of the shell's field
-        lines in the SM equatorial plane). Attributes state :math:`k_0`, the
-        footprint sphere and the number of MLTs.
+        lines in the SM equatorial plane); for :class:`~beltkit.field.T89`
+        also ``kp_level`` per sample. Attributes state :math:`k_0`, the
+        footprint sphere, the number of MLTs and the model
+        (``field_model``, ``field_model_description``; ``kp``, ``kp_level``
+        for one fixed Kp).
 
     Notes
     -----
@@ -571,6 +575,9 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
                     "term of the sample's epoch, R_E = 6371.2 km",
         "lstar_footprint_altitude_km": altitude_km,
         "lstar_n_mlt": n_mlt,
-        "field_model": str(getattr(model, "name", type(model).__name__)),
+        **model_attrs(model),  # which model and, for T89, which Kp
     }
+    kp = kp_level_variable(model, t, lead, d)
+    if kp is not None:
+        ds["kp_level"] = kp
     return ds

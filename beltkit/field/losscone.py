@@ -76,7 +76,16 @@ from .._wrap import as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
 from ..io import temporary_name
-from .lshell import _broadcast_time, _leading, hilton_l, l_to_surface, needs_surface
+from .lshell import (
+    _broadcast_time,
+    _leading,
+    hilton_l,
+    kp_level_variable,
+    l_to_surface,
+    model_attrs,
+    needs_surface,
+    open_reason_variable,
+)
 from .trace import _as_start_points, blocks, time_block, trace_lines
 
 __all__ = [
@@ -480,7 +489,12 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         particles; lines whose other mirror point lies below the stop
         altitude are traced to the surface for it), ``L_foot`` (the
         drift-shell label), ``mlat``, ``mlon`` (deg), ``mlt`` (h) (also as
-        ``mlat_deg``, ``mlt_hours``), ``open``.
+        ``mlat_deg``, ``mlt_hours``), ``open`` and ``open_reason`` (CF
+        flags of :data:`beltkit.field.trace.OPEN_REASONS`: boundary, maximum
+        radius, step limit); for :class:`~beltkit.field.T89` also
+        ``kp_level`` per sample (-1 where Kp is undefined). Attributes
+        ``field_model`` (short name), ``field_model_description`` (internal
+        model and Kp) and, for one fixed Kp, ``kp`` and ``kp_level``.
         Loss cones and L are NaN for open lines and NaN positions; the
         drift quantities are NaN outside the table's L range.
 
@@ -519,6 +533,7 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
                                                  "b_min", "l_local", "l_foot")}
     closed = np.zeros(n, dtype=bool)
     is_open = np.zeros(n, dtype=bool)
+    reason = np.zeros(n, dtype=np.int8)
     for sl in blocks(n):  # batches of lines (bounded memory), not single samples
         lines = trace_lines(model, x[sl], time_block(t, sl), altitude_km, arg_name="xyz_km",
                             **trace_options)
@@ -526,6 +541,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
             per_line[k][sl] = getattr(lines, k)
         closed[sl] = lines.closed
         is_open[sl] = lines.open
+        reason[sl] = (lines.open_reason if lines.open_reason is not None
+                      else np.where(lines.open, 3, 0))
         with np.errstate(invalid="ignore"):
             weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
         i_both = lines.integral_invariant(np.stack([lines.b_start, weak], axis=1))
@@ -614,10 +631,18 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     data = {k: (dims, np.asarray(v).reshape(lead), {"units": u, "long_name": ln})
             for k, (v, u, ln) in out.items()}
     data["open"] = (dims, is_open.reshape(lead),
-                    {"long_name": "field line escaped or exceeded the step limit"})
+                    {"long_name": "field line open: it left the model's outer boundary, went "
+                                  "beyond the maximum radius or exceeded the step limit (no "
+                                  "footpoint; see open_reason)"})
+    data["open_reason"] = open_reason_variable(reason, lead, dims)
+    kp = kp_level_variable(model, t, lead, dims)
+    if kp is not None:
+        data["kp_level"] = kp
     ds = xr.Dataset(data, coords=coords_in or None)
+    for k in ("blc_local", "dlc_local", "blc_equatorial", "dlc_equatorial", "L"):
+        ds[k].attrs["ancillary_variables"] = "open_reason"
     ds.attrs["altitude_km"] = altitude_km
-    ds.attrs["field_model"] = getattr(model, "name", type(model).__name__)
+    ds.attrs.update(model_attrs(model))
     ds.attrs["drift_shell_label"] = ("McIlwain L of particles mirroring at the weaker footpoint; "
                                      "see beltkit.field.losscone")
     return ds

@@ -17,7 +17,8 @@ from .._wrap import array_api, as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
 
-__all__ = ["dipole_l", "hilton_l", "mcilwain_l"]
+__all__ = ["dipole_l", "hilton_l", "kp_level_variable", "mcilwain_l", "model_attrs",
+           "open_reason_variable"]
 
 # Hilton (1971) coefficients (from memory; verified in tests/test_field_lshell.py by
 # quadrature of I in a dipole, which gives back the dipole L to better than 3e-4)
@@ -160,6 +161,74 @@ def l_to_surface(model, xyz_km, time, b_m_nt, b0_nt, **trace_options):
     return out
 
 
+def model_attrs(model) -> dict:
+    """Attributes naming the field model of an output and, for T89, its activity.
+
+    Parameters
+    ----------
+    model : FieldModel
+        The model used.
+
+    Returns
+    -------
+    dict
+        ``field_model`` (the model's short name, e.g. ``"t89"``),
+        ``field_model_description`` (its ``repr``: internal model, Kp level
+        or Kp series); for a model with one fixed Kp also ``kp`` (the value
+        given) and ``kp_level`` (the coefficient set, 0-6).
+    """
+    out = {"field_model": str(getattr(model, "name", type(model).__name__)),
+           "field_model_description": repr(model)}
+    if getattr(model, "level", None) is not None and getattr(model, "kp", None) is not None:
+        out["kp"] = float(model.kp)
+        out["kp_level"] = int(model.level)
+    return out
+
+
+def kp_level_variable(model, time, lead, dims):
+    """Per-sample Kp level (coefficient set 0-6) of a Kp-parameterised model, else None.
+
+    Parameters
+    ----------
+    model : FieldModel
+        The model used; only one with ``levels(time)`` (:class:`~beltkit.field.T89`)
+        gets a variable.
+    time : scalar or ndarray
+        The samples' times (flat, or one time).
+    lead : tuple
+        Leading shape of the samples.
+    dims : tuple of str
+        Their dimension names.
+
+    Returns
+    -------
+    xarray.Variable or None
+        int8, -1 where Kp is undefined (NaN or NaT), with CF ``flag_values``
+        and ``flag_meanings`` (the Kp interval of each set).
+    """
+    levels = getattr(model, "levels", None)
+    if levels is None:
+        return None
+    from .t89 import KP_LEVEL_RANGES
+
+    lev = np.broadcast_to(np.asarray(levels(time), dtype=np.int8), lead)
+    meanings = ["kp_undefined"] + [f"kp_{lo:g}_to_{hi:g}" for lo, hi in KP_LEVEL_RANGES]
+    return xr.Variable(dims, np.array(lev, dtype=np.int8), {
+        "long_name": "Kp level (coefficient set) of the Tsyganenko 1989 model used",
+        "flag_values": np.arange(-1, len(KP_LEVEL_RANGES), dtype=np.int8),
+        "flag_meanings": " ".join(meanings).replace(".", "p")})
+
+
+def open_reason_variable(reason, lead, dims):
+    """``open_reason`` of traced lines as a CF flag variable (codes of ``trace.OPEN_REASONS``)."""
+    from .trace import OPEN_REASONS
+
+    return xr.Variable(dims, np.asarray(reason, dtype=np.int8).reshape(lead), {
+        "long_name": "why the field line through the sample is open (0: not open)",
+        "flag_values": np.array(sorted(OPEN_REASONS), dtype=np.int8),
+        "flag_meanings": " ".join(OPEN_REASONS[k] for k in sorted(OPEN_REASONS))})
+
+
 def _leading(xyz_km, name="xyz_km"):
     """Return (values (N,3), leading shape, leading dims/coords or None)."""
     dims = coords = None
@@ -192,7 +261,8 @@ def _broadcast_time(time, lead):
         ) from exc
 
 
-def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **trace_options):
+def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
+               as_dataset=False, **trace_options):
     r"""McIlwain L of particles at GEO positions with a given local pitch angle.
 
     Parameters
@@ -211,15 +281,23 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
         Stop altitude of the tracing. Lines whose mirror point lies below
         it are traced again down to the surface (the reference sphere);
         particles that would mirror below the surface get NaN.
+    as_dataset : bool, default False, keyword-only
+        Return an :class:`xarray.Dataset` (dimension ``sample`` for numpy
+        input) with ``L``, ``open``, ``open_reason`` and, for a
+        Kp-parameterised model, ``kp_level`` instead of the bare L.
     **trace_options
         Passed to :func:`beltkit.field.trace.trace_lines` (``rtol``, ...).
 
     Returns
     -------
-    ndarray or DataArray
+    ndarray, DataArray or Dataset
         McIlwain L with the leading shape of `xyz_km` (a DataArray, with the
         leading dimensions, for DataArray input). NaN for NaN positions, open
-        field lines and mirror points below the stop altitude.
+        field lines and mirror points below the stop altitude. A DataArray
+        carries the coordinate ``open_reason`` (CF flags of
+        :data:`beltkit.field.trace.OPEN_REASONS`: why a line is open), for
+        :class:`~beltkit.field.T89` also ``kp_level``, and the attributes of
+        :func:`model_attrs` (which model and Kp).
 
     Notes
     -----
@@ -251,9 +329,11 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
     _as_start_points(x, R_E_KM + float(altitude_km), "xyz_km")  # fail before any tracing
     b0 = np.broadcast_to(np.asarray(model.dipole_b0_nt(t), dtype=float), (n,))
     out = np.full(n, np.nan)
+    reason = np.zeros(n, dtype=np.int8)
     for sl in blocks(n):  # batches of lines (bounded memory), not single samples
         lines = trace_lines(model, x[sl], time_block(t, sl), altitude_km, arg_name="xyz_km",
                             **trace_options)
+        reason[sl] = _open_reason(lines)
         b_m = lines.b_start / np.sin(np.radians(alpha[sl])) ** 2
         i_km = lines.integral_invariant(b_m)
         ok = np.isfinite(i_km)
@@ -265,7 +345,29 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, **t
             view[deeper] = l_to_surface(model, x[sl][deeper], tb[deeper] if np.ndim(tb) else tb,
                                         b_m[deeper], b0[sl][deeper], **trace_options)
     out = out.reshape(lead)
-    if dims is not None:
-        return xr.DataArray(out, dims=dims, coords=coords, name="L",
-                            attrs={"units": "1", "long_name": "McIlwain L"})
-    return out if lead else float(out)
+    if dims is None and not as_dataset:
+        return out if lead else float(out)
+    if dims is None:
+        dims = ("sample",) if len(lead) == 1 else tuple(f"sample_{i}" for i in range(len(lead)))
+    extra = {"open_reason": open_reason_variable(reason, lead, dims)}
+    kp = kp_level_variable(model, t, lead, dims)
+    if kp is not None:
+        extra["kp_level"] = kp
+    attrs = {"units": "1", "long_name": "McIlwain L", **model_attrs(model)}
+    if as_dataset:
+        ds = xr.Dataset({"L": xr.Variable(dims, out, {"units": "1", "long_name": "McIlwain L",
+                                                      "ancillary_variables": "open_reason"}),
+                         "open": xr.Variable(dims, reason > 0, {
+                             "long_name": "field line open: no footpoint (see open_reason)"}),
+                         **extra}, coords=coords or None)
+        ds.attrs.update(model_attrs(model))
+        return ds
+    return xr.DataArray(out, dims=dims, coords={**(coords or {}), **extra}, name="L",
+                        attrs=attrs)
+
+
+def _open_reason(lines):
+    """Open-line reason codes of traced lines (3, the step limit, for open lines without one)."""
+    if lines.open_reason is not None:
+        return np.asarray(lines.open_reason, dtype=np.int8)
+    return np.where(lines.open, 3, 0).astype(np.int8)
