@@ -61,6 +61,7 @@ from .io import (
 )
 
 __all__ = [
+    "DIFFUSION_DEFAULTS",
     "FIELD_CHOICES",
     "FileResult",
     "SUMMARY_SUFFIX",
@@ -88,7 +89,12 @@ SURVEY_VARIABLES = (
     "flux_trapped",
     "omni_flux",
     "loss_cone_filling",
+    "diffusion_coefficient",
+    "z0",
+    "lifetime",
 )
+#: Survey variables that span decades: their median is the meaningful statistic.
+_LOG_SPREAD = ("diffusion_coefficient", "z0", "lifetime")
 _INPUT_SUFFIXES = (".nc", ".nc4", ".cdf", ".h5", ".hdf5")
 #: samples per slab of a summarized file (about 100 MB of float32 flux and errors in memory;
 #: a day at 1 s is one slab)
@@ -286,14 +292,46 @@ def _epoch_text(field, epoch, geo_position) -> str:
     return f"{B0_EPOCH:g} (dipole closed forms from the file's L and mlat)"
 
 
-def _settings(field, altitude_km, epoch, mapping, compress) -> dict:
+#: Options of ``summarize(..., diffusion=...)`` and their defaults.
+DIFFUSION_DEFAULTS = {"loss_time": "half_bounce", "species": "electron", "interval_sigma": 2.0}
+
+
+def _diffusion_options(diffusion):
+    """Return the checked diffusion options (a dict), or None when the outputs are not wanted.
+
+    ``diffusion`` is None/False (off), True (the defaults of
+    :data:`DIFFUSION_DEFAULTS`) or a mapping with some of its keys.
+    """
+    if diffusion is None or diffusion is False:
+        return None
+    opts = {} if diffusion is True else dict(diffusion)
+    unknown = sorted(set(opts) - set(DIFFUSION_DEFAULTS))
+    if unknown:
+        raise ValueError(f"diffusion options {unknown} are unknown; use "
+                         f"{', '.join(DIFFUSION_DEFAULTS)} (or diffusion=True for the defaults)")
+    opts = {**DIFFUSION_DEFAULTS, **opts}
+    from .diffusion import LOSS_TIMES
+    from .particles import get_species
+
+    if opts["loss_time"] not in LOSS_TIMES:
+        raise ValueError(f"diffusion loss_time must be one of {', '.join(LOSS_TIMES)}, got "
+                         f"{opts['loss_time']!r}")
+    sigma = float(opts["interval_sigma"])
+    if not (np.isfinite(sigma) and sigma > 0):
+        raise ValueError(f"diffusion interval_sigma must be a positive number of sigmas, got "
+                         f"{opts['interval_sigma']!r}")
+    return {"loss_time": str(opts["loss_time"]), "species": get_species(opts["species"]).name,
+            "interval_sigma": sigma}
+
+
+def _settings(field, altitude_km, epoch, mapping, compress, diffusion=None) -> dict:
     if mapping is None:
         mapping_key = None
     elif isinstance(mapping, dict):
         mapping_key = {k: mapping.get(k, {}) for k in ("variables", "units", "dimensions")}
     else:
         mapping_key = sha256(mapping)
-    return {
+    settings = {
         "field": field if isinstance(field, str) else getattr(field, "name", repr(field)),
         "altitude_km": float(altitude_km),
         "epoch": None if epoch is None else str(epoch),
@@ -301,6 +339,9 @@ def _settings(field, altitude_km, epoch, mapping, compress) -> dict:
         "compress": int(4 if compress is True else 0 if not compress else compress),
         "beltkit_version": __version__,
     }
+    if diffusion is not None:  # only then: summaries made without it stay up to date
+        settings["diffusion"] = dict(diffusion)
+    return settings
 
 
 def _settings_text(settings: dict) -> str:
@@ -311,7 +352,7 @@ def _settings_text(settings: dict) -> str:
 
 
 def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
-                      epoch=None) -> xr.Dataset:
+                      epoch=None, diffusion=None) -> xr.Dataset:
     """Partition one flux dataset and keep the position for the survey.
 
     Parameters
@@ -327,17 +368,27 @@ def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
     epoch : float or str, optional
         Epoch of the dipole (decimal year); used when the dataset gives its
         position in GEO coordinates (``field="dipole"`` only).
+    diffusion : bool or dict, optional
+        Add the outputs of :func:`beltkit.diffusion.from_pitch_angle_data`
+        (``z0``, ``diffusion_coefficient``, ``lifetime``, their intervals, the
+        regime and flags), computed with the partition's loss cones. True takes
+        :data:`DIFFUSION_DEFAULTS`; a dict sets some of ``loss_time``
+        (``"half_bounce"`` or ``"quarter_bounce"``), ``species`` and
+        ``interval_sigma``.
 
     Returns
     -------
     xarray.Dataset
         :func:`beltkit.pad.partition`'s result plus ``L``, ``mlat`` and ``mlt``
-        per time when the input has them; its attributes name the model used.
+        per time when the input has them; its attributes name the model used
+        (and, with ``diffusion``, the diffusion conventions as ``beltkit_*``).
     """
-    return _summary(ds, field=field, altitude_km=altitude_km, epoch=epoch)[0]
+    return _summary(ds, field=field, altitude_km=altitude_km, epoch=epoch,
+                    diffusion=_diffusion_options(diffusion))[0]
 
 
-def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=None):
+def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=None,
+             diffusion=None):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
     With ``defer_value_check`` the flux values of lazy data are checked by
@@ -350,13 +401,80 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
     model = _field_model(field, epoch, ds)
     out, pending = _partition(ds, model=model, altitude_km=altitude_km,
                               defer_value_check=defer_value_check, buffers=buffers)
+    if diffusion is not None:
+        counts = None if pending is None else pending[0]
+        valid = None if counts is None or hasattr(counts, "dask") else np.asarray(counts)[0]
+        out = _with_diffusion(out, ds, model, altitude_km, diffusion, valid)
     for name in _POSITION:
         if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
             out[name] = ds[name]
     return out, pending
 
 
-def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
+#: diffusion outputs that do not depend on the measured flux (kept where a slab has none)
+_DIFFUSION_MODEL_ONLY = ("loss_time", "strong_diffusion_lifetime")
+
+
+def _with_diffusion(out, ds, model, altitude_km, options, valid=None):
+    """Merge :func:`beltkit.diffusion.from_pitch_angle_data`'s outputs into a summary.
+
+    ``out`` is the partition of ``ds`` (its loss cones are reused). ``valid``,
+    when given, is the number of valid flux values per energy in ``ds`` (the
+    engine's count); ``ds`` may then be one time slab of a longer file whose
+    value checks are made on the whole file, so a channel without any valid
+    value in this slab is not refused here: the diffusion is computed with a
+    placeholder value in that channel, and its measured outputs are then set
+    as for a sample without data (NaN, regime 0, flag ``no_valid_data`` beside
+    ``loss_cone_unresolved`` where that holds) -- what the whole file gives
+    at those samples. Negative values are let through for the same reason
+    (the file's own checks refuse them).
+    """
+    from .diffusion import from_pitch_angle_data
+
+    dead = None if valid is None or not ds.sizes.get("time") else ~(np.asarray(valid) > 0)
+    src = ds
+    if dead is not None and dead.any():
+        src = _placeholder_channels(ds, model, np.flatnonzero(dead))
+    res = from_pitch_angle_data(src, model=model, altitude_km=altitude_km, cones=out,
+                                species=options["species"], loss_time=options["loss_time"],
+                                interval_sigma=options["interval_sigma"], allow_negative=True)
+    merged = out.copy()
+    for name, var in res.data_vars.items():
+        var = var.variable
+        if dead is not None and dead.any() and var.dims == ("time", "energy") \
+                and name not in _DIFFUSION_MODEL_ONLY:
+            values = np.array(var.values)
+            if name == "diffusion_flag":
+                values[:, dead] = (values[:, dead] & 8) | 16  # unresolved kept; no valid data
+            elif name == "diffusion_regime":
+                values[:, dead] = 0
+            else:
+                values[:, dead] = np.nan
+            var = var.copy(data=values)
+        merged[name] = var
+    for key, value in res.attrs.items():
+        if key.startswith("beltkit_") and key not in merged.attrs:
+            merged.attrs[key] = value
+    return merged
+
+
+def _placeholder_channels(ds, model, channels):
+    """Return a copy of ``ds`` with one valid flux value in each of the given energy channels."""
+    from .pad.conventions import check
+
+    mask = check(ds, model=model, check_values=False).flux_mask
+    flux = ds["flux"]
+    value = 1.0
+    if not (mask.vmin <= value <= mask.vmax) or value in mask.fill:
+        value = mask.vmin if np.isfinite(mask.vmin) else mask.vmax
+    other = [d for d in flux.dims if d not in ("time", "energy")][0]
+    filled = flux.copy(deep=True)
+    filled[{"time": 0, "energy": channels, other: 0}] = value
+    return ds.assign(flux=filled)
+
+
+def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None,
+                   diffusion=None):
     """Summarize a lazily indexed dataset one time slab at a time.
 
     Returns ``(slabs, finish, count, record)``: a generator of the summaries of consecutive
@@ -368,7 +486,8 @@ def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
     file before the first slab. ``count`` is the number of slabs; ``record`` the
     field model's name and the file's low-altitude note (:func:`_model_record`).
     ``computed``, if given, is called once the last slab is computed (before
-    it is written).
+    it is written). With ``diffusion`` (checked options) each slab is read
+    into memory once and its diffusion outputs are added (:func:`_with_diffusion`).
     """
     from .pad.conventions import check
 
@@ -385,11 +504,13 @@ def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
     def slabs():
         for a in starts:
             piece = ds.isel(time=slice(a, a + slab)) if n else ds
+            if diffusion is not None:  # read once for the partition and the diffusion
+                piece = piece[_read_names(piece)].load()
             # each slab is written out before the next is computed: the memory of its
             # outputs serves the next slab, and the next file (one file at a time)
             out, (counts, verify) = _summary(piece, field=model, altitude_km=altitude_km,
                                              epoch=None, defer_value_check=True,
-                                             buffers=_slab_buffers())
+                                             buffers=_slab_buffers(), diffusion=diffusion)
             state["totals"] = counts if state["totals"] is None else state["totals"] + counts
             state["verify"] = verify
             if computed is not None and a == starts[-1]:
@@ -401,6 +522,11 @@ def _summary_slabs(ds, *, field, altitude_km, epoch, slab=None, computed=None):
             state["verify"](state["totals"])
 
     return slabs(), finish, len(starts), record
+
+
+def _read_names(ds) -> list:
+    """Return the variables the summary reads (counts are not used beside flux_err)."""
+    return [v for v in ds.data_vars if not (v == "counts" and "flux_err" in ds.data_vars)]
 
 
 def _model_record(ds, model, prep) -> tuple:
@@ -560,7 +686,7 @@ def _process_file_locked(task: dict):
             nxt = task.get("next_input")
             slabs, finish, count, record = _summary_slabs(
                 ds, field=task["field"], altitude_km=settings["altitude_km"],
-                epoch=task["epoch"],
+                epoch=task["epoch"], diffusion=settings.get("diffusion"),
                 # the next input's checksum is read while this summary is written
                 computed=(lambda: _digest_ahead(Path(nxt))) if nxt else None)
             # the checksum, if already known, goes in with the other attributes;
@@ -620,17 +746,15 @@ def _read_and_compute(task: dict, buffers):
                 prep = check(ds, model=model, check_values=False)
                 if ds.sizes.get("time", 0) > _TIME_SLAB:
                     return None, None
-                # what the summary reads, in memory (counts are not used beside flux_err)
-                names = [v for v in ds.data_vars
-                         if not (v == "counts" and "flux_err" in ds.data_vars)]
-                piece = ds[names].load()
+                piece = ds[_read_names(ds)].load()
                 geo = "position_geo" in ds.variables
                 record = _model_record(piece, model, prep)
             finally:
                 ds.close()
         summary, (counts, verify) = _summary(piece, field=model,
                                              altitude_km=settings["altitude_km"], epoch=None,
-                                             defer_value_check=True, buffers=buffers)
+                                             defer_value_check=True, buffers=buffers,
+                                             diffusion=settings.get("diffusion"))
         verify(counts)  # a refused file is never written
         if task.get("next_input"):
             _digest_ahead(Path(task["next_input"]))  # read while this file is written
@@ -693,7 +817,7 @@ def _format_line(r: FileResult) -> str:
 def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
-              debug=False) -> list[FileResult]:
+              debug=False, diffusion=None) -> list[FileResult]:
     """Summarize flux files into loss-cone summary files, safely and resumably.
 
     Parameters
@@ -739,6 +863,13 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         Show a tqdm progress bar on stderr (default: when stderr is a terminal).
     debug : bool
         Print the traceback of each failure to stderr.
+    diffusion : bool or dict, optional
+        Add the pitch-angle diffusion outputs of
+        :func:`beltkit.diffusion.from_pitch_angle_data` to every summary (see
+        :func:`summarize_dataset`): True for :data:`DIFFUSION_DEFAULTS`, or a
+        dict with some of ``loss_time``, ``species`` and ``interval_sigma``.
+        The options are part of the settings that decide whether an output is
+        up to date, so changing them redoes the files.
 
     Returns
     -------
@@ -751,20 +882,22 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         If the mapping file itself is malformed (nothing is run).
     ValueError
         For an unknown field model, an epoch with a model other than the
-        dipole, or workers < 1.
+        dipole, workers < 1, or unknown diffusion options.
     """
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
     _check_field(field, epoch)
+    diffusion = _diffusion_options(diffusion)
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     remove_stale_temporaries(out_dir)
-    settings = _settings(field, altitude_km, epoch, mapping, compress)
+    settings = _settings(field, altitude_km, epoch, mapping, compress, diffusion)
     if command is None:
+        extra = {} if diffusion is None else {"diffusion": diffusion}
         command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
-                                   epoch=epoch, overwrite=overwrite)
+                                   epoch=epoch, overwrite=overwrite, **extra)
     tasks, results = [], {}
     by_output = {}
     for i, src in enumerate(files):
@@ -1094,6 +1227,14 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
                     problems.append(f"{p}: {key} {info['global'].get(key)!r} differs from "
                                     f"{ref['global'].get(key)!r} in {ref_path}{fix}")
         names = [n for n in SURVEY_VARIABLES if all(n in i["vars"] for _, i in infos)]
+        if any(n in _LOG_SPREAD for n in names):  # D depends on these conventions
+            for p, info in infos[1:]:
+                for key in ("beltkit_loss_time", "beltkit_species", "beltkit_interval_sigma"):
+                    if str(info["global"].get(key)) != str(ref["global"].get(key)):
+                        problems.append(f"{p}: diffusion setting {key} "
+                                        f"{info['global'].get(key)!r} differs from "
+                                        f"{ref['global'].get(key)!r} in {ref_path}; summarize "
+                                        f"them all with the same diffusion options")
         if not names:
             problems.append("the summaries share none of the variables "
                             + ", ".join(SURVEY_VARIABLES))
@@ -1170,6 +1311,12 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
             attrs = {"units": units, "long_name": f"{text} of {label} per cell"}
             if method:
                 attrs["cell_methods"] = f"{methods} {method}"
+            if n in _LOG_SPREAD:
+                attrs["comment"] = (
+                    f"{n} spans decades within a cell: the median is the meaningful statistic "
+                    "(the mean and standard deviation are dominated by the largest values); "
+                    "samples where only a bound is known (diffusion_flag 2 or 4) have no value "
+                    "and are not counted")
             data_vars[f"{n}_{stat}"] = (dims, arr.reshape(shape), attrs)
     coords = {
         "time": ("time", t_mid, {"standard_name": "time", "long_name": "time window centre",
@@ -1193,6 +1340,11 @@ def survey(summaries, out_file, *, l_edges=None, mlt_edges=None, time_window=Non
         "footpoint_altitude_km": g.get("footpoint_altitude_km", np.nan),
         "time_window": "all samples" if time_window is None else str(time_window),
     }
+    if any(n in _LOG_SPREAD for n in names):
+        for key in ("beltkit_loss_time", "beltkit_species", "beltkit_interval_sigma",
+                    "beltkit_regime_boundary"):
+            if key in g:
+                attrs[key] = g[key]
     noted = [(p.name, i["global"]["field_model_note"]) for p, i in infos
              if i["global"].get("field_model_note")]
     if noted:  # e.g. the centred dipole below 2,000 km: said once, with the files it concerns

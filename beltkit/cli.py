@@ -13,6 +13,12 @@ Commands
     file that carries ``position_geo`` and the centred dipole for one that
     carries only ``L`` and ``mlat``; ``--field dipole`` or ``igrf`` forces
     one model. Each summary names the model it used (``field_model``).
+    ``--diffusion`` adds the pitch-angle diffusion outputs (``z0``,
+    ``diffusion_coefficient``, ``lifetime``, intervals, regime, flags; see
+    ``docs/diffusion.md``), with ``--loss-time half_bounce|quarter_bounce``,
+    ``--species`` and ``--interval-sigma``::
+
+        beltkit summarize data/*.nc --out summaries --diffusion --loss-time quarter_bounce
 
 ``beltkit survey SUMMARY... --out FILE``
     Bin summaries onto an L x MLT (x time-window) grid::
@@ -99,6 +105,13 @@ def _number_arg(text) -> float:
         return float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+
+
+def _positive_number(text):
+    value = _number_arg(text)
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"must be a finite number > 0, got {text}")
+    return value
 
 
 def _energy_kev(text):
@@ -281,6 +294,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="address of a running dask.distributed scheduler, e.g. "
                         "tcp://10.0.0.5:8786")
+    p.add_argument("--diffusion", action="store_true",
+                   help="add pitch-angle diffusion outputs (z0, diffusion coefficient, "
+                        "lifetime with their intervals, regime, flags) from the loss-cone "
+                        "filling; see docs/diffusion.md")
+    p.add_argument("--loss-time", choices=("half_bounce", "quarter_bounce"), default=None,
+                   help="with --diffusion: loss time in the loss cone (default: half_bounce)")
+    p.add_argument("--species", default=None, metavar="NAME",
+                   help="with --diffusion: species of the flux (default: electron)")
+    p.add_argument("--interval-sigma", type=_positive_number, default=None, metavar="K",
+                   help="with --diffusion: half-width of the intervals in sigmas of the "
+                        "measured ratio (default: 2)")
 
     p = sub.add_parser("survey", parents=[common], help="summaries -> L x MLT survey file",
                        description="Bin the summaries' fractions and integrated fluxes onto "
@@ -498,15 +522,34 @@ def _check_line_reaches(L, h) -> None:
 # ---------------------------------------------------------------------- commands
 
 
+def _diffusion_args(args):
+    """Return the ``diffusion`` argument of summarize from --diffusion and its options."""
+    given = {"loss_time": args.loss_time, "interval_sigma": args.interval_sigma,
+             "species": args.species}
+    given = {k: v for k, v in given.items() if v is not None}
+    if not args.diffusion:
+        if given:
+            flags = ", ".join("--" + k.replace("_", "-") for k in given)
+            one = len(given) == 1
+            raise _InputError(f"{flags} only appl{'ies' if one else 'y'} with --diffusion: add "
+                              f"--diffusion, or drop {'it' if one else 'them'}")
+        return None
+    if "species" in given:
+        given["species"] = _species(given["species"]).name
+    return given or True
+
+
 def _cmd_summarize(args, command) -> int:
     from .batch import summarize
 
+    diffusion = _diffusion_args(args)
     _expand_flux_inputs(args.inputs)  # before summarize creates the output folder
     results = summarize(
         args.inputs, args.out, field=args.field, altitude_km=args.footpoint_km,
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=_say, debug=args.debug,
+        diffusion=diffusion,
     )
     n_ok = sum(r.status == "ok" for r in results)
     n_skip = sum(r.status == "skipped" for r in results)
