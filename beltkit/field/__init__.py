@@ -22,6 +22,8 @@ _EXPORTS = {
     "as_model": "models",
     # t89.py
     "T89": "t89",
+    # kp.py
+    "read_kp": "kp",
     # igrf.py
     "igrf_coefficients": "igrf",
     "igrf_field_spherical": "igrf",
