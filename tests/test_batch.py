@@ -105,6 +105,7 @@ def test_survey_refuses_mismatched_summaries_and_writes_nothing(tmp_path):
     text = str(err.value)
     assert "four.summary.nc: its energies differ" in text
     assert "igrf.summary.nc: field_model 'igrf' differs" in text
+    assert "survey the files of each model apart" in text  # the way out with field="auto"
     assert "junk.summary.nc" in text
     assert len(err.value.problems) == 3
     assert not (tmp_path / "sv.nc").exists()
@@ -440,6 +441,23 @@ def test_sigkill_while_writing_leaves_no_partial_output(tmp_path):
     with xr.open_dataset(out / "a_big.summary.nc") as ds:
         assert ds.sizes["time"] == 120_000
         assert np.isfinite(ds["fraction_trapped"].values).mean() > 0.9
+
+
+def test_survey_records_each_file_model_and_the_low_altitude_note(tmp_path):
+    # r = L cos^2(mlat) R_E (dipole field line, textbook): L <= 1.2 lies below 1,300 km;
+    # L >= 3 above 12,000 km
+    low = write_flux_file(tmp_path / "low.nc", flux_dataset(n_time=40, l_range=(1.1, 1.2)))
+    high = write_flux_file(tmp_path / "high.nc", flux_dataset(n_time=40))
+    results = batch.summarize([low, high], tmp_path / "s")  # field="auto": the dipole here
+    with xr.open_dataset(results[0].output) as a, xr.open_dataset(results[1].output) as b:
+        assert a.attrs["field_model"] == b.attrs["field_model"] == "dipole"
+        assert a.attrs["field_model_note"].startswith("40 of 40 samples lie below 2000 km")
+        assert "field_model_note" not in b.attrs
+    sv = batch.survey([r.output for r in results], tmp_path / "sv.nc")
+    with xr.open_dataset(sv) as ds:
+        names = [Path(r.output).name for r in results]
+        assert json.loads(ds.attrs["field_model_by_file"]) == dict.fromkeys(names, "dipole")
+        assert ds.attrs["field_model_note"].startswith(f"1 of 2 summaries ({names[0]})")
 
 
 def test_epoch_override_is_recorded_and_part_of_the_settings(tmp_path):
