@@ -992,7 +992,8 @@ def _response_tables(a1, a2, cn, cd, c):
     if a1.ndim == 2 and not np.all(a1 == a1[:1]):  # telescopes: one band per mean
         kn = np.argmax(np.nan_to_num(cn), axis=1)[:, None]
         kd = np.argmax(np.nan_to_num(cd), axis=1)[:, None]
-        bands = [(np.take_along_axis(a, k, axis=1) for a in (a1, a2)) for k in (kn, kd)]
+        # a tuple per mean, built at once (a generator here would see only the last k)
+        bands = [tuple(np.take_along_axis(a, k, axis=1) for a in (a1, a2)) for k in (kn, kd)]
         bands = [tuple(np.cos(np.radians(b)) for b in pair) for pair in bands]
         coefs = (np.ones((n, 1)), np.ones((n, 1)))
     else:
