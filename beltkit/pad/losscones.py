@@ -216,8 +216,8 @@ def dipole_low_altitude_note(ds, prep: Prepared, model) -> str:
     total = int(np.count_nonzero(np.isfinite(r)))
     return (f"{low} of {total} samples lie below {LOW_ALTITUDE_KM:g} km altitude, where the "
             "centred dipole has no quasi-trapped population (its drift loss cone equals the "
-            "bounce loss cone); the real field's drift loss cone is wider there. Give "
-            "'position_geo' (model='auto' then uses the IGRF) or pass model='igrf' to see the "
+            "bounce loss cone); the real field's drift loss cone is wider there. Use the IGRF "
+            "(model='auto' with 'position_geo' in the data, or model='igrf') to see the "
             "quasi-trapped population")
 
 
