@@ -50,6 +50,7 @@ __all__ = [
     "PARTIAL_NOTE",
     "diffusion_overview",
     "energy_time",
+    "field_model_comparison",
     "loss_cone_longitude",
     "partial_coverage",
     "pitch_angle_distribution",
@@ -1161,3 +1162,64 @@ def _measured_profile(ax, ds, result, i, k, a0, z0):
     scale = np.exp(np.mean(np.log(model) - np.log(flux[use])))
     ax.plot(u[use], flux[use] * scale, ls="none", marker="o", fillstyle="none", color="C3",
             label="measured (bin centres mapped to the equator, one common scale)")
+
+
+def _model_label(attrs):
+    """Legend text of a field-model run from its attributes: model, internal field, Kp."""
+    name = str(attrs.get("field_model", "?"))
+    desc = str(attrs.get("field_model_description", ""))
+    if name == "t89":
+        inner = "dipole" if "CenteredDipole" in desc else "IGRF"
+        kp = attrs.get("kp")
+        kp_text = f"Kp {float(kp):g}" if kp is not None else "Kp series"
+        return f"{inner} + T89, {kp_text}"
+    return {"dipole": "centred dipole", "igrf": "IGRF"}.get(name, name)
+
+
+def field_model_comparison(runs, *, axes=None):
+    r"""L* and the equatorial drift loss cone of one orbit in several field models.
+
+    Parameters
+    ----------
+    runs : sequence of xarray.Dataset
+        One dataset per model, along ``time``, each with ``lstar`` (1) and
+        ``dlc_equatorial`` (degree), e.g. from :func:`beltkit.field.lstar`
+        and :func:`beltkit.field.loss_cones` of the same samples, and the
+        attributes those functions write (``field_model``,
+        ``field_model_description``, ``kp``), which name the model and Kp in
+        the legend.
+    axes : sequence of two matplotlib Axes, optional
+        Axes for the L* and the loss-cone panels; a new figure otherwise.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two panels sharing the time axis; a model's samples where L* or the
+        loss cone is undefined (open line or shell, see ``lstar_reason`` and
+        ``open_reason``) are gaps. T89 runs are dashed at Kp >= 5.
+    """
+    if axes is None:
+        fig = Figure(figsize=(9.0, 6.0), layout="constrained")
+        ax_l, ax_c = fig.subplots(2, 1, sharex=True)
+    else:
+        ax_l, ax_c = axes
+        fig = ax_l.figure
+    families = {}
+    for run in runs:
+        label = _model_label(run.attrs)
+        family = label.split(",")[0]
+        colour = families.setdefault(family, f"C{len(families)}")
+        kp = run.attrs.get("kp")
+        style = "--" if kp is not None and float(kp) >= 5 else "-"
+        t = run["time"].values
+        ax_l.plot(t, run["lstar"].values, ls=style, color=colour, marker=".", label=label)
+        ax_c.plot(t, run["dlc_equatorial"].values, ls=style, color=colour, marker=".",
+                  label=label)
+    ax_l.set_ylabel("Roederer L* (1)")
+    ax_c.set_ylabel("equatorial drift loss cone (degree)")
+    ax_c.set_xlabel("time (UTC)")
+    ax_l.legend(title="field model", fontsize="small")
+    ax_l.set_title("L* and drift loss cone by field model and activity "
+                   "(gaps: undefined, open line or shell)")
+    _time_axis(ax_c)
+    return fig
