@@ -100,6 +100,23 @@ latitude and MLT of the IGRF-14 centred dipole of the date); ``L`` (declared
 (:mod:`beltkit.dipole`) the model is written in. Marram-Tern's files also
 carry the dipole ``b_local``; Marram-Dunlin's carry none, so that its IGRF
 partition takes the IGRF's own field at the satellite.
+
+Scattering event (Marram-Dunlin)
+--------------------------------
+On the storm day's first orbit, wherever 3.5 <= L <= 6.5, the telescopes
+see the steady-state pitch-angle diffusion profile of Kennel & Petschek
+(:func:`beltkit.diffusion.loss_cone_profile`) instead of the smooth model,
+with a known :math:`z_0` (0.3 at the event's outer edge to 20 at its inner
+edge, times :math:`(E/300\,\mathrm{keV})^{0.25}`). Each look's expected flux
+is the edge level :math:`A\sin^n\alpha_c` times the profile averaged over the
+look's swept band, uniform in local solid angle, with the local angles mapped
+to the equator by :math:`\sin^2\alpha_{eq} = \sin^2\alpha\, B_{min}/B_{local}`
+in the IGRF the pipeline partitions these files in (its loss cone at 100 km).
+The files store ``true_z0`` and ``true_diffusion_coefficient`` (loss time half
+a bounce period; NaN outside the event), the recovery target of
+:func:`beltkit.diffusion.from_pitch_angle_data` (``summarize(...,
+diffusion=True)``); the ``true_fraction_*`` of those samples remain the smooth
+model's.
 """
 
 from __future__ import annotations
@@ -137,6 +154,12 @@ SCENARIO = {
         "geometric_factor_cm2_sr": 1e-2,
         "accumulation_s": 1.0,
         "background_counts_per_s": 0.5,
+        # scattering event: on the storm day's first orbit, wherever 3.5 <= L <= 6.5, the
+        # looks see the steady-state diffusion profile with a known z0 (truth: true_z0)
+        "event_day": "2027-03-09",
+        "event_l_range": (3.5, 6.5),
+        "event_z0_range": (0.3, 20.0),
+        "event_z0_energy_exponent": 0.25,
     },
     # Marram-Tern: elliptical near-equatorial orbit, apogee 5.8 R_E geocentric.
     "tern": {
@@ -446,6 +469,16 @@ _FLUX_FROM_COUNTS = ("Flux = counts / (geometric_factor * accumulation_time * ch
                      "width); flux_err = sqrt(max(counts, 1)) likewise.")
 
 
+_EVENT_COMMENT = (
+    "Scattering event on the storm day's first orbit at 3.5 <= L <= 6.5: each look's expected "
+    "flux is the edge level A sin^n(alpha_c) times the mean, over its swept band (uniform in "
+    "local solid angle), of the Kennel-Petschek steady-state profile "
+    "(beltkit.diffusion.loss_cone_profile) with this z0, local angles mapped to the equator "
+    "with the IGRF B_min/B_local and loss cone (100 km) that the pipeline uses; D = alpha0^2 "
+    "/ (z0^2 tau), tau half the dipole bounce period at the loss-cone edge. The "
+    "true_fraction_* of these samples remain those of the smooth model.")
+
+
 def _response_vars(factor, p, *, per, accumulated):
     """Return the instrument-response variables shared by both instruments' files."""
     return {
@@ -478,6 +511,70 @@ def _cap_nodes(half_angle_deg, n_theta=4, n_phi=12):
     theta = np.arccos(mu)
     weights = np.repeat(w, n_phi) / (w.sum() * n_phi)
     return np.repeat(theta, n_phi), np.tile(phi, n_theta), weights
+
+
+def _event_cones(time, xyz_geo, mlat, mlt, L, look_pa, half_deg, energy, e_bnds):
+    """Loss cones of the pipeline (IGRF, 100 km) at the event samples.
+
+    The partition of the files (``field="auto"``: IGRF at each sample's time)
+    is run on the event samples' positions and looks, so that the profile is
+    mapped with the very loss cones and field ratio the pipeline uses.
+    """
+    from .pad import partition
+
+    n = time.size
+    probe = xr.Dataset(
+        {"flux": (("time", "energy", "look"), np.ones((n, energy.size, 2), "float32"),
+                  {"units": FLUX_UNITS}),
+         "energy_bnds": (("energy", "nv"), e_bnds, {"units": "keV"}),
+         "look_pitch_angle": (("time", "look"), look_pa.astype("float32"),
+                              {"units": "degree"}),
+         "look_half_angle": ("look", np.full(2, half_deg), {"units": "degree"}),
+         **_position_vars(time, xyz_geo, mlat, mlt, L)},
+        coords={"time": time, "energy": ("energy", energy, {"units": "keV"})})
+    out = partition(probe, model="igrf", altitude_km=100.0)
+    return {k: np.asarray(out[k].values, float)
+            for k in ("blc_equatorial", "blc_local", "b_local", "b_min", "L")}
+
+
+def _scattering_event(L, energy, look_pa, cones, p):
+    """z0 and D of the event, and the looks' band means of the diffusion profile.
+
+    z0 = z_lo (z_hi / z_lo)^s (E / 300 keV)^k with s = (L_top - L) / (L_top - L_bottom)
+    (strong diffusion at the event's outer edge, weak at its inner edge). Each
+    look's expected flux is the edge level times the mean of
+    :func:`beltkit.diffusion.loss_cone_profile` over its swept band, uniform in
+    local solid angle, the local angles mapped to the equator by
+    sin^2 alpha_eq = sin^2 alpha B_min / B_local (IGRF, as the pipeline maps them);
+    D = alpha0^2 / (z0^2 tau) with tau half the dipole bounce period at the
+    loss-cone edge (as :func:`beltkit.diffusion.from_pitch_angle_data` takes it).
+    """
+    from . import motion
+    from .diffusion import LOSS_TIMES, loss_cone_profile
+    from .pad import swept_band
+
+    l_lo, l_hi = p["event_l_range"]
+    z_lo, z_hi = p["event_z0_range"]
+    s = np.clip((l_hi - L) / (l_hi - l_lo), 0.0, 1.0)
+    z0 = (z_lo * (z_hi / z_lo) ** s)[:, None] * (energy[None, :] / 300.0) ** p[
+        "event_z0_energy_exponent"]
+    a0 = cones["blc_equatorial"]
+    tau = LOSS_TIMES["half_bounce"] * np.asarray(
+        motion.bounce_period(energy[None, :], cones["L"][:, None], a0[:, None], "electron"))
+    d_true = np.radians(a0)[:, None] ** 2 / (z0 * z0 * tau)
+    # band means: Gauss-Legendre in cos(alpha) over each look's swept band
+    a1, a2 = swept_band(look_pa.astype("float32").astype(float), p["half_angle_deg"])
+    x, w = np.polynomial.legendre.leggauss(96)
+    c1, c2 = np.cos(np.radians(a1))[..., None], np.cos(np.radians(a2))[..., None]
+    mu = 0.5 * (c1 + c2) + 0.5 * (c1 - c2) * x  # (time, look, node)
+    local = np.degrees(np.arccos(np.clip(mu, -1.0, 1.0)))
+    local = np.minimum(local, 180.0 - local)
+    ratio = (cones["b_min"] / cones["b_local"])[:, None, None]
+    a_eq = np.degrees(np.arcsin(np.minimum(np.sin(np.radians(local)) * np.sqrt(ratio), 1.0)))
+    prof = loss_cone_profile(a_eq[:, None], a0[:, None, None, None],
+                             z0[:, :, None, None])  # (time, energy, look, node)
+    band_mean = (prof * w).sum(-1) / w.sum()
+    return z0, d_true, band_mean
 
 
 def _dunlin_day(day_start, rng):
@@ -521,6 +618,20 @@ def _dunlin_day(day_start, rng):
     nodes = np.degrees(np.arccos(np.clip(cos_node, -1.0, 1.0)))  # (time, look, node)
     j = _model_flux(nodes[:, None], mlat, A, n_idx, F, blc)  # (time, energy, look, node)
     mean_flux = (j * wts).sum(-1)
+
+    # the scattering event: the looks see the diffusion profile at the edge level A sin^n(alpha_c)
+    true_z0 = np.full(A.shape, np.nan)
+    true_d = np.full(A.shape, np.nan)
+    if str(day_start)[:10] == p["event_day"]:
+        l_lo, l_hi = p["event_l_range"]
+        sel = np.flatnonzero((time < first + np.timedelta64(int(p["period_s"]), "s"))
+                             & (L >= l_lo) & (L <= l_hi))
+        cones = _event_cones(time[sel], xyz_geo[sel], mlat[sel], mlt[sel], L[sel],
+                             look_pa[sel], p["half_angle_deg"], energy, e_bnds)
+        z0, d_true, band_mean = _scattering_event(L[sel], energy, look_pa[sel], cones, p)
+        edge = A[sel] * np.sin(np.radians(blc[sel]))[:, None] ** n_idx[sel]
+        mean_flux[sel] = edge[..., None] * band_mean
+        true_z0[sel], true_d[sel] = z0, d_true
 
     d_e = e_bnds[:, 1] - e_bnds[:, 0]
     factor = 1.0 / (p["geometric_factor_cm2_sr"] * p["accumulation_s"] * d_e)
@@ -569,6 +680,16 @@ def _dunlin_day(day_start, rng):
         # no b_local: the field at the satellite is left to the model it is partitioned in
         **_position_vars(time, xyz_geo, mlat, mlt, L),
         **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
+        "true_z0": (("time", "energy"), true_z0.astype("float32"), {
+            "units": "1", "long_name": "generator truth: loss-cone parameter z0 = alpha0 / "
+                                       "sqrt(D tau) of the scattering event (NaN outside it)",
+            "comment": _EVENT_COMMENT}),
+        "true_diffusion_coefficient": (("time", "energy"), true_d.astype("float32"), {
+            "units": "s-1",
+            "long_name": "generator truth: pitch-angle diffusion coefficient at the loss-cone "
+                         "edge of the scattering event, loss time half a bounce period (NaN "
+                         "outside it)",
+            "comment": _EVENT_COMMENT}),
     }
     day = str(day_start)[:10]
     ds = xr.Dataset(
@@ -789,6 +910,20 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
         with xr.open_dataset(dunlin[0]) as ds, xr.open_dataset(dunlin[1]) as summary:
             ds, summary = ds.load(), summary.load()
         save(plot.spectrogram(ds, summary, energy=300.0), "dunlin_spectrogram.png")
+        if "z0" in summary.variables and "true_z0" in ds.variables:
+            event = np.flatnonzero(np.isfinite(ds["true_z0"].values).any(axis=1))
+            if event.size:  # the scattering event: D against L, and one sample's profile
+                res = summary.isel(time=event)
+                # the profile of a sample near the regime boundary (z0 ~ 1): both looks'
+                # points stand clear of the panel's lower edge
+                z0 = res["z0"].sel(energy=190.0, method="nearest").values
+                pick = res["time"].values[np.nanargmin(np.abs(np.log(z0)))]
+                fig = plot.diffusion_overview(res, ds.isel(time=event), energy=190.0,
+                                              time=pick)
+                ax = fig.axes[1]  # the profile rises to the right: its legend goes top left
+                size = ax.get_legend().get_texts()[0].get_fontsize()
+                ax.legend(loc="upper left", fontsize=size)
+                save(fig, "dunlin_diffusion.png")
     for craft, e_kev in (("tern", 160.0), ("dunlin", 190.0)):
         if craft not in surveys:
             continue
@@ -808,7 +943,8 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
     summary per file (``summaries/``, :func:`beltkit.batch.summarize`: Tern in
     the centred dipole its truth is defined in, Dunlin with ``field="auto"``,
-    i.e. the IGRF at each sample's time), one survey per spacecraft
+    i.e. the IGRF at each sample's time, and with the pitch-angle diffusion
+    outputs, ``diffusion=True``), one survey per spacecraft
     (``survey_tern.nc``, hourly windows, and ``survey_dunlin.nc``, daily windows;
     :func:`beltkit.batch.survey`) and PNG figures (``figures/``, :func:`demo_figures`).
 
@@ -831,10 +967,12 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     results = []
     # Tern's truth (the recovery target) is defined in the centred dipole; Dunlin's files
     # carry position_geo, so field="auto" partitions them in the IGRF at each sample's time
-    for craft, field in (("tern", "dipole"), ("dunlin", "auto")):
+    # Dunlin's summaries add the pitch-angle diffusion outputs (its scattering event)
+    for craft, field, diff in (("tern", "dipole", None), ("dunlin", "auto", True)):
         files = [d for d in data_files if f"_{craft}_" in Path(d).name]
         if files:
-            results += batch.summarize(files, out / "summaries", field=field, overwrite=True)
+            results += batch.summarize(files, out / "summaries", field=field, overwrite=True,
+                                       diffusion=diff)
     order = {str(d): k for k, d in enumerate(data_files)}
     results.sort(key=lambda r: order.get(r.input, len(order)))
     bad = [r for r in results if r.status == "failed"]
