@@ -64,12 +64,14 @@ __all__ = [
     "DIFFUSION_DEFAULTS",
     "FIELD_CHOICES",
     "FileResult",
+    "PSD_SUFFIX",
     "SUMMARY_SUFFIX",
     "REPORT_NAME",
     "SURVEY_VARIABLES",
     "SurveyError",
     "expand_inputs",
     "one_line",
+    "psd_files",
     "summarize",
     "summarize_dataset",
     "survey",
@@ -77,6 +79,8 @@ __all__ = [
 
 #: Suffix of summary files (the input's stem goes in front).
 SUMMARY_SUFFIX = ".summary.nc"
+#: Suffix of phase-space density files (:func:`phase_space_density`).
+PSD_SUFFIX = ".psd.nc"
 #: Name of the run report written beside the outputs.
 REPORT_NAME = "run-report.jsonl"
 #: Variables of a summary that :func:`survey` bins (those present are used).
@@ -168,7 +172,7 @@ def expand_inputs(inputs, *, suffixes=_INPUT_SUFFIXES) -> list[Path]:
     """Expand files, folders and glob patterns into a sorted, de-duplicated list of files.
 
     A folder contributes its files with one of `suffixes` (not hidden ones,
-    not summaries); a pattern with ``*``, ``?`` or ``[`` is globbed; any other
+    not summaries or psd files); a pattern with ``*``, ``?`` or ``[`` is globbed; any other
     entry is kept as given (a missing file then fails on its own line).
     """
     if isinstance(inputs, (str, os.PathLike)):
@@ -182,7 +186,7 @@ def expand_inputs(inputs, *, suffixes=_INPUT_SUFFIXES) -> list[Path]:
             found = sorted(
                 p for p in Path(text).iterdir()
                 if p.is_file() and not p.name.startswith(".") and p.suffix.lower() in suffixes
-                and not p.name.endswith(SUMMARY_SUFFIX)
+                and not p.name.endswith((SUMMARY_SUFFIX, PSD_SUFFIX))
             )
         else:
             found = [Path(text)]
@@ -194,15 +198,15 @@ def expand_inputs(inputs, *, suffixes=_INPUT_SUFFIXES) -> list[Path]:
     return out
 
 
-def _output_name(path: Path) -> str:
+def _output_name(path: Path, suffix: str = SUMMARY_SUFFIX) -> str:
     name = path.name
-    for suffix in (".nc4", ".nc", ".cdf", ".hdf5", ".h5"):
-        if name.lower().endswith(suffix):
-            name = name[: -len(suffix)]
+    for ext in (".nc4", ".nc", ".cdf", ".hdf5", ".h5"):
+        if name.lower().endswith(ext):
+            name = name[: -len(ext)]
             break
     else:
         name = path.stem
-    return name + SUMMARY_SUFFIX
+    return name + suffix
 
 
 _sync_lock = threading.Lock()
@@ -684,16 +688,22 @@ def _process_file_locked(task: dict):
         with _single_threaded():
             ds = open_indexed(src, mapping=task["mapping"])
             nxt = task.get("next_input")
-            slabs, finish, count, record = _summary_slabs(
-                ds, field=task["field"], altitude_km=settings["altitude_km"],
-                epoch=task["epoch"], diffusion=settings.get("diffusion"),
-                # the next input's checksum is read while this summary is written
-                computed=(lambda: _digest_ahead(Path(nxt))) if nxt else None)
+            if task.get("product") == "psd":
+                slabs, finish, count, attrs_of = _psd_slabs(ds, src, task)
+            else:
+                slabs, finish, count, record = _summary_slabs(
+                    ds, field=task["field"], altitude_km=settings["altitude_km"],
+                    epoch=task["epoch"], diffusion=settings.get("diffusion"),
+                    # the next input's checksum is read while this summary is written
+                    computed=(lambda: _digest_ahead(Path(nxt))) if nxt else None)
+                geo = "position_geo" in ds.variables
+
+                def attrs_of(digest_text):
+                    return _summary_attrs(src, digest_text, settings, task["epoch"], geo, record)
             # the checksum, if already known, goes in with the other attributes;
             # otherwise it is added once the data are written
             known = digest.done() and digest.exception() is None
-            attrs = _summary_attrs(src, digest.result() if known else "", settings,
-                                   task["epoch"], "position_geo" in ds.variables, record)
+            attrs = attrs_of(digest.result() if known else "")
             # the flux values are checked while the summary is computed (one pass over
             # the file); a refused file leaves no output (write_stream's finish)
             commit = write_stream(
@@ -732,6 +742,8 @@ def _read_and_compute(task: dict, buffers):
     out = Path(task["output"])
     settings = task["settings"]
     digest = None
+    if task.get("product") == "psd":
+        return None, None  # not pipelined: done whole by _process_file
     try:
         if not src.is_file():
             raise FileNotFoundError(f"{src}: no such file")
@@ -898,10 +910,156 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         extra = {} if diffusion is None else {"diffusion": diffusion}
         command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
                                    epoch=epoch, overwrite=overwrite, **extra)
+    return _run_batch(files, out_dir, {
+        "settings": settings, "field": field, "epoch": epoch, "mapping": mapping_checked,
+        "overwrite": bool(overwrite), "command": command, "debug": bool(debug)},
+        suffix=SUMMARY_SUFFIX, desc="summarize", fail_fast=fail_fast, workers=workers,
+        scheduler=scheduler, log=log, progress=progress)
+
+
+def _psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
+                  compress) -> dict:
+    settings = _settings(field, altitude_km, None, mapping, compress)
+    settings.update({"product": "psd", "mu_mev_per_g": [float(v) for v in mu],
+                     "k_g05_re": [float(v) for v in k], "species": species,
+                     "lstar_cadence_s": float(lstar_cadence_s)})
+    return settings
+
+
+def _psd_slabs(ds, src: Path, task: dict):
+    """Compute the psd of one file: ``([dataset], None, 1, attrs_of(digest_text))``."""
+    from .psd import at_fixed_invariants
+
+    settings = task["settings"]
+    model = _field_model(task["field"], None, ds)
+    out = at_fixed_invariants(ds, settings["mu_mev_per_g"], settings["k_g05_re"], model=model,
+                              species=settings["species"],
+                              lstar_cadence_s=settings["lstar_cadence_s"],
+                              altitude_km=settings["altitude_km"])
+    for name in _POSITION:
+        if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
+            out[name] = ds[name]
+    # references to variables of the mapping step that are not in this file go
+    for name in out.variables:
+        refs = out[name].attrs.get("ancillary_variables")
+        if refs is not None:
+            kept = " ".join(r for r in str(refs).split() if r in out.variables)
+            if kept:
+                out[name].attrs["ancillary_variables"] = kept
+            else:
+                del out[name].attrs["ancillary_variables"]
+    # the gauss under its UDUNITS name (K's G^(1/2) has no UDUNITS form: kept as the trade's)
+    if out["mu"].attrs.get("units") == "MeV G-1":
+        out["mu"].attrs["units"] = "MeV gauss-1"
+    out = out.load()
+    used = out.attrs.get("beltkit_field_model", "")
+
+    def attrs_of(digest_text):
+        return {
+            "title": f"beltkit phase-space density at fixed mu and K of {src.name}",
+            "source": src.name,
+            "source_sha256": digest_text,
+            "beltkit_version": __version__,
+            "field_model": used,
+            "field_model_requested": settings["field"],
+            "footpoint_altitude_km": float(settings["altitude_km"]),
+            "beltkit_settings": _settings_text(settings),
+        }
+
+    return [out], None, 1, attrs_of
+
+
+def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species="electron",
+              lstar_cadence_s=60.0, altitude_km=100.0, mapping=None, compress=True,
+              overwrite=False, fail_fast=False, workers=1, scheduler=None, command=None,
+              log=None, progress=None, debug=False) -> list[FileResult]:
+    """Phase-space density at fixed invariants of flux files, safely and resumably.
+
+    The batch form of :func:`beltkit.psd.at_fixed_invariants`: one
+    ``<stem>.psd.nc`` per input in `out_dir`, with the same safety as
+    :func:`summarize` (atomic outputs, one-line per-file failures, skipped
+    when the output records the input's checksum and the present settings,
+    ``run-report.jsonl``, local worker processes or a dask.distributed
+    cluster).
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Files, folders or glob patterns.
+    out_dir : str or path
+        Output folder (created if needed).
+    mu_mev_per_g, k_g05_re : float or sequence of float
+        First invariants (MeV/G) and second invariants (G^(1/2) R_E).
+    field : {"auto", "dipole", "igrf"}
+        "auto": the IGRF for a file with ``position_geo``, else the centred
+        dipole from ``L`` and ``mlat`` (where L* = L).
+    species : str
+        Species of the flux.
+    lstar_cadence_s : float
+        Cadence (s) of the field-line work (K, B_m, L*) in a field model,
+        interpolated linearly in time to the samples.
+    altitude_km : float
+        Loss altitude of the loss cones and drift shells (km).
+    mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug
+        As for :func:`summarize`.
+
+    Returns
+    -------
+    list of FileResult
+        One per input, in input order.
+
+    Raises
+    ------
+    ValueError
+        For an unknown field model, invalid invariants or cadence, or workers < 1.
+    """
+    from .particles import get_species
+
+    if workers is None or int(workers) < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    _check_field(field, None)
+    mu = np.atleast_1d(np.asarray(mu_mev_per_g, dtype=float))
+    k = np.atleast_1d(np.asarray(k_g05_re, dtype=float))
+    if mu.ndim != 1 or k.ndim != 1 or not mu.size or not k.size:
+        raise ValueError("give at least one mu (MeV/G) and one K (G^(1/2) R_E)")
+    if not (np.all(np.isfinite(mu)) and np.all(mu > 0)):
+        raise ValueError(f"mu must be positive numbers of MeV/G, got {mu.tolist()}")
+    if not (np.all(np.isfinite(k)) and np.all(k >= 0)):
+        raise ValueError(f"K must be numbers >= 0 of G^(1/2) R_E, got {k.tolist()}")
+    if not (np.isfinite(lstar_cadence_s) and lstar_cadence_s > 0):
+        raise ValueError(f"lstar_cadence_s must be a positive number of seconds, got "
+                         f"{lstar_cadence_s!r}")
+    species = get_species(species).name
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    settings = _psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
+                             compress)
+    if command is None:
+        command = (f"beltkit.batch.psd_files({len(files)} file(s), {str(out_dir)!r}, "
+                   f"mu={mu.tolist()}, k={k.tolist()}, field={field!r})")
+    return _run_batch(files, out_dir, {
+        "product": "psd", "settings": settings, "field": field, "epoch": None,
+        "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
+        "debug": bool(debug)},
+        suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
+        scheduler=scheduler, log=log, progress=progress)
+
+
+def _run_batch(files, out_dir, common, *, suffix, desc, fail_fast, workers, scheduler, log,
+               progress) -> list[FileResult]:
+    """Run one per-file job (``common`` plus the file's input and output) over every file.
+
+    Shared by :func:`summarize` and :func:`psd_files`: duplicate
+    output names, the run report, the progress bar, and the sequential,
+    process-pool or dask.distributed run.
+    """
     tasks, results = [], {}
     by_output = {}
     for i, src in enumerate(files):
-        target = out_dir / _output_name(src)
+        target = out_dir / _output_name(src, suffix)
         key = os.path.abspath(target)
         if key in by_output:
             results[i] = FileResult(str(src), str(target), "failed",
@@ -909,10 +1067,7 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
                                     f"{files[by_output[key]]}; rename one of the inputs")
             continue
         by_output[key] = i
-        tasks.append((i, {"input": str(src), "output": str(target), "settings": settings,
-                          "field": field, "epoch": epoch, "mapping": mapping_checked,
-                          "overwrite": bool(overwrite), "command": command,
-                          "debug": bool(debug)}))
+        tasks.append((i, {"input": str(src), "output": str(target), **common}))
     started = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     report = out_dir / "run-report.jsonl"
     if progress is None:
@@ -921,7 +1076,7 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     if progress:
         from tqdm import tqdm
 
-        bar = tqdm(total=len(files), file=sys.stderr, unit="file", desc="summarize")
+        bar = tqdm(total=len(files), file=sys.stderr, unit="file", desc=desc)
 
     def emit(r: FileResult):
         with open(report, "a", encoding="utf-8") as fh:

@@ -20,6 +20,16 @@ Commands
 
         beltkit summarize data/*.nc --out summaries --diffusion --loss-time quarter_bounce
 
+``beltkit psd INPUT... --mu MU... --k K... --out DIR``
+    Phase-space density at fixed first and second invariants (mu in MeV/G,
+    K in G^(1/2) R_E) with Roederer's L*, one ``DIR/<stem>.psd.nc`` per flux
+    file, with the same safety as ``summarize`` (run report, resumable,
+    ``--workers``, ``--scheduler``). ``--field auto`` uses the IGRF for files
+    with ``position_geo`` (L* traced every ``--lstar-cadence``, interpolated
+    in time), the centred dipole (L* = L) otherwise::
+
+        beltkit psd data/*.nc --mu 100 300 1000 --k 0.05 0.1 --out psd --field dipole
+
 ``beltkit survey SUMMARY... --out FILE``
     Bin summaries onto an L x MLT (x time-window) grid::
 
@@ -111,6 +121,13 @@ def _positive_number(text):
     value = _number_arg(text)
     if not (math.isfinite(value) and value > 0):
         raise argparse.ArgumentTypeError(f"must be a finite number > 0, got {text}")
+    return value
+
+
+def _nonnegative_number(text):
+    value = _number_arg(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
     return value
 
 
@@ -305,6 +322,38 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--interval-sigma", type=_positive_number, default=None, metavar="K",
                    help="with --diffusion: half-width of the intervals in sigmas of the "
                         "measured ratio (default: 2)")
+
+    p = sub.add_parser("psd", parents=[common],
+                       help="flux files -> phase-space density at fixed mu, K with L*",
+                       description="Write the phase-space density at fixed first and second "
+                                   "invariants (<stem>.psd.nc) per flux file into DIR, plus "
+                                   "DIR/run-report.jsonl.")
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
+    p.add_argument("--mu", nargs="+", type=_positive_number, required=True, metavar="MEV_PER_G",
+                   help="first invariants mu in MeV/G")
+    p.add_argument("--k", nargs="+", type=_nonnegative_number, required=True,
+                   metavar="G05_RE", help="second invariants K in G^(1/2) R_E")
+    p.add_argument("--out", required=True, metavar="DIR", help="output folder")
+    p.add_argument("--field", choices=("auto", "dipole", "igrf"), default="auto",
+                   help="field model (default: auto = the IGRF for files with position_geo, "
+                        "the centred dipole, where L* = L, for files with only L and mlat)")
+    p.add_argument("--lstar-cadence", type=_duration, default="60s", metavar="DURATION",
+                   help="cadence of the field-line work (K, mirror field, L*) in the IGRF, "
+                        "interpolated linearly in time to the samples (default: 60s)")
+    p.add_argument("--species", default="electron", metavar="NAME",
+                   help="species of the flux (default: electron)")
+    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+                   help="loss altitude of loss cones and drift shells (default: 100)")
+    p.add_argument("--mapping", metavar="TOML", default=None,
+                   help="variable-name mapping file for files with other names")
+    p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",
+                   help="zlib level of the outputs, 0 = none (default: 4)")
+    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
+    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
+    p.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+                   help="local worker processes (default: 1)")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="address of a running dask.distributed scheduler")
 
     p = sub.add_parser("survey", parents=[common], help="summaries -> L x MLT survey file",
                        description="Bin the summaries' fractions and integrated fluxes onto "
@@ -562,6 +611,38 @@ def _cmd_summarize(args, command) -> int:
     not_attempted = any(r.status == "skipped" and r.reason.startswith("not attempted")
                         for r in results)
     return 1 if n_bad or not_attempted else 0
+
+
+def _batch_exit(results, args, name) -> int:
+    """Print the run's totals; return the exit code of a batch command."""
+    n_ok = sum(r.status == "ok" for r in results)
+    n_skip = sum(r.status == "skipped" for r in results)
+    n_bad = sum(r.status == "failed" for r in results)
+    _say(f"{len(results)} file(s): {n_ok} written, {n_skip} skipped, {n_bad} failed; "
+         f"report in {Path(args.out) / 'run-report.jsonl'}")
+    if not results:
+        _say(f"beltkit {name}: no input files found", sys.stderr)
+        return 1
+    not_attempted = any(r.status == "skipped" and r.reason.startswith("not attempted")
+                        for r in results)
+    return 1 if n_bad or not_attempted else 0
+
+
+def _cmd_psd(args, command) -> int:
+    import pandas as pd
+
+    from .batch import psd_files
+
+    species = _species(args.species).name
+    _expand_flux_inputs(args.inputs)  # before psd_files creates the output folder
+    results = psd_files(
+        args.inputs, args.out, args.mu, args.k, field=args.field, species=species,
+        lstar_cadence_s=pd.to_timedelta(args.lstar_cadence).total_seconds(),
+        altitude_km=args.footpoint_km, mapping=args.mapping, compress=args.compression,
+        overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
+        scheduler=args.scheduler, command=command, log=_say, debug=args.debug,
+    )
+    return _batch_exit(results, args, "psd")
 
 
 def _cmd_survey(args, command) -> int:
@@ -823,6 +904,7 @@ def _cmd_losscone(args, command) -> int:
 
 _COMMANDS = {
     "summarize": _cmd_summarize,
+    "psd": _cmd_psd,
     "survey": _cmd_survey,
     "inspect": _cmd_inspect,
     "demo": _cmd_demo,
