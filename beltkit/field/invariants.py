@@ -257,13 +257,14 @@ class _Search:
             sec = x - f * (x - xp) / (f - fp)
             newton = x - f / self.slope[idx]
             step = np.where(np.isfinite(sec) & np.isfinite(fp) & finite, sec, newton)
-            # inside a known bracket: regula falsi with the Illinois rule (superlinear,
-            # and safe where the residual is steep on one side, as on dayside lines of
-            # a stretched external field)
+            # inside a known bracket, when that step leaves it: regula falsi with the
+            # Illinois rule (never stalls where the residual is steep on one side, as on
+            # dayside lines of a stretched external field)
             both = np.isfinite(lo) & np.isfinite(hi)
             falsi = lo - flo * (hi - lo) / (fhi - flo)
             falsi = np.where(np.isfinite(falsi), falsi, 0.5 * (lo + hi))
-            step = np.where(both, falsi, step)
+            outside = ~((step > lo) & (step < hi))
+            step = np.where(both & outside, falsi, step)
             # no finite residual (open line): halve the way to the bracket or step inwards
             step = np.where(finite, step, np.where(np.isfinite(lo), 0.5 * (x + lo), x - 0.3))
             # limit a single step to a factor 1.5 in r
