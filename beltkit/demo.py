@@ -129,7 +129,7 @@ import xarray as xr
 from . import __version__, dipole
 from .constants import R_E_KM
 
-__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo"]
+__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo", "tern_psd_profiles"]
 
 FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 
@@ -175,6 +175,17 @@ SCENARIO = {
         "geometric_factor_cm2_sr": 1e-3,
         "accumulation_s": 10.0,
         "background_counts_per_s": 2.5,
+        # a local source of relativistic electrons near L* = 4.75 that grows during the
+        # recovery (only in the spectrometer's flux): f at fixed mu and K gets a peak there
+        # (truth: true_local_source_factor, the flux multiplier at each sample and energy)
+        "source_lstar": 4.75,
+        "source_width": 0.3,
+        "source_gain": 15.0,
+        "source_growth_h": 20.0,
+        "source_energy_kev": 300.0,
+        # the demo's phase-space density product (beltkit psd, centred dipole, L* = L)
+        "psd_mu_mev_per_g": (300.0, 1000.0),
+        "psd_k_g05_re": (0.05,),
     },
 }
 
@@ -250,6 +261,27 @@ def _storm_profiles(time):
     diffusion = on * rise * np.exp(-after / 14.0)
     buildup = on * (1.0 - np.exp(-after / 20.0))
     return injection, diffusion, buildup
+
+
+def _local_source(energy_kev, L, time):
+    r"""Flux multiplier (time, energy) of the spectrometer's growing local source.
+
+    .. math::
+
+        1 + G\,(1 - e^{-\Delta t/\tau})\,
+        e^{-(L - L_s)^2 / (2 w^2)}\,\frac{E}{E + E_s}
+
+    after the storm onset (:math:`\Delta t > 0`), 1 before it; in the centred
+    dipole :math:`L^* = L`, and a factor that does not depend on pitch angle
+    multiplies f at every (mu, K) alike. Invented.
+    """
+    p = SCENARIO["tern"]
+    dt_h = _hours(time, np.datetime64(SCENARIO["storm_onset"], "ns"))
+    growth = np.where(dt_h > 0, 1.0 - np.exp(-np.clip(dt_h, 0.0, None) / p["source_growth_h"]),
+                      0.0)
+    shape = np.exp(-0.5 * ((np.asarray(L, float) - p["source_lstar"]) / p["source_width"]) ** 2)
+    E = np.asarray(energy_kev, float)[None, :]
+    return 1.0 + p["source_gain"] * (growth * shape)[:, None] * E / (E + p["source_energy_kev"])
 
 
 def _belt(energy_kev, L, mlt, time):
@@ -403,6 +435,8 @@ def _tern_day(day_start, rng):
     a_edges = np.linspace(0.0, 180.0, p["n_pitch"] + 1)
     alpha = 0.5 * (a_edges[:-1] + a_edges[1:])
     A, n_idx, F, blc = _belt(energy, L, mlt, time)
+    source = _local_source(energy, L, time)
+    A = A * source
 
     # expected bin flux: solid-angle average over each bin (Gauss-Legendre in cos alpha)
     x, w = np.polynomial.legendre.leggauss(12)
@@ -449,6 +483,13 @@ def _tern_day(day_start, rng):
         **_response_vars(factor, p, per="bin", accumulated="bin"),
         **_position_vars(time, xyz_geo, mlat, mlt, L, b_local),
         **_truth_vars(("time", "energy"), prec, quasi, trapped, F, n_idx, comment),
+        "true_local_source_factor": (
+            ("time", "energy"), source.astype("float32"),
+            {"units": "1", "long_name": "true flux multiplier of the local source",
+             "comment": ("Invented local source (beltkit.demo._local_source): the model flux "
+                         "is multiplied by this factor at every pitch angle, so the phase-space "
+                         "density at fixed mu and K is too; it peaks at L* = L = "
+                         f"{p['source_lstar']} (dipole) and grows after the storm onset.")}),
     }
     day = str(day_start)[:10]
     ds = xr.Dataset(
@@ -857,7 +898,7 @@ def _survey_dials(survey, e_kev, partial, caption=""):
     return fig
 
 
-def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
+def demo_figures(data_files, summaries, surveys, fig_dir, psd_files=()) -> list[Path]:
     """Draw the demonstration figures as PNG files.
 
     Quantities from partially covered data (the Dunlin telescopes) are
@@ -876,6 +917,9 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
         Survey files keyed by spacecraft (``"tern"``, ``"dunlin"``).
     fig_dir : str or os.PathLike
         Folder for the PNG files.
+    psd_files : sequence of path, optional
+        Marram-Tern's phase-space density files (:func:`beltkit.batch.psd_files`):
+        their radial profiles at mu = 1000 MeV/G (``tern_psd_profiles.png``).
 
     Returns
     -------
@@ -934,7 +978,36 @@ def demo_figures(data_files, summaries, surveys, fig_dir) -> list[Path]:
              f"{craft}_survey_L_MLT.png")
     save(plot.loss_cone_longitude(1.5, SCENARIO["storm_onset"], n_lon=48),
          "loss_cones_vs_longitude.png")
+    if psd_files:
+        save(plot.psd_radial_profiles(tern_psd_profiles(psd_files)), "tern_psd_profiles.png")
     return written
+
+
+def tern_psd_profiles(psd_files, mu_mev_per_g=1000.0):
+    """Radial profiles of Marram-Tern's phase-space density files, per pass.
+
+    Parameters
+    ----------
+    psd_files : sequence of path
+        The day-files' outputs of :func:`beltkit.batch.psd_files`.
+    mu_mev_per_g : float
+        First invariant of the profiles (the first K of the files).
+
+    Returns
+    -------
+    xarray.Dataset
+        :func:`beltkit.psd.radial_profiles` in L* bins 0.25 wide from 2.5 to 6.
+    """
+    from . import psd
+
+    parts = []
+    for path in sorted(psd_files):
+        with xr.open_dataset(path) as one:
+            parts.append(one.load())
+    combined = xr.concat(parts, "time", data_vars="minimal", coords="minimal",
+                         compat="override")
+    return psd.radial_profiles(combined, mu_mev_per_g, float(combined["k"][0]),
+                               lstar_bins=np.arange(2.5, 6.01, 0.25))
 
 
 def run_demo(out_dir, *, n_days=None) -> list[Path]:
@@ -946,7 +1019,9 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     i.e. the IGRF at each sample's time, and with the pitch-angle diffusion
     outputs, ``diffusion=True``), one survey per spacecraft
     (``survey_tern.nc``, hourly windows, and ``survey_dunlin.nc``, daily windows;
-    :func:`beltkit.batch.survey`) and PNG figures (``figures/``, :func:`demo_figures`).
+    :func:`beltkit.batch.survey`), Marram-Tern's phase-space density at fixed mu
+    and K (``psd/``, :func:`beltkit.batch.psd_files` in the centred dipole) and
+    PNG figures (``figures/``, :func:`demo_figures`, with the radial profiles of f).
 
     Parameters
     ----------
@@ -989,7 +1064,19 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
             surveys[craft] = Path(batch.survey(files, out / f"survey_{craft}.nc",
                                                l_edges=np.arange(1.0, l_top + 0.01, l_step),
                                                time_window=window))
-    figures = demo_figures(data_files, summaries, surveys, out / "figures")
-    report = sorted(p for p in (out / "summaries").iterdir()
+    tern = [d for d in data_files if "_tern_" in Path(d).name]
+    psd_out = []
+    if tern:
+        p = SCENARIO["tern"]
+        done = batch.psd_files(tern, out / "psd", p["psd_mu_mev_per_g"], p["psd_k_g05_re"],
+                               field="dipole", overwrite=True)
+        bad = [r for r in done if r.status == "failed"]
+        if bad:
+            raise RuntimeError("demo phase-space density failed: " + "; ".join(
+                f"{r.input}: {r.reason}" for r in bad))
+        psd_out = [Path(r.output) for r in done]
+    figures = demo_figures(data_files, summaries, surveys, out / "figures", psd_files=psd_out)
+    report = sorted(p for folder in ("summaries", "psd") if (out / folder).is_dir()
+                    for p in (out / folder).iterdir()
                     if p.is_file() and not p.name.endswith(".nc"))
-    return [*data_files, *summaries, *report, *surveys.values(), *figures]
+    return [*data_files, *summaries, *psd_out, *report, *surveys.values(), *figures]

@@ -370,3 +370,54 @@ def test_narrowed_or_widened_event_interval_fails_the_criterion(dunlin_event, fa
     out = _event_summary(ds, sigma=2.0 * factor)
     cov, _ = _coverage(out, ds["true_diffusion_coefficient"].values.astype(float))
     assert not _calibrated(cov), cov
+
+
+def test_psd_profiles_show_the_injected_local_source(tmp_path):
+    """The radial profiles of f at fixed (mu, K) peak where the generator's source is, after it.
+
+    Truth: the spectrometer's flux is multiplied by ``true_local_source_factor``,
+    a Gaussian in L centred on SCENARIO["tern"]["source_lstar"] that is 1 before
+    the storm onset and grows after it; in the centred dipole L* = L (Roederer
+    1970), so f at fixed mu and K carries the same factor. Before the onset
+    f(L*) rises monotonically outward (no local maximum); after it a local
+    maximum sits in the bin of the source and grows pass by pass.
+    """
+    from beltkit import batch
+
+    p = demo.SCENARIO["tern"]
+    onset = np.datetime64(demo.SCENARIO["storm_onset"], "ns")
+    # the truth stored in the files: 1 before the onset, largest at the stated L after it
+    for path in TERN:
+        with xr.open_dataset(path) as ds:
+            factor = ds["true_local_source_factor"].values
+            before = ds["time"].values < onset
+            assert np.all(factor[before] == 1.0)
+            if (~before).any():
+                top = np.unravel_index(np.argmax(factor), factor.shape)
+                assert abs(float(ds["L"][top[0]]) - p["source_lstar"]) < 0.1
+    done = batch.psd_files(TERN, tmp_path, p["psd_mu_mev_per_g"], p["psd_k_g05_re"],
+                           field="dipole")
+    assert [r.status for r in done] == ["ok"] * len(TERN)
+    profiles = demo.tern_psd_profiles([r.output for r in done], mu_mev_per_g=1000.0)
+    centres = profiles["lstar"].values
+    half = np.timedelta64(150, "m")  # a pass lasts about 4.5 h (half the 9 h orbit)
+    seen_before, peaks_after = 0, []
+    for i in range(profiles.sizes["pass"]):
+        f = np.log(profiles["psd"].isel({"pass": i}).values)
+        ok = np.isfinite(f)
+        if ok.sum() < 10:  # a pass that skims the belt (near apogee or perigee only)
+            continue
+        inner = [j for j in range(1, f.size - 1)
+                 if ok[j - 1:j + 2].all() and f[j] > f[j - 1] and f[j] > f[j + 1]]
+        mid = profiles["pass_time"].values[i]
+        if mid + half < onset:
+            seen_before += 1
+            assert inner == [], f"a local maximum before the onset on the pass at {mid}"
+        elif mid - half > onset:
+            assert len(inner) == 1, f"pass at {mid}: local maxima at {centres[inner]}"
+            assert abs(centres[inner[0]] - p["source_lstar"]) <= 0.125 + 1e-9
+            peaks_after.append(f[inner[0]])
+    assert seen_before >= 4 and len(peaks_after) >= 5
+    # the peak grows: every complete pass after the first is above it, the last ~5x it
+    assert min(peaks_after[1:]) > peaks_after[0]
+    assert peaks_after[-1] - peaks_after[0] > np.log(3.0)
