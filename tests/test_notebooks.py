@@ -11,8 +11,9 @@ ROOT = Path(__file__).resolve().parents[1]
 NOTEBOOKS = sorted((ROOT / "notebooks").glob("*.ipynb"))
 
 
-def test_the_three_notebooks_are_there():
-    assert {p.stem for p in NOTEBOOKS} == {"event_study", "survey", "field_models"}
+def test_the_notebooks_are_there():
+    assert {p.stem for p in NOTEBOOKS} == {"event_study", "survey", "field_models",
+                                           "storm_field"}
 
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
