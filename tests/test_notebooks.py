@@ -13,7 +13,7 @@ NOTEBOOKS = sorted((ROOT / "notebooks").glob("*.ipynb"))
 
 def test_the_notebooks_are_there():
     assert {p.stem for p in NOTEBOOKS} == {"event_study", "survey", "field_models",
-                                           "storm_field"}
+                                           "storm_field", "phase_space_density"}
 
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
