@@ -74,10 +74,10 @@ def _orbit(n, cadence_s=60.0):
 
 
 def lstar_row(quick=False, n=None):
-    """Time L* for `n` orbit samples (10,000; 200 when quick) in IGRF + T89; return one row."""
+    """Time L* for `n` orbit samples (10,000; 20 when quick) in IGRF + T89; return one row."""
     from beltkit.field import T89, lstar
 
-    n = n or (200 if quick else 10_000)
+    n = n or (20 if quick else 10_000)
     t = np.datetime64("2024-03-01T00:00", "ns") + np.arange(n) * np.timedelta64(60, "s")
     xyz = _orbit(n)
     alpha = np.random.default_rng(5).uniform(40.0, 90.0, n)
