@@ -246,16 +246,92 @@ def _pad_function(name):
     return getattr(pad, name)
 
 
-#: Field models that ``field=`` names ("auto": IGRF with ``position_geo``, else the dipole).
-FIELD_CHOICES = ("auto", "dipole", "igrf")
+#: Field models that ``field=`` names ("auto": IGRF with ``position_geo``, else the dipole;
+#: "t89": the IGRF plus Tsyganenko's 1989 external field, with ``kp=``).
+FIELD_CHOICES = ("auto", "dipole", "igrf", "t89")
+
+
+@dataclass(frozen=True, repr=False)
+class StormField:
+    """The storm-time field of a batch run: the IGRF plus T89, with Kp from the caller.
+
+    ``kp`` is one Kp value for every sample, a Kp series (a 1-D DataArray
+    along time, e.g. from :func:`beltkit.field.read_kp`), or the name of a
+    variable of each flux file holding Kp per sample. The model itself is
+    built per file (:meth:`resolve`), so a per-file Kp variable works and
+    the request travels to worker processes as plain data.
+    """
+
+    kp: object
+    name = "t89"
+
+    def __post_init__(self):
+        from .field.t89 import T89
+
+        if isinstance(self.kp, str):
+            if not self.kp:
+                raise ValueError("kp: give a Kp value, a Kp series or a variable name")
+            return
+        T89(kp=self.kp)  # a bad value or series is refused before any file is read
+
+    def __repr__(self):
+        if isinstance(self.kp, str):
+            return f"StormField(kp_variable={self.kp!r})"
+        if np.ndim(getattr(self.kp, "values", self.kp)) == 0:
+            return f"StormField(kp={float(np.asarray(getattr(self.kp, 'values', self.kp)))!r})"
+        return f"StormField(kp=<series of {np.size(self.kp)} values>)"
+
+    def resolve(self, ds):
+        """Return the :class:`beltkit.field.T89` model for one dataset."""
+        from .field.t89 import T89
+
+        kp = self.kp
+        if isinstance(kp, str):
+            if kp not in ds.variables:
+                raise ConventionError([
+                    f"{kp}: missing; the Kp variable named by kp (--kp-variable) is not in "
+                    "this file (give --kp VALUE or --kp FILE instead)"])
+            kp = ds[kp].load()
+        return T89(kp=kp)
+
+    def settings_key(self):
+        """Return what decides whether an output made with this field is up to date."""
+        if isinstance(self.kp, str):
+            return {"kp_variable": self.kp}
+        if np.ndim(getattr(self.kp, "values", self.kp)) == 0:
+            return {"kp": float(np.asarray(getattr(self.kp, "values", self.kp)))}
+        import hashlib
+
+        values = np.ascontiguousarray(np.asarray(self.kp.values, dtype=float))
+        times = np.ascontiguousarray(np.asarray(self.kp[self.kp.dims[0]].values,
+                                                dtype="datetime64[ns]"))
+        digest = hashlib.sha256(values.tobytes() + times.view("int64").tobytes()).hexdigest()
+        return {"kp_series_sha256": digest, "kp_series_length": int(values.size)}
+
+
+def _storm_field(field, kp):
+    """Turn ``field="t89"`` and ``kp`` into a :class:`StormField`; refuse a stray ``kp``."""
+    if isinstance(field, str) and field == "t89":
+        if kp is None:
+            raise ValueError("field 't89' needs Kp: give kp= a value 0-9, a Kp series "
+                             "(beltkit.field.read_kp) or the name of a Kp variable of the files "
+                             "(--kp VALUE|FILE or --kp-variable NAME)")
+        return StormField(kp)
+    if kp is not None:
+        raise ValueError(f"kp applies to field 't89' only, not to field={field!r}")
+    return field
 
 
 def _check_field(field, epoch):
     """Refuse an unknown field name, or an epoch override with a model that does not take one."""
     if not isinstance(field, str):
+        if epoch is not None and getattr(field, "name", None) == "t89":
+            raise ValueError("an epoch override applies to the dipole model only, not to "
+                             "field='t89'")
         return
     if field not in FIELD_CHOICES:
-        raise ValueError(f"field model must be 'auto', 'dipole' or 'igrf', got {field!r}")
+        raise ValueError(f"field model must be one of {', '.join(map(repr, FIELD_CHOICES))}, "
+                         f"got {field!r}")
     if field != "dipole" and epoch is not None:
         raise ValueError(f"an epoch override applies to the dipole model only, not to "
                          f"field={field!r}: the IGRF is evaluated at each sample's time (drop "
@@ -268,9 +344,13 @@ def _field_model(field, epoch, ds):
     ``"auto"`` becomes the IGRF where the dataset carries ``position_geo``
     and the centred dipole (closed forms from ``L`` and ``mlat``) otherwise.
     """
+    if isinstance(field, StormField):
+        return field.resolve(ds)
     if not isinstance(field, str):
         return field
     _check_field(field, epoch)
+    if field == "t89":
+        raise ValueError("field 't89' needs Kp (kp=...)")
     name = field
     if name == "auto":
         name = "igrf" if "position_geo" in ds.variables else "dipole"
@@ -337,6 +417,7 @@ def _settings(field, altitude_km, epoch, mapping, compress, diffusion=None) -> d
         mapping_key = sha256(mapping)
     settings = {
         "field": field if isinstance(field, str) else getattr(field, "name", repr(field)),
+        **(field.settings_key() if isinstance(field, StormField) else {}),
         "altitude_km": float(altitude_km),
         "epoch": None if epoch is None else str(epoch),
         "mapping": mapping_key,
@@ -577,7 +658,22 @@ def _summary_attrs(source: Path, digest: str, settings: dict, epoch, geo_positio
     if note:  # the whole file's note (a slab's own may miss samples of other slabs)
         attrs["field_model_note"] = note
         attrs["beltkit_field_model_note"] = note
+    kp = _kp_text(settings)
+    if kp:
+        attrs["field_kp"] = kp
     return attrs
+
+
+def _kp_text(settings: dict) -> str | None:
+    """Say which Kp a storm-time (T89) output used, from its settings; None without one."""
+    if "kp" in settings:
+        return f"{settings['kp']:g} for every sample"
+    if "kp_variable" in settings:
+        return f"per sample from the input's variable {settings['kp_variable']!r}"
+    if "kp_series_sha256" in settings:
+        return (f"a Kp series of {settings['kp_series_length']} values (SHA-256 of values and "
+                f"times {settings['kp_series_sha256']})")
+    return None
 
 
 _HASHER = {"pid": None, "pool": None}
@@ -829,7 +925,7 @@ def _format_line(r: FileResult) -> str:
 def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
-              debug=False, diffusion=None) -> list[FileResult]:
+              debug=False, diffusion=None, kp=None) -> list[FileResult]:
     """Summarize flux files into loss-cone summary files, safely and resumably.
 
     Parameters
@@ -839,8 +935,9 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     out_dir : str or path
         Output folder (created if needed); gets ``<stem>.summary.nc`` per input
         and ``run-report.jsonl``.
-    field : {"auto", "dipole", "igrf"}
-        Field model of the loss cones. "auto" (default) chooses per file: the
+    field : {"auto", "dipole", "igrf", "t89"}
+        Field model of the loss cones. "t89": the IGRF plus Tsyganenko's
+        (1989) external field with ``kp``. "auto" (default) chooses per file: the
         IGRF at each sample's time where the file carries ``position_geo``,
         else the centred dipole from ``L`` and ``mlat`` (an ``L`` declared
         non-dipole by its ``L_definition`` attribute is then refused). Each
@@ -882,6 +979,13 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         dict with some of ``loss_time``, ``species`` and ``interval_sigma``.
         The options are part of the settings that decide whether an output is
         up to date, so changing them redoes the files.
+    kp : float, xarray.DataArray or str, optional
+        Kp for ``field="t89"`` (required there, refused otherwise): one value
+        0-9 for every sample, a Kp series along time (e.g. from
+        :func:`beltkit.field.read_kp`), or the name of a variable of each
+        file that holds Kp per sample. The Kp (or the series' checksum, or
+        the variable's name) is part of the settings that decide whether an
+        output is up to date.
 
     Returns
     -------
@@ -899,6 +1003,7 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
     _check_field(field, epoch)
+    field = _storm_field(field, kp)
     diffusion = _diffusion_options(diffusion)
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
@@ -964,6 +1069,7 @@ def _psd_slabs(ds, src: Path, task: dict):
             "field_model_requested": settings["field"],
             "footpoint_altitude_km": float(settings["altitude_km"]),
             "beltkit_settings": _settings_text(settings),
+            **({"field_kp": _kp_text(settings)} if _kp_text(settings) else {}),
         }
 
     return [out], None, 1, attrs_of
@@ -972,7 +1078,7 @@ def _psd_slabs(ds, src: Path, task: dict):
 def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species="electron",
               lstar_cadence_s=60.0, altitude_km=100.0, mapping=None, compress=True,
               overwrite=False, fail_fast=False, workers=1, scheduler=None, command=None,
-              log=None, progress=None, debug=False) -> list[FileResult]:
+              log=None, progress=None, debug=False, kp=None) -> list[FileResult]:
     """Phase-space density at fixed invariants of flux files, safely and resumably.
 
     The batch form of :func:`beltkit.psd.at_fixed_invariants`: one
@@ -990,9 +1096,10 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         Output folder (created if needed).
     mu_mev_per_g, k_g05_re : float or sequence of float
         First invariants (MeV/G) and second invariants (G^(1/2) R_E).
-    field : {"auto", "dipole", "igrf"}
+    field : {"auto", "dipole", "igrf", "t89"}
         "auto": the IGRF for a file with ``position_geo``, else the centred
-        dipole from ``L`` and ``mlat`` (where L* = L).
+        dipole from ``L`` and ``mlat`` (where L* = L); "t89": the IGRF plus
+        Tsyganenko's (1989) external field with ``kp``.
     species : str
         Species of the flux.
     lstar_cadence_s : float
@@ -1000,7 +1107,7 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         interpolated linearly in time to the samples.
     altitude_km : float
         Loss altitude of the loss cones and drift shells (km).
-    mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug
+    mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug, kp
         As for :func:`summarize`.
 
     Returns
@@ -1018,6 +1125,7 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
     _check_field(field, None)
+    field = _storm_field(field, kp)
     mu = np.atleast_1d(np.asarray(mu_mev_per_g, dtype=float))
     k = np.atleast_1d(np.asarray(k_g05_re, dtype=float))
     if mu.ndim != 1 or k.ndim != 1 or not mu.size or not k.size:

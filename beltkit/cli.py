@@ -291,10 +291,13 @@ def build_parser() -> argparse.ArgumentParser:
                                    "file into DIR, plus DIR/run-report.jsonl.")
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
-    p.add_argument("--field", choices=("auto", "dipole", "igrf"), default="auto",
+    p.add_argument("--field", choices=("auto", "dipole", "igrf", "t89"), default="auto",
                    help="field model of the loss cones (default: auto = the IGRF at each "
                         "sample's time for files with position_geo, the centred dipole for "
-                        "files with only L and mlat); each summary records the model used")
+                        "files with only L and mlat; t89 = the IGRF plus Tsyganenko's 1989 "
+                        "external field, with --kp or --kp-variable); each summary records "
+                        "the model used")
+    _kp_options(p)
     p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
     p.add_argument("--epoch", type=_epoch, default=None, metavar="YEAR",
@@ -334,9 +337,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--k", nargs="+", type=_nonnegative_number, required=True,
                    metavar="G05_RE", help="second invariants K in G^(1/2) R_E")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
-    p.add_argument("--field", choices=("auto", "dipole", "igrf"), default="auto",
+    p.add_argument("--field", choices=("auto", "dipole", "igrf", "t89"), default="auto",
                    help="field model (default: auto = the IGRF for files with position_geo, "
-                        "the centred dipole, where L* = L, for files with only L and mlat)")
+                        "the centred dipole, where L* = L, for files with only L and mlat; "
+                        "t89 = the IGRF plus Tsyganenko's 1989 external field, with --kp or "
+                        "--kp-variable)")
+    _kp_options(p)
     p.add_argument("--lstar-cadence", type=_duration, default="60s", metavar="DURATION",
                    help="cadence of the field-line work (K, mirror field, L*) in the IGRF, "
                         "interpolated linearly in time to the samples (default: 60s)")
@@ -588,29 +594,65 @@ def _diffusion_args(args):
     return given or True
 
 
+def _kp_options(p):
+    """Add the Kp options of ``--field t89`` to a batch command's parser."""
+    p.add_argument("--kp", default=None, metavar="VALUE|FILE",
+                   help="with --field t89: one Kp value (0-9) for every sample, or a Kp time "
+                        "series file (CSV of time,kp or netCDF with a kp variable; see "
+                        "beltkit.field.read_kp)")
+    p.add_argument("--kp-variable", default=None, metavar="NAME",
+                   help="with --field t89: the variable of each flux file that holds Kp per "
+                        "sample")
+
+
+def _kp_args(args):
+    """Return the ``kp`` argument of a batch command from --kp / --kp-variable."""
+    if args.kp is not None and args.kp_variable is not None:
+        raise _InputError("give --kp or --kp-variable, not both")
+    if args.field != "t89":
+        if args.kp is not None or args.kp_variable is not None:
+            raise _InputError("--kp and --kp-variable apply with --field t89 only: add "
+                              "--field t89, or drop them")
+        return None
+    if args.kp_variable is not None:
+        return args.kp_variable
+    if args.kp is None:
+        raise _InputError("--field t89 needs Kp: give --kp VALUE (0-9), --kp FILE (a Kp time "
+                          "series) or --kp-variable NAME (a Kp variable of the files)")
+    try:
+        value = float(args.kp)
+    except ValueError:
+        value = None
+    if value is not None:
+        if not (math.isfinite(value) and 0.0 <= value <= 9.0):
+            raise _InputError(f"--kp must be a Kp value 0-9 or a file, got {args.kp}")
+        return value
+    if not Path(args.kp).is_file():
+        raise _InputError(f"--kp {args.kp}: no such file (give a Kp value 0-9 or a Kp series "
+                          "file)")
+    from .errors import FieldModelError
+    from .field.kp import read_kp
+
+    try:
+        return read_kp(args.kp)
+    except FieldModelError as exc:
+        raise _InputError(str(exc)) from None
+
+
 def _cmd_summarize(args, command) -> int:
     from .batch import summarize
 
     diffusion = _diffusion_args(args)
+    kp = _kp_args(args)
     _expand_flux_inputs(args.inputs)  # before summarize creates the output folder
     results = summarize(
         args.inputs, args.out, field=args.field, altitude_km=args.footpoint_km,
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=_say, debug=args.debug,
-        diffusion=diffusion,
+        diffusion=diffusion, kp=kp,
     )
-    n_ok = sum(r.status == "ok" for r in results)
-    n_skip = sum(r.status == "skipped" for r in results)
-    n_bad = sum(r.status == "failed" for r in results)
-    _say(f"{len(results)} file(s): {n_ok} written, {n_skip} skipped, {n_bad} failed; "
-         f"report in {Path(args.out) / 'run-report.jsonl'}")
-    if not results:
-        _say("beltkit summarize: no input files found", sys.stderr)
-        return 1
-    not_attempted = any(r.status == "skipped" and r.reason.startswith("not attempted")
-                        for r in results)
-    return 1 if n_bad or not_attempted else 0
+    return _batch_exit(results, args, "summarize")
 
 
 def _batch_exit(results, args, name) -> int:
@@ -634,13 +676,14 @@ def _cmd_psd(args, command) -> int:
     from .batch import psd_files
 
     species = _species(args.species).name
+    kp = _kp_args(args)
     _expand_flux_inputs(args.inputs)  # before psd_files creates the output folder
     results = psd_files(
         args.inputs, args.out, args.mu, args.k, field=args.field, species=species,
         lstar_cadence_s=pd.to_timedelta(args.lstar_cadence).total_seconds(),
         altitude_km=args.footpoint_km, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
-        scheduler=args.scheduler, command=command, log=_say, debug=args.debug,
+        scheduler=args.scheduler, command=command, log=_say, debug=args.debug, kp=kp,
     )
     return _batch_exit(results, args, "psd")
 
