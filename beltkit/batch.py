@@ -59,6 +59,7 @@ from .io import (
     write_dataset,
     write_stream,
 )
+from .units import K_UNITS
 
 __all__ = [
     "DIFFUSION_DEFAULTS",
@@ -1053,9 +1054,15 @@ def _psd_slabs(ds, src: Path, task: dict):
                 out[name].attrs["ancillary_variables"] = kept
             else:
                 del out[name].attrs["ancillary_variables"]
-    # the gauss under its UDUNITS name (K's G^(1/2) has no UDUNITS form: kept as the trade's)
-    if out["mu"].attrs.get("units") == "MeV G-1":
-        out["mu"].attrs["units"] = "MeV gauss-1"
+    # K's unit, G^(1/2) R_E, has no UDUNITS form (no fractional powers): the file states
+    # it in the long name and in beltkit_units instead of a `units` CF readers would misread
+    for name in out.variables:
+        if out[name].attrs.get("units") == K_UNITS:
+            attrs = dict(out[name].attrs)
+            del attrs["units"]
+            attrs["beltkit_units"] = "G^(1/2) R_E"
+            attrs["long_name"] = f"{attrs.get('long_name', name)} in G^(1/2) R_E"
+            out[name].attrs = attrs
     out = out.load()
     used = out.attrs.get("beltkit_field_model", "")
 

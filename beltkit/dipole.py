@@ -46,6 +46,7 @@ import numpy as np
 from ._wrap import array_api, check_range
 from .constants import B0_NT, GAUSS_PER_NT, R_E_KM
 from .errors import PhysicsError
+from .units import K_UNITS
 
 __all__ = [
     "arc_length",
@@ -931,7 +932,7 @@ def _k_core(L, alpha_eq_deg, b0_nt):
     return np.sqrt(b0 * GAUSS_PER_NT / L) * q
 
 
-@array_api("G0.5 R_E", long_name="second adiabatic invariant K", name="K")
+@array_api(K_UNITS, long_name="second adiabatic invariant K", name="K")
 def second_invariant_k(L, alpha_eq_deg, b0_nt=B0_NT):
     r"""Second adiabatic invariant :math:`K` in a centred dipole, in G^(1/2) R_E.
 

@@ -40,7 +40,7 @@ import scipy.constants as _sc
 from ._wrap import array_api, as_float_array, check_range
 from .constants import GAUSS_PER_NT, KEV_J, MEV_J, NT
 from .errors import PhysicsError
-from .units import conversion_factor
+from .units import MU_UNITS, conversion_factor
 
 __all__ = [
     "PSD_CONSTANT",
@@ -463,7 +463,7 @@ def _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, sp):
     return pperp2 / (2.0 * sp.rest_energy_kev * 1e-3 * b * GAUSS_PER_NT)
 
 
-@array_api("MeV G-1", long_name="first adiabatic invariant")
+@array_api(MU_UNITS, long_name="first adiabatic invariant")
 def first_invariant(energy_kev, pitch_angle_deg, b_nt, species="electron"):
     r"""Relativistic first adiabatic invariant in MeV/G, the unit the trade quotes.
 

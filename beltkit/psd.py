@@ -32,7 +32,7 @@ from . import dipole
 from .constants import B0_NT, GAUSS_PER_NT, R_E_KM
 from .errors import PhysicsError
 from .particles import PSD_CONSTANT, PSD_UNITS, get_species
-from .units import l_shell_factor
+from .units import K_UNITS, MU_UNITS, l_shell_factor
 
 __all__ = ["PSD_FLAG_MEANINGS", "at_fixed_invariants", "passes", "radial_profiles"]
 
@@ -358,9 +358,9 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
                                           long_name="equatorial pitch angle with the given K"),
             "lstar": lst.assign_attrs(units="1", long_name="Roederer L* of the drift shell"),
         },
-        coords={"mu": xr.Variable("mu", mu, {"units": "MeV G-1",
+        coords={"mu": xr.Variable("mu", mu, {"units": MU_UNITS,
                                              "long_name": "first adiabatic invariant"}),
-                "k": xr.Variable("k", k, {"units": "G0.5 R_E",
+                "k": xr.Variable("k", k, {"units": K_UNITS,
                                           "long_name": "second adiabatic invariant K"})},
     )
     out = out.assign_coords(time=eq["time"])

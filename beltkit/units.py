@@ -34,7 +34,21 @@ import cf_units
 
 from .constants import R_E_KM
 
-__all__ = ["conversion_factor", "l_shell_factor", "normalize_units", "parse_units", "same_kind"]
+__all__ = [
+    "K_UNITS",
+    "MU_UNITS",
+    "conversion_factor",
+    "l_shell_factor",
+    "normalize_units",
+    "parse_units",
+    "same_kind",
+]
+
+#: Unit of the first adiabatic invariant mu (the trade's MeV/G, in UDUNITS spelling).
+MU_UNITS = "MeV gauss-1"
+#: Unit of the second invariant K, G^(1/2) R_E. UDUNITS has no fractional powers, so
+#: files state it in ``long_name`` and ``beltkit_units`` instead of ``units``.
+K_UNITS = "G0.5 R_E"
 
 _SUPERSCRIPT = re.compile(r"!(?:E|U)(.*?)!N")
 _SUBSCRIPT = re.compile(r"!I(.*?)!N")

@@ -75,6 +75,7 @@ from .._wrap import as_float_array
 from ..constants import GAUSS_PER_NT, R_E_KM
 from ..dipole import y_integral_kernel
 from ..errors import PhysicsError
+from ..units import K_UNITS
 from .coords import frame_matrix
 from .lshell import kp_level_variable, model_attrs
 from .trace import blocks, time_block, trace_lines
@@ -90,7 +91,7 @@ LSTAR_REASONS = {
     4: "drift_shell_crosses_stop_altitude",
     5: "drift_shell_not_found",
 }
-_K_UNITS = "G0.5 R_E"
+_K_UNITS = K_UNITS
 # Gauss-Legendre nodes of the cap integral in colatitude
 _CAP_NODES = 32
 # relative tolerance on I (and on B_min for I = 0) of the shell search
