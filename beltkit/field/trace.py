@@ -184,6 +184,7 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
     reason = np.zeros(n, dtype=np.int8)
     steps = np.zeros(n, dtype=np.int64)
     rec = []
+    crossings = []
 
     idx = np.flatnonzero(np.isfinite(b0))
     x = x0[idx].copy()
@@ -225,17 +226,11 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
 
         done = np.zeros(idx.size, dtype=bool)
         if np.any(crossed):
+            # the crossing is refined after the loop, for all lines at once (one set of
+            # field calls instead of a few small ones in every step that has crossings)
             c = np.flatnonzero(crossed)
-            xf, kf, bf, tf = _refine_crossing(
-                field, x[c], k1[c], h[c], r[c], x_new[c], k_new[c], sign[idx[c]], idx[c],
-                r_stop,
-            )
-            gi = idx[c]
-            foot[gi] = xf
-            b_foot[gi] = bf
-            length[gi] = s[c] + tf
-            steps[gi] += 1
-            rec.append((gi, s[c] + tf, bf, xf))
+            crossings.append((x[c], k1[c], h[c], r[c], x_new[c], k_new[c], idx[c], s[c]))
+            steps[idx[c]] += 1
             done[c] = True
         if np.any(escaped):
             is_open[idx[escaped]] = True
@@ -268,6 +263,14 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
         keep = ~done
         idx, x, k1, s, r, h = idx[keep], x[keep], k1[keep], s[keep], r[keep], h[keep]
 
+    if crossings:
+        cx, ck, ch, cr, cxn, ckn, gi, cs = (np.concatenate(q) for q in zip(*crossings))
+        xf, kf, bf, tf = _refine_crossing(field, cx, ck, ch, cr, cxn, ckn, sign[gi], gi, r_stop)
+        foot[gi] = xf
+        b_foot[gi] = bf
+        length[gi] = cs + tf
+        # each line's crossing is its last record, so the per-line order is kept
+        rec.append((gi, cs + tf, bf, xf))
     if rec:
         rec_idx = np.concatenate([q[0] for q in rec])
         rec_s = np.concatenate([q[1] for q in rec])
