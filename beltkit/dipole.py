@@ -165,8 +165,6 @@ def fold_pitch_angle(alpha_deg):
     return np.where(upper, 180.0 - alpha_deg, alpha_deg), upper
 
 
-_fold = fold_pitch_angle
-
 
 def _asin_deg(s2):
     """Return arcsin(sqrt(s2)) in degrees, s2 in [0, 1] (NaN kept)."""
