@@ -244,13 +244,6 @@ def _single_threaded():
                 _sync_saved = None
 
 
-def _pad_function(name):
-    """Return ``beltkit.pad.<name>`` (imported on first use: the engine is heavy)."""
-    from . import pad
-
-    return getattr(pad, name)
-
-
 #: Field models that ``field=`` names ("auto": IGRF with ``position_geo``, else the dipole;
 #: "t89": the IGRF plus Tsyganenko's 1989 external field, with ``kp=``).
 FIELD_CHOICES = ("auto", "dipole", "igrf", "t89")
@@ -483,13 +476,13 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
 
     With ``defer_value_check`` the flux values of lazy data are checked by
     the engine while the summary is computed (see
-    ``beltkit.pad.partition._partition``), instead of in a separate pass
+    ``beltkit.pad.partition.partition_slab``), instead of in a separate pass
     over the file before it.
     """
-    from .pad.partition import _partition
+    from .pad.partition import partition_slab
 
     model = _field_model(field, epoch, ds)
-    out, pending = _partition(ds, model=model, altitude_km=altitude_km,
+    out, pending = partition_slab(ds, model=model, altitude_km=altitude_km,
                               defer_value_check=defer_value_check, buffers=buffers)
     if diffusion is not None:
         counts = None if pending is None else pending[0]

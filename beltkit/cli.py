@@ -717,15 +717,16 @@ def _cmd_survey(args, command) -> int:
 
 
 def _cmd_inspect(args, command) -> int:
-    from .batch import _pad_function, one_line
+    from .batch import one_line
     from .io import open_flux
+    from .pad.conventions import validate
 
     files = _expand_flux_inputs(args.inputs)
     bad = 0
     for path in files:
         try:
             with open_flux(path, mapping=args.mapping) as ds:
-                problems = _pad_function("validate")(ds)
+                problems = validate(ds)
         except Exception as exc:  # unreadable file: one line, then the next file
             if args.debug:
                 import traceback

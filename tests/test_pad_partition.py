@@ -361,7 +361,7 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     # batch runs leave the value checks of dask data to the engine's own pass (the file is
     # read once); summed over the chunks they must name exactly the validator's problems
     from beltkit.pad.conventions import validate
-    from beltkit.pad.partition import _partition
+    from beltkit.pad.partition import partition_slab
 
     rng = np.random.default_rng(5)
     j = rng.uniform(1, 50, (40, 3, 12))
@@ -374,7 +374,7 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     ds = make_ds(j, EDGES_12, flux_err=err)
     want = validate(ds)
     assert len(want) == 3 and "3 negative values" in want[1]
-    out, (totals, verify) = _partition(ds.chunk(time=7), defer_value_check=True)
+    out, (totals, verify) = partition_slab(ds.chunk(time=7), defer_value_check=True)
     assert out["flux_trapped"].chunks is not None
     totals = totals_bad = totals.compute()
     with pytest.raises(ConventionError) as exc:
@@ -383,12 +383,12 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     np.testing.assert_array_equal(totals[0], [40 * 12, 0, 40 * 12])  # valid values per energy
     # good data: the same outputs as the eager engine, and nothing raised
     good = make_ds(np.abs(np.nan_to_num(j, nan=3.0)), EDGES_12, flux_err=np.abs(err))
-    out, (totals, verify) = _partition(good.chunk(time=7), defer_value_check=True)
+    out, (totals, verify) = partition_slab(good.chunk(time=7), defer_value_check=True)
     verify(totals.compute())
-    # (_partition, the summaries' entry, includes the losses per hemisphere by default)
+    # (partition_slab, the summaries' entry, includes the losses per hemisphere by default)
     xr.testing.assert_allclose(out.compute(), partition(good, hemispheres=True))
     # eager data: the engine's own counts, which slab-by-slab callers sum over the slabs
-    slabs = [_partition(ds.isel(time=slice(a, a + 16)), defer_value_check=True)[1]
+    slabs = [partition_slab(ds.isel(time=slice(a, a + 16)), defer_value_check=True)[1]
              for a in range(0, 40, 16)]
     summed = sum(p[0] for p in slabs)
     np.testing.assert_array_equal(summed, totals_bad)
@@ -410,7 +410,7 @@ def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol, errors):
     # samples span several of its chunks, some clean and some with a missing value, a
     # negative value, an unknown L or a negative or missing error; the numpy engine (the
     # reference implementation) treats every sample alike
-    from beltkit.pad.partition import _partition
+    from beltkit.pad.partition import partition_slab
 
     rng = np.random.default_rng(21)
     n = 900
@@ -429,9 +429,9 @@ def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol, errors):
                  **extra)
     assert ds.flux.dtype == dtype
     # the value checks are left to the caller (a negative error is refused otherwise)
-    fast, (counts, verify) = _partition(ds, engine="numba", allow_negative=True,
+    fast, (counts, verify) = partition_slab(ds, engine="numba", allow_negative=True,
                                         defer_value_check=True)
-    ref, (ref_counts, _) = _partition(ds, engine="numpy", allow_negative=True,
+    ref, (ref_counts, _) = partition_slab(ds, engine="numpy", allow_negative=True,
                                       defer_value_check=True)
     assert fast.flux_trapped.dtype == dtype
     xr.testing.assert_allclose(fast, ref, rtol=rtol)
@@ -450,7 +450,7 @@ def test_engines_agree_on_clean_and_unclean_chunks(dtype, rtol, errors):
     else:
         verify(counts)
     # the same counts from the lazy path, where the engine adds them to its outputs
-    out, (totals, _) = _partition(ds.chunk(time=400), defer_value_check=True,
+    out, (totals, _) = partition_slab(ds.chunk(time=400), defer_value_check=True,
                                   allow_negative=True)
     np.testing.assert_array_equal(totals.compute(), counts)
     xr.testing.assert_allclose(out.compute(), fast, rtol=rtol)

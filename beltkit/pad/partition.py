@@ -74,7 +74,7 @@ from .losscones import (
     time_coords,
 )
 
-__all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition"]
+__all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition", "partition_slab"]
 
 _POPS = ("precipitating", "quasi_trapped", "trapped")
 _NAMES = (
@@ -501,7 +501,7 @@ class OutputBuffers:
     A batch run partitions a file slab by slab and writes each result out
     before it computes the next: the next slab can then be written into the
     same memory, which is already mapped (no page faults, no zeroing by the
-    kernel). Pass one to ``_partition(..., buffers=...)`` only when nothing
+    kernel). Pass one to ``partition_slab(..., buffers=...)`` only when nothing
     keeps the previous result: its arrays are overwritten.
     """
 
@@ -782,16 +782,19 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
     >>> bool(np.isclose(float(out.fraction_precipitating[0, 0]), 1 - np.cos(blc)))
     True
     """
-    out, _ = _partition(ds, model, altitude_km, filling_band_deg=filling_band_deg,
+    out, _ = partition_slab(ds, model, altitude_km, filling_band_deg=filling_band_deg,
                         allow_negative=allow_negative, engine=engine, fill=fill,
                         hemispheres=hemispheres)
     return out
 
 
-def _partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
+def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
                buffers=None, hemispheres=True):
-    """:func:`partition`, optionally leaving the value checks of lazy data to the caller.
+    """Partition a dataset or a slab of a file, optionally leaving the value checks to the caller.
+
+    The entry of callers that partition a file slab by slab (``beltkit
+    summarize``); :func:`partition` is this function's ``out``.
 
     Returns ``(out, pending)``. With ``defer_value_check`` and dask data, the
     validator's value scan (a pass over the whole file) is skipped and the
