@@ -428,6 +428,12 @@ def _lstar_block(model, x, t, a_deg, n_mlt, altitude_km, max_iterations, opts, s
         search.update(idx, np.where(below, 0.0, f))
         narrow = np.abs(search.hi[idx] - search.lo[idx]) < 1e-10
         active[idx[conv | narrow]] = False
+        # a sample with one MLT below the stop altitude is undefined (reason 4) whatever
+        # its other MLTs give: stop searching them (they are the slow tail of the search)
+        if np.any(below):
+            dead = np.zeros(si.size // m, dtype=bool)
+            dead[idx[below] // m] = True
+            active &= ~np.repeat(dead, m)
     found = best_f < _SHELL_ACCEPT
     # per sample: every MLT found, none below the stop altitude
     rows = np.flatnonzero(ok)
