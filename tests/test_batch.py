@@ -224,15 +224,14 @@ def test_summarize_good_and_bad_files(tmp_path, capsys):
 
 
 def test_summary_values_equal_partition_of_the_dataset(tmp_path):
-    from beltkit.batch import _pad_function
+    from beltkit.pad import partition
 
     ds = flux_dataset(n_time=150, seed=7)
     src = write_flux_file(tmp_path / "x.nc", ds)
     [r] = batch.summarize([src], tmp_path / "out", altitude_km=300.0)
     assert r.status == "ok", r.reason
     got = xr.open_dataset(r.output)
-    want = _pad_function("partition")(bio.open_flux(src, chunks=None), model="dipole",
-                                      altitude_km=300.0)
+    want = partition(bio.open_flux(src, chunks=None), model="dipole", altitude_km=300.0)
     for name in ("fraction_precipitating", "flux_trapped", "blc_local", "fraction_trapped_err"):
         xr.testing.assert_allclose(got[name], want[name].compute())
     # fractions sum to one where every population was fully sampled (common practice)
