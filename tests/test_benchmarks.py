@@ -6,6 +6,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -20,6 +22,7 @@ def _suites():
 SUITES = _suites()
 
 
+@pytest.mark.slow
 def test_quick_benchmark_runs_every_suite(tmp_path):
     out = tmp_path / "bench.json"
     proc = subprocess.run(

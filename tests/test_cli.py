@@ -168,6 +168,7 @@ def test_summarize_workers_and_report_counts(tmp_path, capsys):
         assert nc["fraction_trapped"].filters()["zlib"] is False
 
 
+@pytest.mark.slow
 def test_demo_runs_the_whole_pipeline_from_another_folder(tmp_path, monkeypatch, capsys):
     # from an unrelated working folder: nothing may be read relative to the repository
     monkeypatch.chdir(tmp_path)

@@ -191,6 +191,7 @@ def test_truth_uses_the_pipeline_loss_cones(tern_results):
                                rtol=1e-5)
 
 
+@pytest.mark.slow
 def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatch):
     work = tmp_path / "elsewhere"
     work.mkdir()

@@ -25,6 +25,7 @@ def test_outputs_are_stripped(path):
                 f"{path.name}: strip the outputs before committing")
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
 def test_notebook_runs(path, tmp_path, monkeypatch):
     before = sorted(p.name for p in path.parent.iterdir())
