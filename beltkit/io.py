@@ -57,16 +57,15 @@ import datetime as _dt
 import hashlib
 import json
 import os
-import secrets
 import sys
 from collections.abc import Mapping
-from glob import escape as glob_escape
 from pathlib import Path
 
 import numpy as np
 import xarray as xr
 
 from . import __version__
+from .atomic import TEMP_SUFFIX, atomic_file, remove_stale_temporaries, temporary_name
 from .errors import MappingError
 
 if sys.version_info >= (3, 11):
@@ -115,8 +114,6 @@ _MAPPING_SECTIONS = ("variables", "units", "dimensions")
 _MAPPING_DIMENSIONS = ("time", "energy", "pitch_angle", "look")
 
 #: Marker in the names of temporary files written by :func:`write_dataset`.
-TEMP_SUFFIX = ".tmp"
-_TEMP_MARK = ".beltkit-"
 
 _CDF_MAGIC = (b"\xcd\xf3\x00\x01", b"\xcd\xf2\x60\x02", b"\x00\x00\xff\xff")
 
@@ -526,32 +523,6 @@ def _read_cdf_records(path, name, start, stop, shape, fill, dtype):
 # --------------------------------------------------------------------------- writer
 
 
-def temporary_name(target) -> Path:
-    """Return a fresh temporary path beside `target` (``.<name>.beltkit-<hex>.tmp``)."""
-    target = Path(target)
-    return target.with_name(f".{target.name}{_TEMP_MARK}{secrets.token_hex(6)}{TEMP_SUFFIX}")
-
-
-def remove_stale_temporaries(folder, target_name=None) -> list[Path]:
-    """Delete temporary files left in `folder` by killed writers; return what was removed.
-
-    Only names made by :func:`temporary_name` are touched; with `target_name`,
-    only the temporaries of that one output file.
-    """
-    removed = []
-    folder = Path(folder)
-    if not folder.is_dir():
-        return removed
-    stem = glob_escape(target_name) if target_name else "*"
-    for p in folder.glob(f".{stem}{_TEMP_MARK}*{TEMP_SUFFIX}"):
-        try:
-            p.unlink()
-            removed.append(p)
-        except FileNotFoundError:
-            pass
-    return removed
-
-
 def _clean_attrs(attrs: Mapping) -> dict:
     """Attributes netCDF can store: drop None, bools to int, dicts to JSON."""
     out = {}
@@ -652,24 +623,15 @@ def _prepared(ds: xr.Dataset, complevel: int, history, attrs, time_chunk: int, c
 
 
 def _atomic_write(path: Path, fill, late_attrs=None, *, defer_commit=False):
-    """Call ``fill(tmp)`` to write a temporary file beside `path`, then move it into place.
+    """Write a netCDF file atomically (:func:`beltkit.atomic.atomic_file`).
 
-    The temporary file gets the late attributes, is flushed to disk and renamed
-    over `path` (then the folder is flushed); on any error it is removed and
-    the target is left as it was. With ``defer_commit`` the flush and rename
-    (which make no netCDF call) are not done here: the function that does them
-    is returned, for the caller to run once it has released its netCDF lock.
+    ``fill(tmp)`` writes the temporary file (with a small HDF5 chunk cache);
+    the late attributes are then added to it. With ``defer_commit`` the
+    function that flushes and renames (no netCDF call) is returned, for the
+    caller to run once it has released its netCDF lock.
     """
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = temporary_name(path)
 
-    def discard():
-        try:
-            tmp.unlink()
-        except FileNotFoundError:
-            pass
-
-    try:
+    def write(tmp):
         with _small_chunk_cache():
             fill(tmp)
         if late_attrs is not None:
@@ -679,29 +641,8 @@ def _atomic_write(path: Path, fill, late_attrs=None, *, defer_commit=False):
 
                 with netCDF4.Dataset(tmp, "a") as nc:
                     nc.setncatts(extra)
-    except BaseException:
-        discard()
-        raise
 
-    def commit() -> Path:
-        try:
-            with open(tmp, "rb") as fh:
-                os.fsync(fh.fileno())
-            os.replace(tmp, path)
-        except BaseException:
-            discard()
-            raise
-        try:
-            dir_fd = os.open(path.parent, os.O_RDONLY)
-            try:
-                os.fsync(dir_fd)
-            finally:
-                os.close(dir_fd)
-        except OSError:  # some file systems do not support fsync on folders
-            pass
-        return path
-
-    return commit if defer_commit else commit()
+    return atomic_file(path, write, defer_commit=defer_commit)
 
 
 def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=None,

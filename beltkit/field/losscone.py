@@ -62,7 +62,6 @@ builds it about ten times at most.
 
 from __future__ import annotations
 
-import contextlib
 import hashlib
 import json
 import os
@@ -73,12 +72,10 @@ import xarray as xr
 from scipy.interpolate import CubicSpline, PchipInterpolator
 
 from .._wrap import as_float_array
+from ..atomic import atomic_file
 from ..constants import R_E_KM
 from ..errors import PhysicsError
-from ..io import temporary_name
 from .lshell import (
-    _broadcast_time,
-    _leading,
     hilton_l,
     kp_level_variable,
     l_to_surface,
@@ -86,7 +83,8 @@ from .lshell import (
     needs_surface,
     open_reason_variable,
 )
-from .trace import _as_start_points, blocks, time_block, trace_lines
+from .points import broadcast_time, positions, start_points
+from .trace import blocks, time_block, trace_lines
 
 __all__ = [
     "TABLE_VERSION",
@@ -427,29 +425,8 @@ def _read_table(path, ident):
 
 
 def _write_table(ds, path):
-    """Write the table atomically: temporary file beside `path`, fsync, :func:`os.replace`.
-
-    The same sequence as :mod:`beltkit.io`'s writer (with its temporary names,
-    so :func:`beltkit.io.remove_stale_temporaries` knows leftovers), kept here
-    because that writer goes through netCDF-C (see the note above).
-    """
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = temporary_name(path)
-    try:
-        ds.to_netcdf(tmp, engine="scipy")
-        with open(tmp, "rb") as fh:
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            tmp.unlink()
-        raise
-    with contextlib.suppress(OSError):  # some file systems cannot fsync a folder
-        dir_fd = os.open(path.parent, os.O_RDONLY)
-        try:
-            os.fsync(dir_fd)
-        finally:
-            os.close(dir_fd)
+    """Write the table atomically (:func:`beltkit.atomic.atomic_file`) in the scipy engine."""
+    atomic_file(path, lambda tmp: ds.to_netcdf(tmp, engine="scipy"))
 
 
 def _asin_deg(ratio):
@@ -521,13 +498,13 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     from . import coords
 
     altitude_km = _check_altitude(altitude_km)
-    x, lead, dims, coords_in = _leading(xyz_km)
+    x, lead, dims, coords_in = positions(xyz_km)
     if dims is None:
         dims = (dim,) if len(lead) == 1 else tuple(f"{dim}_{i}" for i in range(len(lead)))
     n = int(np.prod(lead)) if lead else 1
-    t = _broadcast_time(time, lead)
+    t = broadcast_time(time, lead)
     x = x.reshape(-1, 3)
-    _as_start_points(x, R_E_KM + altitude_km, "xyz_km")  # fail before any tracing
+    start_points(x, R_E_KM + altitude_km, "xyz_km")  # fail before any tracing
     b0 = np.broadcast_to(np.asarray(model.dipole_b0_nt(t), dtype=float), (n,))
     per_line = {k: np.full(n, np.nan) for k in ("b_start", "b_foot_north", "b_foot_south",
                                                  "b_min", "l_local", "l_foot")}

@@ -16,6 +16,7 @@ import xarray as xr
 from .._wrap import array_api, as_float_array
 from ..constants import R_E_KM
 from ..errors import PhysicsError
+from .points import broadcast_time, positions, start_points
 
 __all__ = ["dipole_l", "hilton_l", "kp_level_variable", "mcilwain_l", "model_attrs",
            "open_reason_variable"]
@@ -229,36 +230,6 @@ def open_reason_variable(reason, lead, dims):
         "flag_meanings": " ".join(OPEN_REASONS[k] for k in sorted(OPEN_REASONS))})
 
 
-def _leading(xyz_km, name="xyz_km"):
-    """Return (values (N,3), leading shape, leading dims/coords or None)."""
-    dims = coords = None
-    if isinstance(xyz_km, xr.DataArray):
-        dims = xyz_km.dims[:-1]
-        coords = {k: c for k, c in xyz_km.coords.items() if set(c.dims) <= set(dims)}
-        xyz_km = xyz_km.values
-    x = as_float_array(xyz_km, name)
-    if x.ndim == 0 or x.shape[-1] != 3:
-        raise PhysicsError(
-            f"argument {name!r} must have a trailing axis of length 3 (x, y, z in GEO km); "
-            f"got shape {x.shape}"
-        )
-    return x, x.shape[:-1], dims, coords
-
-
-def _broadcast_time(time, lead):
-    """Return the times as a flat array matching the flattened leading shape (or a scalar)."""
-    if isinstance(time, xr.DataArray):
-        time = time.values
-    t = np.asarray(time)
-    if t.ndim == 0 or t.size == 1:
-        return t.reshape(-1)[0] if t.ndim else t[()]
-    try:
-        return np.broadcast_to(t, lead).reshape(-1)
-    except ValueError as exc:
-        raise PhysicsError(
-            f"argument 'time' of shape {t.shape} does not broadcast against the positions' "
-            f"leading shape {lead}"
-        ) from exc
 
 
 def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
@@ -308,11 +279,11 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
     McIlwain's (1961) function (:func:`hilton_l`) with the dipole moment of
     the epoch of each sample.
     """
-    from .trace import _as_start_points, blocks, time_block, trace_lines
+    from .trace import blocks, time_block, trace_lines
 
-    x, lead, dims, coords = _leading(xyz_km)
+    x, lead, dims, coords = positions(xyz_km)
     n = int(np.prod(lead)) if lead else 1
-    t = _broadcast_time(time, lead)
+    t = broadcast_time(time, lead)
     alpha = as_float_array(alpha_local_deg.values if isinstance(alpha_local_deg, xr.DataArray)
                            else alpha_local_deg, "alpha_local_deg")
     with np.errstate(invalid="ignore"):
@@ -326,7 +297,7 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
             f"the positions' leading shape {lead}"
         ) from exc
     x = x.reshape(-1, 3)
-    _as_start_points(x, R_E_KM + float(altitude_km), "xyz_km")  # fail before any tracing
+    start_points(x, R_E_KM + float(altitude_km), "xyz_km")  # fail before any tracing
     b0 = np.broadcast_to(np.asarray(model.dipole_b0_nt(t), dtype=float), (n,))
     out = np.full(n, np.nan)
     reason = np.zeros(n, dtype=np.int8)

@@ -41,7 +41,8 @@ import numpy as np
 import xarray as xr
 
 from ..constants import R_E_KM
-from ..errors import FieldModelError, PhysicsError
+from ..errors import PhysicsError
+from .points import start_points
 
 __all__ = ["BLOCK_LINES", "OPEN_REASONS", "FieldLines", "blocks", "integral_invariant",
            "time_block", "trace", "trace_lines"]
@@ -582,42 +583,6 @@ def _insert_minimum(s, lb, n_samples, s_min, b_min, ok):
     return s_new, lb_new, n_samples
 
 
-def _as_start_points(start_xyz_km, r_stop, name="start_xyz_km"):
-    """Validate start points; return a (N, 3) float array and the leading shape."""
-    if isinstance(start_xyz_km, xr.DataArray):
-        start_xyz_km = start_xyz_km.values
-    try:
-        x = np.asarray(start_xyz_km, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise PhysicsError(
-            f"argument {name!r} must be numeric GEO positions in km, got {start_xyz_km!r}"
-        ) from exc
-    if x.ndim == 0 or x.shape[-1] != 3:
-        raise PhysicsError(
-            f"argument {name!r} must have a trailing axis of length 3 (x, y, z in GEO km); "
-            f"got shape {x.shape}"
-        )
-    lead = x.shape[:-1]
-    x = x.reshape(-1, 3)
-    r = np.linalg.norm(x, axis=1)
-    finite = np.isfinite(r)
-    inside = finite & (r < R_E_KM)
-    if np.any(inside):
-        i = int(np.flatnonzero(inside)[0])
-        raise FieldModelError(
-            f"argument {name!r} has {int(inside.sum())} point(s) inside the Earth "
-            f"(first: index {i}, r = {r[i]:.1f} km < R_E = {R_E_KM} km); positions are GEO "
-            "Cartesian in km, not Earth radii (multiply by beltkit.constants.R_E_KM)"
-        )
-    below = finite & (r < r_stop)
-    if np.any(below):
-        i = int(np.flatnonzero(below)[0])
-        raise FieldModelError(
-            f"argument {name!r} has {int(below.sum())} point(s) below the stop altitude "
-            f"(first: index {i}, altitude {r[i] - R_E_KM:.1f} km < altitude_km = "
-            f"{r_stop - R_E_KM:g}); lower 'altitude_km' to trace from them"
-        )
-    return x, lead
 
 
 def trace_lines(
@@ -660,7 +625,7 @@ def trace_lines(
             f"argument 'max_radius_re' ({max_radius_re}) must exceed the stop radius "
             f"({r_stop / R_E_KM:.4f} R_E)"
         )
-    x0, _ = _as_start_points(start_xyz_km, r_stop, arg_name)
+    x0, _ = start_points(start_xyz_km, r_stop, arg_name)
     n = x0.shape[0]
     t, per_line = _check_time_shape(time, n)
     field = _Field(model, t, per_line, n)
@@ -1008,7 +973,7 @@ def trace(
     if samples:
         lines = trace_lines(model, start_xyz_km, time, altitude_km, **opts)
         return lines_to_dataset(lines, altitude_km, samples=True)
-    x, _ = _as_start_points(start_xyz_km, R_E_KM + float(altitude_km))
+    x, _ = start_points(start_xyz_km, R_E_KM + float(altitude_km))
     t, _ = _check_time_shape(time, x.shape[0])
     parts = [trace_lines(model, x[sl], time_block(t, sl), altitude_km, **opts)
              for sl in blocks(x.shape[0])]
