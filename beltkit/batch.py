@@ -63,6 +63,7 @@ from .units import K_UNITS
 
 __all__ = [
     "DIFFUSION_DEFAULTS",
+    "INPUT_SUFFIXES",
     "FIELD_CHOICES",
     "FileResult",
     "PSD_SUFFIX",
@@ -104,7 +105,8 @@ SURVEY_VARIABLES = (
 )
 #: Survey variables that span decades: their median is the meaningful statistic.
 _LOG_SPREAD = ("diffusion_coefficient", "z0", "lifetime")
-_INPUT_SUFFIXES = (".nc", ".nc4", ".cdf", ".h5", ".hdf5")
+#: File name endings that a folder given as input contributes.
+INPUT_SUFFIXES = (".nc", ".nc4", ".cdf", ".h5", ".hdf5")
 #: samples per slab of a summarized file (about 100 MB of float32 flux and errors in memory;
 #: a day at 1 s is one slab)
 _TIME_SLAB = 131072
@@ -173,7 +175,7 @@ def one_line(exc: BaseException, path=None) -> str:
     return text
 
 
-def expand_inputs(inputs, *, suffixes=_INPUT_SUFFIXES) -> list[Path]:
+def expand_inputs(inputs, *, suffixes=INPUT_SUFFIXES) -> list[Path]:
     """Expand files, folders and glob patterns into a sorted, de-duplicated list of files.
 
     A folder contributes its files with one of `suffixes` (not hidden ones,

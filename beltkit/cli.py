@@ -494,7 +494,7 @@ def _expand_flux_inputs(inputs) -> list:
     Every pattern that matched nothing, missing path and folder without flux
     files is named; nothing is run (and no output folder is created) then.
     """
-    from .batch import _INPUT_SUFFIXES, expand_inputs
+    from .batch import INPUT_SUFFIXES, expand_inputs
 
     files, dead = [], []
     for item in inputs:
@@ -506,7 +506,7 @@ def _expand_flux_inputs(inputs) -> list:
         elif Path(text).is_dir():
             if not found:
                 dead.append(f"folder {text} holds no flux files "
-                            f"({', '.join('*' + x for x in _INPUT_SUFFIXES)}; summaries "
+                            f"({', '.join('*' + x for x in INPUT_SUFFIXES)}; summaries "
                             f"excluded)")
         elif not Path(text).exists():
             dead.append(f"no such file or folder: {text}")

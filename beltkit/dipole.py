@@ -54,6 +54,7 @@ __all__ = [
     "equatorial_field",
     "equatorial_pitch_angle",
     "field_magnitude",
+    "footpoint_cos2",
     "footpoint_field",
     "footpoint_mlat",
     "invariants_to_pitch_energy",
@@ -99,8 +100,30 @@ def _altitude(altitude_km):
                        hint="Altitude is in km above the reference sphere R_E = 6371.2 km")
 
 
-def _foot_cos2(L, altitude_km):
-    """Return cos^2 of the footpoint latitude, checking the line reaches the altitude."""
+def footpoint_cos2(L, altitude_km=100.0):
+    r"""Return cos^2 of the footpoint latitude of field lines, checking they reach the altitude.
+
+    A checked kernel of :func:`footpoint_mlat` for callers that need the
+    square cosine (loss cones from field ratios) on plain arrays.
+
+    Parameters
+    ----------
+    L : array_like
+        L-shell (>= 1).
+    altitude_km : array_like
+        Footpoint altitude above the reference sphere R_E = 6371.2 km.
+
+    Returns
+    -------
+    numpy.ndarray
+        :math:`\cos^2\lambda_f = (R_E + h) / (L R_E)` (field line
+        :math:`r = L R_E \cos^2\lambda` of the centred dipole, common practice).
+
+    Raises
+    ------
+    PhysicsError
+        If L < 1, or a line's apex lies below the altitude (L < 1 + h / R_E).
+    """
     L = _L(L)
     h = _altitude(altitude_km)
     rf = 1.0 + h / R_E_KM
@@ -399,7 +422,7 @@ def footpoint_mlat(L, altitude_km=100.0):
     >>> round(footpoint_mlat(4.0, altitude_km=0.0), 4)
     60.0
     """
-    cos2 = _foot_cos2(L, altitude_km)
+    cos2 = footpoint_cos2(L, altitude_km)
     return np.rad2deg(np.arccos(np.sqrt(cos2)))
 
 
@@ -433,7 +456,7 @@ def footpoint_field(L, altitude_km=100.0, b0_nt=B0_NT):
     >>> round(footpoint_field(1.0, altitude_km=0.0, b0_nt=30000.0), 1)
     30000.0
     """
-    cos2 = _foot_cos2(L, altitude_km)
+    cos2 = footpoint_cos2(L, altitude_km)
     return _b0(b0_nt) / _cube(np.asarray(L, dtype=float)) * _b_ratio_cos2(cos2)
 
 
@@ -468,7 +491,7 @@ def arc_length(L, altitude_km=100.0):
     >>> round(arc_length(4.0, altitude_km=0.0), 4)
     4.5021
     """
-    cos2 = _foot_cos2(L, altitude_km)
+    cos2 = footpoint_cos2(L, altitude_km)
     x = np.sqrt(3.0) * np.sqrt(1.0 - cos2)
     return np.asarray(L, dtype=float) / (2.0 * np.sqrt(3.0)) * (
         x * np.sqrt(1.0 + x * x) + np.arcsinh(x)
@@ -654,7 +677,7 @@ def bounce_loss_cone(L, altitude_km=100.0):
     >>> round(bounce_loss_cone(4.0, altitude_km=0.0), 3)
     5.342
     """
-    cos2 = _foot_cos2(L, altitude_km)
+    cos2 = footpoint_cos2(L, altitude_km)
     return _asin_deg(1.0 / _b_ratio_cos2(cos2))
 
 
@@ -689,7 +712,7 @@ def local_loss_cone(L, mlat_deg, altitude_km=100.0):
     >>> round(local_loss_cone(4.0, 0.0, altitude_km=0.0), 3)
     5.342
     """
-    cos2 = _foot_cos2(L, altitude_km)
+    cos2 = footpoint_cos2(L, altitude_km)
     lam = np.deg2rad(_mlat(mlat_deg))
     _check_above_surface(L, lam)
     return _asin_deg(_b_ratio(lam) / _b_ratio_cos2(cos2))

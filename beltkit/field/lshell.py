@@ -124,11 +124,11 @@ def hilton_l(b_m_nt, i_km, b0_nt):
 
 def needs_surface(lines, b_m):
     """Flag closed lines whose mirror field `b_m` exceeds a footpoint field (mirror below)."""
-    from .trace import _FOOT_TOL
+    from .trace import FOOT_TOLERANCE
 
     with np.errstate(invalid="ignore"):
         weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
-        return lines.closed & (b_m > weak * (1 + _FOOT_TOL))
+        return lines.closed & (b_m > weak * (1 + FOOT_TOLERANCE))
 
 
 def l_to_surface(model, xyz_km, time, b_m_nt, b0_nt, **trace_options):

@@ -44,8 +44,8 @@ from ..constants import R_E_KM
 from ..errors import PhysicsError
 from .points import start_points
 
-__all__ = ["BLOCK_LINES", "OPEN_REASONS", "FieldLines", "blocks", "integral_invariant",
-           "time_block", "trace", "trace_lines"]
+__all__ = ["BLOCK_LINES", "FOOT_TOLERANCE", "OPEN_REASONS", "FieldLines", "blocks",
+           "integral_invariant", "time_block", "trace", "trace_lines"]
 
 # Dormand-Prince 5(4) tableau (Dormand & Prince 1980; Hairer et al. 1993, table 5.2).
 _A = (
@@ -64,8 +64,8 @@ _GAUSS_NODES = 64
 #: Codes of ``open_reason`` (CF flag values) and their meanings.
 OPEN_REASONS = {0: "closed_or_unresolved", 1: "beyond_max_radius", 2: "outside_model_boundary",
                 3: "step_limit"}
-# relative excess of a mirror field over a footpoint field still placed on the footpoint
-_FOOT_TOL = 1e-7
+#: Relative excess of a mirror field over a footpoint field still placed on the footpoint.
+FOOT_TOLERANCE = 1e-7
 #: Lines traced together in one batch by the high-level functions (bounds memory:
 #: the samples of a batch take about 5 * 8 * 150 bytes per line).
 BLOCK_LINES = 20_000
@@ -775,10 +775,10 @@ def _invariant_one(lines, bm):
     # mirror field at (or within rounding of) the minimum: I = 0
     eq = ok & (bm <= b_min * (1 + 1e-12)) & (bm >= b_min * (1 - 1e-9))
     result[eq] = 0.0
-    # mirror fields at most _FOOT_TOL above a footpoint field mirror on the footpoint
+    # mirror fields at most FOOT_TOLERANCE above a footpoint field mirror on the footpoint
     with np.errstate(invalid="ignore"):
-        reach = ((bm <= lines.b_foot_north * (1 + _FOOT_TOL))
-                 & (bm <= lines.b_foot_south * (1 + _FOOT_TOL)))
+        reach = ((bm <= lines.b_foot_north * (1 + FOOT_TOLERANCE))
+                 & (bm <= lines.b_foot_south * (1 + FOOT_TOLERANCE)))
     # a cubic through the samples needs four of them
     work = ok & ~eq & (bm > b_min) & reach & (lines.n_samples >= 4)
     rows = np.flatnonzero(work)
@@ -791,7 +791,7 @@ def _invariant_one(lines, bm):
     ar = np.arange(rows.size)
     for end in (np.zeros(rows.size, dtype=np.int64), ns - 1):
         y_end = y[ar, end]
-        y[ar, end] = np.where((y_end < 0) & (y_end > -_FOOT_TOL), 0.0, y_end)
+        y[ar, end] = np.where((y_end < 0) & (y_end > -FOOT_TOLERANCE), 0.0, y_end)
     smin = lines.s_min[rows]
     k_max = s.shape[1]
     cols = np.arange(k_max)[None, :]

@@ -50,6 +50,7 @@ import xarray as xr
 
 from .. import dipole
 from .._threads import map_slices
+from .._wrap import check_range
 from ..constants import B0_NT, R_E_KM
 from ..errors import ConventionError
 from . import _kernels
@@ -288,9 +289,10 @@ def _dipole_cones(L, mlat, b_loc, altitude_km):
         b_loc = np.ascontiguousarray(
             np.broadcast_to(np.asarray(b_loc, dtype=float), shape).ravel())
     # the arguments are checked once, whole (L >= 1 and reaching the altitude, mlat)
-    dipole._foot_cos2(L, altitude_km)
+    dipole.footpoint_cos2(L, altitude_km)
     if b_loc is None:
-        dipole._mlat(mlat, "mlat")
+        check_range(mlat, "mlat", lo=-90.0, hi=90.0, lo_open=True, hi_open=True,
+                    hint="Magnetic latitude is in degrees; the poles are excluded")
     rf = 1.0 + float(altitude_km) / R_E_KM  # cos^2 of the footpoint latitude is rf / L
     n = L.shape[0]
     blc, blc_eq, bl, b_eq = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
