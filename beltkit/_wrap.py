@@ -26,7 +26,7 @@ from collections.abc import Callable
 import numpy as np
 
 from .errors import PhysicsError
-from .units import conversion_factor, l_shell_factor
+from .units import FLUX_UNITS, conversion_factor, l_shell_factor
 
 __all__ = ["array_api", "as_float_array", "check_range", "to_output"]
 
@@ -43,6 +43,8 @@ def _unit_of_argument(name: str) -> str | None:
         return "km"
     if name == "L":
         return "1"
+    if name == "flux":
+        return FLUX_UNITS
     return None
 
 

@@ -40,7 +40,7 @@ import scipy.constants as _sc
 from ._wrap import array_api, as_float_array, check_range
 from .constants import GAUSS_PER_NT, KEV_J, MEV_J, NT
 from .errors import PhysicsError
-from .units import MU_UNITS, conversion_factor
+from .units import FLUX_UNITS, MU_UNITS
 
 __all__ = [
     "PSD_CONSTANT",
@@ -541,7 +541,6 @@ PSD_CONSTANT = _sc.kilo / (_sc.speed_of_light / _sc.centi)
 
 #: UDUNITS spelling of the trade's phase-space density unit (c/(cm MeV))^3.
 PSD_UNITS = "(299792458 m s-1)3 cm-3 MeV-3"
-_FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 
 
 def _p2_mev2(energy_kev, sp):
@@ -550,25 +549,7 @@ def _p2_mev2(energy_kev, sp):
     return e * (e + 2.0 * sp.rest_energy_kev) * 1e-6
 
 
-def _flux_in_canonical_units(flux):
-    """Convert a DataArray flux to cm-2 s-1 sr-1 keV-1 (refusing other units); pass others."""
-    import xarray as xr
-
-    if not isinstance(flux, xr.DataArray) or "units" not in flux.attrs:
-        return flux
-    factor = conversion_factor(flux.attrs["units"], _FLUX_UNITS)
-    if factor is None:
-        raise PhysicsError(
-            f"argument 'flux' must be a differential directional flux in {_FLUX_UNITS!r}, "
-            f"but its DataArray has units {flux.attrs['units']!r}; convert it first"
-        )
-    if factor == 1.0:
-        return flux
-    out = flux * factor
-    out.attrs = {**flux.attrs, "units": _FLUX_UNITS}
-    return out
-
-
+@array_api(PSD_UNITS, long_name="phase-space density", name="psd")
 def phase_space_density(flux, energy_kev, species="electron"):
     r"""Phase-space density from differential directional flux, in the trade's unit.
 
@@ -616,18 +597,13 @@ def phase_space_density(flux, energy_kev, species="electron"):
     >>> f"{phase_space_density(1.0, 1000.0, 'electron'):.5e}"
     '1.64968e-08'
     """
-    return _psd(_flux_in_canonical_units(flux), energy_kev, species)
-
-
-@array_api(PSD_UNITS, long_name="phase-space density", name="psd")
-def _psd(flux, energy_kev, species):
     sp = get_species(species)
     j = as_float_array(flux, "flux")
     with np.errstate(divide="ignore", invalid="ignore"):
         return PSD_CONSTANT * j / _p2_mev2(energy_kev, sp)
 
 
-@array_api(_FLUX_UNITS, long_name="differential directional flux", name="flux")
+@array_api(FLUX_UNITS, long_name="differential directional flux", name="flux")
 def flux_from_phase_space_density(psd, energy_kev, species="electron"):
     r"""Differential directional flux from phase-space density (inverse of the above).
 

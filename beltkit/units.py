@@ -35,6 +35,7 @@ import cf_units
 from .constants import R_E_KM
 
 __all__ = [
+    "FLUX_UNITS",
     "K_UNITS",
     "MU_UNITS",
     "conversion_factor",
@@ -44,6 +45,8 @@ __all__ = [
     "same_kind",
 ]
 
+#: Canonical unit of differential directional flux.
+FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 #: Unit of the first adiabatic invariant mu (the trade's MeV/G, in UDUNITS spelling).
 MU_UNITS = "MeV gauss-1"
 #: Unit of the second invariant K, G^(1/2) R_E. UDUNITS has no fractional powers, so

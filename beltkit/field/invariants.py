@@ -78,6 +78,7 @@ from ..errors import PhysicsError
 from ..units import K_UNITS
 from .coords import frame_matrix
 from .lshell import kp_level_variable, model_attrs
+from .points import broadcast_time, positions
 from .trace import blocks, time_block, trace_lines
 
 __all__ = ["LSTAR_REASONS", "lstar", "second_invariant_k"]
@@ -105,34 +106,8 @@ _SHELL_ACCEPT = 2e-5
 
 def _positions(xyz_km):
     """Return (values (N, 3), leading shape, dims, coords) of GEO positions."""
-    dims = coords = None
-    if isinstance(xyz_km, xr.DataArray):
-        dims = xyz_km.dims[:-1]
-        coords = {k: c for k, c in xyz_km.coords.items() if set(c.dims) <= set(dims)}
-        xyz_km = xyz_km.values
-    x = as_float_array(xyz_km, "xyz_km")
-    if x.ndim == 0 or x.shape[-1] != 3:
-        raise PhysicsError(
-            f"argument 'xyz_km' must have a trailing axis of length 3 (x, y, z in GEO km); "
-            f"got shape {x.shape}"
-        )
-    return x.reshape(-1, 3), x.shape[:-1], dims, coords
-
-
-def _times(time, lead):
-    """Return the times as a scalar or a flat array over the flattened leading shape."""
-    if isinstance(time, xr.DataArray):
-        time = time.values
-    t = np.asarray(time)
-    if t.ndim == 0 or t.size == 1:
-        return t.reshape(-1)[0] if t.ndim else t[()]
-    try:
-        return np.broadcast_to(t, lead).reshape(-1)
-    except ValueError as exc:
-        raise PhysicsError(
-            f"argument 'time' of shape {t.shape} does not broadcast against the positions' "
-            f"leading shape {lead}"
-        ) from exc
+    x, lead, dims, coords = positions(xyz_km)
+    return x.reshape(-1, 3), lead, dims, coords
 
 
 def _pitch(alpha_local_deg, name="alpha_local_deg"):
@@ -191,7 +166,7 @@ def second_invariant_k(model, xyz_km, time, alpha_local_deg, *, altitude_km=100.
     (:func:`beltkit.field.trace.integral_invariant`).
     """
     x, lead, dims, coords = _positions(xyz_km)
-    t = _times(time, lead)
+    t = broadcast_time(time, lead)
     a = _pitch(alpha_local_deg)
     if a.ndim > 1:
         raise PhysicsError("argument 'alpha_local_deg' must be a scalar or a 1-D set of "
@@ -536,7 +511,7 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
 
     x, lead, dims, coords = _positions(xyz_km)
     n = x.shape[0]
-    t = _times(time, lead)
+    t = broadcast_time(time, lead)
     a = _pitch(alpha_local_deg)
     try:
         a = np.broadcast_to(a, lead).reshape(-1)

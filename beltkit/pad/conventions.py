@@ -20,7 +20,7 @@ import numpy as np
 import xarray as xr
 
 from ..errors import ConventionError
-from ..units import conversion_factor, l_shell_factor
+from ..units import FLUX_UNITS, conversion_factor, l_shell_factor
 
 __all__ = [
     "FLUX_UNITS",
@@ -33,8 +33,6 @@ __all__ = [
     "value_problems",
 ]
 
-#: Canonical unit of differential directional flux.
-FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 #: Canonical unit of solid-angle-integrated (or omnidirectional) flux.
 INTEGRATED_FLUX_UNITS = "cm-2 s-1 keV-1"
 
