@@ -790,7 +790,7 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
 
 def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
-               buffers=None, hemispheres=True):
+               buffers=None, hemispheres=True, prepared=None):
     """Partition a dataset or a slab of a file, optionally leaving the value checks to the caller.
 
     The entry of callers that partition a file slab by slab (``beltkit
@@ -809,13 +809,22 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
     the previous call's outputs, which are overwritten. ``hemispheres``
     defaults to True here: the summaries include the losses per hemisphere.
+    ``prepared``, the :class:`Prepared` result of
+    :func:`beltkit.pad.conventions.check` on the whole file (with the same
+    model), is trusted instead of validating ``ds`` again: a file summarized
+    slab by slab is validated once.
     """
     model = resolve_model(ds, model)
     lazy = _is_lazy(ds)
     deferred = bool(defer_value_check and lazy)
     # eager data: the value checks are gathered by the engine in its single pass
-    prep: Prepared = check(ds, model=model, allow_negative=allow_negative,
-                           check_values=lazy and not deferred)
+    if prepared is not None:  # validated once by the caller, on the whole file
+        prep: Prepared = prepared
+        if lazy and not deferred:
+            raise ValueError("prepared= is for eager data or deferred value checks")
+    else:
+        prep = check(ds, model=model, allow_negative=allow_negative,
+                     check_values=lazy and not deferred)
     lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
     flux, err, c2f, look = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
