@@ -73,10 +73,11 @@ def test_every_problem_is_named_at_once():
     ds["flux"][0, 1, 2] = -3.0
     problems = validate(ds)
     text = "\n".join(problems)
-    for needle in ("flux: missing 'units'", "energy_bnds: missing", "mlat: missing",
+    for needle in ("flux: missing 'units'", "mlat: missing",
                    "L: units 'furlong'", "bins overlap", "time: not strictly increasing",
                    "flux: 1 negative values"):
         assert needle in text, needle
+    assert "energy_bnds" not in text  # channel edges are optional (issue 15)
     with pytest.raises(ConventionError) as err:
         partition(ds)
     assert err.value.problems == problems
@@ -136,10 +137,21 @@ def test_fill_values_and_valid_range_are_honoured():
     assert validate(raw) == []
     before = copy.deepcopy(raw)
     a, b = partition(ref), partition(raw)
-    xr.testing.assert_allclose(a, b)
+    # the same numbers; the masked samples are flagged (input_fill 256, out of range 512)
+    flag_a, flag_b = a.partition_flag.values, b.partition_flag.values
+    want = flag_a.copy()
+    want[1, 0] |= 256
+    want[2, 1] |= 512
+    np.testing.assert_array_equal(flag_b, want)
+    strip = ["partition_flag"]
+    xr.testing.assert_allclose(a.drop_vars(strip), b.drop_vars(strip))
+    assert b.attrs["beltkit_samples_input_fill"] == 1
+    assert b.attrs["beltkit_samples_input_out_of_valid_range"] == 1
     xr.testing.assert_identical(raw, before)  # the mask is applied to a copy, blockwise
     # the same through dask
-    xr.testing.assert_allclose(a, partition(raw.chunk(time=2)).compute())
+    lazy = partition(raw.chunk(time=2)).compute()
+    xr.testing.assert_allclose(a.drop_vars(strip), lazy.drop_vars(strip))
+    np.testing.assert_array_equal(lazy.partition_flag.values, want)
 
 
 def test_non_monotonic_time_and_bad_position_ranges():
@@ -180,3 +192,254 @@ def test_missing_flux_still_reports_the_other_missing_pieces():
     assert any(p.startswith("flux: missing") for p in problems)
     assert any(p.startswith("energy: missing") for p in problems)
     assert any(p.startswith("L: missing") for p in problems)
+
+
+# ---------------------------------------------------------------- issue 15: robustness
+
+
+def _dipole_blc_deg(L, mlat_deg, altitude_km=100.0):
+    """Local bounce loss cone of a centred dipole, written out independently.
+
+    Dipole field magnitude along a line (Kivelson & Russell, Introduction to
+    Space Physics, eq. 6.6; common practice):
+    B ~ sqrt(1 + 3 sin^2 lam) / cos^6 lam; the footpoint at r = R_E + h has
+    cos^2 lam_f = r / (L R_E); sin^2 alpha_L = B(lam) / B(lam_f). R_E = 6371.2 km
+    (the IGRF reference radius, from memory).
+    """
+    lam = np.radians(mlat_deg)
+    lam_f = np.arccos(np.sqrt((6371.2 + altitude_km) / 6371.2 / L))
+
+    def b(x):
+        return np.sqrt(1 + 3 * np.sin(x) ** 2) / np.cos(x) ** 6
+
+    return np.degrees(np.arcsin(np.sqrt(b(lam) / b(lam_f))))
+
+
+def _independent_row(j, edges_deg, blc_deg):
+    """Precipitating and trapped flux of one row from the exact zone solid angles.
+
+    A bin [a1, a2] covers 2 pi (cos a1 - cos a2) sr (gyrotropy); NaN bins are
+    not measured. In a dipole the drift loss cone equals the bounce one, so
+    trapped = [blc, 180 - blc], precipitating = the two cones.
+    """
+    a1, a2 = np.radians(edges_deg[:-1]), np.radians(edges_deg[1:])
+    b = np.radians(blc_deg)
+
+    def part(lo, hi):
+        c1, c2 = np.cos(np.maximum(a1, lo)), np.cos(np.minimum(a2, hi))
+        return 2 * np.pi * np.maximum(c1 - c2, 0.0)
+
+    ok = np.isfinite(j)
+    prec = part(0, b) + part(np.pi - b, np.pi)
+    trap = part(b, np.pi - b)
+    fp, ft = np.sum(j[ok] * prec[ok]), np.sum(j[ok] * trap[ok])
+    return fp, ft, fp / (fp + ft)
+
+
+def _glitchy(seed=7, n=300):
+    rng = np.random.default_rng(seed)
+    L = np.linspace(3.0, 6.0, n)
+    mlat = 12.0 * np.sin(np.linspace(0.0, 6.0, n))
+    j = rng.uniform(1.0, 10.0, (n, 3, 12)) * np.sin(np.radians(EDGES[:-1] + 7.5)) ** 2
+    return make_ds(j, EDGES, L=L, mlat=mlat)
+
+
+GLITCH_TIMES = [10, 50, 120, 200, 299]
+NEGATIVE = [(5, 0, 3), (60, 1, 0), (61, 2, 11), (150, 0, 6), (250, 1, 5)]
+
+
+@pytest.mark.parametrize("chunked", [False, True])
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
+def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked):
+    # issue 15: five ephemeris glitches (magnetic latitude 95 deg, L = 0.7) among 300 good
+    # samples: strict refuses the file; otherwise those five samples are NaN and flagged
+    # position_out_of_range and the other 295 equal a partition of the valid samples alone
+    clean = _glitchy()
+    bad = clean.copy(deep=True)
+    bad["L"].values[GLITCH_TIMES[:2]] = 0.7
+    bad["mlat"].values[GLITCH_TIMES[2:]] = 95.0
+    with pytest.raises(ConventionError) as err:
+        partition(bad, engine=engine)
+    assert [p.split(":")[0] for p in err.value.problems] == ["L", "mlat"]
+    assert validate(bad, strict=False) == []
+    before = copy.deepcopy(bad)
+    src = bad.chunk(time=64) if chunked else bad
+    out = partition(src, engine=engine, strict=False).compute()
+    xr.testing.assert_identical(bad, before)
+    flag = out.partition_flag.values
+    assert (flag[GLITCH_TIMES] & 4096).all() and (flag[GLITCH_TIMES] & 64).all()
+    valid = np.setdiff1d(np.arange(300), GLITCH_TIMES)
+    assert not (flag[valid] & 4096).any()
+    for name in ("flux_trapped", "fraction_precipitating", "omni_flux", "blc_local"):
+        assert np.isnan(out[name].values[GLITCH_TIMES]).all(), name
+    ref = partition(clean.isel(time=valid), engine=engine)
+    xr.testing.assert_allclose(out.isel(time=valid).drop_attrs(), ref.drop_attrs(),
+                               rtol=1e-12)
+    if not chunked:
+        assert out.attrs["beltkit_samples_position_out_of_range"] == 5
+        assert out.attrs["beltkit_samples_negative_flux_masked"] == 0
+
+
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
+def test_negative_flux_values_masked_and_equal_an_independent_calculation(engine):
+    # issue 15: five negative background-subtracted values; strict refuses, otherwise the
+    # value is masked (NaN), its (time, energy) output flagged negative_flux_masked and
+    # computed on the remaining bins: equal to the zone solid-angle sums written out here
+    clean = _glitchy(seed=9)
+    bad = clean.copy(deep=True)
+    for t, e, p in NEGATIVE:
+        bad["flux"].values[t, e, p] = -2.5
+    with pytest.raises(ConventionError, match="5 negative values"):
+        partition(bad, engine=engine)
+    out = partition(bad, engine=engine, strict=False)
+    assert out.attrs["beltkit_samples_negative_flux_masked"] == 5
+    flag = out.partition_flag.values
+    rows = {(t, e) for t, e, _ in NEGATIVE}
+    for t in range(300):
+        for e in range(3):
+            assert bool(flag[t, e] & 2048) == ((t, e) in rows)
+            assert not flag[t, e] & 16  # masked, not kept
+    L, mlat = bad.L.values, bad.mlat.values
+    for t, e, p in NEGATIVE:
+        j = bad.flux.values[t, e].copy()
+        j[p] = np.nan
+        blc = _dipole_blc_deg(L[t], mlat[t])
+        fp, ft, frac = _independent_row(j, EDGES, blc)
+        assert float(out.blc_local[t]) == pytest.approx(blc, rel=1e-9)
+        assert float(out.flux_precipitating[t, e]) == pytest.approx(fp, rel=1e-9)
+        assert float(out.flux_trapped[t, e]) == pytest.approx(ft, rel=1e-9)
+        assert float(out.fraction_precipitating[t, e]) == pytest.approx(frac, rel=1e-9)
+        # nudge: keeping the negative value instead would change the number
+        kept = _independent_row(np.nan_to_num(j, nan=-2.5), EDGES, blc)[1]
+        assert abs(kept - ft) > 1e-6 * ft
+    # every other row equals the clean data's
+    other = np.ones((300, 3), dtype=bool)
+    for t, e in rows:
+        other[t, e] = False
+    ref = partition(clean, engine=engine)
+    for name in ("flux_trapped", "fraction_precipitating", "coverage_trapped"):
+        np.testing.assert_allclose(out[name].values[other], ref[name].values[other],
+                                   rtol=1e-12)
+    # allow_negative keeps them (flag 16) as before
+    kept = partition(bad, engine=engine, strict=False, allow_negative=True)
+    assert (kept.partition_flag.values[[t for t, _, _ in NEGATIVE],
+                                       [e for _, e, _ in NEGATIVE]] & 16).all()
+    assert kept.attrs["beltkit_samples_negative_flux_masked"] == 0
+
+
+def test_negative_uncertainties_masked_or_refused():
+    ds = _good(flux_err=np.full((4, 3, 12), 0.5))
+    ds["flux_err"].values[2, 1, 4] = -0.1
+    with pytest.raises(ConventionError, match="negative uncertainties"):
+        partition(ds)
+    for engine in ("numba", "numpy"):
+        out = partition(ds, strict=False, engine=engine)
+        assert out.partition_flag.values[2, 1] & 8192
+        assert np.isnan(out.flux_trapped_err.values[2, 1])  # unknown, not a wrong number
+        assert np.isfinite(out.flux_trapped.values[2, 1])  # the flux itself is measured
+        assert np.isfinite(out.flux_trapped_err.values[2, 0])
+        assert out.attrs["beltkit_samples_negative_uncertainty_masked"] == 1
+
+
+def test_reader_masks_become_flag_bits_and_strict_refuses_range_and_quality():
+    # contract with beltkit.io: masked values arrive as NaN with read_flag bits
+    # 1 fill, 2 out of the valid range, 4 quality-rejected; a (time, energy) output carries
+    # bit << 8 when any of its bins has it
+    ds = _good()
+    rf = np.zeros((4, 3, 12), dtype=np.uint8)
+    for (t, e, p), bit in (((0, 0, 3), 1), ((1, 2, 0), 2), ((3, 1, 5), 4), ((3, 1, 6), 1)):
+        ds["flux"].values[t, e, p] = np.nan
+        rf[t, e, p] = bit
+    ds["read_flag"] = (("time", "energy", "pitch_angle"), rf)
+    problems = validate(ds)
+    assert problems == [
+        "flux: 1 values out of valid range (masked when read); drop strict to keep the file "
+        "with those samples masked and flagged",
+        "flux: 1 values quality rejected (masked when read); drop strict to keep the file "
+        "with those samples masked and flagged"]
+    assert validate(ds, strict=False) == []
+    out = partition(ds, strict=False)
+    flag = out.partition_flag.values
+    assert flag[0, 0] & 256 and flag[1, 2] & 512 and flag[3, 1] & 1024 and flag[3, 1] & 256
+    assert not (flag[2] & (256 | 512 | 1024)).any()
+    assert out.attrs["beltkit_samples_input_quality_rejected"] == 1
+    meanings = dict(zip(out.partition_flag.attrs["flag_masks"].tolist(),
+                        out.partition_flag.attrs["flag_meanings"].split()))
+    assert meanings[1024] == "input_quality_rejected" and meanings[4096] == (
+        "position_out_of_range")
+    # the numbers are those of the NaN values alone
+    plain = partition(ds.drop_vars("read_flag"))
+    xr.testing.assert_allclose(out.drop_vars("partition_flag").drop_attrs(),
+                               plain.drop_vars("partition_flag").drop_attrs())
+    ds["read_flag"] = (("time", "energy"), rf[:, :, 0])
+    assert any(p.startswith("read_flag: must be an integer variable with the dims of flux")
+               for p in validate(ds, strict=False))
+
+
+def test_energy_channel_edges_are_optional():
+    ds = _good()
+    bare = ds.drop_vars("energy_bnds")
+    bare["energy"].attrs.pop("bounds")
+    assert validate(bare) == []
+    a, b = partition(ds), partition(bare)
+    assert "energy_bnds" in a.variables and "energy_bnds" not in b.variables
+    assert "bounds" not in b.energy.attrs
+    xr.testing.assert_allclose(a.drop_vars("energy_bnds"), b)
+
+
+def test_record_varying_energy_table_keeps_each_samples_channel_energies():
+    # an (time, energy) energy table (ISTP record-varying DEPEND_1): each sample is
+    # partitioned on its own channels (the partition does not depend on the energy value),
+    # and the outputs keep the table as channel_energy (time, energy) in keV
+    ds = _good()
+    table_mev = np.array([[0.1, 0.2, 0.3], [0.11, 0.21, 0.31], [0.12, 0.22, 0.32],
+                          [0.13, 0.23, 0.33]])
+    varying = ds.drop_vars(["energy", "energy_bnds"])
+    varying["channel_energy"] = (("time", "energy"), table_mev, {"units": "MeV"})
+    varying = varying.set_coords("channel_energy")
+    assert validate(varying) == []
+    out = partition(varying)
+    assert out.channel_energy.dims == ("time", "energy")
+    assert out.channel_energy.attrs["units"] == "keV"
+    np.testing.assert_allclose(out.channel_energy.values, table_mev * 1e3, rtol=1e-12)
+    ref = partition(ds)
+    np.testing.assert_array_equal(out.flux_trapped.values, ref.flux_trapped.values)
+    lazy = partition(varying.chunk(time=2)).compute()
+    xr.testing.assert_allclose(lazy, out)
+    # a table of the wrong shape, or no energy at all, is a structural problem
+    wrong = varying.assign_coords(channel_energy=(("energy", "time"), table_mev.T,
+                                                  {"units": "MeV"}))
+    assert any(p.startswith("channel_energy: a record-varying energy table must have dims")
+               for p in validate(wrong, strict=False))
+    none = varying.drop_vars("channel_energy")
+    assert any(p.startswith("energy: missing coordinate variable") for p in validate(none))
+
+
+def test_a_file_without_any_valid_value_is_refused_even_when_not_strict():
+    ds = _good()
+    ds["flux"].values[:] = np.nan
+    assert validate(ds, strict=False) == [
+        "flux: no valid value at all (every value NaN, fill or masked); check the fill-value "
+        "attributes, the valid range and the quality rule of the mapping"]
+    # one dead channel among good ones is flagged (no_valid_flux, 32), not refused
+    ds = _good()
+    ds["flux"].values[:, 1, :] = np.nan
+    out = partition(ds, strict=False)
+    assert (out.partition_flag.values[:, 1] & 32).all()
+    assert np.isfinite(out.flux_trapped.values[:, [0, 2]]).all()
+
+
+def test_positions_inside_the_earth_are_masked():
+    # a GEO position 1000 km from the centre is a glitch (inside the solid Earth)
+    from beltkit.pad.samples import position_mask
+
+    ds = _good(mlt=6.0)
+    pos = np.tile([20000.0, 0.0, 0.0], (4, 1))
+    pos[2] = [1000.0, 0.0, 0.0]
+    ds["position_geo"] = (("time", "xyz"), pos, {"units": "km"})
+    assert position_mask(ds, {}).tolist() == [False, False, True, False]
+    ds["position_geo"].attrs["units"] = "m"  # 20 km and 1 km: all inside
+    assert position_mask(ds, {"position_geo": 1e-3}).all()
+    assert any(p.startswith("position_geo: 1 positions inside the solid Earth")
+               for p in validate(ds.assign(position_geo=ds.position_geo.assign_attrs(
+                   units="km"))))

@@ -266,13 +266,13 @@ def test_refuses_invalid_data_with_every_problem_and_never_modifies_input():
     j[0, 0, 0] = -1.0
     ds = make_ds(j, EDGES_12)
     ds["flux"].attrs["units"] = "counts s-1"
-    ds = ds.drop_vars("energy_bnds")
+    ds = ds.drop_vars("pitch_angle_bnds")  # (energy_bnds are optional, issue 15)
     before = copy.deepcopy(ds)
     with pytest.raises(ConventionError) as err:
         partition(ds)
     text = "\n".join(err.value.problems)
     assert "flux: units 'counts s-1'" in text
-    assert "energy_bnds: missing" in text
+    assert "pitch_angle_bnds: missing" in text
     xr.testing.assert_identical(ds, before)
     # a valid dataset is not modified either, flux values and attributes included
     good = make_ds(np.abs(j), EDGES_12, flux_err=0.1 + np.abs(j))
@@ -323,8 +323,9 @@ def test_fitted_fill_adds_the_sine_power_integral_of_the_gap():
 
 
 def test_accessor_checks_on_construction_and_returns_new_objects():
-    ds = make_ds(np.ones((2, 1, 12)), EDGES_12).drop_vars("energy_bnds")
-    assert any(p.startswith("energy_bnds: missing") for p in ds.beltkit.problems)
+    # energy channel edges are optional (issue 15); missing pitch-angle edges are not
+    ds = make_ds(np.ones((2, 1, 12)), EDGES_12).drop_vars("pitch_angle_bnds")
+    assert any(p.startswith("pitch_angle_bnds: missing") for p in ds.beltkit.problems)
     with pytest.raises(ConventionError):
         ds.beltkit.partition()
     good = make_ds(np.ones((2, 1, 12)), EDGES_12)

@@ -21,6 +21,15 @@ import xarray as xr
 
 from ..errors import ConventionError
 from ..units import FLUX_UNITS, conversion_factor, l_shell_factor
+from .samples import MIN_GEOCENTRIC_KM, POSITION_RANGES, READ_FLAG_MEANINGS, inside_earth
+from .values import (
+    ValueMask,
+    check_range,
+    mask_of,
+    run_pending_ranges,
+    value_problems,
+    value_summary,
+)
 
 __all__ = [
     "FLUX_UNITS",
@@ -43,9 +52,6 @@ _FIELD = "nT"
 _DISTANCE = "km"
 _HOURS = "hour"
 _DIMENSIONLESS = "1"  # L: dimensionless, or in Earth radii
-
-_BLOCK = 65536
-
 
 def flux_unit_factor(units):
     """Factor converting a differential directional flux to ``cm-2 s-1 sr-1 keV-1``.
@@ -73,71 +79,6 @@ def flux_unit_factor(units):
     return conversion_factor(units, FLUX_UNITS)
 
 
-@dataclass(frozen=True)
-class ValueMask:
-    """Fill-value handling and unit scaling of one data variable (applied per block).
-
-    Attributes
-    ----------
-    scale : float
-        Multiply raw values by this to reach canonical units.
-    fill : tuple of float
-        Raw values that mean "missing" (``_FillValue``, ``missing_value``).
-    vmin, vmax : float
-        Valid range of raw values (``valid_range``/``valid_min``/``valid_max``);
-        values outside are missing.
-    """
-
-    scale: float = 1.0
-    fill: tuple = ()
-    vmin: float = -np.inf
-    vmax: float = np.inf
-
-    @property
-    def trivial(self):
-        """Whether applying the mask changes nothing."""
-        return (self.scale == 1.0 and not self.fill and self.vmin == -np.inf
-                and self.vmax == np.inf)
-
-    def apply(self, raw, dtype=None):
-        """Return a masked, scaled float copy (or the input itself if nothing to do).
-
-        Parameters
-        ----------
-        raw : numpy.ndarray
-            One block of raw values.
-        dtype : numpy dtype, optional
-            Floating dtype of the result (default: float32 for float32 input,
-            float64 otherwise).
-
-        Returns
-        -------
-        numpy.ndarray
-            Values in canonical units with missing values as NaN.
-        """
-        raw = np.asarray(raw)
-        if dtype is None:
-            dtype = np.float32 if raw.dtype == np.float32 else np.float64
-        if self.trivial and raw.dtype == dtype:
-            return raw
-        out = raw.astype(dtype, copy=True)
-        bad = None
-        for f in self.fill:
-            b = raw == f
-            bad = b if bad is None else (bad | b)
-        if self.vmin != -np.inf:
-            b = raw < self.vmin
-            bad = b if bad is None else (bad | b)
-        if self.vmax != np.inf:
-            b = raw > self.vmax
-            bad = b if bad is None else (bad | b)
-        if bad is not None:
-            out[bad] = np.nan
-        if self.scale != 1.0:
-            out *= dtype(self.scale) if isinstance(dtype, type) else self.scale
-        return out
-
-
 @dataclass
 class Prepared:
     """What the engines need to know about a dataset that passed :func:`check`.
@@ -156,16 +97,26 @@ class Prepared:
         Scaling and fill handling of ``flux``, ``flux_err`` and ``counts``.
     error_source : str or None
         ``"flux_err"``, ``"counts"`` or None (no uncertainties available).
-    energy_kev : numpy.ndarray
-        Energy channel centres in keV.
-    energy_bnds_kev : numpy.ndarray
-        Energy channel edges (n_energy, 2) in keV.
+    energy_kev : numpy.ndarray or None
+        Energy channel centres in keV; None for a record-varying energy table
+        (``channel_energy`` (time, energy), see `energy_scale`).
+    energy_bnds_kev : numpy.ndarray or None
+        Energy channel edges (n_energy, 2) in keV; None when the dataset
+        gives none (nothing in the partition, the mapping or the fits needs
+        them).
     angle_scale : dict
         Factor to degrees of each angle variable that is not in degrees.
     other_scale : dict
         Factor to the canonical unit of position variables (b_local, position_geo, mlt).
     n_negative : int
         Number of negative flux values found.
+    energy_scale : float
+        Factor to keV of ``channel_energy`` (record-varying energy tables).
+    strict : bool
+        Whether per-sample problems refuse the dataset (else they are masked
+        and flagged, :mod:`beltkit.pad.samples`).
+    has_read_flag : bool
+        Whether the dataset carries the reader's ``read_flag`` variable.
     """
 
     kind: str
@@ -176,33 +127,14 @@ class Prepared:
     err_mask: ValueMask | None
     counts_mask: ValueMask | None
     error_source: str | None
-    energy_kev: np.ndarray
-    energy_bnds_kev: np.ndarray
+    energy_kev: np.ndarray | None
+    energy_bnds_kev: np.ndarray | None
     angle_scale: dict = field(default_factory=dict)
     other_scale: dict = field(default_factory=dict)
     n_negative: int = 0
-
-
-def _mask_of(var, problems, name):
-    attrs = var.attrs
-    fills = []
-    for key in ("_FillValue", "missing_value"):
-        if key in attrs:
-            vals = np.atleast_1d(np.asarray(attrs[key], dtype=float))
-            fills.extend(float(v) for v in vals if not np.isnan(v))
-    vmin, vmax = -np.inf, np.inf
-    if "valid_range" in attrs:
-        vr = np.atleast_1d(np.asarray(attrs["valid_range"], dtype=float))
-        if vr.size != 2 or not vr[0] < vr[1]:
-            problems.append(f"{name}: attribute valid_range must be two increasing numbers, "
-                            f"got {attrs['valid_range']!r}")
-        else:
-            vmin, vmax = float(vr[0]), float(vr[1])
-    if "valid_min" in attrs:
-        vmin = float(attrs["valid_min"])
-    if "valid_max" in attrs:
-        vmax = float(attrs["valid_max"])
-    return tuple(fills), vmin, vmax
+    energy_scale: float = 1.0
+    strict: bool = True
+    has_read_flag: bool = False
 
 
 def _unit_factor(var, name, want, problems, what, required=True):
@@ -228,42 +160,6 @@ def _is_true(value):
     if isinstance(value, (int, np.integer)):
         return value == 1
     return str(value).strip().lower() in ("true", "yes", "1")
-
-
-def _blocks(n):
-    for start in range(0, n, _BLOCK):
-        yield slice(start, min(start + _BLOCK, n))
-
-
-def _value_summary(da, mask, energy_axis):
-    """Return per-energy NaN-ignoring minimum and negative count of the masked values."""
-    data = da.data
-    tax = da.dims.index("time")
-    other = tuple(i for i in range(da.ndim) if i != energy_axis)
-    if hasattr(data, "dask"):
-        import dask.array as dsa
-
-        masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
-        lo = dsa.nanmin(masked, axis=other)
-        import warnings
-
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            lo, n_neg = dsa.compute(lo, (masked < 0).sum(axis=other))
-        return np.asarray(lo), np.asarray(n_neg)
-    from ._kernels import value_scan
-
-    data = np.asarray(data)
-    order = [tax, energy_axis] + [i for i in range(data.ndim) if i not in (tax, energy_axis)]
-    data = data.transpose(order) if data.ndim == 3 else data
-    n_e = data.shape[1]
-    lo = np.full(n_e, np.nan)
-    n_neg = np.zeros(n_e, dtype=np.int64)
-    for sl in _blocks(data.shape[0]):
-        blo, bneg = value_scan(data[sl], mask.fill, mask.vmin, mask.vmax)
-        lo = np.fmin(lo, blo)
-        n_neg += bneg
-    return lo, n_neg
 
 
 def _check_edges(ds, problems, folded):
@@ -309,6 +205,61 @@ def _check_edges(ds, problems, folded):
     return edges, centres
 
 
+
+def _check_energy(ds, flux, problems):
+    """Check the energy table; return (centres keV or None, edges keV or None, scale).
+
+    The table is either a 1-D ``energy`` coordinate (channel centres, optional
+    ``energy_bnds`` edges) or, when it varies from record to record, a 2-D
+    ``channel_energy`` (time, energy) variable (scale returned for it).
+    """
+    if "energy" in ds.variables and ds["energy"].ndim == 1 and (
+            "channel_energy" not in ds.variables or "units" in ds["energy"].attrs):
+        es = _unit_factor(ds["energy"], "energy", _ENERGY, problems, "an energy")
+        energy_kev = np.asarray(ds["energy"].values, dtype=float) * es
+        if np.any(~np.isfinite(energy_kev)) or np.any(energy_kev <= 0):
+            problems.append("energy: values must be finite and positive")
+        return energy_kev, _check_energy_edges(ds, energy_kev, es, problems), 1.0
+    if "channel_energy" in ds.variables:
+        ce = ds["channel_energy"]
+        if ce.dims != ("time", "energy") or "energy" not in flux.dims:
+            problems.append(f"channel_energy: a record-varying energy table must have dims "
+                            f"('time', 'energy') like flux, got {ce.dims}")
+            return None, None, 1.0
+        scale = _unit_factor(ce, "channel_energy", _ENERGY, problems, "an energy")
+        check_range(ds, "channel_energy", 0.0, None, problems, scale)
+        return None, None, scale
+    if "energy" in ds.variables:
+        problems.append(f"energy: must be one-dimensional (channel centres), got dims "
+                        f"{ds['energy'].dims}; a table that varies with time belongs in "
+                        "'channel_energy' (time, energy)")
+    else:
+        problems.append("energy: missing coordinate variable (channel centres in keV), or "
+                        "'channel_energy' (time, energy) for a record-varying table")
+    return None, None, 1.0
+
+
+def _check_energy_edges(ds, energy_kev, es, problems):
+    """Return the channel edges (n, 2) in keV when ``energy_bnds`` is given (else None)."""
+    if "energy_bnds" not in ds.variables:
+        return None
+    eb = ds["energy_bnds"]
+    if eb.ndim != 2 or eb.dims[0] != "energy" or eb.shape[1] != 2:
+        problems.append(f"energy_bnds: must have dims (energy, 2), got {eb.dims}")
+        return None
+    bs = es
+    if "units" in eb.attrs:
+        bs = _unit_factor(eb, "energy_bnds", _ENERGY, problems, "an energy")
+    ebnds = np.asarray(eb.values, dtype=float) * bs
+    if np.any(~(ebnds[:, 0] < ebnds[:, 1])):
+        problems.append("energy_bnds: each channel needs lower edge < upper edge")
+    elif energy_kev.shape == ebnds[:, 0].shape and np.any(
+        (energy_kev < ebnds[:, 0]) | (energy_kev > ebnds[:, 1])
+    ):
+        problems.append("energy: channel centres must lie inside energy_bnds")
+    return ebnds
+
+
 def _check_time(ds, problems):
     if "time" not in ds.variables:
         problems.append("time: missing coordinate variable; add a 'time' coordinate "
@@ -336,56 +287,6 @@ def _check_time(ds, problems):
                         "by time and drop duplicates")
 
 
-def _check_range(ds, name, lo, hi, problems, scale=1.0, pending=None):
-    """Append a problem if ``ds[name]`` leaves [lo, hi].
-
-    With ``pending`` (a list), a dask variable's extremes are not computed
-    here: the check is queued for :func:`_run_pending_ranges`, which computes
-    all of them in one pass.
-    """
-    v = ds[name].data
-    if hasattr(v, "dask"):
-        import dask.array as dsa
-
-        if pending is not None:
-            pending.append((len(problems), name, lo, hi, scale, dsa.nanmin(v), dsa.nanmax(v)))
-            return
-        vmin, vmax = dsa.compute(dsa.nanmin(v), dsa.nanmax(v))
-    else:
-        v = np.asarray(v, dtype=float)
-        if v.size == 0:
-            return
-        # fmin/fmax skip NaN (one pass each, no NaN-free copy); all NaN gives NaN
-        vmin, vmax = np.fmin.reduce(v, axis=None), np.fmax.reduce(v, axis=None)
-        if np.isnan(vmin):
-            return
-    _range_problem(name, lo, hi, vmin, vmax, scale, problems, len(problems))
-
-
-def _range_problem(name, lo, hi, vmin, vmax, scale, problems, where):
-    vmin, vmax = float(vmin) * scale, float(vmax) * scale
-    if (lo is not None and vmin < lo) or (hi is not None and vmax > hi):
-        problems.insert(where, f"{name}: values must lie in [{lo}, {hi}], got {vmin:g} to "
-                               f"{vmax:g}")
-
-
-def _run_pending_ranges(pending, problems):
-    """Compute the queued range checks of dask variables together (one graph)."""
-    if not pending:
-        return
-    import warnings
-
-    import dask
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN slices
-        values = dask.compute(*[(mn, mx) for *_, mn, mx in pending])
-    # insert from the last so that the recorded positions stay valid
-    for (where, name, lo, hi, scale, _, _), (vmin, vmax) in reversed(list(zip(pending,
-                                                                                 values))):
-        _range_problem(name, lo, hi, vmin, vmax, scale, problems, where)
-
-
 def _check_position_present(ds, problems):
     """Note a missing or half-given position; return (has L and mlat, has position_geo)."""
     has_lm = "L" in ds.variables and "mlat" in ds.variables
@@ -400,7 +301,31 @@ def _check_position_present(ds, problems):
     return has_lm, has_geo
 
 
-def _inspect(ds, model=None, allow_negative=False, check_values=True):
+def _check_read_flag(ds, flux, problems, count):
+    """Check the reader's ``read_flag``; with `count`, name its masked values as problems."""
+    if "read_flag" not in ds.variables:
+        return False
+    rf = ds["read_flag"]
+    if rf.dims != flux.dims or not np.issubdtype(rf.dtype, np.integer):
+        problems.append(f"read_flag: must be an integer variable with the dims of flux "
+                        f"{flux.dims}, got {rf.dtype} {rf.dims}")
+        return False
+    if count:
+        data = rf.data
+        counts = [(data & bit).astype(bool).sum() for bit in (2, 4)]
+        if hasattr(data, "dask"):
+            import dask
+
+            counts = dask.compute(*counts)
+        for bit, n in zip((2, 4), counts):
+            if int(n):
+                what = READ_FLAG_MEANINGS[bit].replace("_", " ")
+                problems.append(f"flux: {int(n)} values {what} (masked when read); drop "
+                                "strict to keep the file with those samples masked and flagged")
+    return True
+
+
+def _inspect(ds, model=None, allow_negative=False, check_values=True, strict=True):
     """Run every check; return (problems, Prepared or None)."""
     problems: list[str] = []
     if not isinstance(ds, xr.Dataset):
@@ -447,37 +372,10 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                             "(per MeV, per eV and m-2 spellings are converted)")
         else:
             scale = f
-    fills, vmin, vmax = _mask_of(flux, problems, "flux")
+    fills, vmin, vmax = mask_of(flux, problems, "flux")
     flux_mask = ValueMask(scale, fills, vmin, vmax)
     _check_time(ds, problems)
-    # energy
-    energy_kev = np.array([])
-    ebnds = np.zeros((0, 2))
-    if "energy" not in ds.variables:
-        problems.append("energy: missing coordinate variable (channel centres in keV)")
-    else:
-        es = _unit_factor(ds["energy"], "energy", _ENERGY, problems, "an energy")
-        energy_kev = np.asarray(ds["energy"].values, dtype=float) * es
-        if energy_kev.ndim != 1 or np.any(~np.isfinite(energy_kev)) or np.any(energy_kev <= 0):
-            problems.append("energy: values must be finite and positive")
-        if "energy_bnds" not in ds.variables:
-            problems.append("energy_bnds: missing; give the channel edges as an (energy, 2) "
-                            "bounds variable and set energy.attrs['bounds'] = 'energy_bnds'")
-        else:
-            eb = ds["energy_bnds"]
-            if eb.ndim != 2 or eb.dims[0] != "energy" or eb.shape[1] != 2:
-                problems.append(f"energy_bnds: must have dims (energy, 2), got {eb.dims}")
-            else:
-                bs = es
-                if "units" in eb.attrs:
-                    bs = _unit_factor(eb, "energy_bnds", _ENERGY, problems, "an energy")
-                ebnds = np.asarray(eb.values, dtype=float) * bs
-                if np.any(~(ebnds[:, 0] < ebnds[:, 1])):
-                    problems.append("energy_bnds: each channel needs lower edge < upper edge")
-                elif energy_kev.shape == ebnds[:, 0].shape and np.any(
-                    (energy_kev < ebnds[:, 0]) | (energy_kev > ebnds[:, 1])
-                ):
-                    problems.append("energy: channel centres must lie inside energy_bnds")
+    energy_kev, ebnds, energy_scale = _check_energy(ds, flux, problems)
     # angle geometry
     edges = centres = None
     folded = False
@@ -498,7 +396,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                 problems.append(f"{name}: must have dims {dims}, got {ds[name].dims}")
             angle_scale[name] = _unit_factor(ds[name], name, _ANGLE, problems, "an angle")
         if "look_pitch_angle" in ds.variables:
-            _check_range(ds, "look_pitch_angle", 0, 180, problems,
+            check_range(ds, "look_pitch_angle", 0, 180, problems,
                          angle_scale.get("look_pitch_angle", 1.0))
         if "look_half_angle" in ds.variables:
             h = np.asarray(ds["look_half_angle"].values, dtype=float) * angle_scale.get(
@@ -509,11 +407,11 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
     other_scale: dict = {}
     has_lm, has_geo = _check_position_present(ds, problems)
     ranges: list = []  # dask variables: their extremes computed together below
-    for name, table, what, lo, hi, required in (
-        ("L", _DIMENSIONLESS, "the dimensionless L-shell", 1.0, None, False),
-        ("mlat", _ANGLE, "an angle", -90.0, 90.0, True),
-        ("mlt", _HOURS, "magnetic local time in hours", 0.0, 24.0, True),
-        ("b_local", _FIELD, "a magnetic field", 0.0, None, True),
+    for name, table, what, required in (
+        ("L", _DIMENSIONLESS, "the dimensionless L-shell", False),
+        ("mlat", _ANGLE, "an angle", True),
+        ("mlt", _HOURS, "magnetic local time in hours", True),
+        ("b_local", _FIELD, "a magnetic field", True),
     ):
         if name in ds.variables:
             v = ds[name]
@@ -522,15 +420,24 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                 continue
             f = _unit_factor(v, name, table, problems, what, required=required)
             other_scale[name] = f
-            _check_range(ds, name, lo, hi, problems, f, pending=ranges)
-    _run_pending_ranges(ranges, problems)
+            if strict:  # else samples out of range are masked and flagged by the engines
+                lo, hi = POSITION_RANGES[name]
+                check_range(ds, name, lo, hi, problems, f, pending=ranges)
+    run_pending_ranges(ranges, problems)
     if has_geo:
         pg = ds["position_geo"]
-        if pg.ndim != 2 or pg.dims[0] != "time" or pg.shape[1] != 3:
+        geo_ok = pg.ndim == 2 and pg.dims[0] == "time" and pg.shape[1] == 3
+        if not geo_ok:
             problems.append(f"position_geo: must have dims (time, 3) (GEO x, y, z), got "
                             f"{pg.dims} with shape {pg.shape}")
         other_scale["position_geo"] = _unit_factor(pg, "position_geo", _DISTANCE, problems,
                                                    "a distance")
+        if strict and geo_ok:
+            n_in = inside_earth(pg.data, other_scale["position_geo"])
+            if n_in:
+                problems.append(f"position_geo: {n_in} positions inside the solid Earth "
+                                f"(below {MIN_GEOCENTRIC_KM:.0f} km from its centre); check "
+                                "the units, or drop strict to mask those samples")
     if not (model is None or (isinstance(model, str) and model == "dipole")):
         if not has_geo and "mlt" not in ds.variables:
             problems.append("mlt: a field model needs the sample's position: give "
@@ -549,7 +456,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
             problems.append(f"flux_err: units {fe.attrs.get('units')!r} must be a directional "
                             f"flux like flux ({FLUX_UNITS!r})")
             f = 1.0
-        fills, vmin, vmax = _mask_of(fe, problems, "flux_err")
+        fills, vmin, vmax = mask_of(fe, problems, "flux_err")
         err_mask = ValueMask(f, fills, vmin, vmax)
     elif "counts" in ds.data_vars:
         error_source = "counts"
@@ -566,8 +473,9 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
             if flux_unit_factor(c2f.attrs.get("units", "")) is None:
                 problems.append("counts_to_flux: units must be a directional flux per count "
                                 f"({FLUX_UNITS!r})")
-        fills, vmin, vmax = _mask_of(ct, problems, "counts")
+        fills, vmin, vmax = mask_of(ct, problems, "counts")
         counts_mask = ValueMask(1.0, fills, vmin, vmax)
+    has_read_flag = _check_read_flag(ds, flux, problems, strict and check_values)
     # values (only when the structure is sound)
     n_negative = 0
     flux_ok = (set(flux.dims) == want and flux.ndim == 3
@@ -575,17 +483,17 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                and (error_source is None or ds[error_source].dims == flux.dims))
     if check_values and flux_ok:
         eax = flux.dims.index("energy")
-        lo, negs = _value_summary(flux, flux_mask, eax)
+        lo, negs = value_summary(flux, flux_mask, eax)
         n_err_neg = 0
         if error_source == "flux_err":
-            elo, _ = _value_summary(ds["flux_err"], err_mask, eax)
+            elo, _ = value_summary(ds["flux_err"], err_mask, eax)
             n_err_neg = int(np.sum(elo[~np.isnan(elo)] < 0))
         if error_source == "counts":
-            clo, _ = _value_summary(ds["counts"], counts_mask, eax)
+            clo, _ = value_summary(ds["counts"], counts_mask, eax)
             n_err_neg = int(np.sum(clo[~np.isnan(clo)] < 0))
         n_negative = int(np.sum(negs))
         problems.extend(value_problems(energy_kev, ~np.isnan(lo), n_negative, n_err_neg,
-                                       error_source, allow_negative))
+                                       error_source, allow_negative, strict=strict))
     prepared = None
     if not problems:
         prepared = Prepared(kind=kind, edges=edges, centres=centres, folded=folded,
@@ -593,53 +501,13 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True):
                             err_mask=err_mask, counts_mask=counts_mask,
                             error_source=error_source, energy_kev=energy_kev,
                             energy_bnds_kev=ebnds, angle_scale=angle_scale,
-                            other_scale=other_scale, n_negative=n_negative)
+                            other_scale=other_scale, n_negative=n_negative,
+                            energy_scale=energy_scale, strict=bool(strict),
+                            has_read_flag=has_read_flag)
     return problems, prepared
 
 
-def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_source,
-                   allow_negative):
-    """Return the problems found by the value checks (shared by the validator and engines).
-
-    Parameters
-    ----------
-    energy_kev : numpy.ndarray
-        Channel energies (keV), for the message.
-    has_valid : numpy.ndarray of bool
-        Per channel: whether any valid (non-NaN, non-fill) flux value exists.
-    n_negative : int
-        Number of negative flux values.
-    n_err_negative : int
-        Number of negative uncertainties (or negative counts).
-    error_source : str or None
-        ``"flux_err"`` or ``"counts"``.
-    allow_negative : bool
-        Whether negative flux values are accepted.
-
-    Returns
-    -------
-    list of str
-        The problems (possibly empty).
-    """
-    problems = []
-    dead = ~np.asarray(has_valid, dtype=bool)
-    if np.any(dead):
-        energy_kev = np.asarray(energy_kev)
-        where = (f"energies {energy_kev[dead].tolist()} keV" if energy_kev.shape == dead.shape
-                 else f"energy indices {np.flatnonzero(dead).tolist()}")
-        problems.append(f"flux: all values NaN (or fill) at {where}; drop those channels "
-                        "(ds.drop_isel(energy=...)) or check the fill-value attributes")
-    if n_negative and not allow_negative:
-        problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
-                        "allow_negative=True to keep them (they are then flagged in "
-                        "partition_flag)")
-    if n_err_negative:
-        what = "negative counts" if error_source == "counts" else "negative uncertainties"
-        problems.append(f"{error_source}: {what}")
-    return problems
-
-
-def validate(ds, *, model=None, allow_negative=False, check_values=True):
+def validate(ds, *, model=None, allow_negative=False, check_values=True, strict=True):
     """List every way a dataset departs from beltkit's pitch-angle conventions.
 
     Parameters
@@ -655,6 +523,13 @@ def validate(ds, *, model=None, allow_negative=False, check_values=True):
     check_values : bool
         Also scan the data values (negative flux, all-NaN channels); on dask
         data this streams once through the file.
+    strict : bool
+        True (default): per-sample problems are problems of the dataset
+        (negative flux, positions outside their range, values the reader
+        masked as out of range or quality-rejected, channels without a valid
+        value). False: only structural problems are listed; the engines mask
+        and flag those samples (:mod:`beltkit.pad.samples`) and refuse only a
+        dataset without any valid flux value.
 
     Returns
     -------
@@ -663,11 +538,12 @@ def validate(ds, *, model=None, allow_negative=False, check_values=True):
         the dataset follows the conventions.
     """
     problems, _ = _inspect(ds, model=model, allow_negative=allow_negative,
-                           check_values=check_values)
+                           check_values=check_values, strict=strict)
     return problems
 
 
-def check(ds, *, model=None, allow_negative=False, source=None, check_values=True):
+def check(ds, *, model=None, allow_negative=False, source=None, check_values=True,
+          strict=True):
     """Validate `ds` and return its :class:`Prepared` description.
 
     Parameters
@@ -684,6 +560,8 @@ def check(ds, *, model=None, allow_negative=False, source=None, check_values=Tru
     check_values : bool
         Scan the values too (the eager partition engine skips this and
         gathers the same counts in its own single pass).
+    strict : bool
+        Whether per-sample problems refuse the dataset (see :func:`validate`).
 
     Returns
     -------
@@ -696,10 +574,10 @@ def check(ds, *, model=None, allow_negative=False, source=None, check_values=Tru
         Listing every problem at once.
     """
     problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative,
-                                  check_values=check_values)
+                                  check_values=check_values, strict=strict)
     if problems and not check_values:  # refusing anyway: name the value problems too
         problems, prepared = _inspect(ds, model=model, allow_negative=allow_negative,
-                                      check_values=True)
+                                      check_values=True, strict=strict)
     if problems:
         if source is None and isinstance(ds, xr.Dataset):
             source = ds.encoding.get("source")

@@ -64,7 +64,7 @@ import xarray as xr
 from .._threads import cores, map_slices
 from ..errors import ConventionError
 from . import _kernels
-from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check, value_problems
+from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check
 from .geometry import look_bands
 from .losscones import (
     dipole_low_altitude_note,
@@ -73,6 +73,8 @@ from .losscones import (
     sample_loss_cones,
     time_coords,
 )
+from .samples import SAMPLE_FLAGS, flag_counts, mask_positions, position_mask, read_flag_bits
+from .values import value_problems
 
 __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition", "partition_slab"]
 
@@ -102,6 +104,7 @@ FLAG_MEANINGS = {
     32: "no_valid_flux",
     64: "loss_cone_unknown",
     128: "fitted_fill_applied",
+    **SAMPLE_FLAGS,
 }
 
 #: samples per block of the compiled kernel (a few blocks per core: the threads stay busy
@@ -307,21 +310,33 @@ def _kernel(x, s, cones, look, *, geom, opts):
     return out.astype(out_dtype, copy=False)
 
 
-def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_counts=None):
+def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_counts=None,
+                  mask_err=False):
+    """Return ``(x, s, err_bad)``: flux and 1-sigma in canonical units, masked.
+
+    ``err_bad`` (n, E) marks the rows whose negative counts were masked (with
+    ``mask_err`` and Poisson errors; else None).
+    """
     x = prep.flux_mask.apply(flux_blk, dtype)
     s = None
+    err_bad = None
     if prep.error_source == "flux_err":
         s = prep.err_mask.apply(err_blk, dtype)
     elif prep.error_source == "counts":
         counts = prep.counts_mask.apply(err_blk, dtype)
+        negative = counts < 0
         if stats is not None:
-            stats[:, 2] += (counts < 0).sum(axis=(0, 2))
+            stats[:, 2] += negative.sum(axis=(0, 2))
         if neg_counts is not None:
-            neg_counts.append((counts < 0).sum(axis=2))
+            neg_counts.append(negative.sum(axis=2))
         # Poisson: sigma_N = sqrt(N), with N = 0 counted as 1 (documented convention)
         s = (np.sqrt(np.maximum(counts, 1)) * c2f_blk).astype(dtype, copy=False)
-        s = np.where(np.isnan(counts), dtype.type(np.nan), s)
-    return x, s
+        missing = np.isnan(counts)
+        if mask_err:
+            err_bad = negative.any(axis=2)
+            missing |= negative
+        s = np.where(missing, dtype.type(np.nan), s)
+    return x, s, err_bad
 
 
 def _alloc_out(nout, n, n_e, dtype):
@@ -374,16 +389,96 @@ def _overlap_rows(x, look, half):
 def _repartition_rows(rows, x, s, cones, look, geom, opts):
     """Return the outputs (n_out, r) of ``rows``, each with only the looks that have a value."""
     ti, ei = rows
-    xs = x[ti, ei][:, None, :]
-    ss = None if s is None else s[ti, ei][:, None, :]
-    lk = np.where(np.isfinite(xs[:, 0, :]), np.asarray(look, dtype=float)[ti], np.nan)
-    sub = _kernel(xs, ss, tuple(np.asarray(c, dtype=float)[ti] for c in cones), lk, geom=geom,
+    return _rows_kernel(x[ti, ei], None if s is None else s[ti, ei], ti, cones, look, geom,
+                        opts)
+
+
+def _rows_kernel(xs, ss, ti, cones, look, geom, opts):
+    """Partition single (time, energy) rows ``xs`` (r, angle) of the samples ``ti``."""
+    lk = None
+    if look is not None:  # each row with only the looks that have a value
+        lk = np.where(np.isfinite(xs), np.asarray(look, dtype=float)[ti], np.nan)
+    sub = _kernel(xs[:, None, :], None if ss is None else ss[:, None, :],
+                  tuple(np.asarray(c, dtype=float)[ti] for c in cones), lk, geom=geom,
                   opts=opts)
     return sub[:, :, 0]
 
 
+def _mask_bad_rows(x, s, cones, look, geom, opts, o2, fl, n_data, err_bad, err_grew):
+    """Partition again, with their bad values masked, the rows holding negative values.
+
+    Negative flux values (``opts["mask_negative"]``: not strict, not
+    allow_negative) and negative uncertainties (``opts["mask_err"]``) become
+    NaN in their row, which is partitioned again on the remaining values; the
+    rows get flag bits 2048 and 8192 (:data:`beltkit.pad.samples.SAMPLE_FLAGS`).
+    ``o2`` (n_out, >= n * E) and ``fl`` (n * E) are the block's outputs and
+    flags, written in place. Rows are rare: the common case costs one pass
+    over the flags.
+    """
+    n, n_e = x.shape[:2]
+    m = n * n_e
+    flv = fl[:m] if np.issubdtype(fl.dtype, np.integer) else fl[:m].astype(np.int64)
+    neg = (flv & 16) != 0 if opts.get("mask_negative") else None
+    err = None
+    if opts.get("mask_err") and s is not None:
+        err = np.zeros(m, dtype=bool)
+        if err_bad is not None:
+            err |= err_bad.reshape(-1)
+        if err_grew:
+            err |= (s < 0).any(axis=-1).reshape(-1)
+    bad = neg if err is None else (err if neg is None else neg | err)
+    if bad is None or not bad.any():
+        return
+    idx = np.flatnonzero(bad)
+    ti, ei = np.divmod(idx, n_e)
+    xs = x[ti, ei]
+    if neg is not None:
+        xs = np.where(xs < 0, xs.dtype.type(np.nan), xs)
+    ss = None
+    if s is not None:
+        ss = s[ti, ei]
+        if err is not None:
+            ss = np.where(ss < 0, ss.dtype.type(np.nan), ss)
+    sub = _rows_kernel(xs, ss, ti, cones, look, geom, opts)
+    o2[:n_data, idx] = sub[:n_data]
+    bits = sub[14].astype(np.int16)
+    if neg is not None:
+        bits |= np.where(neg[idx] & ~np.isnan(sub[14]), 2048, 0).astype(np.int16)
+    if err is not None:
+        bits |= np.where(err[idx], 8192, 0).astype(np.int16)
+    fl[idx] = bits
+
+
+def _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e):
+    """Return the (n * E,) int16 bits of masked input samples of a block, or None."""
+    bits = None
+    if prep.flux_mask.masks_values:
+        fill, outside = prep.flux_mask.hits(flux_blk)
+        bits = (np.where(fill.any(axis=-1), 256, 0)
+                | np.where(outside.any(axis=-1), 512, 0)).astype(np.int16)
+    if rf_blk is not None:
+        rb = read_flag_bits(rf_blk)
+        bits = rb if bits is None else bits | rb
+    if pos_blk is not None:
+        pb = np.broadcast_to(np.where(np.asarray(pos_blk, dtype=bool), 4096, 0)[:, None],
+                             (n, n_e)).astype(np.int16)
+        bits = pb if bits is None else bits | pb
+    return None if bits is None else bits.reshape(-1)
+
+
+def _or_bits(fl, bits):
+    """OR the sample bits into the flags (int16 array or a float output row)."""
+    if bits is None:
+        return
+    m = bits.size
+    if np.issubdtype(fl.dtype, np.integer):
+        fl[:m] |= bits
+    else:
+        fl[:m] = fl[:m].astype(np.int64) | bits
+
+
 def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
-               out=None, stats=None, flag=None, counts=False):
+               out=None, stats=None, flag=None, counts=False, rf_blk=None, pos_blk=None):
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
 
     ``cones`` is ``(blc, dlc, lcn, lcs)`` per sample (deg). With ``flag``
@@ -393,9 +488,11 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     errors (the value checks, summed by the caller).
     """
     neg_counts = [] if counts else None
-    x, s = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, neg_counts)
     if stats is None:
-        stats = np.zeros((x.shape[1], 3), dtype=np.int64)
+        stats = np.zeros((np.shape(flux_blk)[1], 3), dtype=np.int64)
+    err_before = int(stats[:, 2].sum())
+    x, s, err_bad = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, neg_counts,
+                                  mask_err=opts.get("mask_err", False))
     n, n_e = x.shape[:2]
     hemi = opts.get("hemispheres", True)
     n_data = _n_out(s is not None, hemi)
@@ -413,6 +510,10 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
             res = np.concatenate([res, np.stack([np.isfinite(x).sum(axis=2),
                                                  (x < 0).sum(axis=2), neg_err])
                                   .astype(res.dtype)])
+        r2 = res.reshape(res.shape[0], -1)
+        _mask_bad_rows(x, s, cones, look, geom, opts, r2, r2[14], n_data, err_bad,
+                       int(stats[:, 2].sum()) > err_before)
+        _or_bits(r2[14], _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
         if out is None:
             return res
         out[:, : n * n_e] = res.reshape(res.shape[0], -1)
@@ -449,6 +550,10 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
             flag[j] = sub[14]
     if neg_counts:  # Poisson errors: the negative counts are those of `counts`
         out[n_data + 2, : n * n_e] = neg_counts[0].reshape(-1)
+    fl = flag if flag is not None else out[14]
+    _mask_bad_rows(x, s, cones, look, geom, opts, out, fl, n_data, err_bad,
+                   int(stats[:, 2].sum()) > err_before)
+    _or_bits(fl, _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
     return _as_3d(out, n, n_e) if ret3d else out
 
 
@@ -492,7 +597,8 @@ def _arrays(ds, prep):
         f = prep.angle_scale.get("look_pitch_angle", 1.0)
         if f != 1.0:
             look = look * f
-    return flux, err, c2f, look
+    read_flag = ds["read_flag"].transpose(*order) if prep.has_read_flag else None
+    return flux, err, c2f, look, read_flag
 
 
 class OutputBuffers:
@@ -521,8 +627,12 @@ class OutputBuffers:
 
 
 def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
-             counts=False, buffers=None):
-    """Partition outputs ``(data, flags)``; ``cones`` is ``(blc, dlc, lcn, lcs)`` (DataArrays)."""
+             counts=False, buffers=None, read_flag=None, pos_bad=None):
+    """Partition outputs ``(data, flags)``; ``cones`` is ``(blc, dlc, lcn, lcs)`` (DataArrays).
+
+    ``read_flag`` (DataArray (time, energy, angle) or None) and ``pos_bad``
+    (bool (time,) or None) add the bits of masked input samples.
+    """
     nout = _n_out(err is not None, opts.get("hemispheres", True)) + (3 if counts else 0)
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look) + tuple(cones) if a is not None)
@@ -549,14 +659,19 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
         cx = as_dask(c2f, 3)
         bx, dx, nx, sx = (as_dask(c, 1) for c in cones)
         lx = as_dask(look, 2)
+        rx = as_dask(read_flag, 3)
+        px = None
+        if pos_bad is not None:
+            px = dsa.from_array(np.asarray(pos_bad, dtype=bool), chunks=(tchunks,))
 
-        def func(f, e, c, b, d, cn, cs, lk):
+        def func(f, e, c, b, d, cn, cs, lk, rf, pb):
             return _run_block(f, e, c, (b, d, cn, cs), lk, prep=prep, geom=geom, opts=opts,
-                              dtype=dtype, counts=counts)
+                              dtype=dtype, counts=counts, rf_blk=rf, pos_blk=pb)
 
         args = [fx, "tep", ex, "tep" if ex is not None else None,
                 cx, "tep" if cx is not None else None, bx, "t", dx, "t", nx, "t", sx, "t",
-                lx, "tk" if lx is not None else None]
+                lx, "tk" if lx is not None else None, rx, "tep" if rx is not None else None,
+                px, "t" if px is not None else None]
         data = dsa.blockwise(func, "vte", *args, new_axes={"v": nout}, dtype=dtype,
                              concatenate=True)
         return data, None
@@ -566,6 +681,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     # the same memory for several cones (the dipole's) stays shared: the kernel sees it
     cv4 = tuple(np.asarray(c.values, dtype=float) for c in cones)
     lv = look.values if look is not None else None
+    rv = read_flag.values if read_flag is not None else None
     n_t, n_e = fv.shape[:2]
     if buffers is not None:
         buf, flag = buffers.take(nout, n_t, n_e, dtype)
@@ -578,7 +694,9 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
         _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
                    tuple(c[sl] for c in cv4), None if lv is None else lv[sl], prep=prep, geom=geom,
                    opts=opts, dtype=dtype, out=buf[:, sl.start * n_e: sl.stop * n_e],
-                   stats=block_stats, flag=flag[sl.start * n_e: sl.stop * n_e])
+                   stats=block_stats, flag=flag[sl.start * n_e: sl.stop * n_e],
+                   rf_blk=None if rv is None else rv[sl],
+                   pos_blk=None if pos_bad is None else pos_bad[sl])
         return block_stats
 
     # the compiled kernel releases the GIL: blocks run on every core at once; at least
@@ -624,6 +742,26 @@ _LONG = {
     "fraction_lost_south": "fraction of the integrated flux lost at the southern footpoint",
     "partition_flag": "partition quality flags",
 }
+
+
+def _energy_coords(ds, prep):
+    """Return the outputs' energy coordinates: centres (edges where given) or the 2-D table."""
+    if prep.energy_kev is None:  # record-varying table: each sample keeps its own energies
+        ce = ds["channel_energy"].variable
+        values = ce.data.astype(float) * prep.energy_scale if prep.energy_scale != 1.0 else (
+            ce.data.astype(float))
+        return {"channel_energy": xr.Variable(
+            ("time", "energy"), values,
+            {"units": "keV", "long_name": "kinetic energy of each channel at each sample"})}
+    attrs = {"units": "keV", "long_name": "kinetic energy"}
+    coords = {}
+    if prep.energy_bnds_kev is not None:
+        attrs["bounds"] = "energy_bnds"
+        bdim = ds["energy_bnds"].dims[1]
+        coords["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev,
+                                            encoding={"_FillValue": None})
+    coords["energy"] = xr.Variable("energy", prep.energy_kev, attrs)
+    return coords
 
 
 def _units(name):
@@ -687,7 +825,8 @@ def _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative):
 
 
 def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
-              allow_negative=False, engine="auto", fill=None, hemispheres=False):
+              allow_negative=False, engine="auto", fill=None, hemispheres=False,
+              strict=True):
     r"""Split a pitch-angle flux dataset into precipitating, quasi-trapped and trapped flux.
 
     Parameters
@@ -713,7 +852,7 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
         flux is the denominator of ``loss_cone_filling``.
     allow_negative : bool, keyword-only
         Keep negative flux values (flag bit 16 of ``partition_flag``) instead
-        of refusing the dataset.
+        of refusing the dataset (or, with ``strict=False``, masking them).
     engine : {"auto", "numba", "numpy"}, keyword-only
         "auto" uses the fused numba kernel when numba is importable, else the
         numpy reference implementation (same results to float rounding).
@@ -730,6 +869,16 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
         (and their ``_err``), in the same pass. False (default) leaves them
         out: they add a quarter to the output memory and about as much to
         the time of a large partition. Summaries always include them.
+    strict : bool, keyword-only
+        True (default): any per-sample problem refuses the dataset. False:
+        only structural problems refuse it; negative flux values (unless
+        ``allow_negative``), negative uncertainties and positions outside
+        their physical range are masked, the outputs they touch flagged
+        (:data:`beltkit.pad.samples.SAMPLE_FLAGS`), and the number of time
+        samples with each such bit recorded in the attributes
+        ``beltkit_samples_<meaning>``. Flux values the reader masked
+        (``read_flag``: fill, out of the valid range, quality-rejected) are
+        flagged either way; with ``strict`` the last two refuse the dataset.
 
     Returns
     -------
@@ -784,13 +933,16 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
     """
     out, _ = partition_slab(ds, model, altitude_km, filling_band_deg=filling_band_deg,
                         allow_negative=allow_negative, engine=engine, fill=fill,
-                        hemispheres=hemispheres)
+                        hemispheres=hemispheres, strict=strict)
+    if out["partition_flag"].chunks is None:
+        for name, n in flag_counts(out["partition_flag"]).items():
+            out.attrs[f"beltkit_samples_{name}"] = n
     return out
 
 
 def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
-               buffers=None, hemispheres=True, prepared=None):
+               buffers=None, hemispheres=True, prepared=None, strict=True):
     """Partition a dataset or a slab of a file, optionally leaving the value checks to the caller.
 
     The entry of callers that partition a file slab by slab (``beltkit
@@ -824,9 +976,12 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
             raise ValueError("prepared= is for eager data or deferred value checks")
     else:
         prep = check(ds, model=model, allow_negative=allow_negative,
-                     check_values=lazy and not deferred)
-    lc = sample_loss_cones(ds, prep, model=model, altitude_km=altitude_km)
-    flux, err, c2f, look = _arrays(ds, prep)
+                     check_values=lazy and not deferred, strict=strict)
+    pos_bad = None if prep.strict else position_mask(ds, prep.other_scale)
+    # samples at impossible positions: no loss cone (NaN), flagged position_out_of_range
+    lc = sample_loss_cones(ds if pos_bad is None else mask_positions(ds, pos_bad), prep,
+                           model=model, altitude_km=altitude_km)
+    flux, err, c2f, look, read_flag = _arrays(ds, prep)
     dtype = np.dtype(np.float32) if flux.dtype == np.float32 else np.dtype(np.float64)
     geom = _geometry(ds, prep)
     if fill not in (None, "sine_power"):
@@ -840,18 +995,21 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
         raise ImportError("engine='numba' needs numba installed (pip install numba)")
     use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
     opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use,
-            "hemispheres": bool(hemispheres)}
+            "hemispheres": bool(hemispheres),
+            "mask_negative": not prep.strict and not allow_negative,
+            "mask_err": not prep.strict}
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     cones = tuple(lc[k] for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
     data, flags = _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats,
-                           counts=deferred, buffers=buffers)
+                           counts=deferred, buffers=buffers, read_flag=read_flag,
+                           pos_bad=pos_bad)
     source = ds.encoding.get("source")
 
     def verify(totals):
         """Raise the ConventionError of the value checks from (valid, negative, negative err)."""
         valid, neg, neg_err = (np.asarray(t) for t in totals)
         problems = value_problems(prep.energy_kev, valid > 0, int(neg.sum()), int(neg_err.sum()),
-                                  prep.error_source, allow_negative)
+                                  prep.error_source, allow_negative, strict=prep.strict)
         if problems:
             raise ConventionError(problems, source)
 
@@ -887,14 +1045,9 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
             if with_err and f"{name}_err" in names:
                 attrs["ancillary_variables"] = f"{name}_err"
         out_vars[name] = xr.Variable(dims, values, attrs)
-    bdim = ds["energy_bnds"].dims[1]
-    out_vars["energy_bnds"] = xr.Variable(("energy", bdim), prep.energy_bnds_kev,
-                                          encoding={"_FillValue": None})
     for name in lc.data_vars:
         out_vars[name] = lc[name].variable
-    energy = xr.Variable("energy", prep.energy_kev, {"units": "keV", "long_name": "kinetic energy",
-                                                     "bounds": "energy_bnds"})
-    out = xr.Dataset(out_vars, coords=time_coords(ds)).assign_coords(energy=energy)
+    out = xr.Dataset(out_vars, coords=time_coords(ds)).assign_coords(_energy_coords(ds, prep))
     out.attrs = {
         "title": "beltkit pitch-angle partition",
         "beltkit_field_model": model_name(model),
