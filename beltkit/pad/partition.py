@@ -64,8 +64,7 @@ import xarray as xr
 from .._threads import cores, map_slices
 from ..errors import ConventionError
 from . import _kernels
-from .conventions import INTEGRATED_FLUX_UNITS, Prepared, check
-from .geometry import look_bands
+from .conventions import Prepared, check
 from .losscones import (
     dipole_low_altitude_note,
     model_name,
@@ -73,24 +72,22 @@ from .losscones import (
     sample_loss_cones,
     time_coords,
 )
-from .samples import SAMPLE_FLAGS, flag_counts, mask_positions, position_mask, read_flag_bits
+from .outputs import LONG_NAMES, OutputBuffers, alloc_out, as_3d, output_units
+from .reference import HEMI_NAMES as _HEMI_NAMES
+from .reference import NAMES as _NAMES
+from .reference import POPULATIONS as _POPS
+from .reference import edge_cosines as _edge_cosines
+from .reference import hemisphere_row as _hemi_row
+from .reference import n_outputs as _n_out
+from .reference import output_names as _out_names
+from .reference import reference_kernel as _kernel
+from .reference import telescope_weights as _telescope_weights
+from .rows import mask_bad_rows, or_bits, overlap_rows, repartition_rows, sample_bits
+from .samples import SAMPLE_FLAGS, flag_counts, mask_positions, position_mask
 from .values import value_problems
 
-__all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "partition", "partition_slab"]
+__all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "OutputBuffers", "partition", "partition_slab"]
 
-_POPS = ("precipitating", "quasi_trapped", "trapped")
-_NAMES = (
-    [f"flux_{p}" for p in _POPS] + ["omni_flux"]
-    + [f"fraction_{p}" for p in _POPS]
-    + [f"coverage_{p}" for p in _POPS]
-    + [f"solid_angle_{p}" for p in _POPS]
-    + ["loss_cone_filling", "partition_flag"]
-)
-_ERR_NAMES = [f"flux_{p}_err" for p in _POPS] + ["omni_flux_err"] + [
-    f"fraction_{p}_err" for p in _POPS] + ["loss_cone_filling_err"]
-_HEMIS = ("north", "south")
-_HEMI_NAMES = [f"flux_lost_{h}" for h in _HEMIS] + [f"fraction_lost_{h}" for h in _HEMIS]
-_HEMI_ERR_NAMES = [f"{name}_err" for name in _HEMI_NAMES]
 #: Names of the per-(time, energy) outputs (uncertainties add ``_err``); the losses per
 #: hemisphere (``flux_lost_*``, ``fraction_lost_*``, with ``hemispheres=True``) come last.
 OUTPUT_NAMES = tuple(_NAMES + _HEMI_NAMES)
@@ -110,204 +107,6 @@ FLAG_MEANINGS = {
 #: samples per block of the compiled kernel (a few blocks per core: the threads stay busy
 #: while the page faults of the fresh output memory are spread between them)
 _BLOCK = 65536
-_FOUR_PI = 4.0 * np.pi
-_TWO_PI = 2.0 * np.pi
-
-
-# ------------------------------------------------------------------ weights
-
-
-#: weight columns: 0-2 populations, 3 the band outside the loss cone, 4 the whole bin,
-#: 5 lost north, 6 lost south
-_N_W = 7
-
-
-def _range_weights(cos_a1, cos_a2, cos_edges, folded):
-    """Solid-angle weights (n, P, 7) of intervals [a1, a2] (cosines, (P,) or (n, P)).
-
-    Columns: precipitating, quasi-trapped, trapped, band outside the loss cone,
-    whole interval, lost north ``[0, lcn]``, lost south ``[180 - lcs, 180]``.
-    """
-    cb, cd, co, cn, cs = (c[:, None] for c in cos_edges)  # cosines of the edges, (n, 1)
-
-    def cum(c):  # solid angle of each interval below the pitch angle arccos(c)
-        return _TWO_PI * (cos_a1 - np.clip(c, cos_a2, cos_a1))
-
-    full = _TWO_PI * (cos_a1 - cos_a2)
-    c_b, c_d, c_o = cum(cb), cum(cd), cum(co)
-    c_bm, c_dm, c_om = cum(-cb), cum(-cd), cum(-co)
-    c_n, c_sm = cum(cn), cum(-cs)
-    w = np.empty(np.broadcast_shapes(c_b.shape, np.shape(full)) + (_N_W,))
-    w[..., 0] = c_b + full - c_bm
-    w[..., 1] = c_d - c_b + c_bm - c_dm
-    w[..., 2] = c_dm - c_d
-    w[..., 3] = c_o - c_b + c_bm - c_om
-    w[..., 4] = full
-    w[..., 5] = c_n
-    w[..., 6] = full - c_sm
-    if folded:  # each folded bin also stands for its mirror image [180 - a2, 180 - a1]
-        w[..., :5] *= 2.0  # the populations are symmetric
-        w[..., 5] += full - cum(-cn)  # mirror image below lcn
-        w[..., 6] += cum(cs)  # mirror image above 180 - lcs
-    np.maximum(w, 0.0, out=w)
-    return w
-
-
-def _bin_weights(cos_a1, cos_a2, cos_edges, folded):
-    """Solid-angle weights (n, P, 7) of fixed pitch-angle bins (see :func:`_range_weights`)."""
-    return _range_weights(cos_a1, cos_a2, cos_edges, folded)
-
-
-def _telescope_weights(look_deg, half_deg, cos_edges):
-    """Weights (n, K, 7) of telescope looks: the union of their swept bands.
-
-    Each elementary interval of the union (:func:`beltkit.pad.geometry.look_bands`)
-    is split among the populations like a bin, and its solid angles are shared
-    among the looks that cover it in proportion to their band solid angles.
-    """
-    a1, a2, share = look_bands(look_deg, half_deg)  # (n, M), (n, M), (n, M, K)
-    wm = _range_weights(np.cos(np.radians(a1)), np.cos(np.radians(a2)), cos_edges, False)
-    return np.einsum("nmk,nmp->nkp", share, wm)
-
-
-def _edge_cosines(blc, dlc, outer, lcn, lcs):
-    return tuple(np.cos(np.radians(np.asarray(a, dtype=float)))
-                 for a in (blc, dlc, outer, lcn, lcs))
-
-
-# ------------------------------------------------------------------ kernel
-
-
-def _out_names(with_err, hemispheres):
-    """Names of the output rows, in the order the kernels write them."""
-    names = list(_NAMES) + (list(_ERR_NAMES) if with_err else [])
-    if hemispheres:
-        names += _HEMI_NAMES + (_HEMI_ERR_NAMES if with_err else [])
-    return names
-
-
-def _n_out(with_err, hemispheres):
-    return len(_out_names(with_err, hemispheres))
-
-
-def _hemi_row(with_err, hemispheres):
-    """First row of the hemisphere outputs (-1 without them)."""
-    return len(_NAMES) + (len(_ERR_NAMES) if with_err else 0) if hemispheres else -1
-
-
-def _kernel(x, s, cones, look, *, geom, opts):
-    """Partition one time block.
-
-    x : (n, E, P) flux, already scaled and masked; s : (n, E, P) 1-sigma or None;
-    cones : (blc, dlc, lcn, lcs), each (n,) degrees; look : (n, K) look pitch angles
-    or None. Returns (n_out, n, E).
-    """
-    out_dtype = x.dtype
-    x = np.asarray(x, dtype=np.float64)  # reference path: float64 throughout
-    s = None if s is None else np.asarray(s, dtype=np.float64)
-    dtype = x.dtype
-    n, n_e, _ = x.shape
-    band = opts["band_deg"]
-    hemi = opts.get("hemispheres", True)
-    blc, dlc, lcn, lcs = (np.asarray(c, dtype=float) for c in cones)
-    dlc = np.maximum(dlc, blc)
-    outer = np.minimum(blc + band, 90.0)
-    cos_edges = _edge_cosines(blc, dlc, outer, lcn, lcs)
-    if geom["kind"] == "bins":
-        w64 = _bin_weights(geom["cos_a1"], geom["cos_a2"], cos_edges, geom["folded"])
-    else:
-        w64 = _telescope_weights(np.asarray(look, dtype=float), geom["half"], cos_edges)
-    w64[np.isnan(blc)] = np.nan
-    w = w64.astype(dtype, copy=False)
-    finite = np.isfinite(x)
-    all_finite = bool(finite.all())
-    x0 = x if all_finite else np.where(finite, x, dtype.type(0))
-    r = np.matmul(x0, w)  # (n, E, 7)
-    if all_finite:
-        m = np.broadcast_to(w.sum(axis=1)[:, None, :], r.shape)
-    else:
-        m = np.matmul(finite.astype(dtype), w)
-    cb, cd, co, cn, cs = cos_edges
-    omega = np.stack([_FOUR_PI * (1.0 - cb), _FOUR_PI * (cb - cd), _FOUR_PI * cd,
-                      _FOUR_PI * (cb - co), _FOUR_PI + 0 * cb, _TWO_PI * (1.0 - cn),
-                      _TWO_PI * (1.0 - cs)], axis=-1)[:, None, :]  # (n, 1, 7)
-    omega = np.where(omega > _kernels.TOL_SR, omega, 0.0)
-    names = _out_names(s is not None, hemi)
-    out = np.empty((len(names), n, n_e), dtype=dtype)
-    nan = dtype.type(np.nan)
-    hrow = _hemi_row(s is not None, hemi)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sampled = m > _kernels.TOL_SR
-        nonempty = np.broadcast_to(omega > 0, sampled.shape)
-        pops = np.where(nonempty, np.where(sampled, r, nan), 0.0)
-        cov = np.where(nonempty, np.minimum(m / np.where(omega > 0, omega, 1), 1), 1.0)
-        total = pops[..., 0] + pops[..., 1] + pops[..., 2]
-        good_total = total > 0
-        frac = np.where(good_total[..., None], pops / total[..., None], nan)
-        out[0:3] = np.moveaxis(pops[..., :3], -1, 0)
-        out[3] = np.where(m[..., 4] > 0, r[..., 4], nan)
-        out[4:7] = np.moveaxis(frac[..., :3], -1, 0)
-        out[7:10] = np.moveaxis(cov[..., :3], -1, 0)
-        out[10:13] = np.moveaxis(m[..., :3], -1, 0)
-        if hemi:
-            out[hrow:hrow + 2] = np.moveaxis(pops[..., 5:7], -1, 0)
-            out[hrow + 2:hrow + 4] = np.moveaxis(frac[..., 5:7], -1, 0)
-        mean_in = r[..., 0] / m[..., 0]
-        mean_out = r[..., 3] / m[..., 3]
-        fill_ok = sampled[..., 0] & nonempty[..., 0] & sampled[..., 3] & (mean_out != 0)
-        out[13] = np.where(fill_ok, mean_in / mean_out, nan)
-        flag = np.zeros((n, n_e), dtype=np.int16)
-        for k in range(3):
-            flag |= np.where(nonempty[..., k] & ~sampled[..., k], 1 << k, 0).astype(np.int16)
-        partial = ((cov[..., :3] < 1 - 1e-6) & (cov[..., :3] > 0)).any(axis=-1)
-        flag |= np.where(partial, 8, 0).astype(np.int16)
-        if opts["has_negative"]:
-            flag |= np.where((x < 0).any(axis=-1), 16, 0).astype(np.int16)
-        flag |= np.where(~(m[..., 4] > 0), 32, 0).astype(np.int16)
-        unknown = np.isnan(blc) | np.isnan(dlc)
-        flag[unknown] = 64
-        out[14] = flag
-        if s is not None:
-            s2 = np.where(finite, s * s, dtype.type(0))
-            we = np.empty(w.shape[:2] + (13,), dtype=dtype)
-            we[..., 0:3] = w[..., 0:3] ** 2
-            we[..., 3] = w[..., 4] ** 2
-            we[..., 4] = w[..., 3] ** 2
-            we[..., 5:8] = w[..., 0:3] * w[..., 4:5]
-            we[..., 8] = w[..., 0] * w[..., 3]
-            we[..., 9:11] = w[..., 5:7] ** 2
-            we[..., 11:13] = w[..., 5:7] * w[..., 4:5]
-            v = np.matmul(s2, we)  # (n, E, 13)
-            base = len(_NAMES)
-            for k in range(3):
-                out[base + k] = np.where(nonempty[..., k],
-                                         np.where(sampled[..., k], np.sqrt(v[..., k]), nan), 0.0)
-            out[base + 3] = np.where(m[..., 4] > 0, np.sqrt(v[..., 3]), nan)
-            # d f_P / d j_i = (Omega_iP - f_P Omega_i) / F_tot
-            for k in range(3):
-                f = frac[..., k]
-                var = (v[..., k] - 2 * f * v[..., 5 + k] + f * f * v[..., 3]) / (total * total)
-                out[base + 4 + k] = np.where(good_total, np.sqrt(np.maximum(var, 0)), nan)
-            # rho = r0 * kf with kf = m3 / (m0 r3): d rho/d r0 = kf, d rho/d r3 = -rho/r3
-            # (no division by r0, so an empty loss cone keeps its error bar)
-            kf = np.where(fill_ok, m[..., 3] / (m[..., 0] * r[..., 3]), nan)
-            q = out[13] / r[..., 3]
-            var = kf * kf * v[..., 0] + q * q * v[..., 4] - 2 * kf * q * v[..., 8]
-            out[base + 7] = np.where(fill_ok, np.sqrt(np.maximum(var, 0)), nan)
-            if hemi:
-                for h in range(2):
-                    k = 5 + h
-                    out[hrow + 4 + h] = np.where(
-                        nonempty[..., k], np.where(sampled[..., k], np.sqrt(v[..., 9 + h]), nan),
-                        0.0)
-                    f = frac[..., k]
-                    var = ((v[..., 9 + h] - 2 * f * v[..., 11 + h] + f * f * v[..., 3])
-                           / (total * total))
-                    out[hrow + 6 + h] = np.where(good_total, np.sqrt(np.maximum(var, 0)), nan)
-    # unknown loss cone: nothing can be said of the populations (as in the compiled engine)
-    out[:14, unknown] = nan
-    out[15:, unknown] = nan
-    return out.astype(out_dtype, copy=False)
 
 
 def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_counts=None,
@@ -339,142 +138,11 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_count
     return x, s, err_bad
 
 
-def _alloc_out(nout, n, n_e, dtype):
-    """Return a (nout, stride) buffer whose rows are contiguous and padded apart.
-
-    Rows start 64 bytes apart modulo 4096, so that writing all outputs of one
-    sample does not hit the same cache set (4K aliasing) n_out times.
-    """
-    item = np.dtype(dtype).itemsize
-    need = max(n * n_e * item, 1)
-    stride_bytes = -(-need // 4096) * 4096 + 64
-    return np.empty(nout * stride_bytes // item, dtype=dtype).reshape(nout, stride_bytes // item)
-
-
-def _as_3d(buf, n, n_e):
-    return buf[:, : n * n_e].reshape(buf.shape[0], n, n_e)
-
-
 def _numpy_stats(x, s, stats):
     stats[:, 0] += np.isfinite(x).sum(axis=(0, 2))
     stats[:, 1] += (x < 0).sum(axis=(0, 2))
     if s is not None:
         stats[:, 2] += (s < 0).sum(axis=(0, 2))
-
-
-def _overlap_rows(x, look, half):
-    """(time, energy) indices where overlapping looks lack a value at that energy.
-
-    There the union of the bands (and every look's share of it) differs from
-    the sample's full set of looks, so those rows are partitioned again with
-    the looks that have a value.
-    """
-    look = np.asarray(look, dtype=float)
-    lo = np.maximum(look - half, 0.0)
-    hi = np.minimum(look + half, 180.0)
-    ok = np.isfinite(lo) & np.isfinite(hi) & (hi > lo)
-    pair = (ok[:, :, None] & ok[:, None, :] & (lo[:, :, None] < hi[:, None, :])
-            & (lo[:, None, :] < hi[:, :, None]))
-    k = look.shape[1]
-    pair &= ~np.eye(k, dtype=bool)
-    overlapping = pair.any(axis=(1, 2))
-    if not overlapping.any():
-        return None
-    missing = (~np.isfinite(x) & ok[:, None, :]).any(axis=2) & overlapping[:, None]
-    if not missing.any():
-        return None
-    return np.nonzero(missing)
-
-
-def _repartition_rows(rows, x, s, cones, look, geom, opts):
-    """Return the outputs (n_out, r) of ``rows``, each with only the looks that have a value."""
-    ti, ei = rows
-    return _rows_kernel(x[ti, ei], None if s is None else s[ti, ei], ti, cones, look, geom,
-                        opts)
-
-
-def _rows_kernel(xs, ss, ti, cones, look, geom, opts):
-    """Partition single (time, energy) rows ``xs`` (r, angle) of the samples ``ti``."""
-    lk = None
-    if look is not None:  # each row with only the looks that have a value
-        lk = np.where(np.isfinite(xs), np.asarray(look, dtype=float)[ti], np.nan)
-    sub = _kernel(xs[:, None, :], None if ss is None else ss[:, None, :],
-                  tuple(np.asarray(c, dtype=float)[ti] for c in cones), lk, geom=geom,
-                  opts=opts)
-    return sub[:, :, 0]
-
-
-def _mask_bad_rows(x, s, cones, look, geom, opts, o2, fl, n_data, err_bad, err_grew):
-    """Partition again, with their bad values masked, the rows holding negative values.
-
-    Negative flux values (``opts["mask_negative"]``: not strict, not
-    allow_negative) and negative uncertainties (``opts["mask_err"]``) become
-    NaN in their row, which is partitioned again on the remaining values; the
-    rows get flag bits 2048 and 8192 (:data:`beltkit.pad.samples.SAMPLE_FLAGS`).
-    ``o2`` (n_out, >= n * E) and ``fl`` (n * E) are the block's outputs and
-    flags, written in place. Rows are rare: the common case costs one pass
-    over the flags.
-    """
-    n, n_e = x.shape[:2]
-    m = n * n_e
-    flv = fl[:m] if np.issubdtype(fl.dtype, np.integer) else fl[:m].astype(np.int64)
-    neg = (flv & 16) != 0 if opts.get("mask_negative") else None
-    err = None
-    if opts.get("mask_err") and s is not None:
-        err = np.zeros(m, dtype=bool)
-        if err_bad is not None:
-            err |= err_bad.reshape(-1)
-        if err_grew:
-            err |= (s < 0).any(axis=-1).reshape(-1)
-    bad = neg if err is None else (err if neg is None else neg | err)
-    if bad is None or not bad.any():
-        return
-    idx = np.flatnonzero(bad)
-    ti, ei = np.divmod(idx, n_e)
-    xs = x[ti, ei]
-    if neg is not None:
-        xs = np.where(xs < 0, xs.dtype.type(np.nan), xs)
-    ss = None
-    if s is not None:
-        ss = s[ti, ei]
-        if err is not None:
-            ss = np.where(ss < 0, ss.dtype.type(np.nan), ss)
-    sub = _rows_kernel(xs, ss, ti, cones, look, geom, opts)
-    o2[:n_data, idx] = sub[:n_data]
-    bits = sub[14].astype(np.int16)
-    if neg is not None:
-        bits |= np.where(neg[idx] & ~np.isnan(sub[14]), 2048, 0).astype(np.int16)
-    if err is not None:
-        bits |= np.where(err[idx], 8192, 0).astype(np.int16)
-    fl[idx] = bits
-
-
-def _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e):
-    """Return the (n * E,) int16 bits of masked input samples of a block, or None."""
-    bits = None
-    if prep.flux_mask.masks_values:
-        fill, outside = prep.flux_mask.hits(flux_blk)
-        bits = (np.where(fill.any(axis=-1), 256, 0)
-                | np.where(outside.any(axis=-1), 512, 0)).astype(np.int16)
-    if rf_blk is not None:
-        rb = read_flag_bits(rf_blk)
-        bits = rb if bits is None else bits | rb
-    if pos_blk is not None:
-        pb = np.broadcast_to(np.where(np.asarray(pos_blk, dtype=bool), 4096, 0)[:, None],
-                             (n, n_e)).astype(np.int16)
-        bits = pb if bits is None else bits | pb
-    return None if bits is None else bits.reshape(-1)
-
-
-def _or_bits(fl, bits):
-    """OR the sample bits into the flags (int16 array or a float output row)."""
-    if bits is None:
-        return
-    m = bits.size
-    if np.issubdtype(fl.dtype, np.integer):
-        fl[:m] |= bits
-    else:
-        fl[:m] = fl[:m].astype(np.int64) | bits
 
 
 def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
@@ -498,12 +166,12 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     n_data = _n_out(s is not None, hemi)
     rows = None
     if geom["kind"] == "telescope":
-        rows = _overlap_rows(x, look, geom["half"])
+        rows = overlap_rows(x, look, geom["half"])
     if opts["engine"] == "numpy":
         _numpy_stats(x, s, stats)
         res = _kernel(x, s, cones, look, geom=geom, opts=opts)
         if rows is not None:
-            res[:, rows[0], rows[1]] = _repartition_rows(rows, x, s, cones, look, geom, opts)
+            res[:, rows[0], rows[1]] = repartition_rows(rows, x, s, cones, look, geom, opts)
         if counts:
             neg_err = neg_counts[0] if neg_counts else (
                 (s < 0).sum(axis=2) if s is not None else np.zeros((n, n_e)))
@@ -511,9 +179,9 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
                                                  (x < 0).sum(axis=2), neg_err])
                                   .astype(res.dtype)])
         r2 = res.reshape(res.shape[0], -1)
-        _mask_bad_rows(x, s, cones, look, geom, opts, r2, r2[14], n_data, err_bad,
+        mask_bad_rows(x, s, cones, look, geom, opts, r2, r2[14], n_data, err_bad,
                        int(stats[:, 2].sum()) > err_before)
-        _or_bits(r2[14], _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
+        or_bits(r2[14], sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
         if out is None:
             return res
         out[:, : n * n_e] = res.reshape(res.shape[0], -1)
@@ -524,7 +192,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
     if out is None:
-        out = _alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
+        out = alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
     blc, dlc, lcn, lcs = (np.asarray(c, dtype=float) for c in cones)
     # dlc is raised to at least blc by partition_block
     wpre = None
@@ -544,17 +212,17 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
                              hemi_row=_hemi_row(s is not None, hemi))
     if rows is not None:
         j = rows[0] * n_e + rows[1]
-        sub = _repartition_rows(rows, x, s, cones, look, geom, opts)
+        sub = repartition_rows(rows, x, s, cones, look, geom, opts)
         out[:n_data, j] = sub
         if flag is not None:
             flag[j] = sub[14]
     if neg_counts:  # Poisson errors: the negative counts are those of `counts`
         out[n_data + 2, : n * n_e] = neg_counts[0].reshape(-1)
     fl = flag if flag is not None else out[14]
-    _mask_bad_rows(x, s, cones, look, geom, opts, out, fl, n_data, err_bad,
+    mask_bad_rows(x, s, cones, look, geom, opts, out, fl, n_data, err_bad,
                    int(stats[:, 2].sum()) > err_before)
-    _or_bits(fl, _sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
-    return _as_3d(out, n, n_e) if ret3d else out
+    or_bits(fl, sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
+    return as_3d(out, n, n_e) if ret3d else out
 
 
 # ------------------------------------------------------------------ assembly
@@ -599,31 +267,6 @@ def _arrays(ds, prep):
             look = look * f
     read_flag = ds["read_flag"].transpose(*order) if prep.has_read_flag else None
     return flux, err, c2f, look, read_flag
-
-
-class OutputBuffers:
-    """Output memory reused from one eager partition to the next (one slab after another).
-
-    A batch run partitions a file slab by slab and writes each result out
-    before it computes the next: the next slab can then be written into the
-    same memory, which is already mapped (no page faults, no zeroing by the
-    kernel). Pass one to ``partition_slab(..., buffers=...)`` only when nothing
-    keeps the previous result: its arrays are overwritten.
-    """
-
-    def __init__(self):
-        self._key = None
-        self._buf = self._flag = None
-
-    def take(self, nout, n, n_e, dtype):
-        """Return ``(buf, flag)`` for ``n`` samples, reusing the last ones if they fit."""
-        key = (nout, n, n_e, np.dtype(dtype).str)
-        if key != self._key:
-            self._buf = self._flag = None  # drop the old memory before taking new
-            self._buf = _alloc_out(nout, n, n_e, dtype)
-            self._flag = np.empty(n * n_e, dtype=np.int16)
-            self._key = key
-        return self._buf, self._flag
 
 
 def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
@@ -686,7 +329,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     if buffers is not None:
         buf, flag = buffers.take(nout, n_t, n_e, dtype)
     else:
-        buf = _alloc_out(nout, n_t, n_e, dtype)
+        buf = alloc_out(nout, n_t, n_e, dtype)
         flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
 
     def one(sl):
@@ -710,38 +353,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     if stats is not None:
         for block_stats in parts:
             stats += block_stats
-    return _as_3d(buf, n_t, n_e), flag.reshape(n_t, n_e)
-
-
-_LONG = {
-    "flux_precipitating": "precipitating flux integrated over the measured solid angle of "
-                          "the bounce loss cone",
-    "flux_quasi_trapped": "quasi-trapped flux integrated over the measured solid angle between "
-                          "the bounce and drift loss cones",
-    "flux_trapped": "trapped flux integrated over the measured solid angle outside the drift "
-                    "loss cone",
-    "omni_flux": "omnidirectional flux integrated over the measured solid angle",
-    "fraction_precipitating": "precipitating fraction of the integrated flux",
-    "fraction_quasi_trapped": "quasi-trapped fraction of the integrated flux",
-    "fraction_trapped": "trapped fraction of the integrated flux",
-    "coverage_precipitating": "sampled fraction of the bounce loss cone solid angle",
-    "coverage_quasi_trapped": "sampled fraction of the quasi-trapped solid angle",
-    "coverage_trapped": "sampled fraction of the trapped solid angle",
-    "solid_angle_precipitating": "measured solid angle of the precipitating population",
-    "solid_angle_quasi_trapped": "measured solid angle of the quasi-trapped population",
-    "solid_angle_trapped": "measured solid angle of the trapped population",
-    "loss_cone_filling": "mean directional flux inside the bounce loss cone over that in the "
-                         "band just outside it",
-    "flux_lost_north": "flux moving toward the northern footpoint inside its loss cone "
-                       "(pitch angle below loss_cone_north), integrated over the measured "
-                       "solid angle",
-    "flux_lost_south": "flux moving toward the southern footpoint inside its loss cone "
-                       "(pitch angle above 180 degree minus loss_cone_south), integrated over "
-                       "the measured solid angle",
-    "fraction_lost_north": "fraction of the integrated flux lost at the northern footpoint",
-    "fraction_lost_south": "fraction of the integrated flux lost at the southern footpoint",
-    "partition_flag": "partition quality flags",
-}
+    return as_3d(buf, n_t, n_e), flag.reshape(n_t, n_e)
 
 
 def _energy_coords(ds, prep):
@@ -762,14 +374,6 @@ def _energy_coords(ds, prep):
                                             encoding={"_FillValue": None})
     coords["energy"] = xr.Variable("energy", prep.energy_kev, attrs)
     return coords
-
-
-def _units(name):
-    if name.startswith(("flux_", "omni_flux")):
-        return INTEGRATED_FLUX_UNITS
-    if name.startswith("solid_angle_"):
-        return "sr"
-    return "1"
 
 
 def _fill_block(flux, amp, index, blc, dlc, *, mask, edges, folded):
@@ -1034,14 +638,14 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
         if name.endswith("_err"):
             base = name[:-4]
             attrs["long_name"] = f"uncertainty (1 sigma) of {base.replace('_', ' ')}"
-            attrs["units"] = _units(base)
+            attrs["units"] = output_units(base)
         elif name == "partition_flag":
-            attrs["long_name"] = _LONG[name]
+            attrs["long_name"] = LONG_NAMES[name]
             attrs["flag_masks"] = np.array(list(FLAG_MEANINGS), dtype=np.int16)
             attrs["flag_meanings"] = " ".join(FLAG_MEANINGS.values())
         else:
-            attrs["long_name"] = _LONG[name]
-            attrs["units"] = _units(name)
+            attrs["long_name"] = LONG_NAMES[name]
+            attrs["units"] = output_units(name)
             if with_err and f"{name}_err" in names:
                 attrs["ancillary_variables"] = f"{name}_err"
         out_vars[name] = xr.Variable(dims, values, attrs)
