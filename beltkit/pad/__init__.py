@@ -21,23 +21,30 @@ from .geometry import (
     look_solid_angles,
     swept_band,
 )
+from .looks import gyrophase, look_pitch_angle
 from .losscones import cone_from_fields
 from .partition import FLAG_MEANINGS, OUTPUT_NAMES, partition
+from .sectors import SECTOR_FLAG_MEANINGS, bin_sectors, sector_bands
 
 __all__ = [
     "FLAG_MEANINGS",
     "FLUX_UNITS",
     "INTEGRATED_FLUX_UNITS",
     "OUTPUT_NAMES",
+    "SECTOR_FLAG_MEANINGS",
     "band_overlap_solid_angle",
     "band_solid_angle",
     "band_weights",
+    "bin_sectors",
     "cone_from_fields",
     "fit_sine_power",
     "flux_unit_factor",
+    "gyrophase",
     "look_bands",
+    "look_pitch_angle",
     "look_solid_angles",
     "partition",
+    "sector_bands",
     "sine_power_band_integral",
     "swept_band",
     "to_equatorial",
