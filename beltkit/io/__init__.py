@@ -46,6 +46,7 @@ from .cdf import open_cdf
 from .mapping import MAPPING_NAMES, MAPPING_SECTIONS, apply_mapping, load_mapping
 from .metadata import READ_FLAG_BITS, READ_FLAG_MEANINGS
 from .read import open_flux, open_indexed
+from .suggest import suggest_mapping
 from .write import WRITE_CHUNK_CACHE_BYTES, read_attributes, sha256, write_dataset, write_stream
 
 __all__ = [
@@ -64,6 +65,7 @@ __all__ = [
     "read_attributes",
     "remove_stale_temporaries",
     "sha256",
+    "suggest_mapping",
     "temporary_name",
     "write_dataset",
     "write_stream",

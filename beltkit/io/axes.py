@@ -69,11 +69,10 @@ def _delta_names(ds, base):
     return None
 
 
-def _delta_edges(ds, base, want, where):
+def _delta_edges(ds, base, want, where, units):
     names = _delta_names(ds, base)
     if names is None:
         return None
-    units = ds[base].attrs.get("units")
     centres = ds[base].values
     parts = []
     for n in names:
@@ -105,6 +104,7 @@ def resolve_pitch_angle(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset
     """
     if "pitch_angle" not in ds.variables or ds["pitch_angle"].ndim != 1:
         return ds
+    original_units = ds.variables["pitch_angle"].attrs.get("units")
     pa = _to_unit(ds.variables["pitch_angle"], ANGLE_UNITS, "pitch_angle", where)
     if rule.get("folded"):
         pa.attrs["folded"] = "true"
@@ -112,13 +112,13 @@ def resolve_pitch_angle(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset
     bounds = str(pa.attrs.get("bounds", "pitch_angle_bnds"))
     if bounds in ds.variables:
         bnds = _to_unit(ds.variables[bounds], ANGLE_UNITS, bounds, where,
-                        parent_units=ds.variables["pitch_angle"].attrs.get("units"))
+                        parent_units=original_units)
         if bounds != "pitch_angle_bnds":
             ds = ds.drop_vars(bounds)
         ds["pitch_angle_bnds"] = bnds
         source = "bounds"
     else:
-        delta = _delta_edges(ds, "pitch_angle", ANGLE_UNITS, where)
+        delta = _delta_edges(ds, "pitch_angle", ANGLE_UNITS, where, original_units)
         if delta is not None:
             edges, names = delta
             ds = ds.drop_vars([n for n in names if n not in ds.dims])
@@ -207,7 +207,7 @@ def resolve_energy(ds: xr.Dataset, *, where: str) -> xr.Dataset:
         ds["energy_bnds"] = bnds
         ds["energy"].attrs["bounds"] = "energy_bnds"
     else:
-        delta = _delta_edges(ds, "energy", ENERGY_UNITS, where)
+        delta = _delta_edges(ds, "energy", ENERGY_UNITS, where, var.attrs.get("units"))
         if delta is not None:
             edges, names = delta
             ds = ds.drop_vars([n for n in names if n not in ds.dims])

@@ -94,16 +94,17 @@ def resolve_time(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset:
         raise MappingError(f"{where}: the time variable has dimensions {var.dims}; it must "
                            f"have one; name a 1-D time with [variables] time = \"...\"")
     dim = var.dims[0]
+    if dim != "time" and "time" in ds.dims:
+        raise MappingError(f"{where}: time lives on dimension {dim!r} but the file also has a "
+                           f"dimension 'time'; say which is the sample axis with "
+                           f"[dimensions] time = \"{dim}\"")
+    decoded = _decode(var, rule, where)
+    ds = ds.drop_vars("time")
     if dim != "time":
-        if "time" in ds.dims:
-            raise MappingError(f"{where}: time lives on dimension {dim!r} but the file also "
-                               f"has a dimension 'time'; say which is the sample axis with "
-                               f"[dimensions] time = \"{dim}\"")
         ds = ds.rename_dims({dim: "time"})
-    decoded = _decode(ds.variables["time"], rule, where)
-    attrs = {k: v for k, v in ds.variables["time"].attrs.items()
+    attrs = {k: v for k, v in var.attrs.items()
              if k not in ("units", "calendar", "_FillValue", "FILLVAL", "VALIDMIN", "VALIDMAX",
-                          "valid_min", "valid_max", "valid_range")}
+                          "valid_min", "valid_max", "valid_range", "cdf_time_type")}
     attrs.setdefault("long_name", "time (UTC)")
     attrs.setdefault("standard_name", "time")
-    return ds.drop_vars("time").assign_coords(time=xr.Variable(("time",), decoded, attrs))
+    return ds.assign_coords(time=xr.Variable(("time",), decoded, attrs))

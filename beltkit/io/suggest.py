@@ -1,0 +1,182 @@
+"""A mapping written from a file's own metadata, with every guess marked.
+
+:func:`suggest_mapping` reads a netCDF or CDF file's ISTP/CF metadata (no
+data beyond the small axes) and returns the text of a mapping
+(``docs/mapping.md``) that makes the file readable. What the metadata state
+(``DEPEND_0/1/2``, CF ``units``, ``bounds``, ``DELTA_*_VAR``, a time type) is
+written as a plain entry; what had to be chosen by name or by unit alone is
+marked ``# GUESS: ...``; what cannot be known (the epoch of a numeric time
+without units, the outer edges of an asymmetric set of pitch-angle centres) is
+written as a commented-out entry with ``# NEEDED: ...``, so that reading with
+the mapping as written fails with a message naming that key.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from ..units import FLUX_UNITS, conversion_factor
+from .read import open_raw
+
+__all__ = ["suggest_mapping"]
+
+_ERR_WORDS = re.compile(r"(err|unc|sigma|delta|std)", re.I)
+
+
+def _units(var):
+    return str(var.attrs.get("units", var.attrs.get("UNITS", "")))
+
+
+def _kind(var):
+    """Return what a variable's units make it: flux, energy, angle, time-of-day, length, ..."""
+    u = _units(var)
+    if var.dtype.kind == "M":
+        return "time"
+    if " since " in u:
+        return "time"
+    for kind, want in (("flux", FLUX_UNITS), ("energy", "keV"), ("angle", "degree"),
+                       ("hours", "hour"), ("length", "km"), ("rate", "s-1")):
+        if u and conversion_factor(u, want) is not None:
+            return kind
+    return None
+
+
+def _q(s):
+    return '"' + str(s).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def suggest_mapping(path) -> str:
+    """Return a commented TOML mapping for a file, built from its metadata.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A netCDF or CDF flux file (read, never modified).
+
+    Returns
+    -------
+    str
+        TOML text: ``[variables]``, ``[dimensions]`` and, where needed,
+        ``[time]`` and ``[pitch_angle]`` entries; comments mark each guess
+        (``# GUESS``) and each value the file does not give (``# NEEDED``).
+
+    Raises
+    ------
+    OSError
+        The file cannot be read.
+    """
+    ds = open_raw(path)
+    lines = [f"# mapping suggested by beltkit from the metadata of {getattr(path, 'name', path)}",
+             "# entries marked GUESS were chosen by name or unit alone: check them;",
+             "# entries marked NEEDED are not in the file: fill them in and uncomment.", ""]
+    variables, dims, notes = {}, {}, {}
+    kinds = {n: _kind(v) for n, v in ds.variables.items()}
+    fluxes = [n for n, k in kinds.items() if k == "flux" and ds[n].ndim >= 2]
+    main = [n for n in fluxes if not _ERR_WORDS.search(str(n))]
+    flux = max(main or fluxes, key=lambda n: (ds[n].ndim, ds[n].size), default=None)
+    if flux is None:
+        lines.append("# no variable with differential-flux units (cm-2 s-1 sr-1 keV-1 or "
+                     "equivalent) was found;")
+        lines.append("# NEEDED: [variables] flux = \"...\" and [units] flux = \"...\"")
+        return "\n".join(lines) + "\n"
+    variables["flux"] = flux
+    fv = ds[flux]
+    if len(main) > 1 or (not main and len(fluxes) > 1):
+        notes["flux"] = f"GUESS: the largest of {', '.join(map(str, main or fluxes))}"
+    # time: DEPEND_0, else the datetime/CF-time variable on the flux's first dimension
+    dep0 = fv.attrs.get("DEPEND_0")
+    time = str(dep0) if dep0 in ds.variables else None
+    if time is None:
+        cands = [n for n, k in kinds.items() if k == "time" and ds[n].ndim == 1
+                 and ds[n].dims[0] in fv.dims]
+        if not cands:
+            cands = [n for n in ds.variables if ds[n].ndim == 1 and ds[n].dims[0] == fv.dims[0]
+                     and re.search(r"time|epoch", str(n), re.I)]
+            if cands:
+                notes["time"] = "GUESS: by name"
+        time = cands[0] if cands else None
+    if time is not None:
+        variables["time"] = time
+        tdim = ds[time].dims[0]
+    else:
+        notes["time"] = "NEEDED: no time variable found"
+        tdim = fv.dims[0]
+    # the flux's other axes, from DEPEND_i or from 1-D variables on its dimensions
+    for axis, d in enumerate(fv.dims):
+        if d == tdim:
+            continue
+        dep = fv.attrs.get(f"DEPEND_{axis}") if "DEPEND_0" in fv.attrs else None
+        cand = str(dep) if dep in ds.variables else None
+        if cand is None:
+            on_dim = [n for n in ds.variables if d in ds[n].dims and ds[n].ndim <= 2
+                      and kinds.get(n) in ("energy", "angle") and n != flux]
+            cand = on_dim[0] if on_dim else None
+        if cand is None:
+            continue
+        kind = kinds.get(cand)
+        role = {"energy": "energy", "angle": "pitch_angle"}.get(kind)
+        if role is None:
+            continue
+        variables[role] = cand
+        if dep is None:
+            notes[role] = f"GUESS: the {kind} variable on dimension {d}"
+        if d != cand and ds[cand].ndim == 1:
+            dims[role] = d
+    # uncertainty
+    dplus = fv.attrs.get("DELTA_PLUS_VAR")
+    errs = [n for n in fluxes if n != flux and _ERR_WORDS.search(str(n))
+            and ds[n].dims == fv.dims]
+    if dplus in ds.variables:
+        variables["flux_err"] = str(dplus)
+        notes["flux_err"] = "GUESS: the flux's DELTA_PLUS_VAR taken as its 1-sigma error"
+    elif errs:
+        variables["flux_err"] = errs[0]
+        notes["flux_err"] = "GUESS: by name"
+    # position variables by name and unit (always guesses)
+    patterns = (("L", r"^(l|lshell|l_shell|lm|l_dip.*|lshell.*)$", (None, "length")),
+                ("mlat", r"(mlat|mag.*lat|lat.*mag)", ("angle",)),
+                ("mlt", r"(mlt|mag.*local.*time)", ("hours",)),
+                ("latitude", r"^(geo.*)?lat(itude)?(_geo.*)?$", ("angle",)),
+                ("longitude", r"^(geo.*)?lon(gitude)?(_geo.*)?$", ("angle",)),
+                ("altitude", r"^(geo.*)?(alt|altitude|height)(_.*)?$", ("length",)))
+    for role, pat, ok in patterns:
+        for n in ds.variables:
+            if (re.search(pat, str(n), re.I) and kinds.get(n) in ok and ds[n].ndim == 1
+                    and ds[n].dims[0] == tdim and n not in variables.values()):
+                variables[role] = str(n)
+                notes[role] = "GUESS: by name and unit"
+                break
+    lines.append("[variables]")
+    for role, name in variables.items():
+        note = notes.get(role)
+        lines.append(f"{role} = {_q(name)}" + (f"  # {note}" if note else ""))
+    for role in ("time",):
+        if role not in variables:
+            lines.append(f"# {role} = \"...\"  # {notes.get(role, 'NEEDED')}")
+    if dims:
+        lines += ["", "[dimensions]"]
+        lines += [f"{role} = {_q(d)}" for role, d in dims.items()]
+    if time is not None and ds[time].dtype.kind in "iuf" and " since " not in _units(ds[time]):
+        lines += ["", "[time]",
+                  f"# NEEDED: {time} is numeric without CF units; say what it counts from:",
+                  '# epoch = "1970-01-01T00:00:00"', '# unit = "s"']
+    if {"latitude", "longitude", "altitude"} <= set(variables):
+        lines += ["", "[position]", 'form = "geodetic"  # GUESS: latitude/longitude/altitude '
+                  "by name"]
+    pa = variables.get("pitch_angle")
+    if pa is not None and ds[pa].ndim == 1:
+        pav = ds[pa]
+        has_edges = str(pav.attrs.get("bounds", "")) in ds.variables or (
+            pav.attrs.get("DELTA_PLUS_VAR") in ds.variables
+            and pav.attrs.get("DELTA_MINUS_VAR") in ds.variables)
+        if not has_edges:
+            f = conversion_factor(_units(pav), "degree") or 1.0
+            c = np.asarray(pav.values, float) * f
+            if not (c.size > 1 and np.allclose(c + c[::-1], 180.0, atol=1e-4)):
+                lines += ["", "[pitch_angle]",
+                          "# NEEDED: pitch-angle centres without edges and not symmetric about "
+                          "90 deg; state the outer edges:",
+                          "# outer_edges = [0.0, 180.0]  # or \"half_spacing\""]
+    return "\n".join(lines) + "\n"

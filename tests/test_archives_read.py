@@ -1,0 +1,365 @@
+"""Foreign-made archives read by beltkit.io: ISTP CDFs, assorted netCDFs, telescope rates.
+
+The corpus is built here (module-scoped, in a temporary folder) the way
+missions deliver files, for an invented spacecraft ("Kestrel-2", synthetic
+data): ISTP CDFs with fill, out-of-range and saturated values, delta-given and
+centre-only pitch-angle bins, CDF_TIME_TT2000 and CDF_EPOCH times, a
+record-varying energy table and CDF unit markup; netCDFs with radians, MeV,
+per-MeV flux, time on a ``record`` dimension, seconds since 1970 with and
+without CF units, CF packing and quality flags; telescope count-rate
+archives; geodetic-only and GSM-only ephemeris. Each file is read and
+compared with an independent calculation on its valid samples (plain numpy,
+astropy, geopack), or refused in one line.
+"""
+
+from __future__ import annotations
+
+import netCDF4
+import numpy as np
+import pytest
+
+from beltkit import io as bio
+from beltkit.errors import MappingError
+
+FLUX_MARKUP_MEV = "cm!E-2!N s!E-1!N sr!E-1!N MeV!E-1!N"
+N_T = 40
+T0 = np.datetime64("2024-03-10T06:00:00", "ns")
+TIMES = T0 + np.arange(N_T) * np.timedelta64(16, "s")
+CENTRES_DELTA = np.array([10.0, 30.0, 50.0, 70.0, 110.0, 130.0, 150.0, 170.0])
+CENTRES_SYM = np.linspace(11.25, 168.75, 8)
+E_MEV = np.array([0.1, 0.3, 0.9, 2.0])
+
+# CDF data type codes (CDF User's Guide, section 2.5)
+CDF_INT2, CDF_INT4, CDF_INT8, CDF_REAL4, CDF_REAL8 = 2, 4, 8, 21, 22
+CDF_EPOCH, CDF_EPOCH16, CDF_TT2000 = 31, 32, 33
+
+
+def _tt2000_ns(times):
+    """TT2000 computed with astropy, independently of cdflib.
+
+    TT2000 counts SI nanoseconds of Terrestrial Time from 2000-01-01T12:00:00 TT
+    (CDF User's Guide, section 2.4).
+    """
+    from astropy.time import Time
+
+    t = Time(np.datetime_as_string(times, unit="ns"), scale="utc", format="isot")
+    j2000 = Time("2000-01-01T12:00:00", scale="tt")
+    d = t.tt - j2000
+    return np.round((d.jd1 * 86400.0) * 1e9 + (d.jd2 * 86400.0) * 1e9).astype(np.int64)
+
+
+def _write_cdf(path, variables, gattrs=None):
+    """Write a CDF with cdflib's writer: variables = [(name, type, rec_vary, data, attrs)]."""
+    from cdflib.cdfwrite import CDF
+
+    cdf = CDF(str(path), cdf_spec={"Compressed": False})
+    cdf.write_globalattrs({k: {0: v} for k, v in (gattrs or {"Project": "Kestrel-2"}).items()})
+    for name, dtype, rec, data, attrs in variables:
+        data = np.asarray(data)
+        dims = list(data.shape[1:] if rec else data.shape)
+        spec = {"Variable": name, "Data_Type": dtype, "Num_Elements": 1, "Rec_Vary": rec,
+                "Dim_Sizes": dims}
+        cdf.write_var(spec, var_attrs=attrs, var_data=data)
+    cdf.close()
+    return path
+
+
+def _truth(seed, shape):
+    rng = np.random.default_rng(seed)
+    return (10 ** rng.uniform(2, 5, size=shape)).astype(np.float32)
+
+
+def _inject(flux, seed, counts):
+    """Put fill (-1e31), negative (-3) and saturated (5e8) values at random places."""
+    rng = np.random.default_rng(seed)
+    flat = rng.choice(flux.size, size=sum(counts), replace=False)
+    kinds = np.repeat([1, 2, 3], counts)
+    out = flux.copy().ravel()
+    out[flat[kinds == 1]] = -1e31
+    out[flat[kinds == 2]] = -3.0
+    out[flat[kinds == 3]] = 5e8
+    where = np.zeros(flux.size, np.uint8)
+    where[flat[kinds == 1]] = 1
+    where[flat[kinds >= 2]] = 2
+    return out.reshape(flux.shape), where.reshape(flux.shape)
+
+
+@pytest.fixture(scope="module")
+def corpus(tmp_path_factory):
+    d = tmp_path_factory.mktemp("archives")
+    files = {}
+    # 1. ISTP CDF: fill, out-of-range, saturated; delta bins; markup units; per-MeV; TT2000
+    truth = _truth(1, (N_T, 4, 8))
+    stored, flags = _inject(truth, 2, (7, 5, 4))
+    lshell = np.linspace(3.0, 5.0, N_T)
+    files["istp"] = _write_cdf(d / "kestrel2_pad_istp.cdf", [
+        ("Epoch", CDF_TT2000, True, _tt2000_ns(TIMES), {"CATDESC": "sample time"}),
+        ("en_centre", CDF_REAL4, False, E_MEV.astype(np.float32),
+         {"UNITS": "MeV", "VAR_TYPE": "support_data"}),
+        ("pa_centre", CDF_REAL4, False, CENTRES_DELTA.astype(np.float32),
+         {"UNITS": "Degrees", "DELTA_PLUS_VAR": "pa_half", "DELTA_MINUS_VAR": "pa_half"}),
+        ("pa_half", CDF_REAL4, False, np.full(8, 10.0, np.float32), {"UNITS": "Degrees"}),
+        ("elx_pad", CDF_REAL4, True, stored,
+         {"UNITS": FLUX_MARKUP_MEV, "FILLVAL": np.float32(-1e31), "VALIDMIN": np.float32(0.0),
+          "VALIDMAX": np.float32(1e7), "DEPEND_0": "Epoch", "DEPEND_1": "en_centre",
+          "DEPEND_2": "pa_centre", "VAR_TYPE": "data"}),
+        ("lshell_dip", CDF_REAL8, True, lshell, {"UNITS": "R!IE!N", "DEPEND_0": "Epoch"}),
+        ("mag_lat", CDF_REAL8, True, np.linspace(-10, 10, N_T),
+         {"UNITS": "Degrees", "DEPEND_0": "Epoch"}),
+        ("mlt_hr", CDF_REAL8, True, np.linspace(1, 5, N_T), {"UNITS": "hours",
+                                                              "DEPEND_0": "Epoch"}),
+    ])
+    files["istp_truth"] = (truth, flags)
+    # 2. centre-only bins, CDF_EPOCH time
+    ms = (TIMES.astype("datetime64[ms]") - np.datetime64("0000-01-01T00:00:00", "ms")).astype(
+        np.float64)  # CDF_EPOCH: ms since 0000-01-01 (CDF User's Guide 2.4)
+    base = [("en_centre", CDF_REAL4, False, E_MEV.astype(np.float32) * 1000,
+             {"UNITS": "keV"}),
+            ("pa_centre", CDF_REAL4, False, CENTRES_SYM.astype(np.float32), {"UNITS": "deg"})]
+    j = _truth(3, (N_T, 4, 8))
+    flux_attrs = {"UNITS": "cm!E-2!N s!E-1!N sr!E-1!N keV!E-1!N", "DEPEND_0": "Epoch",
+                  "DEPEND_1": "en_centre", "DEPEND_2": "pa_centre"}
+    files["epoch"] = _write_cdf(d / "kestrel2_epoch.cdf", [
+        ("Epoch", CDF_EPOCH, True, ms, {})] + base + [
+        ("elx_pad", CDF_REAL4, True, j, flux_attrs)])
+    asym = [base[0], ("pa_centre", CDF_REAL4, False,
+                      np.array([5, 15, 25, 35, 45, 55, 65, 75], np.float32), {"UNITS": "deg"})]
+    files["asym"] = _write_cdf(d / "kestrel2_asym.cdf", [
+        ("Epoch", CDF_EPOCH, True, ms, {})] + asym + [("elx_pad", CDF_REAL4, True, j,
+                                                       flux_attrs)])
+    files["centre_flux"] = j
+    # 3. record-varying energy table (two instrument modes), one fill
+    table = np.where((np.arange(N_T) % 2 == 0)[:, None], [[50.0, 100.0, 250.0, 600.0, 1500.0]],
+                     [[70.0, 150.0, 300.0, 800.0, 2000.0]])
+    jt = _truth(4, (N_T, 5, 6))
+    jt_stored = jt.copy()
+    jt_stored[3, 1, 2] = -1e31
+    files["table"] = _write_cdf(d / "kestrel2_table.cdf", [
+        ("Epoch", CDF_TT2000, True, _tt2000_ns(TIMES), {}),
+        ("e_table", CDF_REAL4, True, table.astype(np.float32), {"UNITS": "keV",
+                                                                "DEPEND_0": "Epoch"}),
+        ("pa_centre", CDF_REAL4, False, np.linspace(15, 165, 6).astype(np.float32),
+         {"UNITS": "deg"}),
+        ("elx_pad", CDF_REAL4, True, jt_stored,
+         {"UNITS": "cm-2 s-1 sr-1 keV-1", "FILLVAL": np.float32(-1e31), "DEPEND_0": "Epoch",
+          "DEPEND_1": "e_table", "DEPEND_2": "pa_centre"}),
+    ])
+    files["table_truth"] = (table, jt)
+    return files
+
+
+ISTP_MAP = {"variables": {"time": "Epoch", "flux": "elx_pad", "energy": "en_centre",
+                          "pitch_angle": "pa_centre", "L": "lshell_dip", "mlat": "mag_lat",
+                          "mlt": "mlt_hr"}}
+
+
+def test_istp_fill_range_and_saturation_masked_flagged_counted(corpus):
+    truth, flags = corpus["istp_truth"]
+    ds = bio.open_indexed(corpus["istp"], ISTP_MAP)
+    flux = ds["flux"].values
+    # independent: valid samples are the true per-MeV flux x 1e-3 (per keV); the rest NaN
+    expect = np.where(flags == 0, truth.astype(np.float64) * 1e-3, np.nan)
+    np.testing.assert_allclose(flux, expect, rtol=1e-6)
+    assert ds["flux"].attrs["units"] == "cm-2 s-1 sr-1 keV-1"
+    np.testing.assert_array_equal(ds["read_flag"].values, flags)
+    assert ds["read_flag"].dtype == np.uint8
+    assert list(ds["read_flag"].attrs["flag_masks"]) == [1, 2, 4]
+    assert ds["read_flag"].attrs["flag_meanings"] == "fill out_of_valid_range quality_rejected"
+    assert ds.attrs["read_flag_count_fill"] == 7
+    assert ds.attrs["read_flag_count_out_of_valid_range"] == 9
+    assert ds.attrs["read_flag_count_quality_rejected"] == 0
+    # a slab reads the same values (lazy, slab-wise)
+    np.testing.assert_allclose(ds.isel(time=slice(10, 20))["flux"].values, expect[10:20],
+                               rtol=1e-6)
+    # units: MeV -> keV, "Degrees", R!IE!N
+    np.testing.assert_allclose(ds["energy"].values, E_MEV * 1000, rtol=1e-6)
+    assert ds["energy"].attrs["units"] == "keV"
+
+
+def test_istp_delta_bins_give_edges_and_their_source(corpus):
+    ds = bio.open_indexed(corpus["istp"], ISTP_MAP)
+    edges = np.stack([CENTRES_DELTA - 10, CENTRES_DELTA + 10], -1)
+    np.testing.assert_allclose(ds["pitch_angle_bnds"].values, edges)
+    assert ds.attrs["pitch_angle_bnds_source"] == "delta"
+    # nudge: midpoints would put an edge at 90, the deltas leave the 80-100 gap
+    assert not np.any(np.isclose(ds["pitch_angle_bnds"].values, 90.0))
+
+
+def test_tt2000_and_epoch_times_decode_to_utc(corpus):
+    # TT2000 values made by astropy's UTC->TT (leap seconds included) read back exactly
+    ds = bio.open_indexed(corpus["istp"], ISTP_MAP)
+    np.testing.assert_array_equal(ds["time"].values, TIMES)
+    for key in ("epoch",):
+        ds = bio.open_indexed(corpus[key], {"variables": {"time": "Epoch", "flux": "elx_pad",
+                                                          "energy": "en_centre",
+                                                          "pitch_angle": "pa_centre"}})
+        got = ds["time"].values.astype("datetime64[ms]")
+        np.testing.assert_array_equal(got, TIMES.astype("datetime64[ms]"), err_msg=key)
+
+
+def test_centre_only_bins_symmetric_set_gets_0_and_180(corpus):
+    ds = bio.open_indexed(corpus["epoch"], {"variables": {"time": "Epoch", "flux": "elx_pad",
+                                                          "energy": "en_centre",
+                                                          "pitch_angle": "pa_centre"}})
+    # independent: 8 bins of 22.5 deg tiling 0-180
+    edges = np.linspace(0.0, 180.0, 9)
+    np.testing.assert_allclose(ds["pitch_angle_bnds"].values,
+                               np.stack([edges[:-1], edges[1:]], -1), atol=1e-4)
+    assert ds.attrs["pitch_angle_bnds_source"] == "centres"
+    np.testing.assert_allclose(ds["flux"].values, corpus["centre_flux"], rtol=1e-6)
+    assert "read_flag" not in ds  # nothing masked by rule: no flag pass
+
+
+def test_asymmetric_centres_refused_naming_outer_edges_then_read_with_it(corpus):
+    m = {"variables": {"time": "Epoch", "flux": "elx_pad", "energy": "en_centre",
+                       "pitch_angle": "pa_centre"}}
+    with pytest.raises(MappingError) as info:
+        bio.open_indexed(corpus["asym"], m)
+    msg = str(info.value)
+    assert "\n" not in msg and "kestrel2_asym.cdf" in msg and "outer_edges" in msg
+    ds = bio.open_indexed(corpus["asym"], {**m, "pitch_angle": {"outer_edges": "half_spacing"}})
+    np.testing.assert_allclose(ds["pitch_angle_bnds"].values[[0, -1]], [[0, 10], [70, 80]])
+
+
+def test_record_varying_energy_table_is_channel_energy(corpus):
+    table, jt = corpus["table_truth"]
+    m = {"variables": {"time": "Epoch", "flux": "elx_pad", "energy": "e_table",
+                       "pitch_angle": "pa_centre"}}
+    ds = bio.open_indexed(corpus["table"], m)
+    assert ds["channel_energy"].dims == ("time", "energy")
+    assert ds["channel_energy"].attrs["units"] == "keV"
+    np.testing.assert_allclose(ds["channel_energy"].values, table, rtol=1e-6)
+    assert "energy" not in ds.variables  # no 1-D keV axis pretends to hold the energies
+    assert ds["flux"].dims == ("time", "energy", "pitch_angle")
+    assert np.isnan(ds["flux"].values[3, 1, 2]) and ds["read_flag"].values[3, 1, 2] == 1
+
+
+def test_common_energy_axis_interpolates_loglog_per_record(corpus):
+    table, jt = corpus["table_truth"]
+    common = [100.0, 200.0, 500.0, 1800.0]
+    m = {"variables": {"time": "Epoch", "flux": "elx_pad", "energy": "e_table",
+                       "pitch_angle": "pa_centre"}, "energy": {"common_kev": common}}
+    ds = bio.open_indexed(corpus["table"], m)
+    np.testing.assert_array_equal(ds["energy"].values, common)
+    got = ds["flux"].values
+    # independent: np.interp in log E - log j record by record, no extrapolation
+    expect = np.full((N_T, len(common), 6), np.nan)
+    for i in range(N_T):
+        for p in range(6):
+            y = np.log(jt[i, :, p].astype(float))
+            if i == 3 and p == 2:
+                y[1] = np.nan
+            v = np.exp(np.interp(np.log(common), np.log(table[i]), y,
+                                 left=np.nan, right=np.nan))
+            expect[i, :, p] = v
+    np.testing.assert_allclose(got, expect, rtol=1e-5)
+    # 1800 keV is above the even records' 1500 keV top channel: NaN, not extrapolated
+    assert np.all(np.isnan(got[0::2, 3])) and np.all(np.isfinite(got[1::2, 3]))
+    # the fill at channel 1 of record 3 flags the common values built from it
+    assert ds["read_flag"].values[3, 1, 2] == 1 and np.isnan(got[3, 1, 2])
+
+
+def _write_nc(path, dims, variables, gattrs=None):
+    """Write a netCDF file with netCDF4 directly (no xarray encoding)."""
+    with netCDF4.Dataset(path, "w") as nc:
+        for name, size in dims.items():
+            nc.createDimension(name, size)
+        for name, (vdims, data, attrs) in variables.items():
+            data = np.asarray(data)
+            fill = attrs.pop("_FillValue", None)
+            v = nc.createVariable(name, data.dtype, vdims, fill_value=fill)
+            v.set_auto_maskandscale(False)
+            v.setncatts(attrs)
+            v[...] = data
+        nc.setncatts(gattrs or {"title": "Kestrel-2 synthetic"})
+    return path
+
+
+@pytest.fixture(scope="module")
+def nc_corpus(tmp_path_factory):
+    d = tmp_path_factory.mktemp("nc")
+    files = {}
+    unix = (TIMES - np.datetime64("1970-01-01T00:00:00", "ns")).astype(np.int64) / 1e9
+    pa_deg = np.linspace(11.25, 168.75, 8)
+    pa_edges = np.linspace(0, 180, 9)
+    j = _truth(7, (N_T, 4, 8))
+    stored = j.copy()
+    stored[5, 2, 3] = -9999.0
+    stored[6, 0, 0] = 2e9  # above valid_max
+    lat = np.linspace(-40, 55, N_T)
+    lon = np.linspace(-170, 170, N_T)
+    alt_m = np.linspace(400e3, 2000e3, N_T)
+    common = {
+        "pa_rad": (("n_pa",), np.radians(pa_deg), {"units": "radians",
+                                                  "bounds": "pa_rad_edges"}),
+        "pa_rad_edges": (("n_pa", "two"), np.radians(np.stack([pa_edges[:-1], pa_edges[1:]],
+                                                              -1)), {}),
+        "chan_e": (("n_e",), E_MEV, {"units": "MeV"}),
+        "jflux": (("record", "n_e", "n_pa"), stored,
+                  {"units": "cm-2 s-1 sr-1 MeV-1", "_FillValue": np.float32(-9999.0),
+                   "valid_max": np.float32(1e9)}),
+        "glat": (("record",), lat, {"units": "degrees_north"}),
+        "glon": (("record",), lon, {"units": "degrees_east"}),
+        "galt": (("record",), alt_m, {"units": "m"}),
+    }
+    dims = {"record": N_T, "n_e": 4, "n_pa": 8, "two": 2}
+    files["record"] = _write_nc(d / "kestrel2_record.nc", dims, {
+        "t_sec": (("record",), unix, {"units": "seconds since 1970-01-01 00:00:00"}),
+        **common})
+    files["nounits"] = _write_nc(d / "kestrel2_nounits.nc", dims, {
+        "t_sec": (("record",), unix, {"long_name": "seconds since 1970 (UTC)"}),
+        **{k: (v[0], v[1], dict(v[2])) for k, v in common.items()}})
+    files["truth"] = (j, lat, lon, alt_m)
+    return files
+
+
+NC_MAP = {"variables": {"time": "t_sec", "flux": "jflux", "energy": "chan_e",
+                        "pitch_angle": "pa_rad", "latitude": "glat", "longitude": "glon",
+                        "altitude": "galt"},
+          "dimensions": {"energy": "n_e", "pitch_angle": "n_pa"}}
+
+
+def test_netcdf_record_dimension_radians_mev_per_mev(nc_corpus):
+    j, *_ = nc_corpus["truth"]
+    ds = bio.open_indexed(nc_corpus["record"], NC_MAP)
+    assert ds["flux"].dims == ("time", "energy", "pitch_angle")
+    np.testing.assert_array_equal(ds["time"].values, TIMES)
+    np.testing.assert_allclose(ds["pitch_angle"].values, np.linspace(11.25, 168.75, 8))
+    np.testing.assert_allclose(ds["pitch_angle_bnds"].values[:, 0], np.linspace(0, 157.5, 8),
+                               atol=1e-9)
+    assert ds.attrs["pitch_angle_bnds_source"] == "bounds"
+    np.testing.assert_allclose(ds["energy"].values, E_MEV * 1e3)
+    expect = j.astype(float) * 1e-3  # per MeV -> per keV
+    expect[5, 2, 3] = np.nan  # _FillValue
+    expect[6, 0, 0] = np.nan  # above valid_max
+    np.testing.assert_allclose(ds["flux"].values, expect, rtol=1e-6)
+    assert ds["read_flag"].values[5, 2, 3] == 1 and ds["read_flag"].values[6, 0, 0] == 2
+    assert int((ds["read_flag"].values > 0).sum()) == 2
+
+
+def test_geodetic_ephemeris_matches_astropy(nc_corpus):
+    from astropy import units as u
+    from astropy.coordinates import EarthLocation
+
+    _, lat, lon, alt_m = nc_corpus["truth"]
+    ds = bio.open_indexed(nc_corpus["record"], NC_MAP)
+    # astropy's WGS-84 geodetic -> geocentric (reference library)
+    loc = EarthLocation.from_geodetic(lon * u.deg, lat * u.deg, alt_m * u.m, ellipsoid="WGS84")
+    ref = np.stack([loc.x.to_value(u.km), loc.y.to_value(u.km), loc.z.to_value(u.km)], -1)
+    np.testing.assert_allclose(ds["position_geo"].values, ref, atol=1e-6)
+    assert ds["position_geo"].attrs["units"] == "km" and "latitude" not in ds
+
+
+def test_numeric_time_without_units_refused_then_read_with_epoch(nc_corpus):
+    with pytest.raises(MappingError) as info:
+        bio.open_indexed(nc_corpus["nounits"], NC_MAP)
+    msg = str(info.value)
+    assert "\n" not in msg and "kestrel2_nounits.nc" in msg
+    assert "[time] epoch" in msg and "unit" in msg
+    ds = bio.open_indexed(nc_corpus["nounits"], {**NC_MAP, "time": {
+        "epoch": "1970-01-01T00:00:00", "unit": "s"}})
+    np.testing.assert_array_equal(ds["time"].values, TIMES)
+    # nudge: the same numbers read as milliseconds land in January 1970
+    ms = bio.open_indexed(nc_corpus["nounits"], {**NC_MAP, "time": {
+        "epoch": "1970-01-01T00:00:00", "unit": "ms"}})
+    assert ms["time"].values[0] < np.datetime64("1970-02-01")
