@@ -175,7 +175,10 @@ def flag_counts(partition_flag):
     1
     """
     values = getattr(partition_flag, "values", partition_flag)
-    f = np.asarray(values).astype(np.int64, copy=False)
+    f = np.asarray(values)
+    if not np.issubdtype(f.dtype, np.integer):
+        f = f.astype(np.int64)
+    # reduced in the flags' own dtype: no full-size copy
     per_time = (np.bitwise_or.reduce(f, axis=1) if f.ndim == 2 and f.shape[1]
-                else np.zeros(f.shape[:1], dtype=np.int64))
+                else np.zeros(f.shape[:1], dtype=f.dtype)).astype(np.int64)
     return {name: int(np.count_nonzero(per_time & bit)) for bit, name in SAMPLE_FLAGS.items()}
