@@ -1030,7 +1030,7 @@ def _attrs(long_name, units, **extra):
 
 def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
                           species="electron", loss_time="half_bounce", filling_band_deg=10.0,
-                          interval_sigma=2.0, allow_negative=False):
+                          interval_sigma=2.0, allow_negative=False, prepared=None):
     r"""Diffusion coefficient, lifetime and regime per sample and energy from measured flux.
 
     For each time and energy a ratio of two measured mean fluxes is formed,
@@ -1080,6 +1080,10 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
         cent for Gaussian errors).
     allow_negative : bool, keyword-only
         Accept negative flux values (as in partition).
+    prepared : beltkit.pad.conventions.Prepared, keyword-only, optional
+        The dataset's validation (:func:`beltkit.pad.conventions.check`, e.g.
+        made once on a whole file of which ``ds`` is a slab), trusted instead
+        of validating ``ds`` again.
 
     Returns
     -------
@@ -1118,7 +1122,7 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
     if not k_sigma > 0:
         raise PhysicsError(f"argument 'interval_sigma' must be positive; got {interval_sigma!r}")
     part_model = None if (isinstance(model, str) and model == "auto") else model
-    prep = _prepared(ds, part_model, allow_negative)
+    prep = prepared if prepared is not None else _prepared(ds, part_model, allow_negative)
     c = _cones_from(ds, part_model, altitude_km, cones)
     x, s = _flux_arrays(ds, prep)
     a1, a2, cn, cd, r, sr = _measurement(ds, prep, c, x, s, float(filling_band_deg))

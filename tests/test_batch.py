@@ -518,8 +518,8 @@ def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkey
     # does, and leaves neither an output nor a temporary file
     from beltkit.pad import validate
 
-    monkeypatch.setattr(batch, "_TIME_SLAB", 16)  # several slabs: the counts are summed
-    monkeypatch.setattr(batch, "_STREAM_SLAB", 16)
+    monkeypatch.setattr(batch.products, "TIME_SLAB", 16)  # several slabs: the counts are summed
+    monkeypatch.setattr(batch.products, "STREAM_SLAB", 16)
     inp = tmp_path / "in"
     inp.mkdir()
     ds = flux_dataset(n_time=100, seed=3)
@@ -555,8 +555,8 @@ def test_summary_streamed_in_slabs_equals_one_slab(tmp_path, monkeypatch):
     for compress in (True, False):
         whole = tmp_path / f"whole{compress}"
         [r1] = batch.summarize([src], whole, compress=compress)
-        monkeypatch.setattr(batch, "_TIME_SLAB", 32)  # 5 slabs, the last one short
-        monkeypatch.setattr(batch, "_STREAM_SLAB", 32)
+        monkeypatch.setattr(batch.products, "TIME_SLAB", 32)  # 5 slabs, the last one short
+        monkeypatch.setattr(batch.products, "STREAM_SLAB", 32)
         sliced = tmp_path / f"sliced{compress}"
         [r2] = batch.summarize([src], sliced, compress=compress)
         monkeypatch.undo()
@@ -590,8 +590,8 @@ def test_pipelined_run_reports_in_order_and_equals_one_file_at_a_time(tmp_path, 
     write_flux_file(inp / "c.nc", flux_dataset(n_time=60, seed=3))
     write_flux_file(inp / "d_long.nc", flux_dataset(n_time=90, seed=4))
     write_flux_file(inp / "e.nc", flux_dataset(n_time=60, seed=5))
-    monkeypatch.setattr(batch, "_TIME_SLAB", 64)  # d_long is streamed in slabs
-    monkeypatch.setattr(batch, "_STREAM_SLAB", 32)
+    monkeypatch.setattr(batch.products, "TIME_SLAB", 64)  # d_long is streamed in slabs
+    monkeypatch.setattr(batch.products, "STREAM_SLAB", 32)
     lines = []
     piped = batch.summarize([inp], tmp_path / "piped", log=lines.append)
     names = [Path(r.input).name for r in piped]
@@ -613,3 +613,36 @@ def test_pipelined_run_reports_in_order_and_equals_one_file_at_a_time(tmp_path, 
     assert sorted(p.name for p in (tmp_path / "piped").iterdir()) == [
         "a.summary.nc", "c.summary.nc", "d_long.summary.nc", "e.summary.nc",
         "run-report.jsonl"]
+
+
+@pytest.mark.parametrize("diffusion", [False, True])
+@pytest.mark.parametrize("workers_path", ["pipelined", "streamed", "fail_fast"])
+def test_each_input_is_validated_exactly_once(tmp_path, monkeypatch, diffusion, workers_path):
+    # issue 14: one validation per file and run, whichever path the file takes (the
+    # two-stage pipeline of a file of one slab, the slab-by-slab stream of a longer one,
+    # the one-file-at-a-time path of fail_fast), with or without the diffusion outputs
+    from beltkit.pad import conventions
+
+    calls = []
+    inner = conventions._inspect
+
+    def counting(ds, *args, **kwargs):
+        calls.append(ds.sizes.get("time"))
+        return inner(ds, *args, **kwargs)
+
+    monkeypatch.setattr(conventions, "_inspect", counting)
+    if workers_path == "streamed":
+        monkeypatch.setattr(batch.products, "TIME_SLAB", 16)
+        monkeypatch.setattr(batch.products, "STREAM_SLAB", 16)
+    inp = tmp_path / "in"
+    inp.mkdir()
+    for k in range(3):
+        write_flux_file(inp / f"day{k}.nc", flux_dataset(n_time=60, seed=20 + k))
+    results = batch.summarize([inp], tmp_path / "out", diffusion=diffusion,
+                              fail_fast=workers_path == "fail_fast")
+    assert [r.status for r in results] == ["ok"] * 3, [r.reason for r in results]
+    assert calls == [60, 60, 60]  # each whole file once, never a slab
+    # a second run finds them up to date without validating anything
+    calls.clear()
+    again = batch.summarize([inp], tmp_path / "out", diffusion=diffusion)
+    assert [r.reason for r in again] == ["up to date"] * 3 and calls == []

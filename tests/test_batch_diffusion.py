@@ -131,8 +131,8 @@ def test_streamed_slabs_give_the_one_slab_result(gapped, tmp_path, monkeypatch):
     # the same file through the streamed path in one slab (fail_fast runs each file whole)
     assert [r.status for r in batch.summarize(src, tmp_path / "whole", diffusion=True,
                                               fail_fast=True)] == ["ok"]
-    monkeypatch.setattr(batch, "_TIME_SLAB", 100)
-    monkeypatch.setattr(batch, "_STREAM_SLAB", 100)
+    monkeypatch.setattr(batch.products, "TIME_SLAB", 100)
+    monkeypatch.setattr(batch.products, "STREAM_SLAB", 100)
     assert [r.status for r in batch.summarize(src, tmp_path / "slabs", diffusion=True)] == ["ok"]
     one, whole, slabs = (_summary(tmp_path / d) for d in ("one", "whole", "slabs"))
     _assert_same(one, whole)

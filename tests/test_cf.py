@@ -148,8 +148,8 @@ def test_cf_checker_passes_on_a_survey(pipeline):
 
 def test_cf_checker_passes_on_a_summary_written_in_slabs(tmp_path, monkeypatch):
     # a long file is summarized slab by slab along an unlimited time dimension
-    monkeypatch.setattr(batch, "_TIME_SLAB", 100)
-    monkeypatch.setattr(batch, "_STREAM_SLAB", 100)
+    monkeypatch.setattr(batch.products, "TIME_SLAB", 100)
+    monkeypatch.setattr(batch.products, "STREAM_SLAB", 100)
     src = write_flux_file(tmp_path / "long.nc", n_time=240, seed=5)
     assert main(["summarize", str(src), "--out", str(tmp_path / "out")]) == 0
     [summary] = (tmp_path / "out").glob("*" + batch.SUMMARY_SUFFIX)

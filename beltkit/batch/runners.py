@@ -1,0 +1,411 @@
+"""Many files through the pipeline: :func:`summarize` and :func:`psd_files`, and their runners.
+
+Files run one after another in this process (``workers=1``, a two-stage
+pipeline: file k is computed while file k - 1 is written), in parallel in
+``workers`` local processes, or as tasks on an existing dask.distributed
+cluster (``scheduler=`` address or Client). Each file is one task
+(:func:`beltkit.batch.pipeline.process_file`), so the result does not depend
+on where it ran. Every finished file appends one JSON line to
+``run-report.jsonl`` in the output folder.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+import sys
+import time as _time
+from pathlib import Path
+
+import numpy as np
+
+from ..io import load_mapping, remove_stale_temporaries
+from .inputs import (
+    PSD_SUFFIX,
+    REPORT_NAME,
+    SUMMARY_SUFFIX,
+    FileResult,
+    expand_inputs,
+    format_line,
+    one_line,
+    output_name,
+)
+from .options import (
+    check_field,
+    diffusion_options,
+    psd_settings,
+    run_settings,
+    storm_field,
+)
+from .pipeline import FILE_LOCK, digests_dropped, open_file, process_file, write_file
+from .products import release_buffers
+
+__all__ = ["psd_files", "summarize"]
+
+
+def _default_command(inputs, out_dir, **options) -> str:
+    shown = ", ".join(f"{k}={v!r}" for k, v in options.items())
+    return f"beltkit.batch.summarize({len(inputs)} file(s), {str(out_dir)!r}, {shown})"
+
+
+def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
+              mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
+              scheduler=None, command=None, log=None, progress=None,
+              debug=False, diffusion=None, kp=None) -> list[FileResult]:
+    """Summarize flux files into loss-cone summary files, safely and resumably.
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Files, folders (their ``.nc``/``.cdf`` files) or glob patterns.
+    out_dir : str or path
+        Output folder (created if needed); gets ``<stem>.summary.nc`` per input
+        and ``run-report.jsonl``.
+    field : {"auto", "dipole", "igrf", "t89"}
+        Field model of the loss cones. "t89": the IGRF plus Tsyganenko's
+        (1989) external field with ``kp``. "auto" (default) chooses per file: the
+        IGRF at each sample's time where the file carries ``position_geo``,
+        else the centred dipole from ``L`` and ``mlat`` (an ``L`` declared
+        non-dipole by its ``L_definition`` attribute is then refused). Each
+        summary records the model it used in ``field_model`` (and the request
+        in ``field_model_requested``); a dipole summary of samples below
+        2,000 km altitude carries ``field_model_note``.
+    altitude_km : float
+        Footpoint altitude of the loss cones (km).
+    epoch : float or str, optional
+        Dipole epoch override (decimal year), used for GEO positions
+        (``field="dipole"`` only).
+    mapping : str, path or dict, optional
+        Variable-name mapping for non-conventional files (see :mod:`beltkit.io`).
+    compress : bool or int
+        zlib compression of the outputs (True = level 4, 0/False = none).
+    overwrite : bool
+        Redo every output even if up to date.
+    fail_fast : bool
+        Stop at the first failed file (files not yet started are reported as
+        skipped, "not attempted").
+    workers : int
+        Local worker processes (1: in this process).
+    scheduler : str or distributed.Client, optional
+        Address of a running dask.distributed scheduler (or a Client); each
+        file becomes one task there.
+    command : str, optional
+        Command line recorded in the outputs' ``history``.
+    log : callable, optional
+        Called with one line per file (``ok  in -> out (1.2 s)``,
+        ``skipped  in: up to date``, ``FAILED  in: reason``).
+    progress : bool, optional
+        Show a tqdm progress bar on stderr (default: when stderr is a terminal).
+    debug : bool
+        Print the traceback of each failure to stderr.
+    diffusion : bool or dict, optional
+        Add the pitch-angle diffusion outputs of
+        :func:`beltkit.diffusion.from_pitch_angle_data` to every summary (see
+        :func:`summarize_dataset`): True for :data:`DIFFUSION_DEFAULTS`, or a
+        dict with some of ``loss_time``, ``species`` and ``interval_sigma``.
+        The options are part of the settings that decide whether an output is
+        up to date, so changing them redoes the files.
+    kp : float, xarray.DataArray or str, optional
+        Kp for ``field="t89"`` (required there, refused otherwise): one value
+        0-9 for every sample, a Kp series along time (e.g. from
+        :func:`beltkit.field.read_kp`), or the name of a variable of each
+        file that holds Kp per sample. The Kp (or the series' checksum, or
+        the variable's name) is part of the settings that decide whether an
+        output is up to date.
+
+    Returns
+    -------
+    list of FileResult
+        One per input, in input order.
+
+    Raises
+    ------
+    beltkit.io.MappingError
+        If the mapping file itself is malformed (nothing is run).
+    ValueError
+        For an unknown field model, an epoch with a model other than the
+        dipole, workers < 1, or unknown diffusion options.
+    """
+    if workers is None or int(workers) < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    check_field(field, epoch)
+    field = storm_field(field, kp)
+    diffusion = diffusion_options(diffusion)
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    settings = run_settings(field, altitude_km, epoch, mapping, compress, diffusion)
+    if command is None:
+        extra = {} if diffusion is None else {"diffusion": diffusion}
+        command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
+                                   epoch=epoch, overwrite=overwrite, **extra)
+    return _run_batch(files, out_dir, {
+        "settings": settings, "field": field, "epoch": epoch, "mapping": mapping_checked,
+        "overwrite": bool(overwrite), "command": command, "debug": bool(debug)},
+        suffix=SUMMARY_SUFFIX, desc="summarize", fail_fast=fail_fast, workers=workers,
+        scheduler=scheduler, log=log, progress=progress)
+
+
+def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species="electron",
+              lstar_cadence_s=60.0, altitude_km=100.0, mapping=None, compress=True,
+              overwrite=False, fail_fast=False, workers=1, scheduler=None, command=None,
+              log=None, progress=None, debug=False, kp=None) -> list[FileResult]:
+    """Phase-space density at fixed invariants of flux files, safely and resumably.
+
+    The batch form of :func:`beltkit.psd.at_fixed_invariants`: one
+    ``<stem>.psd.nc`` per input in `out_dir`, with the same safety as
+    :func:`summarize` (atomic outputs, one-line per-file failures, skipped
+    when the output records the input's checksum and the present settings,
+    ``run-report.jsonl``, local worker processes or a dask.distributed
+    cluster).
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Files, folders or glob patterns.
+    out_dir : str or path
+        Output folder (created if needed).
+    mu_mev_per_g, k_g05_re : float or sequence of float
+        First invariants (MeV/G) and second invariants (G^(1/2) R_E).
+    field : {"auto", "dipole", "igrf", "t89"}
+        "auto": the IGRF for a file with ``position_geo``, else the centred
+        dipole from ``L`` and ``mlat`` (where L* = L); "t89": the IGRF plus
+        Tsyganenko's (1989) external field with ``kp``.
+    species : str
+        Species of the flux.
+    lstar_cadence_s : float
+        Cadence (s) of the field-line work (K, B_m, L*) in a field model,
+        interpolated linearly in time to the samples.
+    altitude_km : float
+        Loss altitude of the loss cones and drift shells (km).
+    mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug, kp
+        As for :func:`summarize`.
+
+    Returns
+    -------
+    list of FileResult
+        One per input, in input order.
+
+    Raises
+    ------
+    ValueError
+        For an unknown field model, invalid invariants or cadence, or workers < 1.
+    """
+    from ..particles import get_species
+
+    if workers is None or int(workers) < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    check_field(field, None)
+    field = storm_field(field, kp)
+    mu = np.atleast_1d(np.asarray(mu_mev_per_g, dtype=float))
+    k = np.atleast_1d(np.asarray(k_g05_re, dtype=float))
+    if mu.ndim != 1 or k.ndim != 1 or not mu.size or not k.size:
+        raise ValueError("give at least one mu (MeV/G) and one K (G^(1/2) R_E)")
+    if not (np.all(np.isfinite(mu)) and np.all(mu > 0)):
+        raise ValueError(f"mu must be positive numbers of MeV/G, got {mu.tolist()}")
+    if not (np.all(np.isfinite(k)) and np.all(k >= 0)):
+        raise ValueError(f"K must be numbers >= 0 of G^(1/2) R_E, got {k.tolist()}")
+    if not (np.isfinite(lstar_cadence_s) and lstar_cadence_s > 0):
+        raise ValueError(f"lstar_cadence_s must be a positive number of seconds, got "
+                         f"{lstar_cadence_s!r}")
+    species = get_species(species).name
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    settings = psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
+                             compress)
+    if command is None:
+        command = (f"beltkit.batch.psd_files({len(files)} file(s), {str(out_dir)!r}, "
+                   f"mu={mu.tolist()}, k={k.tolist()}, field={field!r})")
+    return _run_batch(files, out_dir, {
+        "product": "psd", "settings": settings, "field": field, "epoch": None,
+        "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
+        "debug": bool(debug)},
+        suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
+        scheduler=scheduler, log=log, progress=progress)
+
+
+def _run_batch(files, out_dir, common, *, suffix, desc, fail_fast, workers, scheduler, log,
+               progress) -> list[FileResult]:
+    """Run one per-file job (``common`` plus the file's input and output) over every file.
+
+    Shared by :func:`summarize` and :func:`psd_files`: duplicate
+    output names, the run report, the progress bar, and the sequential,
+    process-pool or dask.distributed run.
+    """
+    tasks, results = [], {}
+    by_output = {}
+    for i, src in enumerate(files):
+        target = out_dir / output_name(src, suffix)
+        key = os.path.abspath(target)
+        if key in by_output:
+            results[i] = FileResult(str(src), str(target), "failed",
+                                    f"its output name {target.name} is also the output of "
+                                    f"{files[by_output[key]]}; rename one of the inputs")
+            continue
+        by_output[key] = i
+        tasks.append((i, {"input": str(src), "output": str(target), **common}))
+    started = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    report = out_dir / REPORT_NAME
+    if progress is None:
+        progress = sys.stderr.isatty()
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(files), file=sys.stderr, unit="file", desc=desc)
+
+    def emit(r: FileResult):
+        with open(report, "a", encoding="utf-8") as fh:
+            fh.write(json.dumps({"run_started": started, **r.to_dict()}) + "\n")
+        if log is not None:
+            if bar is not None:
+                bar.clear()
+            log(format_line(r))
+        if bar is not None:
+            bar.update(1)
+
+    for r in results.values():
+        emit(r)
+    stop = fail_fast and any(r.status == "failed" for r in results.values())
+    try:
+        if stop:
+            pass
+        elif scheduler is not None:
+            _run_distributed(tasks, results, scheduler, fail_fast, emit)
+        elif int(workers) > 1:
+            _run_processes(tasks, results, int(workers), fail_fast, emit)
+        else:
+            _run_sequential(tasks, results, fail_fast, emit)
+    finally:
+        for i, task in tasks:
+            if i not in results:
+                r = FileResult(task["input"], task["output"], "skipped",
+                               "not attempted: an earlier file failed (fail-fast)")
+                results[i] = r
+                emit(r)
+        if bar is not None:
+            bar.close()
+        with FILE_LOCK:  # the reused output memory is not kept beyond the run
+            release_buffers()
+    return [results[i] for i in sorted(results)]
+
+
+def _run_sequential(tasks, results, fail_fast, emit):
+    """Run the files one after another in this process, as a two-stage pipeline.
+
+    File k is read (under the netCDF lock) and computed while a background
+    thread writes, flushes and renames file k - 1; a file is reported once its
+    output is in place, in input order. Two sets of output memory alternate
+    between the stages. A file longer than one slab is streamed from the
+    open input by this thread, slab by slab. With ``fail_fast`` every file is
+    finished before the next one starts, so that nothing follows a failure.
+    """
+    if fail_fast:
+        for i, task in tasks:
+            results[i] = r = process_file(task)
+            emit(r)
+            if r.status == "failed":
+                break
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    from ..pad.partition import OutputBuffers
+
+    buffers = (OutputBuffers(), OutputBuffers())
+    pending = []  # at most one write in flight: (index, future)
+
+    def settle():
+        while pending:
+            i, fut = pending.pop(0)
+            results[i] = fut.result()
+            emit(results[i])
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="beltkit-writer") as writer:
+        try:
+            for k, (i, task) in enumerate(tasks):
+                # the next input's checksum is started once this file is computed, so that
+                # the hasher works beside the writing rather than the compiled engine
+                nxt = tasks[k + 1][1]["input"] if k + 1 < len(tasks) else None
+                if nxt is not None and Path(nxt).is_file():
+                    task = {**task, "next_input": nxt}
+                r, job = open_file(task, load=True, buffers=buffers[k % 2])
+                settle()  # the previous file, written meanwhile
+                if job is not None and job.ds is None:  # in memory: written in the background
+                    pending.append((i, writer.submit(write_file, job)))
+                    continue
+                if job is not None:  # longer than one slab: streamed here from the open file
+                    r = write_file(job)
+                results[i] = r
+                emit(r)
+        finally:
+            try:
+                settle()
+            finally:
+                digests_dropped()
+
+
+def _run_processes(tasks, results, workers, fail_fast, emit):
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    # a fresh interpreter per worker (never a fork of this threaded process);
+    # forkserver starts them quickly from one clean server where available
+    if "forkserver" in mp.get_all_start_methods():
+        ctx = mp.get_context("forkserver")
+        ctx.set_forkserver_preload(["beltkit.batch", "beltkit.io", "beltkit.pad"])
+    else:  # pragma: no cover - Windows
+        ctx = mp.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        futures = {pool.submit(process_file, task): i for i, task in tasks}
+        for fut in as_completed(futures):
+            i = futures[fut]
+            try:
+                r = fut.result()
+            except Exception as exc:  # a worker died (killed, out of memory)
+                task = dict(tasks)[i]
+                r = FileResult(task["input"], task["output"], "failed",
+                               f"worker process failed: {one_line(exc)}")
+            results[i] = r
+            emit(r)
+            if fail_fast and r.status == "failed":
+                for other in futures:
+                    other.cancel()
+                break
+
+
+def _run_distributed(tasks, results, scheduler, fail_fast, emit):
+    from distributed import Client, as_completed
+
+    own = not isinstance(scheduler, Client)
+    client = Client(scheduler) if own else scheduler
+    try:
+        futures = {}
+        for i, task in tasks:
+            fut = client.submit(process_file, task, pure=False,
+                                key=f"beltkit-summarize-{i}-{os.getpid()}-{_time.time_ns()}")
+            futures[fut] = i
+        for fut in as_completed(list(futures)):
+            i = futures[fut]
+            try:
+                r = fut.result()
+            except Exception as exc:  # the task itself died on the cluster
+                task = dict(tasks)[i]
+                r = FileResult(task["input"], task["output"], "failed",
+                               f"cluster task failed: {one_line(exc)}")
+            results[i] = r
+            emit(r)
+            if fail_fast and r.status == "failed":
+                client.cancel([f for f in futures if futures[f] not in results])
+                break
+    finally:
+        if own:
+            client.close()
+
+
+# ------------------------------------------------------------------------- survey
