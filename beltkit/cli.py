@@ -80,196 +80,19 @@ killed by a broken pipe), because their work may be unfinished.
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import os
-import re
 import shlex
 import sys
 from pathlib import Path
 
 from . import __version__
+from . import argtypes as T
+from .calc import check_species, losscone_text, motion_text
+from .errors import OptionError
 
 __all__ = ["build_parser", "main"]
 
-
-# ------------------------------------------------------------------------ parser
-
-
-def _positive_int(text):
-    value = int(text)
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a positive integer, got {text}")
-    return value
-
-
-def _level(text):
-    value = int(text)
-    if not 0 <= value <= 9:
-        raise argparse.ArgumentTypeError(f"must be a zlib level 0-9, got {text}")
-    return value
-
-
-def _number_arg(text) -> float:
-    try:
-        return float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-
-
-def _positive_number(text):
-    value = _number_arg(text)
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"must be a finite number > 0, got {text}")
-    return value
-
-
-def _nonnegative_number(text):
-    value = _number_arg(text)
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
-    return value
-
-
-def _energy_kev(text):
-    value = _number_arg(text)
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(
-            f"must be a finite kinetic energy > 0 keV, got {text}")
-    return value
-
-
-def _l_shell(text):
-    value = _number_arg(text)
-    if not (math.isfinite(value) and value >= 1):
-        raise argparse.ArgumentTypeError(
-            f"must be a finite L-shell >= 1 (the equatorial distance of the field line in "
-            f"Earth radii), got {text}")
-    return value
-
-
-def _pitch_deg(text):
-    value = _number_arg(text)
-    if not 0 <= value <= 180:
-        raise argparse.ArgumentTypeError(f"must be a pitch angle of 0-180 degrees, got {text}")
-    return value
-
-
-def _mlat_deg(text):
-    value = _number_arg(text)
-    if not -90 < value < 90:
-        raise argparse.ArgumentTypeError(
-            f"must be a magnetic latitude between -90 and 90 degrees (poles excluded), "
-            f"got {text}")
-    return value
-
-
-def _latitude_deg(text):
-    value = _number_arg(text)
-    if not -90 <= value <= 90:
-        raise argparse.ArgumentTypeError(
-            f"must be a geodetic latitude of -90 to 90 degrees, got {text}")
-    return value
-
-
-def _longitude_deg(text):
-    value = _number_arg(text)
-    if not math.isfinite(value):
-        raise argparse.ArgumentTypeError(
-            f"must be a finite longitude in degrees, east positive, got {text}")
-    return value
-
-
-def _height_km(text):
-    from .field.models import INSIDE_EARTH_TOLERANCE_KM
-
-    value = _number_arg(text)
-    if not (math.isfinite(value) and value > -INSIDE_EARTH_TOLERANCE_KM):
-        raise argparse.ArgumentTypeError(
-            f"must be above -{INSIDE_EARTH_TOLERANCE_KM:g} km (height above the WGS-84 "
-            f"ellipsoid in km), got {text}")
-    return value
-
-
-def _footpoint_km(text):
-    value = _number_arg(text)
-    if not (math.isfinite(value) and value >= 0):
-        raise argparse.ArgumentTypeError(
-            f"must be a finite altitude >= 0 km (above the R_E = 6371.2 km sphere), got {text}")
-    return value
-
-
-_TIME_EXAMPLE = "2024-06-01T12:00"
-_DEFAULT_HEIGHT_KM = 650.0
-
-
-def _utc_time(text):
-    """Parse an ISO 8601 UTC time within the IGRF-14 validity into datetime64[ns]."""
-    import warnings
-
-    import numpy as np
-
-    from .field.igrf import igrf_table
-    from .field.timeconv import decimal_year
-
-    plain = text.strip()
-    for suffix in ("Z", "z", "+00:00", "+0000"):
-        if plain.endswith(suffix) and "T" in plain.upper():
-            plain = plain[: -len(suffix)]
-            break
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error")
-            value = np.datetime64(plain, "ns")
-    except (ValueError, TypeError, UserWarning, OverflowError):
-        value = np.datetime64("NaT")
-    if "T" in plain.upper() and re.search(r"[+-]\d\d:?\d\d$", plain):
-        raise argparse.ArgumentTypeError(
-            f"give the time in UTC, without an offset (or with a trailing Z), such as "
-            f"{_TIME_EXAMPLE}; got {text!r}")
-    if np.isnat(value) or not plain[:1].isdigit():
-        raise argparse.ArgumentTypeError(
-            f"expected an ISO 8601 UTC time such as {_TIME_EXAMPLE}, got {text!r}")
-    lo, hi = igrf_table().valid_range
-    year = float(decimal_year(value))
-    if not lo <= year <= hi:
-        raise argparse.ArgumentTypeError(
-            f"{text} is outside {lo:.0f}-{hi:.0f}, the validity of the IGRF-14 coefficients "
-            f"(which also give the dipole axis); this command does not extrapolate the field "
-            f"model beyond it")
-    return value
-
-
-def _epoch(text):
-    from .field.igrf import igrf_table
-
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"must be a decimal year such as 2024.5, got {text!r}") from None
-    lo, hi = igrf_table().valid_range
-    if not lo <= value <= hi:  # also refuses nan
-        raise argparse.ArgumentTypeError(
-            f"must be a decimal year within {lo:.0f}-{hi:.0f} (the validity of the IGRF-14 "
-            f"coefficients that give the dipole), got {text}")
-    return value
-
-
-def _duration(text):
-    """Check a survey time window such as 1D or 6h (parsed later the same way by pandas)."""
-    import pandas as pd
-
-    try:
-        ok = pd.to_timedelta(text) > pd.Timedelta(0)
-    except (ValueError, TypeError):
-        ok = None
-    if ok is None:
-        raise argparse.ArgumentTypeError(
-            f"expected a duration such as 1D, 6h or 90min, got {text!r}")
-    if not ok:
-        raise argparse.ArgumentTypeError(f"must be a positive duration, got {text!r}")
-    return text
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -298,18 +121,18 @@ def build_parser() -> argparse.ArgumentParser:
                         "external field, with --kp or --kp-variable); each summary records "
                         "the model used")
     _kp_options(p)
-    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+    p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
-    p.add_argument("--epoch", type=_epoch, default=None, metavar="YEAR",
+    p.add_argument("--epoch", type=T.epoch_year, default=None, metavar="YEAR",
                    help="dipole epoch as a decimal year, with --field dipole (default: the "
                         "dipole of 2020.0)")
     p.add_argument("--mapping", metavar="TOML", default=None,
                    help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",
+    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
                    help="zlib level of the outputs, 0 = none (default: 4)")
     p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
     p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
-    p.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
                    help="local worker processes (default: 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="address of a running dask.distributed scheduler, e.g. "
@@ -322,7 +145,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="with --diffusion: loss time in the loss cone (default: half_bounce)")
     p.add_argument("--species", default=None, metavar="NAME",
                    help="with --diffusion: species of the flux (default: electron)")
-    p.add_argument("--interval-sigma", type=_positive_number, default=None, metavar="K",
+    p.add_argument("--interval-sigma", type=T.positive_number, default=None, metavar="K",
                    help="with --diffusion: half-width of the intervals in sigmas of the "
                         "measured ratio (default: 2)")
 
@@ -332,9 +155,9 @@ def build_parser() -> argparse.ArgumentParser:
                                    "invariants (<stem>.psd.nc) per flux file into DIR, plus "
                                    "DIR/run-report.jsonl.")
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
-    p.add_argument("--mu", nargs="+", type=_positive_number, required=True, metavar="MEV_PER_G",
+    p.add_argument("--mu", nargs="+", type=T.positive_number, required=True, metavar="MEV_PER_G",
                    help="first invariants mu in MeV/G")
-    p.add_argument("--k", nargs="+", type=_nonnegative_number, required=True,
+    p.add_argument("--k", nargs="+", type=T.nonnegative_number, required=True,
                    metavar="G05_RE", help="second invariants K in G^(1/2) R_E")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
     p.add_argument("--field", choices=("auto", "dipole", "igrf", "t89"), default="auto",
@@ -343,20 +166,20 @@ def build_parser() -> argparse.ArgumentParser:
                         "t89 = the IGRF plus Tsyganenko's 1989 external field, with --kp or "
                         "--kp-variable)")
     _kp_options(p)
-    p.add_argument("--lstar-cadence", type=_duration, default="60s", metavar="DURATION",
+    p.add_argument("--lstar-cadence", type=T.duration, default="60s", metavar="DURATION",
                    help="cadence of the field-line work (K, mirror field, L*) in the IGRF, "
                         "interpolated linearly in time to the samples (default: 60s)")
     p.add_argument("--species", default="electron", metavar="NAME",
                    help="species of the flux (default: electron)")
-    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+    p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
                    help="loss altitude of loss cones and drift shells (default: 100)")
     p.add_argument("--mapping", metavar="TOML", default=None,
                    help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",
+    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
                    help="zlib level of the outputs, 0 = none (default: 4)")
     p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
     p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
-    p.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
                    help="local worker processes (default: 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="address of a running dask.distributed scheduler")
@@ -371,9 +194,9 @@ def build_parser() -> argparse.ArgumentParser:
                    metavar=("LOW", "HIGH", "STEP"), help="L bins (default: 1 8 0.5)")
     p.add_argument("--mlt-bins", nargs=3, type=float, default=(0.0, 24.0, 1.0),
                    metavar=("LOW", "HIGH", "STEP"), help="MLT bins in hours (default: 0 24 1)")
-    p.add_argument("--window", type=_duration, default=None, metavar="DURATION",
+    p.add_argument("--window", type=T.duration, default=None, metavar="DURATION",
                    help="time windows such as 1D, 6h, 27D (default: one window)")
-    p.add_argument("--compression", type=_level, default=4, metavar="LEVEL",
+    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
                    help="zlib level, 0 = none (default: 4)")
 
     p = sub.add_parser("inspect", parents=[common], help="check files against the conventions",
@@ -391,13 +214,13 @@ def build_parser() -> argparse.ArgumentParser:
                        help="gyration, bounce and drift of one particle in a dipole",
                        description="Timescales and mirror point of a particle on a dipole "
                                    "field line.")
-    p.add_argument("--energy-kev", type=_energy_kev, required=True, metavar="KEV",
+    p.add_argument("--energy-kev", type=T.energy_kev, required=True, metavar="KEV",
                    help="kinetic energy (keV), > 0")
-    p.add_argument("--L", type=_l_shell, required=True, dest="L", metavar="L",
+    p.add_argument("--L", type=T.l_shell, required=True, dest="L", metavar="L",
                    help="L-shell, >= 1")
-    p.add_argument("--pitch-angle", type=_pitch_deg, default=90.0, metavar="DEG",
+    p.add_argument("--pitch-angle", type=T.pitch_deg, default=90.0, metavar="DEG",
                    help="equatorial pitch angle in degrees, 0-180 (default: 90)")
-    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+    p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
                    help="altitude below which a particle is lost, for the bounce loss cone "
                         "(default: 100)")
     p.add_argument("--species", default="electron",
@@ -410,30 +233,26 @@ def build_parser() -> argparse.ArgumentParser:
                                    "and time (--field igrf, or dipole).")
     p.add_argument("--field", choices=("dipole", "igrf"), default="dipole",
                    help="field model (default: dipole)")
-    p.add_argument("--L", type=_l_shell, dest="L", default=None, metavar="L",
+    p.add_argument("--L", type=T.l_shell, dest="L", default=None, metavar="L",
                    help="L-shell (centred-dipole closed forms)")
-    p.add_argument("--mlat", type=_mlat_deg, default=None, metavar="DEG",
+    p.add_argument("--mlat", type=T.mlat_deg, default=None, metavar="DEG",
                    help="magnetic latitude with --L (default: 0)")
-    p.add_argument("--latitude", type=_latitude_deg, default=None, metavar="DEG",
+    p.add_argument("--latitude", type=T.latitude_deg, default=None, metavar="DEG",
                    help="geodetic latitude (with --longitude, --height-km, --time)")
-    p.add_argument("--longitude", type=_longitude_deg, default=None, metavar="DEG",
+    p.add_argument("--longitude", type=T.longitude_deg, default=None, metavar="DEG",
                    help="geographic longitude, east positive")
-    p.add_argument("--height-km", type=_height_km, default=None, metavar="KM",
-                   help=f"height above the WGS-84 ellipsoid (default: {_DEFAULT_HEIGHT_KM:g})")
-    p.add_argument("--time", type=_utc_time, default=None, metavar="ISO",
-                   help=f"UTC time of a geographic point, e.g. {_TIME_EXAMPLE} (required with "
+    p.add_argument("--height-km", type=T.height_km, default=None, metavar="KM",
+                   help=f"height above the WGS-84 ellipsoid (default: {T.DEFAULT_HEIGHT_KM:g})")
+    p.add_argument("--time", type=T.utc_time, default=None, metavar="ISO",
+                   help=f"UTC time of a geographic point, e.g. {T.TIME_EXAMPLE} (required with "
                         f"--latitude/--longitude: MLT and the field epoch depend on it)")
-    p.add_argument("--footpoint-km", type=_footpoint_km, default=100.0, metavar="KM",
+    p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
                    help="footpoint altitude defining the loss cones (default: 100)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return parser
 
 
 # ----------------------------------------------------------------------- helpers
-
-
-class _InputError(Exception):
-    """Options that do not fit together, or inputs that match nothing: one line, exit 1."""
 
 
 _CALCULATORS = ("motion", "losscone")
@@ -443,45 +262,15 @@ def _say(line, stream=None):
     print(line, file=stream or sys.stdout, flush=True)
 
 
+def _print(text) -> int:
+    _say(text)
+    return 0
+
+
 def _error(message, args) -> int:
     _say(f"beltkit {args.command}: error: {' '.join(str(message).split())}", sys.stderr)
     return 1
 
-
-def _plain_value(v):
-    if isinstance(v, (str, bool, list)):
-        return v
-    return float(v)
-
-
-def _table(rows, as_json: bool, notes=()) -> str:
-    """Rows of (key, label, value, unit) as an aligned table or a JSON object.
-
-    `notes` are printed as ``note: ...`` lines above the table; in JSON they
-    are the list under the key ``notes``.
-    """
-    if as_json:
-        obj = {key: {"value": value, "unit": unit} for key, _, value, unit in rows}
-        obj["notes"] = {"value": list(notes), "unit": ""}
-        return json.dumps(obj, indent=2)
-    cells = [(label, _number(value), unit) for _, label, value, unit in rows]
-    w0 = max(len(c[0]) for c in cells)
-    w1 = max(len(c[1]) for c in cells)
-    lines = [f"note: {n}" for n in notes]
-    lines += [f"{a.ljust(w0)}  {b.rjust(w1)}  {c}".rstrip() for a, b, c in cells]
-    return "\n".join(lines)
-
-
-def _number(value) -> str:
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, str):
-        return value
-    if value != value:  # NaN
-        return "nan"
-    if value == 0 or 1e-3 <= abs(value) < 1e6:
-        return f"{value:.6g}"
-    return f"{value:.4e}"
 
 
 def _is_pattern(text: str) -> bool:
@@ -514,8 +303,8 @@ def _expand_flux_inputs(inputs) -> list:
         files += found
     if dead:
         if not files:
-            raise _InputError("no input files: " + "; ".join(dead))
-        raise _InputError("; ".join(dead) + " (nothing was run: fix or drop "
+            raise OptionError("no input files: " + "; ".join(dead))
+        raise OptionError("; ".join(dead) + " (nothing was run: fix or drop "
                        + ("that input)" if len(dead) == 1 else "those inputs)"))
     return files
 
@@ -545,33 +334,10 @@ def _check_survey_inputs(inputs) -> None:
         n_found += found
     if dead:
         if not n_found:
-            raise _InputError("no summary files: " + "; ".join(dead)
+            raise OptionError("no summary files: " + "; ".join(dead)
                               + "; run `beltkit summarize` first to make them")
-        raise _InputError("; ".join(dead) + " (nothing was surveyed: fix or drop "
+        raise OptionError("; ".join(dead) + " (nothing was surveyed: fix or drop "
                           + ("that input)" if len(dead) == 1 else "those inputs)"))
-
-
-def _species(name):
-    from .errors import PhysicsError
-    from .particles import get_species
-
-    try:
-        return get_species(name)
-    except PhysicsError:
-        raise _InputError(f"--species: unknown species {name!r}; use electron, proton, alpha "
-                       f"or oxygen+") from None
-
-
-def _check_line_reaches(L, h) -> None:
-    """Refuse an L whose dipole line does not reach the footpoint altitude h (km)."""
-    from .constants import R_E_KM
-
-    need = 1.0 + h / R_E_KM
-    if L < need:
-        raise _InputError(
-            f"--L {L:g}: the field line's apex ({(L - 1.0) * R_E_KM:.1f} km) lies below the "
-            f"footpoint altitude --footpoint-km {h:g}, so every particle on it is lost; give "
-            f"--L >= {need:.6g} or a lower --footpoint-km")
 
 
 # ---------------------------------------------------------------------- commands
@@ -586,11 +352,11 @@ def _diffusion_args(args):
         if given:
             flags = ", ".join("--" + k.replace("_", "-") for k in given)
             one = len(given) == 1
-            raise _InputError(f"{flags} only appl{'ies' if one else 'y'} with --diffusion: add "
+            raise OptionError(f"{flags} only appl{'ies' if one else 'y'} with --diffusion: add "
                               f"--diffusion, or drop {'it' if one else 'them'}")
         return None
     if "species" in given:
-        given["species"] = _species(given["species"]).name
+        given["species"] = check_species(given["species"]).name
     return given or True
 
 
@@ -608,16 +374,16 @@ def _kp_options(p):
 def _kp_args(args):
     """Return the ``kp`` argument of a batch command from --kp / --kp-variable."""
     if args.kp is not None and args.kp_variable is not None:
-        raise _InputError("give --kp or --kp-variable, not both")
+        raise OptionError("give --kp or --kp-variable, not both")
     if args.field != "t89":
         if args.kp is not None or args.kp_variable is not None:
-            raise _InputError("--kp and --kp-variable apply with --field t89 only: add "
+            raise OptionError("--kp and --kp-variable apply with --field t89 only: add "
                               "--field t89, or drop them")
         return None
     if args.kp_variable is not None:
         return args.kp_variable
     if args.kp is None:
-        raise _InputError("--field t89 needs Kp: give --kp VALUE (0-9), --kp FILE (a Kp time "
+        raise OptionError("--field t89 needs Kp: give --kp VALUE (0-9), --kp FILE (a Kp time "
                           "series) or --kp-variable NAME (a Kp variable of the files)")
     try:
         value = float(args.kp)
@@ -625,10 +391,10 @@ def _kp_args(args):
         value = None
     if value is not None:
         if not (math.isfinite(value) and 0.0 <= value <= 9.0):
-            raise _InputError(f"--kp must be a Kp value 0-9 or a file, got {args.kp}")
+            raise OptionError(f"--kp must be a Kp value 0-9 or a file, got {args.kp}")
         return value
     if not Path(args.kp).is_file():
-        raise _InputError(f"--kp {args.kp}: no such file (give a Kp value 0-9 or a Kp series "
+        raise OptionError(f"--kp {args.kp}: no such file (give a Kp value 0-9 or a Kp series "
                           "file)")
     from .errors import FieldModelError
     from .field.kp import read_kp
@@ -636,7 +402,7 @@ def _kp_args(args):
     try:
         return read_kp(args.kp)
     except FieldModelError as exc:
-        raise _InputError(str(exc)) from None
+        raise OptionError(str(exc)) from None
 
 
 def _cmd_summarize(args, command) -> int:
@@ -675,7 +441,7 @@ def _cmd_psd(args, command) -> int:
 
     from .batch import psd_files
 
-    species = _species(args.species).name
+    species = check_species(args.species).name
     kp = _kp_args(args)
     _expand_flux_inputs(args.inputs)  # before psd_files creates the output folder
     results = psd_files(
@@ -757,194 +523,6 @@ def _cmd_demo(args, command) -> int:
     return 0
 
 
-def _cmd_motion(args, command) -> int:
-    from . import dipole, motion, particles
-
-    sp = _species(args.species)
-    e, L, a, h = args.energy_kev, args.L, args.pitch_angle, args.footpoint_km
-    _check_line_reaches(L, h)
-    b_eq = dipole.equatorial_field(L)
-    lam_m = dipole.mirror_mlat(a)
-    t_drift = motion.drift_period(e, L, a, species=sp.name)
-    blc = float(dipole.bounce_loss_cone(L, h))
-    inside = min(a, 180.0 - a) < blc
-    notes = []
-    if inside:
-        notes.append(f"inside the bounce loss cone ({blc:.2f} deg at --footpoint-km {h:g}): "
-                     f"lost within one bounce; the periods below are those of an "
-                     f"unobstructed dipole orbit and the mirror point lies below the "
-                     f"footpoint altitude")
-    rows = [
-        ("species", "species", sp.name, ""),
-        ("energy", "kinetic energy", e, "keV"),
-        ("L", "L-shell", L, ""),
-        ("pitch_angle", "equatorial pitch angle", a, "degree"),
-        ("lorentz_factor", "Lorentz factor", particles.lorentz_factor(e, species=sp.name), ""),
-        ("speed", "speed", particles.speed(e, species=sp.name), "m/s"),
-        ("b_equator", "equatorial field", b_eq, "nT"),
-        ("gyrofrequency", "gyrofrequency at the equator",
-         particles.gyrofrequency(b_eq, e, species=sp.name), "Hz"),
-        ("gyroperiod", "gyroperiod at the equator",
-         particles.gyroperiod(b_eq, e, species=sp.name), "s"),
-        ("gyroradius", "gyroradius at the equator",
-         particles.gyroradius(b_eq, e, a, species=sp.name), "km"),
-        ("bounce_period", "bounce period", motion.bounce_period(e, L, a, species=sp.name), "s"),
-        ("drift_period", "drift period", t_drift, "s"),
-        ("drift_period_min", "drift period", t_drift / 60.0, "min"),
-        ("drift_direction", "drift direction", motion.drift_direction(sp.name), ""),
-        ("mirror_mlat", "mirror latitude", lam_m, "degree"),
-        ("mirror_altitude", "mirror altitude", dipole.mirror_altitude(L, a), "km"),
-        ("first_invariant", "first invariant",
-         particles.first_invariant(e, a, b_eq, species=sp.name), "MeV/G"),
-        ("footpoint_altitude", "footpoint altitude", h, "km"),
-        ("bounce_loss_cone", f"equatorial bounce loss cone ({h:g} km)", blc, "degree"),
-        ("in_bounce_loss_cone", "inside the bounce loss cone", bool(inside), ""),
-    ]
-    rows = [(k, lab, _plain_value(v), u) for k, lab, v, u in rows]
-    _say(_table(rows, args.json, notes))
-    return 0
-
-
-_GEO_ONLY = (("latitude", "--latitude"), ("longitude", "--longitude"),
-             ("height_km", "--height-km"), ("time", "--time"))
-
-
-def _losscone_dipole(args, h):
-    from . import dipole
-
-    given = [opt for attr, opt in _GEO_ONLY if getattr(args, attr) is not None]
-    if given:
-        raise _InputError(
-            f"--L/--mlat cannot be combined with {', '.join(given)}: give either --L/--mlat "
-            f"for the centred dipole, or --latitude/--longitude/--height-km/--time for a "
-            f"geographic point")
-    if args.field != "dipole":
-        raise _InputError(
-            f"--field {args.field} needs a geographic point (--latitude/--longitude/"
-            f"--height-km/--time); --L/--mlat use the centred-dipole closed forms")
-    L = args.L
-    lam = 0.0 if args.mlat is None else args.mlat
-    _check_line_reaches(L, h)
-    if L * math.cos(math.radians(lam)) ** 2 < 1.0 - 1e-12:  # as beltkit.dipole checks it
-        limit = float(dipole.footpoint_mlat(L, altitude_km=0.0))
-        raise _InputError(
-            f"--mlat {lam:g} on --L {L:g} is inside the Earth (r = L cos^2(mlat) = "
-            f"{L * math.cos(math.radians(lam)) ** 2:.4g} R_E); the largest allowed |--mlat| "
-            f"for --L {L:g} is {limit:.4f} deg, the line's surface footpoint latitude")
-    notes = []
-    lam_f = float(dipole.footpoint_mlat(L, h))
-    if abs(lam) > lam_f:
-        notes.append(f"below the footpoint altitude (--footpoint-km {h:g}): every particle "
-                     f"is lost (local loss cones 90 deg)")
-    rows = [
-        ("L", "L-shell", L, ""),
-        ("mlat", "magnetic latitude", lam, "degree"),
-        ("footpoint_altitude", "footpoint altitude", h, "km"),
-        ("b_local", "field at the point", dipole.field_magnitude(L, lam), "nT"),
-        ("b_foot", "footpoint field", dipole.footpoint_field(L, h), "nT"),
-        ("footpoint_mlat", "footpoint magnetic latitude", lam_f, "degree"),
-        ("blc_local", "local bounce loss cone", dipole.local_loss_cone(L, lam, h), "degree"),
-        ("blc_equatorial", "equatorial bounce loss cone", dipole.bounce_loss_cone(L, h),
-         "degree"),
-        ("dlc_local", "local drift loss cone (= bounce, centred dipole)",
-         dipole.local_loss_cone(L, lam, h), "degree"),
-        ("dlc_equatorial", "equatorial drift loss cone (= bounce, centred dipole)",
-         dipole.bounce_loss_cone(L, h), "degree"),
-    ]
-    return rows, notes
-
-
-def _losscone_geographic(args, h):
-    import numpy as np
-
-    from . import field
-    from .constants import R_E_KM
-
-    if args.mlat is not None:
-        raise _InputError(
-            "--mlat cannot be combined with --latitude/--longitude: give either --L/--mlat "
-            "for the centred dipole, or --latitude/--longitude/--height-km/--time for a "
-            "geographic point")
-    if args.latitude is None or args.longitude is None:
-        raise _InputError("give both --latitude and --longitude (and --height-km, --time) for a "
-                       "geographic point")
-    if args.time is None:
-        raise _InputError(f"--time is required with --latitude/--longitude: MLT and the field "
-                       f"epoch depend on it; give an ISO 8601 UTC time such as "
-                       f"{_TIME_EXAMPLE}")
-    height = _DEFAULT_HEIGHT_KM if args.height_km is None else args.height_km
-    xyz = np.asarray(field.geodetic_to_geo(args.latitude, args.longitude, height),
-                     dtype=float).reshape(1, 3)
-    above_sphere = float(np.sqrt(np.sum(xyz**2))) - R_E_KM
-    if above_sphere < h:
-        raise _InputError(
-            f"--height-km {height:g} puts the point {above_sphere:.1f} km above the R_E = "
-            f"{R_E_KM:g} km sphere, below the footpoint altitude --footpoint-km {h:g}; the "
-            f"loss cones are computed only above it: give a larger --height-km or a smaller "
-            f"--footpoint-km")
-    model = field.as_model(args.field)
-    t = np.array([args.time], dtype="datetime64[ns]")
-    res = field.loss_cones(model, xyz, t, altitude_km=h)
-    names = [
-        ("L", "L-shell", ""), ("mlat_deg", "magnetic latitude", "degree"),
-        ("mlt_hours", "magnetic local time", "h"), ("b_local", "field at the point", "nT"),
-        ("b_min", "minimum field on the line", "nT"),
-        ("b_foot_north", "northern footpoint field", "nT"),
-        ("b_foot_south", "southern footpoint field", "nT"),
-        ("b_foot_drift_min", "weakest footpoint field on the drift shell", "nT"),
-        ("blc_local", "local bounce loss cone", "degree"),
-        ("dlc_local", "local drift loss cone", "degree"),
-        ("blc_equatorial", "equatorial bounce loss cone", "degree"),
-        ("dlc_equatorial", "equatorial drift loss cone", "degree"),
-    ]
-    time_text = str(np.datetime_as_string(args.time, unit="s"))
-    rows = [("model", "field model", model.name, ""),
-            ("time", "time (UTC)", time_text, ""),
-            ("latitude", "geodetic latitude", args.latitude, "degree"),
-            ("longitude", "longitude", args.longitude, "degree"),
-            ("height", "height", height, "km"),
-            ("footpoint_altitude", "footpoint altitude", h, "km")]
-    for key, label, unit in names:
-        if key in res.variables:
-            rows.append((key, label, float(np.asarray(res[key].values).ravel()[0]), unit))
-    notes = []
-    what = {"igrf": "IGRF", "dipole": "centred dipole"}.get(model.name, model.name)
-    L = float(np.asarray(res["L"].values).ravel()[0]) if "L" in res.variables else math.nan
-    is_open = ("open" in res.variables
-               and bool(np.asarray(res["open"].values).ravel()[0]))
-    if is_open:
-        notes.append(f"the field line through the point does not close in the {what}: L "
-                     f"and the loss cones are undefined there; the {what} is an "
-                     f"internal-field model only, and at such latitudes the real field line "
-                     f"depends on the magnetospheric currents (an external-field model)")
-    elif math.isnan(L):
-        notes.append("L is undefined here: a particle mirroring at this point would mirror "
-                     "below the Earth's surface at the other end of its field line (the field "
-                     "here exceeds the field where the line meets the surface), so McIlwain's "
-                     "integral invariant does not exist; the loss cones above are still "
-                     "defined")
-    elif L > 10:
-        notes.append(f"L = {L:.3g} > 10: the {what} is an internal-field model only; "
-                     f"L, the drift shell and the loss cones there are not reliable without "
-                     f"an external-field model")
-    return rows, notes
-
-
-def _cmd_losscone(args, command) -> int:
-    h = args.footpoint_km
-    if args.L is not None:
-        rows, notes = _losscone_dipole(args, h)
-    elif (args.latitude is None and args.longitude is None and args.height_km is None
-          and args.time is None):
-        raise _InputError("give --L (and --mlat) for the centred-dipole closed forms, or "
-                       "--latitude and --longitude (with --height-km, --time) for a point in "
-                       "geographic coordinates")
-    else:
-        rows, notes = _losscone_geographic(args, h)
-    rows = [(k, lab, _plain_value(v), u) for k, lab, v, u in rows]
-    _say(_table(rows, args.json, notes))
-    return 0
-
 
 _COMMANDS = {
     "summarize": _cmd_summarize,
@@ -952,8 +530,8 @@ _COMMANDS = {
     "survey": _cmd_survey,
     "inspect": _cmd_inspect,
     "demo": _cmd_demo,
-    "motion": _cmd_motion,
-    "losscone": _cmd_losscone,
+    "motion": lambda args, command: _print(motion_text(args)),
+    "losscone": lambda args, command: _print(losscone_text(args)),
 }
 
 
@@ -1011,7 +589,7 @@ def main(argv=None) -> int:
             return 130
         except BrokenPipeError:
             raise
-        except _InputError as exc:  # the user's input, not a fault: never a traceback
+        except OptionError as exc:  # the user's input, not a fault: never a traceback
             return _error(exc, args)
         except Exception as exc:  # one line for the user; the traceback only with --debug
             if getattr(args, "debug", False):

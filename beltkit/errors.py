@@ -10,6 +10,7 @@ __all__ = [
     "ConventionError",
     "FieldModelError",
     "MappingError",
+    "OptionError",
     "PhysicsError",
     "SurveyError",
 ]
@@ -64,3 +65,11 @@ class SurveyError(BeltkitError, ValueError):
     def __init__(self, problems):
         self.problems = list(problems)
         super().__init__("; ".join(self.problems))
+
+
+class OptionError(BeltkitError, ValueError):
+    """Command options that do not fit together, or inputs that match nothing.
+
+    The ``beltkit`` command prints its message as one line (naming the
+    command-line options) and exits with 1, never with a traceback.
+    """

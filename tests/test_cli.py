@@ -347,10 +347,11 @@ def test_losscone_refuses_bad_geographic_values(capsys, option, value, phrase):
 def test_time_accepts_a_utc_designator():
     import numpy as np
 
-    from beltkit.cli import _utc_time
+    from beltkit.argtypes import utc_time
 
-    assert _utc_time("2024-06-01T12:00Z") == np.datetime64("2024-06-01T12:00", "ns")
-    assert _utc_time("2024-06-01") == np.datetime64("2024-06-01T00:00", "ns")
+    # ISO 8601 (common practice): a trailing Z designates UTC
+    assert utc_time("2024-06-01T12:00Z") == np.datetime64("2024-06-01T12:00", "ns")
+    assert utc_time("2024-06-01") == np.datetime64("2024-06-01T00:00", "ns")
 
 
 def test_losscone_igrf_at_high_latitude_warns_about_internal_field_only(capsys):

@@ -96,3 +96,16 @@ def test_importing_the_field_package_does_not_load_the_pitch_angle_engine():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True).stdout.strip()
     assert out == "[]"
+
+
+def test_tests_import_no_private_names_of_beltkit():
+    # the tests use the package as its users do: through public names only
+    import ast
+
+    bad = []
+    for path in sorted((PACKAGE.parent / "tests").glob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("beltkit"):
+                bad += [f"{path.name}: {node.module}.{a.name}" for a in node.names
+                        if a.name.startswith("_")]
+    assert bad == []
