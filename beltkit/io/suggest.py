@@ -93,7 +93,7 @@ def suggest_mapping(path) -> str:
                  and ds[n].dims[0] in fv.dims]
         if not cands:
             cands = [n for n in ds.variables if ds[n].ndim == 1 and ds[n].dims[0] == fv.dims[0]
-                     and re.search(r"time|epoch", str(n), re.I)]
+                     and re.search(r"(^t$|^t_|time|epoch)", str(n), re.I)]
             if cands:
                 notes["time"] = "GUESS: by name"
         time = cands[0] if cands else None
@@ -138,9 +138,9 @@ def suggest_mapping(path) -> str:
     patterns = (("L", r"^(l|lshell|l_shell|lm|l_dip.*|lshell.*)$", (None, "length")),
                 ("mlat", r"(mlat|mag.*lat|lat.*mag)", ("angle",)),
                 ("mlt", r"(mlt|mag.*local.*time)", ("hours",)),
-                ("latitude", r"^(geo.*)?lat(itude)?(_geo.*)?$", ("angle",)),
-                ("longitude", r"^(geo.*)?lon(gitude)?(_geo.*)?$", ("angle",)),
-                ("altitude", r"^(geo.*)?(alt|altitude|height)(_.*)?$", ("length",)))
+                ("latitude", r"^(g|geo\w*?)?_?lat(itude)?(_\w*)?$", ("angle",)),
+                ("longitude", r"^(g|geo\w*?)?_?lon(gitude)?(_\w*)?$", ("angle",)),
+                ("altitude", r"^(g|geo\w*?)?_?(alt|altitude|height)(_\w*)?$", ("length",)))
     for role, pat, ok in patterns:
         for n in ds.variables:
             if (re.search(pat, str(n), re.I) and kinds.get(n) in ok and ds[n].ndim == 1
