@@ -132,6 +132,9 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     jb = np.zeros(n_i)
     hs = np.zeros(n_k)
     ls = np.zeros(n_k)
+    ek = np.zeros(n_k * n_i, np.int64)
+    ei = np.zeros(n_k * n_i, np.int64)
+    ew = np.zeros(n_k * n_i)
     pa = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     pb = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     two_pi = 2.0 * math.pi
@@ -182,10 +185,11 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             bhi[k] = chi_
             first = -1
             last = -2
+            inv_om = 1.0 / om if om > 0.0 else 0.0
             for i in range(n_i):
                 ov = min(clo, cedges[i]) - max(chi_, cedges[i + 1])
                 if ov > 0.0 and om > 0.0:
-                    w[k, i] = ov / om
+                    w[k, i] = ov * inv_om
                     if first < 0:
                         first = i
                     last = i
@@ -197,6 +201,15 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             else:
                 i0[k] = first
                 i1[k] = last
+        # the non-zero weights as one list (look, bin, weight)
+        n_nz = 0
+        for k in range(n_k):
+            for i in range(i0[k], i1[k] + 1):
+                if w[k, i] > 0.0:
+                    ek[n_nz] = k
+                    ei[n_nz] = i
+                    ew[n_nz] = w[k, i]
+                    n_nz += 1
         # pairs of looks whose bands nearly coincide (similarity >= pair_min)
         n_pair = 0
         for k in range(n_k):
@@ -207,8 +220,7 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     continue
                 ov = min(blo[k], blo[k2]) - max(bhi[k], bhi[k2])
                 if ov > 0.0:
-                    sim = ov * ov / ((blo[k] - bhi[k]) * (blo[k2] - bhi[k2]))
-                    if sim >= pair_min:
+                    if ov * ov >= pair_min * (blo[k] - bhi[k]) * (blo[k2] - bhi[k2]):
                         pa[n_pair] = k
                         pb[n_pair] = k2
                         n_pair += 1
@@ -252,25 +264,28 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                 var[i] = 0.0
                 nn[i] = 0
             n_valid = 0
+            te = t if g.shape[0] > 1 else 0
+            ee = e if g.shape[1] > 1 else 0
             for k in range(n_k):
+                if i0[k] <= i1[k] and x[t, e, k] == x[t, e, k]:
+                    n_valid += 1
+            for q in range(n_nz):
+                k = ek[q]
                 xv = x[t, e, k]
-                if not (xv == xv) or i0[k] > i1[k]:
+                if not (xv == xv):
                     continue
-                gv = g[t if g.shape[0] > 1 else 0, e if g.shape[1] > 1 else 0, k]
+                i = ei[q]
+                wi = ew[q]
                 if has_v:
                     vv = v[t, e, k]
                 elif is_counts:
                     vv = max(xv, 1.0)
                 else:
                     vv = 0.0
-                n_valid += 1
-                for i in range(i0[k], i1[k] + 1):
-                    wi = w[k, i]
-                    if wi > 0.0:
-                        num[i] += wi * xv
-                        den[i] += wi * gv
-                        var[i] += wi * wi * vv
-                        nn[i] += 1
+                num[i] += wi * xv
+                den[i] += wi * g[te, ee, k]
+                var[i] += wi * wi * vv
+                nn[i] += 1
             bits = 0
             for i in range(n_i):
                 if nn[i] > 0 and den[i] > 0.0:
@@ -332,7 +347,11 @@ def _kernel():
         except ImportError:  # pragma: no cover - numba is a declared dependency
             _JIT["bin"] = _bin_block_py
         else:
-            _JIT["bin"] = numba.njit(cache=True, nogil=True)(_bin_block_py)
+            # fast-math without the no-NaN/no-inf flags (NaN tests stay valid); numpy's
+            # error model: every division is guarded, so no zero-divisor branch is needed
+            _JIT["bin"] = numba.njit(cache=True, nogil=True, error_model="numpy",
+                                     fastmath={"reassoc", "contract", "arcp", "nsz"})(
+                _bin_block_py)
     return _JIT["bin"]
 
 
