@@ -39,6 +39,7 @@ Commands
     Check files against the data conventions, listing every problem::
 
         beltkit inspect data/day1.nc
+        beltkit inspect archive/day1.cdf --suggest-mapping day1.toml   # mapping from metadata
 
 ``beltkit demo [--out DIR]``
     Write the synthetic demo mission and run the whole pipeline on it.
@@ -203,6 +204,9 @@ def build_parser() -> argparse.ArgumentParser:
                        description="List every convention problem of each file.")
     p.add_argument("inputs", nargs="+", metavar="FILE", help="files, folders or glob patterns")
     p.add_argument("--mapping", metavar="TOML", default=None, help="variable-name mapping file")
+    p.add_argument("--suggest-mapping", metavar="OUT.toml", default=None,
+                   help="write a mapping made from FILE's ISTP/CF metadata (guesses marked "
+                        "in comments) to OUT.toml, then inspect FILE with it")
 
     p = sub.add_parser("demo", parents=[common], help="run the pipeline on the demo mission",
                        description="Write the synthetic demo data into DIR and run summarize, "
@@ -488,11 +492,25 @@ def _cmd_inspect(args, command) -> int:
     from .pad.conventions import validate
 
     files = _expand_flux_inputs(args.inputs)
+    if args.suggest_mapping:
+        from .io import write_suggested_mapping
+
+        if len(files) != 1:
+            raise OptionError(f"--suggest-mapping takes exactly one FILE, got {len(files)}")
+        try:
+            written = write_suggested_mapping(files[0], args.suggest_mapping)
+        except OSError as exc:
+            _say(f"FAILED  {files[0]}: {one_line(exc, files[0])}")
+            return 1
+        _say(f"wrote  {written} (check the lines marked GUESS and NEEDED)")
+        if args.mapping is None:
+            args.mapping = str(written)
     bad = 0
     for path in files:
         try:
             with open_flux(path, mapping=args.mapping) as ds:
                 problems = validate(ds)
+                edges = ds.attrs.get("pitch_angle_bnds_source")
         except Exception as exc:  # unreadable file: one line, then the next file
             if args.debug:
                 import traceback
@@ -508,6 +526,8 @@ def _cmd_inspect(args, command) -> int:
                 _say(f"    - {problem}")
         else:
             _say(f"ok  {path}")
+        if edges:
+            _say(f"    pitch-angle bin edges from: {edges}")
     _say(f"{len(files)} file(s) checked, {bad} with problems")
     return 1 if bad else 0
 

@@ -602,3 +602,20 @@ def test_cdf_written_by_cdflib_from_xarray_summarises_like_the_netcdf(tmp_path):
         for name in sa.data_vars:
             np.testing.assert_array_equal(sa[name].values, sb[name].values, err_msg=name)
         np.testing.assert_array_equal(sa["time"].values, sb["time"].values)
+
+
+def test_cli_inspect_suggests_a_mapping_that_summarize_uses_unedited(corpus, tmp_path, capsys):
+    from beltkit.cli import main
+
+    out = tmp_path / "maps" / "istp.toml"
+    main(["inspect", str(corpus["istp"]), "--suggest-mapping", str(out)])
+    text = capsys.readouterr().out
+    assert f"wrote  {out}" in text and "pitch-angle bin edges from: delta" in text
+    assert not list(out.parent.glob(".*.tmp"))  # written atomically, nothing left beside it
+    assert main(["summarize", str(corpus["istp"]), "--mapping", str(out), "--out",
+                 str(tmp_path / "s")]) == 0
+    with xr.open_dataset(next((tmp_path / "s").glob("*.nc"))) as summary:
+        assert summary.sizes["time"] == N_T
+    # a second input with --suggest-mapping is an option error
+    assert main(["inspect", str(corpus["epoch"]), str(corpus["asym"]),
+                 "--suggest-mapping", str(out)]) == 1

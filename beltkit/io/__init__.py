@@ -46,7 +46,7 @@ from .cdf import open_cdf
 from .mapping import MAPPING_NAMES, MAPPING_SECTIONS, apply_mapping, load_mapping
 from .metadata import READ_FLAG_BITS, READ_FLAG_MEANINGS
 from .read import open_flux, open_indexed
-from .suggest import suggest_mapping
+from .suggest import suggest_mapping, write_suggested_mapping
 from .write import WRITE_CHUNK_CACHE_BYTES, read_attributes, sha256, write_dataset, write_stream
 
 __all__ = [
@@ -69,4 +69,5 @@ __all__ = [
     "temporary_name",
     "write_dataset",
     "write_stream",
+    "write_suggested_mapping",
 ]

@@ -17,10 +17,11 @@ import re
 
 import numpy as np
 
+from ..atomic import atomic_file
 from ..units import FLUX_UNITS, conversion_factor
 from .read import open_raw
 
-__all__ = ["suggest_mapping"]
+__all__ = ["suggest_mapping", "write_suggested_mapping"]
 
 _ERR_WORDS = re.compile(r"(err|unc|sigma|delta|std)", re.I)
 
@@ -180,3 +181,24 @@ def suggest_mapping(path) -> str:
                           "90 deg; state the outer edges:",
                           "# outer_edges = [0.0, 180.0]  # or \"half_spacing\""]
     return "\n".join(lines) + "\n"
+
+
+def write_suggested_mapping(path, out):
+    """Write :func:`suggest_mapping`'s text for `path` to `out` atomically; return `out`.
+
+    Raises
+    ------
+    OSError
+        The input cannot be read, or `out` cannot be written (the message
+        names the file).
+    """
+    text = suggest_mapping(path)
+
+    def fill(tmp):
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(text)
+
+    try:
+        return atomic_file(out, fill)
+    except OSError as exc:
+        raise OSError(f"{out}: cannot write the mapping ({exc.strerror or exc})") from exc
