@@ -619,3 +619,35 @@ def test_cli_inspect_suggests_a_mapping_that_summarize_uses_unedited(corpus, tmp
     # a second input with --suggest-mapping is an option error
     assert main(["inspect", str(corpus["epoch"]), str(corpus["asym"]),
                  "--suggest-mapping", str(out)]) == 1
+
+
+def test_fill_times_become_nat_and_labels_follow_their_dimension(tmp_path):
+    # a TT2000 fill (ISTP: the int64 minimum) and a CDF_CHAR label variable (LABL_PTR_1)
+    tt = _tt2000_ns(TIMES[:5])
+    tt[2] = np.iinfo(np.int64).min
+    j = _truth(21, (5, 2, 4))
+    path = _write_cdf(tmp_path / "k2_fill_time.cdf", [
+        ("Epoch", CDF_TT2000, True, tt, {"FILLVAL": np.int64(np.iinfo(np.int64).min)}),
+        ("en_centre", CDF_REAL4, False, np.array([100.0, 300.0], np.float32), {"UNITS": "keV"}),
+        ("pa_centre", CDF_REAL4, False, np.linspace(22.5, 157.5, 4).astype(np.float32),
+         {"UNITS": "deg"}),
+        ("en_label", 51, False, np.array(["low E   ", "high E  "]), {}),
+        ("elx_pad", CDF_REAL4, True, j, {"UNITS": "cm-2 s-1 sr-1 keV-1", "DEPEND_0": "Epoch",
+                                         "DEPEND_1": "en_centre", "DEPEND_2": "pa_centre",
+                                         "LABL_PTR_1": "en_label"}),
+    ])
+    raw = bio.open_cdf(path)
+    assert raw["en_label"].dims == ("en_centre",)
+    ds = bio.open_indexed(path, {"variables": {"time": "Epoch", "flux": "elx_pad",
+                                               "energy": "en_centre",
+                                               "pitch_angle": "pa_centre"}})
+    t = ds["time"].values
+    assert np.isnat(t[2]) and np.array_equal(t[[0, 1, 3, 4]], TIMES[[0, 1, 3, 4]])
+    # netCDF: a CF time with a _FillValue
+    unix = (TIMES[:5] - np.datetime64("1970-01-01", "ns")).astype(np.int64) / 1e9
+    unix[1] = -1.0
+    nc = _write_nc(tmp_path / "k2_fill_time.nc", {"record": 5}, {
+        "t_sec": (("record",), unix, {"units": "seconds since 1970-01-01",
+                                      "_FillValue": -1.0})})
+    got = bio.open_indexed(nc, {"variables": {"time": "t_sec"}})["time"].values
+    assert np.isnat(got[1]) and got[0] == TIMES[0]

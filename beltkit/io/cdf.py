@@ -169,8 +169,12 @@ def open_cdf(path) -> xr.Dataset:
         sizes = [int(s) for s in (v.Dim_Sizes or [])]
         shape = ((nrec,) if v.Rec_Vary else ()) + tuple(sizes)
         if v.Data_Type_Description in CDF_TIME_TYPES:
-            raw = cdf.varget(name) if nrec else np.empty(0)
+            raw = np.asarray(cdf.varget(name) if nrec else np.empty(0))
             data = np.asarray(cdflib.cdfepoch.to_datetime(raw), dtype="datetime64[ns]")
+            fill = a.get("FILLVAL")
+            if fill is not None and raw.size:  # ISTP fill times (e.g. -1e31, int64 min): NaT
+                data = np.where(raw.reshape(data.shape) == np.asarray(fill).astype(raw.dtype),
+                                np.datetime64("NaT"), data)
             attrs.pop("units", None)
             attrs["cdf_time_type"] = v.Data_Type_Description
             if len(dims) != data.ndim:

@@ -39,6 +39,10 @@ def _decode(var: xr.Variable, rule: dict, where: str) -> np.ndarray:
         raise MappingError(f"{where}: the time variable holds {values.dtype} values, not "
                            f"times; name a time variable with [variables] time = \"...\"")
     units = str(var.attrs.get("units", ""))
+    fills = [np.asarray(var.attrs[k]).ravel() for k in ("_FillValue", "missing_value", "FILLVAL")
+             if k in var.attrs]
+    if fills:  # fill times become NaT (the validator names them), never a 1970 date
+        values = np.where(np.isin(values, np.concatenate(fills)), np.nan, values)
     if "epoch" in rule or "unit" in rule:
         if not ("epoch" in rule and "unit" in rule):
             raise MappingError(f"{where}: [time] needs both epoch and unit (for example "
@@ -100,7 +104,7 @@ def resolve_time(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset:
                            f"[dimensions] time = \"{dim}\"")
     decoded = _decode(var, rule, where)
     ds = ds.drop_vars("time")
-    if dim != "time":
+    if dim != "time" and dim in ds.dims:
         ds = ds.rename_dims({dim: "time"})
     attrs = {k: v for k, v in var.attrs.items()
              if k not in ("units", "calendar", "_FillValue", "FILLVAL", "VALIDMIN", "VALIDMAX",
