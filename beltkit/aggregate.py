@@ -161,16 +161,30 @@ class Scale:
         return float(max(np.max(e[1:] / c), np.max(c / e[:-1])) - 1.0)
 
     def bin_index(self, values) -> np.ndarray:
-        """Return the bin of each finite value (int64; see the class notes for the layout)."""
+        """Return the bin of each finite value (int64; see the class notes for the layout).
+
+        The bin is computed arithmetically and then checked against the
+        edges themselves, so a value is never put beside the bin that holds it.
+        """
         v = np.asarray(values, dtype=float)
-        k = np.searchsorted(self.edges, v, side="right")  # 0: below lo, n+1: above hi
-        k[v == self.hi] = self.n
-        if self.kind == "linear":
-            return k.astype(np.int64)
-        k = k + 2  # 2: 0 < v < lo, 3..n+2: in range, n+3: above
-        k[v == 0] = 1
-        k[v < 0] = 0
-        return k.astype(np.int64)
+        e, n = self.edges, self.n
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if self.kind == "linear":
+                x = (v - self.lo) * (n / (self.hi - self.lo))
+            else:
+                x = np.log10(v / self.lo) * (n / np.log10(self.hi / self.lo))
+            k = np.clip(np.nan_to_num(np.floor(x), nan=0.0), 0, n - 1).astype(np.int64)
+        k -= v < e[k]  # one step back or forward where rounding crossed an edge
+        k += v >= e[k + 1]
+        np.clip(k, 0, n - 1, out=k)
+        k += 1  # 0: below lo, 1..n: in range, n+1: above hi
+        k[v < self.lo] = 0
+        k[v > self.hi] = n + 1
+        if self.kind == "log":  # 0: negative, 1: zero, 2: 0 < v < lo, 3..n+2, n+3: above
+            k += 2
+            k[v == 0] = 1
+            k[v < 0] = 0
+        return k
 
     def attrs(self) -> dict:
         """Describe the scale and its error bound (netCDF attributes)."""

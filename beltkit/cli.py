@@ -31,9 +31,12 @@ Commands
         beltkit psd data/*.nc --mu 100 300 1000 --k 0.05 0.1 --out psd --field dipole
 
 ``beltkit survey SUMMARY... --out FILE``
-    Bin summaries onto an L x MLT (x time-window) grid::
+    Bin summaries onto an L x MLT (or longitude x latitude, L x field strength,
+    L x time, any two summary variables) grid, x time windows, in flat memory
+    (resumable, ``--workers``, ``--scheduler``)::
 
         beltkit survey summaries --out survey.nc --l-bins 1 8 0.5 --window 1D
+        beltkit survey summaries --out geo.nc --binning lon-lat --bins lat -90 90 2.5
 
 ``beltkit inspect FILE...``
     Check files against the data conventions, listing every problem::
@@ -185,9 +188,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="address of a running dask.distributed scheduler")
 
-    p = sub.add_parser("survey", parents=[common], help="summaries -> L x MLT survey file",
+    p = sub.add_parser("survey", parents=[common], help="summaries -> binned survey file",
                        description="Bin the summaries' fractions and integrated fluxes onto "
-                                   "an L x MLT (x time-window) grid.")
+                                   "an L x MLT (or another binning's) grid x time windows.")
     p.add_argument("inputs", nargs="+", metavar="SUMMARY",
                    help="summary files, folders or glob patterns")
     p.add_argument("--out", required=True, metavar="FILE", help="survey file to write")
@@ -199,6 +202,28 @@ def build_parser() -> argparse.ArgumentParser:
                    help="time windows such as 1D, 6h, 27D (default: one window)")
     p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
                    help="zlib level, 0 = none (default: 4)")
+    p.add_argument("--binning", default="L-MLT", metavar="NAME",
+                   help="L-MLT (default), lon-lat (geographic, needs position_geo in the "
+                        "summaries), L-B (L and local field strength), L-time, or X,Y: two "
+                        "per-time summary variables (give their --bins)")
+    p.add_argument("--bins", nargs=4, action="append", default=[],
+                   metavar=("AXIS", "LOW", "HIGH", "STEP"),
+                   help="bins of one axis (L, mlt, lon, lat, b_local or a variable's name); "
+                        "repeatable")
+    p.add_argument("--quantiles", nargs="+", type=float, default=(), metavar="Q",
+                   help="quantiles written beside the median and IQR, e.g. 0.1 0.9")
+    p.add_argument("--bins-per-decade", type=T.positive_int, default=32, metavar="N",
+                   help="histogram resolution of fluxes (quantile error 10^(1/2N)-1 "
+                        "relative; default 32: 3.7%%)")
+    p.add_argument("--linear-bins", type=T.positive_int, default=256, metavar="N",
+                   help="histogram bins of fractions over 0-1 (error 1/(2N); default 256)")
+    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
+                   help="local worker processes (default: 1)")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="address of a running dask.distributed scheduler")
+    p.add_argument("--restart", action="store_true",
+                   help="ignore the partial aggregate of an interrupted run (default: reuse "
+                        "it for the summaries whose checksum still matches)")
 
     p = sub.add_parser("inspect", parents=[common], help="check files against the conventions",
                        description="List every convention problem of each file.")
@@ -465,7 +490,8 @@ def _cmd_survey(args, command) -> int:
 
     def edges(lo, hi, step, what):
         if not (step > 0 and hi > lo) or not all(map(math.isfinite, (lo, hi, step))):
-            raise ValueError(f"--{what}-bins needs finite LOW < HIGH and STEP > 0, got "
+            flag = f"--{what}-bins" if what in ("l", "mlt") else f"--bins {what}"
+            raise ValueError(f"{flag} needs finite LOW < HIGH and STEP > 0, got "
                              f"{lo:g} {hi:g} {step:g}")
         if what == "mlt" and (lo < 0 or hi > 24):
             raise ValueError(f"--mlt-bins must lie within 0-24 h, got {lo:g} {hi:g} {step:g}")
@@ -473,10 +499,24 @@ def _cmd_survey(args, command) -> int:
         return lo + step * np.arange(n + 1)
 
     _check_survey_inputs(args.inputs)
+    binning = args.binning
+    if "," in binning:
+        binning = tuple(b.strip() for b in binning.split(","))
+    axis_edges = {}
+    for axis, *numbers in args.bins:
+        try:
+            lo, hi, step = (float(x) for x in numbers)
+        except ValueError as exc:
+            raise ValueError(f"--bins {axis} needs numbers LOW HIGH STEP, got "
+                             f"{' '.join(numbers)}") from exc
+        axis_edges[axis] = edges(lo, hi, step, axis)
     try:
-        path = survey(args.inputs, args.out, l_edges=edges(*args.l_bins, "l"),
-                      mlt_edges=edges(*args.mlt_bins, "mlt"), time_window=args.window,
-                      compress=args.compression, command=command)
+        path = survey(args.inputs, args.out, binning=binning,
+                      l_edges=edges(*args.l_bins, "l"), mlt_edges=edges(*args.mlt_bins, "mlt"),
+                      edges=axis_edges, time_window=args.window, quantiles=args.quantiles,
+                      bins_per_decade=args.bins_per_decade, linear_bins=args.linear_bins,
+                      workers=args.workers, scheduler=args.scheduler,
+                      resume=not args.restart, compress=args.compression, command=command)
     except SurveyError as exc:
         for line in exc.problems:
             _say(f"FAILED  {line}")

@@ -56,6 +56,7 @@ __all__ = [
     "pitch_angle_distribution",
     "pitch_angle_time",
     "spectrogram",
+    "survey_cells",
     "survey_map",
 ]
 
@@ -821,6 +822,131 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
     return fig
 
 
+def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statistic="median",
+                 time=None, min_count=1, log=None, axes=None):
+    """Map one survey statistic over the survey's two binning axes, with the count per cell.
+
+    Works for every binning of :func:`beltkit.batch.survey`: L x MLT,
+    geographic longitude x latitude (a plain longitude-latitude grid, no
+    coastlines), L x local field strength, L x time, or a pair of summary
+    variables. The first panel shows the statistic, the second the number of
+    samples per cell (empty cells are left blank in both).
+
+    Parameters
+    ----------
+    survey : xarray.Dataset or str or os.PathLike
+        Survey dataset (or file) from :func:`beltkit.batch.survey`.
+    quantity : str
+        Survey variable stem, e.g. ``"flux_precipitating"``, ``"fraction_trapped"``.
+    energy : float, optional
+        Energy in keV (nearest channel); default the lowest.
+    statistic : {"median", "mean", "std", "iqr", "count"} or str
+        Which per-cell statistic (any ``<quantity>_<statistic>`` variable).
+    time : int, optional
+        Index of the time window for a survey with several windows and two
+        binning axes (statistics of separate windows cannot be merged into
+        one map); ignored for an L x time survey, whose x axis is time.
+    min_count : int
+        Cells with fewer samples are left blank.
+    log : bool, optional
+        Logarithmic colour scale. Default: for fluxes and the diffusion
+        outputs when all shown values are positive; linear for fractions.
+        Colour-bar ticks stay labelled whether the values span a factor of
+        two or ten decades.
+    axes : sequence of two matplotlib.axes.Axes, optional
+        Where to draw the statistic and the count.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if not isinstance(survey, xr.Dataset):
+        survey = xr.load_dataset(survey)
+    name = f"{quantity}_{statistic}"
+    if name not in survey or f"{quantity}_count" not in survey:
+        have = sorted(n[:-6] for n in survey.data_vars if n.endswith("_count"))
+        raise KeyError(f"survey has no {name!r}; its quantities are {have}")
+    e_all = np.asarray(survey["energy"].values, float)
+    k = 0 if energy is None else int(np.argmin(np.abs(e_all - float(energy))))
+    s = survey.isel(energy=k)
+    cell_dims = [d for d in s[name].dims if d != "time"]
+    if len(cell_dims) == 1:  # L x time: time along x
+        y_dim, x_dim = cell_dims[0], "time"
+        if "time_bnds" in s:
+            b = s["time_bnds"].values
+            x = np.concatenate([b[:, 0], b[-1:, 1]])
+        else:
+            x = _time_edges(s["time"].values)
+    else:
+        if s.sizes["time"] > 1:
+            if time is None:
+                raise ValueError(f"the survey has {s.sizes['time']} time windows: give time= "
+                                 f"(a window's index) to map one of them")
+            s = s.isel(time=int(time))
+        else:
+            s = s.isel(time=0)
+        x_dim, y_dim = cell_dims
+        x = _edges_from(s, x_dim)
+    y = _edges_from(s, y_dim)
+    count = s[f"{quantity}_count"].transpose(y_dim, x_dim).values.astype(float)
+    values = s[name].transpose(y_dim, x_dim).values.astype(float)
+    values = np.where(count >= max(min_count, 1), values, np.nan)
+    count = np.where(count > 0, count, np.nan)
+    if axes is None:
+        geo = x_dim == "lon"
+        fig = Figure(figsize=(11.0, 4.2 if geo else 3.8), layout="constrained")
+        axes = fig.subplots(1, 2)
+    fig = axes[0].figure
+    finite = values[np.isfinite(values)]
+    if log is None:
+        log = (statistic != "count" and not quantity.startswith("fraction")
+               and finite.size > 0 and bool(np.all(finite > 0)))
+    label = _LABELS.get(quantity, quantity.replace("_", " "))
+    units = survey[name].attrs.get("units", "1")
+    bar_label = label if (quantity in _LABELS or units in ("1", "")) else f"{label} ({units})"
+    for ax, v, what, lg, cmap in ((axes[0], values, bar_label, log, _FLUX_CMAP),
+                                  (axes[1], count, "samples per cell", None, _FRACTION_CMAP)):
+        fin = v[np.isfinite(v)]
+        if lg is None:  # counts: log once they span more than a factor of ten
+            lg = fin.size > 0 and fin.min() > 0 and fin.max() / fin.min() > 10
+        if lg and fin.size and fin.min() > 0:
+            lo, hi = fin.min(), fin.max()
+            if not hi > lo:
+                lo, hi = lo / 1.05, lo * 1.05
+            norm = LogNorm(lo, hi)
+        else:
+            lo, hi = (fin.min(), fin.max()) if fin.size else (0.0, 1.0)
+            norm = Normalize(lo, hi if hi > lo else lo + 1.0)
+        mesh = ax.pcolormesh(x, y, np.ma.masked_invalid(v), norm=norm, cmap=cmap,
+                             shading="flat")
+        bar = fig.colorbar(mesh, ax=ax, label=what, shrink=0.6 if x_dim == "lon" else 0.9,
+                           pad=0.01)
+        if isinstance(norm, LogNorm):
+            _log_ticks(bar, norm.vmin, norm.vmax)
+        ax.set_xlabel(_AXIS_LABELS.get(x_dim, x_dim))
+        ax.set_ylabel(_AXIS_LABELS.get(y_dim, y_dim))
+        if x_dim == "time":
+            _time_axis(ax)
+        if y_dim == "b_local":
+            ax.set_yscale("log")
+        if x_dim == "lon":
+            ax.set_aspect("equal")
+            ax.set_xticks(np.arange(-180, 181, 60))
+            ax.set_yticks(np.arange(-90, 91, 30))
+    where = survey.attrs.get("binning", f"{y_dim} x {x_dim}")
+    short = label.split(" (")[0]
+    axes[0].set_title(f"{statistic} of {short}\nat {_energy_text(e_all[k])} ({where})",
+                      fontsize="medium")
+    axes[1].set_title("samples per cell", fontsize="medium")
+    return fig
+
+
+_AXIS_LABELS = {"L": "L-shell", "mlt": "magnetic local time (h)",
+                "lon": "geographic longitude (degree east)",
+                "lat": "geographic latitude (degree north)",
+                "b_local": "local field strength (nT)", "time": "time (UTC)"}
+
+
 def _nice_log_ticks(lo, hi, most=7):
     """Tick values in [lo, hi] at 1 (or 1, 2, 5, or finer) times powers of ten.
 
@@ -1222,4 +1348,111 @@ def field_model_comparison(runs, *, axes=None):
     ax_l.set_title("L* and drift loss cone by field model and activity "
                    "(gaps: undefined, open line or shell)")
     _time_axis(ax_c)
+    return fig
+
+
+__all__.append("sector_coverage")
+
+
+def sector_coverage(sectored, binned=None, *, time=None, energy=None, field=None, axes=None):
+    """Draw the sectors' pitch-angle coverage over a spin and the binned distribution.
+
+    Left: for each sector (at its mid spin phase) and detector, the band of
+    pitch angles the look sweeps (:func:`beltkit.pad.sector_bands`: the field
+    of view over a gyration, widened by the spin during the accumulation).
+    Right: the pitch-angle distribution :func:`beltkit.pad.bin_sectors` made of
+    them at one energy, with its Poisson errors, beside the generator's
+    ``true_flux`` when the sectored data carry one (synthetic data).
+
+    Parameters
+    ----------
+    sectored : xarray.Dataset
+        Sectored data (``docs/conventions.md`` section 9).
+    binned : xarray.Dataset, optional
+        Its :func:`beltkit.pad.bin_sectors` output (default: binned here into
+        12 bins of 15 deg).
+    time : datetime-like, optional
+        Sample to show (nearest; default the first).
+    energy : float, optional
+        Channel (keV, nearest; default the middle one).
+    field : FieldModel or str, optional
+        As for :func:`beltkit.pad.bin_sectors`.
+    axes : pair of matplotlib.axes.Axes, optional
+        Where to draw.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    from .pad import bin_sectors, sector_bands
+
+    t_index = 0 if time is None else int(np.argmin(np.abs(
+        sectored["time"].values - np.datetime64(time, "ns"))))
+    one = sectored.isel(time=[t_index])
+    if binned is None:
+        binned = bin_sectors(one, np.linspace(0.0, 180.0, 13), field=field)
+    else:
+        binned = binned.sel(time=one["time"].values)
+    e_values = binned["energy"].values
+    e_index = e_values.size // 2 if energy is None else int(np.argmin(np.abs(e_values -
+                                                                             energy)))
+    bands = sector_bands(one, field=field).isel(time=0)
+    if axes is None:
+        fig = Figure(figsize=(10.0, 4.2), layout="constrained")
+        ax_c, ax_d = fig.subplots(1, 2)
+    else:
+        ax_c, ax_d = axes
+        fig = ax_c.figure
+    if "detector" not in bands.dims:
+        bands = bands.expand_dims(detector=1, axis=-1)
+    n_s, n_d = bands.sizes["sector"], bands.sizes["detector"]
+    if "sector_phase_bnds" in one:
+        mid = one["sector_phase_bnds"].values.reshape(-1, n_s, 2)[0].mean(-1)
+        xlabel = "spin phase at the sector's centre (degree)"
+    else:
+        mid = np.arange(n_s, dtype=float)
+        xlabel = "sector"
+    width = (mid[1] - mid[0]) if n_s > 1 else 1.0
+    for d in range(n_d):
+        off = (d - 0.5 * (n_d - 1)) * 0.8 * width / max(n_d, 1)
+        lo = bands["band_lower"].values[:, d]
+        hi = bands["band_upper"].values[:, d]
+        colour, style, marker = _energy_style(d, n_d)
+        ax_c.vlines(mid + off, lo, hi, colors=[colour], linestyles=style, lw=2.5,
+                    label=f"detector {d}")
+        ax_c.plot(mid + off, 0.5 * (lo + hi), ls="none", marker=marker, color=colour)
+    ax_c.set_ylim(180.0, 0.0)
+    ax_c.set_xlabel(xlabel)
+    ax_c.set_ylabel("pitch angle swept by the look (degree)")
+    ax_c.legend(fontsize="small", loc="best")
+    angle = ""
+    if "spin_b_angle" in binned:
+        angle = f", spin axis to B {float(binned['spin_b_angle'].values[0]):.0f} deg"
+    ax_c.set_title(f"sector coverage over one spin{angle}")
+    edges = binned["pitch_angle_bnds"].values
+    flux = binned["flux"].values[0, e_index]
+    err = binned["flux_err"].values[0, e_index] if "flux_err" in binned else None
+    centres = binned["pitch_angle"].values
+    ax_d.stairs(flux, np.r_[edges[:, 0], edges[-1, 1]], color="C0", lw=2,
+                label="binned from the sectors")
+    if err is not None:
+        ax_d.errorbar(centres, flux, yerr=err, ls="none", color="C0", capsize=2)
+    if "true_flux" in one:
+        true = one["true_flux"].sel(energy=e_values[e_index], method="nearest").values[0]
+        tb = one["true_pitch_angle_bnds"].values
+        ax_d.stairs(true, np.r_[tb[:, 0], tb[-1, 1]], color="k", ls="--",
+                    label="generator truth (synthetic)")
+    unsampled = ~np.isfinite(flux)
+    for k in np.flatnonzero(unsampled):
+        ax_d.axvspan(edges[k, 0], edges[k, 1], color="0.85", lw=0)
+    positive = flux[np.isfinite(flux) & (flux > 0)]
+    if positive.size:
+        ax_d.set_yscale("log")
+    ax_d.set_xlim(0.0, 180.0)
+    ax_d.set_xlabel("local pitch angle (degree)")
+    ax_d.set_ylabel(FLUX_LABEL)
+    ax_d.set_title(f"{_energy_text(float(e_values[e_index]))}, "
+                   f"{_time_text(one['time'].values[0])}"
+                   + (" (grey: unsampled)" if unsampled.any() else ""))
+    ax_d.legend(fontsize="small", loc="best")
     return fig

@@ -136,6 +136,10 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
     for name in POSITION_NAMES:
         if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
             out[name] = ds[name]
+    # the geographic position too, so that a survey can bin by longitude and latitude
+    if ("position_geo" in ds.variables and "position_geo" not in out.variables
+            and ds["position_geo"].dims[0] == "time" and ds["position_geo"].ndim == 2):
+        out["position_geo"] = ds["position_geo"]
     return out, pending
 
 
@@ -362,4 +366,3 @@ def psd_product(ds, src: Path, task: dict) -> Product:
         }
 
     return Product([out], 1, None, attrs_of, loaded=True)
-

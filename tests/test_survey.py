@@ -1,0 +1,246 @@
+"""Archive-scale surveys: flat-memory binning against brute force, splits, binnings, resume."""
+
+import importlib
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+import xarray as xr
+from _flux_factory import summary_like_dataset
+
+from beltkit import batch
+from beltkit import io as bio
+from beltkit.constants import R_E_KM
+
+N_FILES = 6
+# the module (beltkit.batch.survey is the function)
+survey_module = importlib.import_module("beltkit.batch.survey")
+
+
+def _with_positions(ds, seed):
+    """Add a GEO position (650 km altitude, random longitude/latitude) and b_local."""
+    rng = np.random.default_rng(seed)
+    n = ds.sizes["time"]
+    lon = np.radians(rng.uniform(-180, 180, n))
+    lat = np.radians(rng.uniform(-85, 85, n))
+    r = R_E_KM + 650.0
+    xyz = r * np.stack([np.cos(lat) * np.cos(lon), np.cos(lat) * np.sin(lon), np.sin(lat)], -1)
+    return ds.assign(
+        position_geo=(("time", "xyz"), xyz, {"units": "km"}),
+        b_local=("time", 10 ** rng.uniform(3.0, 4.8, n), {"units": "nT"}))
+
+
+@pytest.fixture(scope="module")
+def corpus(tmp_path_factory):
+    root = tmp_path_factory.mktemp("survey_corpus")
+    paths = []
+    for k in range(N_FILES):
+        ds = summary_like_dataset(n_time=1500, seed=40 + k, cadence_s=20.0,
+                                  start=f"2026-03-0{1 + k // 3}T{8 * (k % 3):02d}:00:00")
+        paths.append(bio.write_dataset(_with_positions(ds, 90 + k),
+                                       root / f"s{k}{batch.SUMMARY_SUFFIX}"))
+    src = xr.concat([xr.load_dataset(p) for p in paths], dim="time", data_vars="all")
+    return root, paths, src
+
+
+def _cells(src, axes):
+    """Brute-force cell index per sample (-1 outside) for the given (values, edges) pairs."""
+    idx = np.zeros(src.sizes["time"], np.int64)
+    ok = np.ones(src.sizes["time"], bool)
+    for values, edges in axes:
+        k = np.searchsorted(edges, values, side="right") - 1
+        k[values == edges[-1]] = edges.size - 2
+        ok &= (k >= 0) & (k < edges.size - 1)
+        idx = idx * (edges.size - 1) + np.clip(k, 0, edges.size - 2)
+    return np.where(ok, idx, -1)
+
+
+def _check_against_brute_force(sv, src, cell, shape, names=("fraction_trapped", "omni_flux")):
+    """Counts exact, means and std 1e-12, quantiles within the file's stated bound."""
+    checked = 0
+    for name in names:
+        vals = src[name].values
+        arrays = {s: sv[f"{name}_{s}"].isel(time=0).values.reshape(src.sizes["energy"], -1)
+                  for s in ("count", "mean", "std", "median", "iqr")}
+        for ie in range(src.sizes["energy"]):
+            for c in range(int(np.prod(shape))):
+                v = vals[cell == c, ie]
+                v = v[np.isfinite(v)]
+                got = {s: a[ie, c] for s, a in arrays.items()}
+                assert got["count"] == v.size
+                if v.size < 2:
+                    continue
+                np.testing.assert_allclose(got["mean"], v.mean(), rtol=1e-12)
+                np.testing.assert_allclose(got["std"], v.std(ddof=1), rtol=1e-12)
+                attrs = sv[f"{name}_median"].attrs
+                bound = attrs["quantile_error_bound"]
+                # reference: numpy's linear-interpolation quantile of the cell's samples
+                exact = np.quantile(v, 0.5)
+                tol = bound * (abs(exact) if attrs["quantile_error_kind"] == "relative" else 1)
+                assert abs(got["median"] - exact) <= tol * (1 + 1e-9)
+                q75, q25 = np.quantile(v, [0.75, 0.25])
+                tol_iqr = (sv[f"{name}_iqr"].attrs["quantile_error_bound"]
+                           * (q75 if attrs["quantile_error_kind"] == "relative" else 1))
+                assert abs(got["iqr"] - (q75 - q25)) <= tol_iqr * (1 + 1e-9)
+                checked += 1
+    return checked
+
+
+def test_l_mlt_survey_against_brute_force(corpus, tmp_path):
+    _, paths, src = corpus
+    l_edges, mlt_edges = np.array([1.0, 3.0, 5.0, 8.0]), np.arange(0.0, 24.01, 6.0)
+    sv = xr.load_dataset(batch.survey(paths, tmp_path / "sv.nc", l_edges=l_edges,
+                                      mlt_edges=mlt_edges))
+    cell = _cells(src, [(src["L"].values, l_edges), (src["mlt"].values, mlt_edges)])
+    assert _check_against_brute_force(sv, src, cell, (3, 4)) > 60
+    assert sv["omni_flux_median"].attrs["quantile_error_kind"] == "relative"
+    assert json.loads(sv.attrs["quantile_error_bound"])["fraction_trapped"] == pytest.approx(
+        1 / 512)
+
+
+def test_geographic_field_and_named_binnings(corpus, tmp_path):
+    _, paths, src = corpus
+    xyz = src["position_geo"].values
+    lon = np.degrees(np.arctan2(xyz[:, 1], xyz[:, 0]))
+    lat = np.degrees(np.arcsin(xyz[:, 2] / np.linalg.norm(xyz, axis=1)))
+    lon_e, lat_e = np.arange(-180.0, 180.1, 60.0), np.arange(-90.0, 90.1, 45.0)
+    sv = xr.load_dataset(batch.survey(paths, tmp_path / "geo.nc", binning="lon-lat",
+                                      edges={"lon": lon_e, "lat": lat_e}))
+    assert sv["omni_flux_median"].dims == ("time", "energy", "lon", "lat")
+    assert sv["lon"].attrs["standard_name"] == "longitude"
+    cell = _cells(src, [(lon, lon_e), (lat, lat_e)])
+    assert _check_against_brute_force(sv, src, cell, (6, 4), names=("omni_flux",)) >= 60
+
+    b_e = 10 ** np.arange(3.0, 5.01, 0.5)
+    l_e = np.array([1.0, 4.0, 8.0])
+    sv = xr.load_dataset(batch.survey(paths, tmp_path / "lb.nc", binning="L-B",
+                                      edges={"L": l_e, "b_local": b_e}))
+    cell = _cells(src, [(src["L"].values, l_e), (src["b_local"].values, b_e)])
+    np.testing.assert_array_equal(
+        sv["fraction_trapped_count"].isel(time=0, energy=1).values.ravel(),
+        np.bincount(cell[(cell >= 0) & np.isfinite(src["fraction_trapped"].values[:, 1])],
+                    minlength=8))
+
+    mlat_e, mlt_e = np.array([-20.0, 0.0, 20.0]), np.array([0.0, 12.0, 24.0])
+    sv = xr.load_dataset(batch.survey(paths, tmp_path / "pair.nc", binning=("mlat", "mlt"),
+                                      edges={"mlat": mlat_e, "mlt": mlt_e}))
+    assert sv["omni_flux_count"].dims == ("time", "energy", "mlat", "mlt")
+    assert sv["mlat"].attrs["units"] == "degree"
+    cell = _cells(src, [(src["mlat"].values, mlat_e), (src["mlt"].values, mlt_e)])
+    assert int(sv["omni_flux_count"].isel(time=0, energy=0, mlat=1, mlt=0)) == np.sum(cell == 2)
+
+    sv = xr.load_dataset(batch.survey(paths, tmp_path / "lt.nc", binning="L-time"))
+    assert sv["omni_flux_median"].dims == ("time", "energy", "L")
+    assert sv.sizes["time"] == 3  # daily windows: 2026-03-01 to 03-03 (the last file ends then)
+    day = src["time"].values.astype("datetime64[D]")
+    inside = (src["L"].values >= 1) & (src["L"].values <= 8)
+    for k, d in enumerate(np.unique(day)):
+        assert int(sv["omni_flux_count"].isel(time=k, energy=2).sum()) == np.sum(
+            (day == d) & inside & np.isfinite(src["omni_flux"].values[:, 2]))
+
+
+def test_missing_binning_variable_is_refused_with_the_way_to_get_it(tmp_path):
+    bare = bio.write_dataset(summary_like_dataset(), tmp_path / f"bare{batch.SUMMARY_SUFFIX}")
+    with pytest.raises(batch.SurveyError) as err:
+        batch.survey([bare], tmp_path / "geo.nc", binning="lon-lat")
+    text = str(err.value)
+    assert "has no position_geo for the lon/lat binning" in text
+    assert "geographic position" in text
+    with pytest.raises(batch.SurveyError, match="has no b_local.*--field igrf"):
+        batch.survey([bare], tmp_path / "lb.nc", binning="L-B")
+    with pytest.raises(ValueError, match="give the bin edges of 'mlat'"):
+        batch.survey([bare], tmp_path / "x.nc", binning=("mlat", "L"))
+    assert not any(tmp_path.glob("*.nc.*"))
+
+
+def _assert_same_survey(a, b, exact_means=False):
+    assert set(a.data_vars) == set(b.data_vars)
+    for v in a.data_vars:
+        x, y = a[v].values, b[v].values
+        if v.endswith(("_mean", "_std")) and not exact_means:
+            np.testing.assert_allclose(x, y, rtol=1e-12)
+        else:  # counts and histogram quantiles: bit for bit
+            np.testing.assert_array_equal(x, y)
+
+
+def test_workers_and_cluster_merge_to_the_single_pass(corpus, tmp_path):
+    from distributed import Client
+
+    _, paths, _ = corpus
+    kw = dict(l_edges=np.array([1.0, 4.0, 8.0]), mlt_edges=np.arange(0.0, 24.1, 8.0),
+              time_window="12h")
+    one = xr.load_dataset(batch.survey(paths, tmp_path / "one.nc", **kw))
+    two = xr.load_dataset(batch.survey(paths, tmp_path / "two.nc", workers=2, **kw))
+    _assert_same_survey(one, two)
+    with Client(processes=False, n_workers=1, threads_per_worker=2,
+                dashboard_address=None) as client:
+        dist = xr.load_dataset(batch.survey(paths, tmp_path / "dist.nc", scheduler=client, **kw))
+    _assert_same_survey(one, dist)
+
+
+_KILLER = textwrap.dedent("""
+    import importlib, os, signal, sys
+    m = importlib.import_module("beltkit.batch.survey")
+    fold = m._fold_file
+    seen = []
+    def dying(path, spec, open_stats):
+        if len(seen) == 3:  # after three summaries (and their checkpoint): SIGKILL
+            os.kill(os.getpid(), signal.SIGKILL)
+        seen.append(path)
+        fold(path, spec, open_stats)
+    m._fold_file = dying
+    m_kw = dict(time_window="12h", l_edges=[1, 4, 8], mlt_edges=[0, 12, 24])
+    m.survey(sys.argv[2:], sys.argv[1], checkpoint_s=0.0, **m_kw)
+""")
+
+
+KW = dict(time_window="12h", l_edges=[1, 4, 8], mlt_edges=[0, 12, 24])  # as in _KILLER
+
+
+def test_sigkill_then_resume_ends_equal_to_an_uninterrupted_run(corpus, tmp_path, monkeypatch):
+    paths = [shutil.copy(p, tmp_path / p.name) for p in corpus[1]]  # one is changed below
+    paths = [type(corpus[1][0])(p) for p in paths]
+    ref = xr.load_dataset(batch.survey(paths, tmp_path / "ref.nc", **KW))
+    out = tmp_path / "killed.nc"
+    proc = subprocess.run([sys.executable, "-c", _KILLER, str(out), *map(str, paths)],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == -signal.SIGKILL, proc.stderr
+    partial = out.with_name(out.name + survey_module.PARTIAL_SUFFIX)
+    assert partial.exists() and not out.exists()
+
+    folded = []
+    fold = survey_module._fold_file
+    monkeypatch.setattr(survey_module, "_fold_file",
+                        lambda p, s, o: (folded.append(os.path.basename(p)), fold(p, s, o)))
+    resumed = xr.load_dataset(batch.survey(paths, out, **KW))
+    assert folded == [p.name for p in paths[3:]]  # the three folded before the kill reused
+    _assert_same_survey(ref, resumed)
+    assert resumed.attrs["source_sha256"] == ref.attrs["source_sha256"]
+    assert not partial.exists()  # removed once the survey is written
+
+    # nudge: a partial aggregate whose inputs changed is not reused (interrupted in-process)
+    def interrupted(p, s, o):
+        if len(folded) == 3:
+            raise KeyboardInterrupt
+        folded.append(p)
+        fold(p, s, o)
+
+    monkeypatch.setattr(survey_module, "_fold_file", interrupted)
+    folded.clear()
+    with pytest.raises(KeyboardInterrupt):
+        batch.survey(paths, out, **KW, checkpoint_s=0.0)
+    assert partial.exists()
+    changed = summary_like_dataset(n_time=1500, seed=99, cadence_s=20.0,
+                                   start="2026-03-01T00:00:00")
+    bio.write_dataset(_with_positions(changed, 1), paths[0])
+    monkeypatch.setattr(survey_module, "_fold_file",
+                        lambda p, s, o: (folded.append(os.path.basename(p)), fold(p, s, o)))
+    folded.clear()
+    batch.survey(paths, out, **KW)
+    assert len(folded) == N_FILES
