@@ -129,7 +129,8 @@ import xarray as xr
 from . import __version__, dipole
 from .constants import R_E_KM
 
-__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo", "tern_psd_profiles"]
+__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo", "tern_flux_model",
+           "tern_psd_profiles"]
 
 FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 
@@ -504,6 +505,31 @@ def _tern_day(day_start, rng):
                             _FLUX_FROM_COUNTS),
     )
     return ds
+
+
+def tern_flux_model(day_start, rng, n_times=None):
+    """Return one Marram-Tern day-file and its model flux at any local pitch angle.
+
+    The hook of :mod:`beltkit.demo_sectors` (the spectrometer as spin-sectored
+    counts): the day's dataset as :func:`generate` writes it, and a function
+    ``flux(alpha_local_deg)`` of an array shaped ``(time, 1, ...)`` giving the
+    model's directional flux (cm-2 s-1 sr-1 keV-1, background excluded) with
+    shape ``(time, energy, ...)``, at the file's own (float32) positions;
+    `n_times` keeps the day's first spectra only.
+    """
+    ds = _tern_day(np.datetime64(day_start, "ns"), rng)
+    if n_times is not None:
+        ds = ds.isel(time=slice(0, int(n_times)))
+    time = ds["time"].values
+    energy = ds["energy"].values
+    L, mlat, mlt = (ds[v].values.astype(float) for v in ("L", "mlat", "mlt"))
+    A, n_idx, F, blc = _belt(energy, L, mlt, time)
+    A = A * _local_source(energy, L, time)
+
+    def flux(alpha_local_deg):
+        return _model_flux(np.asarray(alpha_local_deg, float), mlat, A, n_idx, F, blc)
+
+    return ds, flux
 
 
 _FLUX_FROM_COUNTS = ("Flux = counts / (geometric_factor * accumulation_time * channel "

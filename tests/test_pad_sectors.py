@@ -226,11 +226,15 @@ def test_field_aligned_beam_lands_at_small_pitch_angles(gyrotropic):
 def test_gyrotropy_statistic_and_flag(gyrotropic):
     b, g, w, out = gyrotropic
     ds, mu, binned = out["sin"]
-    flagged = (binned["sector_flag"].values & 2) > 0
-    # gyrotropic data: flagged at about the stated level (1e-3), certainly below 2 %
-    assert flagged.mean() < 0.02
-    chi = binned["gyrotropy_chi2"].values
-    assert 0.7 < np.nanmedian(chi) < 1.3
+    # the counting statistics alone (tolerance 0): the pair chi-square of gyrotropic data
+    # has mean 1 per degree of freedom (chi-square of Gaussian deviates, textbook), and
+    # is flagged at about the stated level (1e-3), certainly below 2 %
+    pure = bin_sectors(ds, EDGES, gyrotropy_tolerance=0.0)
+    assert ((pure["sector_flag"].values & 2) > 0).mean() < 0.02
+    chi = pure["gyrotropy_chi2"].values
+    dof = pure["gyrotropy_dof"].values
+    assert 0.85 < np.nansum(chi * dof) / np.sum(dof[np.isfinite(chi)]) < 1.15
+    assert ((binned["sector_flag"].values & 2) > 0).mean() < 0.02  # default tolerance
     # a distribution with a gyrophase dependence 1 + 0.6 sin(phase), phase from the spin
     # axis's projection (antisymmetric about the plane of the spin axis and B, where the
     # sectors at mirror phases see the same pitch angle), is flagged
@@ -240,8 +244,8 @@ def test_gyrotropy_statistic_and_flag(gyrotropic):
     ds2, _ = _dataset(mean, b, g, rng)
     non = bin_sectors(ds2, EDGES)
     flagged2 = (non["sector_flag"].values & 2) > 0
-    assert flagged2[:, 2].mean() > 0.9  # 300 counts per unit flux
-    assert flagged2[:, 1].mean() > 0.6  # 30 counts per unit flux
+    assert flagged2[:, 2].mean() > 0.8  # 300 counts per unit flux (default tolerance)
+    assert flagged2[:, 1].mean() > 0.5  # 30 counts per unit flux
 
 
 
