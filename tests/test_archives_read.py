@@ -651,3 +651,36 @@ def test_fill_times_become_nat_and_labels_follow_their_dimension(tmp_path):
                                       "_FillValue": -1.0})})
     got = bio.open_indexed(nc, {"variables": {"time": "t_sec"}})["time"].values
     assert np.isnat(got[1]) and got[0] == TIMES[0]
+
+
+def test_per_channel_validmax_in_pitch_energy_order(tmp_path):
+    # ISTP VALIDMAX with one value per element of the last dimension (energy)
+    j = _truth(31, (6, 8, 4))  # file order: (Epoch, pitch, energy)
+    vmax = np.array([1e3, 1e4, 3e4, 1e5], np.float32)
+    path = _write_cdf(tmp_path / "k2_perchan.cdf", [
+        ("Epoch", CDF_TT2000, True, _tt2000_ns(TIMES[:6]), {}),
+        ("pa_centre", CDF_REAL4, False, CENTRES_SYM.astype(np.float32), {"UNITS": "deg"}),
+        ("en_centre", CDF_REAL4, False, np.array([50, 100, 200, 400], np.float32),
+         {"UNITS": "keV"}),
+        ("elx_pad", CDF_REAL4, True, j, {"UNITS": "cm-2 s-1 sr-1 keV-1", "DEPEND_0": "Epoch",
+                                         "DEPEND_1": "pa_centre", "DEPEND_2": "en_centre",
+                                         "VALIDMAX": vmax}),
+    ])
+    ds = bio.open_indexed(path, {"variables": {"time": "Epoch", "flux": "elx_pad",
+                                               "energy": "en_centre",
+                                               "pitch_angle": "pa_centre"}})
+    assert ds["flux"].dims == ("time", "energy", "pitch_angle")
+    expect = np.where(j > vmax, np.nan, j).transpose(0, 2, 1)  # plain numpy, file order
+    np.testing.assert_allclose(ds["flux"].values, expect, rtol=1e-6)
+    assert ds.attrs["read_flag_count_out_of_valid_range"] == int((j > vmax).sum()) > 0
+    # a VALIDMAX that fits no trailing dimension is refused in one line naming [valid]
+    bad = tmp_path / "k2_perchan_bad.cdf"
+    _write_cdf(bad, [
+        ("Epoch", CDF_TT2000, True, _tt2000_ns(TIMES[:6]), {}),
+        ("elx_pad", CDF_REAL4, True, j, {"UNITS": "cm-2 s-1 sr-1 keV-1", "DEPEND_0": "Epoch",
+                                         "VALIDMAX": np.ones(8, np.float32)})])
+    with pytest.raises(MappingError, match=r"k2_perchan_bad\.cdf.*VALIDMAX.*\[valid\] flux"):
+        bio.open_indexed(bad, {"variables": {"time": "Epoch", "flux": "elx_pad"}})
+    # a slab in energy and pitch selects the matching limits
+    sub = ds.isel(energy=slice(1, 3), pitch_angle=slice(0, 2))["flux"].values
+    np.testing.assert_allclose(sub, expect[:, 1:3, 0:2], rtol=1e-6)

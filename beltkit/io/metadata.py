@@ -76,12 +76,13 @@ class ValueRule:
                 and self.scale == 1.0 and self.offset == 0.0 and self.lo is None
                 and self.hi is None)
 
-    def apply(self, raw, dtype=None, index=None):
+    def apply(self, raw, dtype=None, index=None, dims=None):
         """Return (values, fill mask, out-of-range mask) of a slab of stored values.
 
         Masked values are NaN in ``values`` (float, at least float32; ``dtype``
-        forces one). ``index`` is the slab's selection (dim -> slice), needed
-        when a limit varies along a dimension.
+        forces one). ``index`` is the slab's selection (dim -> slice) and
+        ``dims`` the slab's dimension names (default: the variable's own),
+        needed when a limit varies along a dimension.
         """
         raw = np.asarray(raw)
         fill = np.zeros(raw.shape, bool)
@@ -103,18 +104,24 @@ class ValueRule:
             values += self.offset
         with np.errstate(invalid="ignore"):
             if self.lo is not None:
-                bad |= values < _limit(self.lo, index)
+                bad |= values < _limit(self.lo, index, dims)
             if self.hi is not None:
-                bad |= values > _limit(self.hi, index)
+                bad |= values > _limit(self.hi, index, dims)
         bad &= ~fill
         values[fill | bad] = np.nan
         return values, fill, bad
 
 
-def _limit(limit, index):
-    if isinstance(limit, xr.Variable):
-        return read_block(limit, index or {})
-    return limit
+def _limit(limit, index, dims):
+    """Return a limit as a number, or its slab shaped to broadcast against `dims`."""
+    if not isinstance(limit, xr.Variable):
+        return limit
+    block = read_block(limit, index or {})
+    if dims is None:
+        return block  # the limit's dims are the trailing dims of the values
+    order = [d for d in dims if d in limit.dims]
+    arr = np.transpose(block, [limit.dims.index(d) for d in order])
+    return arr.reshape([arr.shape[order.index(d)] if d in order else 1 for d in dims])
 
 
 def value_rule(var: xr.Variable, name: str, *, valid=None, where: str = "") -> ValueRule:
@@ -214,7 +221,7 @@ def decode_values(ds: xr.Dataset, names, *, where: str = "") -> xr.Dataset:
                 else np.dtype("float64")
 
             def func(index, var=var, rule=rule, dtype=dtype):
-                return {"v": rule.apply(read_block(var, index), dtype, index)[0]}
+                return {"v": rule.apply(read_block(var, index), dtype, index, var.dims)[0]}
 
             comp = Computation(func, {"v": (var.dims, var.shape, dtype)})
             new = derived_variable(comp, "v", attrs)

@@ -181,7 +181,7 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
             raw_index["energy"] = slice(None)
         raw = read_block(main, raw_index)
         raw_shape = raw.shape
-        values, fill, bad = rule.apply(raw, np.float64, raw_index)
+        values, fill, bad = rule.apply(raw, np.float64, raw_index, dims)
         rejected = np.zeros(raw_shape, bool)
         if quality is not None:
             q = read_block(quality, raw_index)
@@ -192,7 +192,8 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
             if unit_f is not None:
                 values = values * unit_f
             if err is not None:
-                e, _, _ = err_rule.apply(read_block(err, raw_index), np.float64, raw_index)
+                e, _, _ = err_rule.apply(read_block(err, raw_index), np.float64, raw_index,
+                                         err.dims)
                 e = _aligned(xr.Variable(err.dims, e), {}, dims, raw_shape)
                 if err_f is not None:
                     e = e * err_f
@@ -250,9 +251,11 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
     if kind != "flux":
         flux_attrs["long_name"] = "differential directional flux"
         flux_attrs["beltkit_flux_source"] = f"{kind} (telescope conversion at read time)"
-    drop = [n for n in (kind, "flux_err", "quality", "count_rate", "counts",
-                        "accumulation_time", "geometric_factor", "energy_width", "dead_time",
-                        "efficiency") if n in ds.variables and n not in ds.dims]
+    replaced = (kind, "flux_err", "quality")
+    if kind != "flux":  # the telescope inputs are now in flux and flux_err
+        replaced += ("count_rate", "counts", "accumulation_time", "geometric_factor",
+                     "energy_width", "dead_time", "efficiency")
+    drop = [n for n in replaced if n in ds.variables and n not in ds.dims]
     if target is not None:
         drop += [n for n in ("channel_energy", "channel_energy_bnds", "energy_bnds")
                  if n in ds.variables]

@@ -157,8 +157,8 @@ def open_indexed(path, mapping=None, *, engine=None) -> xr.Dataset:
     ds = resolve_pitch_angle(ds, m.get("pitch_angle", {}), where=where)
     ds = resolve_position(ds, m.get("position", {}), where=where)
     ds = resolve_flux(ds, m, where=where)
-    ds = decode_values(ds, [n for n in ("flux", "flux_err", "counts") if n in ds.variables
-                            and "read_flag" not in ds.variables], where=where)
+    untouched = ("counts",) if "read_flag" in ds.variables else ("flux", "flux_err", "counts")
+    ds = decode_values(ds, [n for n in untouched if n in ds.variables], where=where)
     ds.attrs.setdefault("source", path.name)
     ds.encoding["source"] = str(path)
     return ds
