@@ -8,7 +8,7 @@ from beltkit import dipole
 from beltkit.constants import R_E_KM
 from beltkit.errors import FieldModelError, PhysicsError
 from beltkit.field import IGRF, CenteredDipole, convert, drift_shell_table, loss_cones
-from beltkit.field import losscone as lc
+from beltkit.field import driftshells as lc
 from beltkit.field.losscone import cache_dir, loss_cones_vs_longitude
 
 T2020 = np.datetime64("2020-01-01T00:00")

@@ -51,7 +51,7 @@ _EXPORTS = {
     "LSTAR_REASONS": "invariants",
     # losscone.py
     "loss_cones": "losscone",
-    "drift_shell_table": "losscone",
+    "drift_shell_table": "driftshells",
     "loss_cones_vs_longitude": "losscone",
 }
 
