@@ -684,3 +684,26 @@ def test_per_channel_validmax_in_pitch_energy_order(tmp_path):
     # a slab in energy and pitch selects the matching limits
     sub = ds.isel(energy=slice(1, 3), pitch_angle=slice(0, 2))["flux"].values
     np.testing.assert_allclose(sub, expect[:, 1:3, 0:2], rtol=1e-6)
+
+
+def test_suggested_mappings_for_a_telescope_archive_and_gsm_ephemeris(more_corpus, tmp_path):
+    rate, gf, e_edges, _ = more_corpus["telescope_truth"]
+    text = bio.suggest_mapping(more_corpus["telescope"])
+    assert 'count_rate = "rates"' in text and 'geometric_factor = "gfac"' in text
+    path = tmp_path / "tel.toml"
+    path.write_text(text)
+    ds = bio.open_indexed(more_corpus["telescope"], path)
+    # no dead time, efficiency or accumulation time in the file: j = R / (G dE), no errors
+    expect = rate / (gf[None, None, :] * (e_edges[:, 1] - e_edges[:, 0])[None, :, None])
+    np.testing.assert_allclose(ds["flux"].values, expect, rtol=1e-12)
+    assert "flux_err" not in ds and ds["look_pitch_angle"].dims == ("time", "look")
+    text = bio.suggest_mapping(more_corpus["gsm"])
+    assert 'position = "pos_gsm"' in text and 'frame = "GSM"  # GUESS' in text
+    path.write_text(text)
+    got = bio.open_indexed(more_corpus["gsm"], path)["position_geo"].values
+    ref = bio.open_indexed(more_corpus["gsm"], {
+        "variables": {"time": "t_sec", "flux": "jflux", "energy": "e_kev",
+                      "pitch_angle": "pa_deg", "position": "pos_gsm"},
+        "dimensions": {"energy": "n_e", "pitch_angle": "n_pa"},
+        "position": {"form": "cartesian", "frame": "GSM"}})["position_geo"].values
+    np.testing.assert_array_equal(got, ref)

@@ -69,7 +69,9 @@ def suggest_mapping(path) -> str:
         The file cannot be read.
     """
     ds = open_raw(path)
-    lines = [f"# mapping suggested by beltkit from the metadata of {getattr(path, 'name', path)}",
+    from pathlib import Path
+
+    lines = [f"# mapping suggested by beltkit from the metadata of {Path(path).name}",
              "# entries marked GUESS were chosen by name or unit alone: check them;",
              "# entries marked NEEDED are not in the file: fill them in and uncomment.", ""]
     variables, dims, notes = {}, {}, {}
@@ -77,12 +79,19 @@ def suggest_mapping(path) -> str:
     fluxes = [n for n, k in kinds.items() if k == "flux" and ds[n].ndim >= 2]
     main = [n for n in fluxes if not _ERR_WORDS.search(str(n))]
     flux = max(main or fluxes, key=lambda n: (ds[n].ndim, ds[n].size), default=None)
+    role = "flux"
+    if flux is None:
+        rates = [n for n, k in kinds.items() if k == "rate" and ds[n].ndim >= 2]
+        flux = max(rates, key=lambda n: (ds[n].ndim, ds[n].size), default=None)
+        role = "count_rate"
     if flux is None:
         lines.append("# no variable with differential-flux units (cm-2 s-1 sr-1 keV-1 or "
-                     "equivalent) was found;")
+                     "equivalent) or count-rate units (s-1) was found;")
         lines.append("# NEEDED: [variables] flux = \"...\" and [units] flux = \"...\"")
         return "\n".join(lines) + "\n"
-    variables["flux"] = flux
+    variables[role] = flux
+    if role == "count_rate":
+        notes[role] = "GUESS: the largest variable in count-rate units (a telescope archive)"
     fv = ds[flux]
     if len(main) > 1 or (not main and len(fluxes) > 1):
         notes["flux"] = f"GUESS: the largest of {', '.join(map(str, main or fluxes))}"
@@ -111,20 +120,23 @@ def suggest_mapping(path) -> str:
         dep = fv.attrs.get(f"DEPEND_{axis}") if "DEPEND_0" in fv.attrs else None
         cand = str(dep) if dep in ds.variables else None
         if cand is None:
-            on_dim = [n for n in ds.variables if d in ds[n].dims and ds[n].ndim <= 2
-                      and kinds.get(n) in ("energy", "angle") and n != flux]
+            on_dim = [n for n in ds.variables if d in ds[n].dims and n != flux and (
+                (ds[n].ndim == 1 and kinds.get(n) in ("energy", "angle"))
+                or (ds[n].ndim == 2 and kinds.get(n) == "energy" and tdim in ds[n].dims))]
             cand = on_dim[0] if on_dim else None
         if cand is None:
             continue
         kind = kinds.get(cand)
-        role = {"energy": "energy", "angle": "pitch_angle"}.get(kind)
-        if role is None:
-            continue
-        variables[role] = cand
+        axis_role = {"energy": "energy", "angle": "pitch_angle"}.get(kind)
+        if axis_role is None or (role == "count_rate" and axis_role == "pitch_angle"):
+            continue  # a telescope's other axis is its looks
+        variables[axis_role] = cand
         if dep is None:
-            notes[role] = f"GUESS: the {kind} variable on dimension {d}"
+            notes[axis_role] = f"GUESS: the {kind} variable on dimension {d}"
         if d != cand and ds[cand].ndim == 1:
-            dims[role] = d
+            dims[axis_role] = d
+    telescope = _telescope_entries(ds, fv, tdim, kinds, variables, dims, notes) \
+        if role == "count_rate" else []
     # uncertainty
     dplus = fv.attrs.get("DELTA_PLUS_VAR")
     errs = [n for n in fluxes if n != flux and _ERR_WORDS.search(str(n))
@@ -142,27 +154,48 @@ def suggest_mapping(path) -> str:
                 ("latitude", r"^(g|geo\w*?)?_?lat(itude)?(_\w*)?$", ("angle",)),
                 ("longitude", r"^(g|geo\w*?)?_?lon(gitude)?(_\w*)?$", ("angle",)),
                 ("altitude", r"^(g|geo\w*?)?_?(alt|altitude|height)(_\w*)?$", ("length",)))
-    for role, pat, ok in patterns:
+    for key, pat, ok in patterns:
         for n in ds.variables:
             if (re.search(pat, str(n), re.I) and kinds.get(n) in ok and ds[n].ndim == 1
                     and ds[n].dims[0] == tdim and n not in variables.values()):
-                variables[role] = str(n)
-                notes[role] = "GUESS: by name and unit"
+                variables[key] = str(n)
+                notes[key] = "GUESS: by name and unit"
                 break
     lines.append("[variables]")
-    for role, name in variables.items():
-        note = notes.get(role)
-        lines.append(f"{role} = {_q(name)}" + (f"  # {note}" if note else ""))
-    for role in ("time",):
-        if role not in variables:
-            lines.append(f"# {role} = \"...\"  # {notes.get(role, 'NEEDED')}")
+    for key, name in variables.items():
+        note = notes.get(key)
+        lines.append(f"{key} = {_q(name)}" + (f"  # {note}" if note else ""))
+    if "time" not in variables:
+        lines.append(f"# time = \"...\"  # {notes.get('time', 'NEEDED')}")
     if dims:
         lines += ["", "[dimensions]"]
-        lines += [f"{role} = {_q(d)}" for role, d in dims.items()]
+        lines += [f"{key} = {_q(d)}" for key, d in dims.items()]
     if time is not None and ds[time].dtype.kind in "iuf" and " since " not in _units(ds[time]):
         lines += ["", "[time]",
                   f"# NEEDED: {time} is numeric without CF units; say what it counts from:",
                   '# epoch = "1970-01-01T00:00:00"', '# unit = "s"']
+    lines += telescope
+    for n, v in ds.variables.items():
+        if "flag_meanings" in v.attrs and tdim in v.dims:
+            lines += ["", f"# {n} holds quality flags ({v.attrs['flag_meanings']}); to mask "
+                      "samples by them, add", f'#   quality = "{n}"   (under [variables])',
+                      "#   [quality]", '#   reject_meanings = ["..."]']
+            break
+    if "energy" in variables and ds[variables["energy"]].ndim == 2:
+        lines += ["", "# the energy table varies from record to record: it is read as",
+                  "# channel_energy (time, energy); for one common axis add",
+                  "# [energy]", "# common_kev = [...]"]
+    vectors = [n for n, k in kinds.items() if k == "length" and ds[n].ndim == 2
+               and tdim in ds[n].dims and 3 in ds[n].shape and n not in variables.values()]
+    if vectors and "latitude" not in variables:
+        name = str(vectors[0])
+        frame = next((f for f in ("GSM", "GSE", "GEI", "GEO", "SM")
+                      if re.search(rf"(^|_){f}($|_)", name, re.I)), None)
+        lines[lines.index("[variables]") + 1:lines.index("[variables]") + 1] = [
+            f"position = {_q(name)}  # GUESS: the (time, 3) variable in length units"]
+        lines += ["", "[position]", 'form = "cartesian"']
+        lines.append(f'frame = "{frame}"  # GUESS: from the name' if frame else
+                     '# frame = "GSM"  # NEEDED: GEO, GSE, GSM, SM or GEI')
     if {"latitude", "longitude", "altitude"} <= set(variables):
         lines += ["", "[position]", 'form = "geodetic"  # GUESS: latitude/longitude/altitude '
                   "by name"]
@@ -181,6 +214,36 @@ def suggest_mapping(path) -> str:
                           "90 deg; state the outer edges:",
                           "# outer_edges = [0.0, 180.0]  # or \"half_spacing\""]
     return "\n".join(lines) + "\n"
+
+
+def _telescope_entries(ds, fv, tdim, kinds, variables, dims, notes):
+    """Find the look geometry and geometric factor of a count-rate archive; return lines."""
+    known = {variables.get("energy")}
+    edim = ds[variables["energy"]].dims[-1] if "energy" in variables else None
+    look = next((d for d in fv.dims if d not in (tdim, edim)), None)
+    lines = ["", "[telescope]"]
+    if look is not None:
+        if look != "look":
+            dims["look"] = look
+        for n, v in ds.variables.items():
+            if kinds.get(n) != "angle" or n in known:
+                continue
+            if v.dims == (tdim, look) and "look_pitch_angle" not in variables:
+                variables["look_pitch_angle"] = str(n)
+                notes["look_pitch_angle"] = "GUESS: the (time, look) angle"
+            elif v.dims == (look,) and "look_half_angle" not in variables:
+                variables["look_half_angle"] = str(n)
+                notes["look_half_angle"] = "GUESS: the per-look angle taken as half-angle"
+    gf = [n for n in ds.variables if _units(ds[n]) and n != fv.name
+          and conversion_factor(_units(ds[n]), "cm2 sr") is not None]
+    if gf:
+        variables["geometric_factor"] = str(gf[0])
+        notes["geometric_factor"] = "GUESS: the variable in cm2 sr"
+    else:
+        lines.append("# geometric_factor = 0.01  # NEEDED: cm2 sr")
+    lines.append("# accumulation_time_s = 1.0  # for Poisson errors; dead_time_s, efficiency "
+                 "if known")
+    return lines
 
 
 def write_suggested_mapping(path, out):
