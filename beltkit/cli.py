@@ -30,6 +30,16 @@ Commands
 
         beltkit psd data/*.nc --mu 100 300 1000 --k 0.05 0.1 --out psd --field dipole
 
+``beltkit bin-sectors INPUT... --out DIR [--summarize DIR2]``
+    Spin-sectored counts (``docs/conventions.md`` section 9) binned into
+    pitch-angle files (``DIR/<stem>.pad.nc``, :func:`beltkit.pad.bin_sectors`),
+    with the same safety as ``summarize`` (run report, resumable, one
+    ``FAILED`` line per bad file, ``--workers``, ``--scheduler``);
+    ``--summarize DIR2`` then summarizes the pitch-angle files into DIR2::
+
+        beltkit bin-sectors raw/*.nc --out pad --edges 0 10 30 60 90 120 150 170 180
+        beltkit bin-sectors raw/*.nc --out pad --summarize summaries --summary-field dipole
+
 ``beltkit survey SUMMARY... --out FILE``
     Bin summaries onto an L x MLT (or longitude x latitude, L x field strength,
     L x time, any two summary variables) grid, x time windows, in flat memory
@@ -187,6 +197,43 @@ def build_parser() -> argparse.ArgumentParser:
                    help="local worker processes (default: 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="address of a running dask.distributed scheduler")
+
+    p = sub.add_parser("bin-sectors", parents=[common],
+                       help="spin-sectored files -> pitch-angle files (optionally summarized)",
+                       description="Bin spin-sectored counts into pitch-angle files "
+                                   "(<stem>.pad.nc) in DIR, plus DIR/run-report.jsonl.")
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
+    p.add_argument("--out", required=True, metavar="DIR", help="output folder")
+    p.add_argument("--edges", nargs="+", type=float, default=None, metavar="DEG",
+                   help="pitch-angle bin edges in degree, increasing within 0-180 (default: "
+                        "12 bins of 15 degree)")
+    p.add_argument("--field", choices=("b_vector", "dipole", "igrf"), default="b_vector",
+                   help="field direction: each file's b_vector (default), or a model at its "
+                        "position_geo")
+    p.add_argument("--gyrotropy-level", type=T.positive_number, default=1e-3, metavar="P",
+                   help="significance level of the gyrotropy flag (default: 1e-3)")
+    p.add_argument("--gyrotropy-tolerance", type=T.nonnegative_number, default=0.1,
+                   metavar="FRACTION",
+                   help="relative difference of paired looks tolerated beyond their Poisson "
+                        "errors (default: 0.1)")
+    p.add_argument("--degenerate-deg", type=T.positive_number, default=10.0, metavar="DEG",
+                   help="flag samples whose field lies within DEG of the spin axis "
+                        "(default: 10)")
+    p.add_argument("--mapping", metavar="TOML", default=None,
+                   help="variable-name mapping file for files with other names")
+    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
+                   help="zlib level of the outputs, 0 = none (default: 4)")
+    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
+    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
+    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
+                   help="local worker processes (default: 1)")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="address of a running dask.distributed scheduler")
+    p.add_argument("--summarize", metavar="DIR2", default=None,
+                   help="then summarize the pitch-angle files into DIR2 (as beltkit "
+                        "summarize does)")
+    p.add_argument("--summary-field", choices=("auto", "dipole", "igrf"), default="auto",
+                   help="with --summarize: field model of the loss cones (default: auto)")
 
     p = sub.add_parser("survey", parents=[common], help="summaries -> binned survey file",
                        description="Bin the summaries' fractions and integrated fluxes onto "
@@ -483,6 +530,43 @@ def _cmd_psd(args, command) -> int:
     return _batch_exit(results, args, "psd")
 
 
+def _cmd_bin_sectors(args, command) -> int:
+    import argparse as _argparse
+
+    from .batch import bin_sectored, summarize
+
+    _expand_flux_inputs(args.inputs)  # before bin_sectored creates the output folder
+    edges = args.edges if args.edges is not None else [15.0 * k for k in range(13)]
+    if not 0.0 < args.gyrotropy_level < 1.0:
+        raise OptionError(f"--gyrotropy-level must lie in (0, 1), got {args.gyrotropy_level}")
+    try:
+        results = bin_sectored(
+            args.inputs, args.out, edges,
+            field=None if args.field == "b_vector" else args.field,
+            gyrotropy_level=args.gyrotropy_level,
+            gyrotropy_tolerance=args.gyrotropy_tolerance,
+            degenerate_deg=args.degenerate_deg, mapping=args.mapping,
+            compress=args.compression, overwrite=args.overwrite, fail_fast=args.fail_fast,
+            workers=args.workers, scheduler=args.scheduler, command=command, log=_say,
+            debug=args.debug)
+    except ValueError as exc:
+        raise OptionError(f"--edges: {exc}" if "edges" in str(exc) else str(exc)) from None
+    code = _batch_exit(results, args, "bin-sectors")
+    if args.summarize is None:
+        return code
+    ready = [r.output for r in results if r.status in ("ok", "skipped")
+             and not r.reason.startswith("not attempted")]
+    if not ready:
+        _say("beltkit bin-sectors: no pitch-angle file to summarize", sys.stderr)
+        return 1
+    summaries = summarize(
+        ready, args.summarize, field=args.summary_field, compress=args.compression,
+        overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
+        scheduler=args.scheduler, command=command, log=_say, debug=args.debug)
+    chained = _argparse.Namespace(out=args.summarize)
+    return max(code, _batch_exit(summaries, chained, "bin-sectors --summarize"))
+
+
 def _cmd_survey(args, command) -> int:
     import numpy as np
 
@@ -587,6 +671,7 @@ def _cmd_demo(args, command) -> int:
 _COMMANDS = {
     "summarize": _cmd_summarize,
     "psd": _cmd_psd,
+    "bin-sectors": _cmd_bin_sectors,
     "survey": _cmd_survey,
     "inspect": _cmd_inspect,
     "demo": _cmd_demo,

@@ -16,7 +16,9 @@ rerun:
 * one bad file is reported (status ``"failed"`` with a one-line reason) and
   the others go on, unless ``fail_fast=True``.
 
-:func:`psd_files` does the same for phase-space density at fixed invariants.
+:func:`psd_files` does the same for phase-space density at fixed invariants,
+and :func:`bin_sectored` for spin-sectored files binned into pitch-angle files
+(``<stem>.pad.nc``, :func:`beltkit.pad.bin_sectors`).
 :func:`survey` bins the summaries' fractions and integrated fluxes onto an
 L x MLT (x time-window) grid.
 
@@ -44,7 +46,8 @@ from .inputs import (
 )
 from .options import DIFFUSION_DEFAULTS, FIELD_CHOICES, StormField
 from .products import summarize_dataset
-from .runners import psd_files, summarize
+from .runners import bin_sectored, psd_files, summarize
+from .sectored import SECTORS_SUFFIX
 from .survey import SURVEY_VARIABLES, survey
 
 __all__ = [
@@ -53,11 +56,13 @@ __all__ = [
     "INPUT_SUFFIXES",
     "PSD_SUFFIX",
     "REPORT_NAME",
+    "SECTORS_SUFFIX",
     "SUMMARY_SUFFIX",
     "SURVEY_VARIABLES",
     "FileResult",
     "StormField",
     "SurveyError",
+    "bin_sectored",
     "expand_inputs",
     "one_line",
     "psd_files",

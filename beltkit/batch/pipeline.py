@@ -31,6 +31,7 @@ from ..io import open_indexed, read_attributes, sha256, write_stream
 from .inputs import FileResult, one_line
 from .options import settings_text
 from .products import Product, psd_product, summary_product
+from .sectored import sectors_product
 
 __all__ = [
     "FILE_LOCK",
@@ -193,6 +194,8 @@ def open_file(task: dict, *, load=False, buffers=None):
             ds = open_indexed(src, mapping=task["mapping"])
             if task.get("product") == "psd":
                 product = psd_product(ds, src, task)
+            elif task.get("product") == "sectors":
+                product = sectors_product(ds, src, task)
             else:
                 nxt = task.get("next_input")
                 product = summary_product(

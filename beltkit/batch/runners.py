@@ -40,8 +40,9 @@ from .options import (
 )
 from .pipeline import FILE_LOCK, digests_dropped, open_file, process_file, write_file
 from .products import release_buffers
+from .sectored import SECTORS_SUFFIX, sectors_settings
 
-__all__ = ["psd_files", "summarize"]
+__all__ = ["bin_sectored", "psd_files", "summarize"]
 
 
 def _default_command(inputs, out_dir, **options) -> str:
@@ -227,6 +228,74 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
         "debug": bool(debug)},
         suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
+        scheduler=scheduler, log=log, progress=progress)
+
+
+def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15)), *,
+                 field=None, gyrotropy_level=1e-3, gyrotropy_tolerance=0.1,
+                 degenerate_deg=10.0, mapping=None, compress=True, overwrite=False,
+                 fail_fast=False, workers=1, scheduler=None, command=None, log=None,
+                 progress=None, debug=False) -> list[FileResult]:
+    """Bin spin-sectored files into pitch-angle files, safely and resumably.
+
+    The batch form of :func:`beltkit.pad.bin_sectors`: one ``<stem>.pad.nc``
+    per sectored input in `out_dir`, each following the pitch-angle
+    conventions (so :func:`summarize` takes them unchanged), with the safety
+    of :func:`summarize`: atomic outputs, one ``FAILED`` line per bad file,
+    skipped when the output records the input's checksum and the present
+    settings, ``run-report.jsonl``, worker processes or a dask.distributed
+    cluster. Files are read one time slab at a time.
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Sectored files, folders or glob patterns (``docs/conventions.md``
+        section 9).
+    out_dir : str or path
+        Output folder (created if needed).
+    pitch_angle_edges_deg : sequence of float
+        Bin edges (degree; default 12 bins of 15 deg).
+    field : {None, "dipole", "igrf"}
+        None: each file's ``b_vector``; otherwise the model evaluated at its
+        ``position_geo``.
+    gyrotropy_level, gyrotropy_tolerance, degenerate_deg
+        As for :func:`beltkit.pad.bin_sectors`.
+    mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug
+        As for :func:`summarize`.
+
+    Returns
+    -------
+    list of FileResult
+        One per input, in input order; chain the outputs into
+        :func:`summarize` with ``summarize([r.output for r in results if
+        r.status != "failed"], ...)`` (the command's ``--summarize DIR``).
+    """
+    if workers is None or int(workers) < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    if field not in (None, "dipole", "igrf"):
+        raise ValueError(f"field must be None (b_vector), 'dipole' or 'igrf', got {field!r}")
+    edges = np.asarray(pitch_angle_edges_deg, dtype=float)
+    if (edges.ndim != 1 or edges.size < 2 or not np.all(np.isfinite(edges))
+            or np.any(np.diff(edges) <= 0) or edges[0] < 0 or edges[-1] > 180):
+        raise ValueError("pitch-angle edges must be at least two increasing numbers in "
+                         f"0-180 degree, got {edges.tolist()}")
+    if not 0.0 < float(gyrotropy_level) < 1.0:
+        raise ValueError(f"gyrotropy_level must lie in (0, 1), got {gyrotropy_level!r}")
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    settings = sectors_settings(edges, field, gyrotropy_level, gyrotropy_tolerance,
+                                degenerate_deg, mapping, compress)
+    if command is None:
+        command = (f"beltkit.batch.bin_sectored({len(files)} file(s), {str(out_dir)!r}, "
+                   f"edges={edges.tolist()}, field={field!r})")
+    return _run_batch(files, out_dir, {
+        "product": "sectors", "settings": settings, "field": field, "epoch": None,
+        "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
+        "debug": bool(debug)},
+        suffix=SECTORS_SUFFIX, desc="bin-sectors", fail_fast=fail_fast, workers=workers,
         scheduler=scheduler, log=log, progress=progress)
 
 
