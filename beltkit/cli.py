@@ -146,6 +146,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="zlib level of the outputs, 0 = none (default: 4)")
     p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
     p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
+    p.add_argument("--strict", action="store_true",
+                   help="refuse a whole file for any bad sample (negative flux, impossible "
+                        "position, values masked when read); default: mask and flag those "
+                        "samples, count them in the report and summarise the rest")
     p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
                    help="local worker processes (default: 1)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
@@ -356,12 +360,15 @@ def _is_pattern(text: str) -> bool:
 def _expand_flux_inputs(inputs) -> list:
     """Expand the inputs as :func:`beltkit.batch.expand_inputs` does, refusing dead ones.
 
-    Every pattern that matched nothing, missing path and folder without flux
-    files is named; nothing is run (and no output folder is created) then.
+    Every pattern that matched nothing and folder without flux files is
+    named; nothing is run (and no output folder is created) then. A missing
+    file path among inputs that name files is kept: it fails on its own line
+    (``FAILED``) while the other files run. Inputs that name no file at all
+    are refused.
     """
     from .batch import INPUT_SUFFIXES, expand_inputs
 
-    files, dead = [], []
+    files, dead, missing = [], [], []
     for item in inputs:
         text = str(item)
         found = expand_inputs([text])
@@ -374,12 +381,11 @@ def _expand_flux_inputs(inputs) -> list:
                             f"({', '.join('*' + x for x in INPUT_SUFFIXES)}; summaries "
                             f"excluded)")
         elif not Path(text).exists():
-            dead.append(f"no such file or folder: {text}")
-            continue
+            missing.append(f"no such file or folder: {text}")
         files += found
-    if dead:
-        if not files:
-            raise OptionError("no input files: " + "; ".join(dead))
+    if dead or (missing and len(missing) == len(files)):
+        if len(missing) == len(files):
+            raise OptionError("no input files: " + "; ".join(dead + missing))
         raise OptionError("; ".join(dead) + " (nothing was run: fix or drop "
                        + ("that input)" if len(dead) == 1 else "those inputs)"))
     return files
@@ -492,7 +498,7 @@ def _cmd_summarize(args, command) -> int:
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=_say, debug=args.debug,
-        diffusion=diffusion, kp=kp,
+        diffusion=diffusion, kp=kp, strict=args.strict,
     )
     return _batch_exit(results, args, "summarize")
 

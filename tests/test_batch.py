@@ -219,7 +219,7 @@ def test_summarize_good_and_bad_files(tmp_path, capsys):
         assert not (out / name.replace(".nc", ".summary.nc")).exists()
     report = [json.loads(x) for x in (out / batch.REPORT_NAME).read_text().splitlines()]
     assert sorted(r["status"] for r in report) == ["failed"] * 5 + ["ok"] * 2
-    assert all(list(r)[1:] == ["file", "status", "reason", "seconds", "output"]
+    assert all(list(r)[1:] == ["file", "status", "reason", "seconds", "output", "flagged"]
                for r in report)
     assert {r["output"] for r in report if r["status"] == "failed"} == {None}
     assert {Path(r["output"]).name for r in report if r["status"] == "ok"} == {
@@ -538,7 +538,9 @@ def test_value_problems_found_in_the_single_pass_are_all_listed(tmp_path, monkey
     write_flux_file(inp / "good.nc", ds)
     want = validate(bio.open_flux(inp / "bad_values.nc", chunks=None))
     assert len(want) == 3 and "3 negative values" in want[1]
-    results = {Path(r.input).name: r for r in batch.summarize([inp], tmp_path / "out")}
+    # (strict: negative values refuse the file; by default they are masked and flagged)
+    results = {Path(r.input).name: r for r in batch.summarize([inp], tmp_path / "out",
+                                                               strict=True)}
     assert results["good.nc"].status == "ok", results["good.nc"].reason
     r = results["bad_values.nc"]
     assert r.status == "failed"
@@ -598,7 +600,7 @@ def test_pipelined_run_reports_in_order_and_equals_one_file_at_a_time(tmp_path, 
     monkeypatch.setattr(batch.products, "TIME_SLAB", 64)  # d_long is streamed in slabs
     monkeypatch.setattr(batch.products, "STREAM_SLAB", 32)
     lines = []
-    piped = batch.summarize([inp], tmp_path / "piped", log=lines.append)
+    piped = batch.summarize([inp], tmp_path / "piped", log=lines.append, strict=True)
     names = [Path(r.input).name for r in piped]
     assert names == ["a.nc", "b_bad.nc", "c.nc", "d_long.nc", "e.nc"]
     assert [r.status for r in piped] == ["ok", "failed", "ok", "ok", "ok"]
@@ -610,7 +612,7 @@ def test_pipelined_run_reports_in_order_and_equals_one_file_at_a_time(tmp_path, 
     for r in piped:
         if r.status != "ok":
             continue
-        [one] = batch.summarize([r.input], tmp_path / "one", fail_fast=True)
+        [one] = batch.summarize([r.input], tmp_path / "one", fail_fast=True, strict=True)
         assert one.status == "ok", one.reason
         with xr.open_dataset(r.output) as a, xr.open_dataset(one.output) as b:
             xr.testing.assert_identical(a.drop_attrs(deep=False), b.drop_attrs(deep=False))

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import glob
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import ConventionError
@@ -47,6 +47,11 @@ class FileResult:
         One line: why it failed or was skipped; empty when ok.
     seconds : float
         Wall time spent on the file.
+    flagged : dict
+        Of a written summary: the number of time samples carrying each bit
+        of :data:`beltkit.pad.samples.SAMPLE_FLAGS` (masked input samples:
+        fill, out of range, quality-rejected, negative flux or uncertainty,
+        impossible position), by meaning; empty otherwise.
     """
 
     input: str
@@ -54,17 +59,20 @@ class FileResult:
     status: str
     reason: str = ""
     seconds: float = 0.0
+    flagged: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         """Return the result as a JSON-ready dict.
 
-        Keys ``file`` (the input), ``status``, ``reason``, ``seconds`` and
-        ``output`` (the summary file, or None when none exists for this input).
+        Keys ``file`` (the input), ``status``, ``reason``, ``seconds``,
+        ``output`` (the summary file, or None when none exists for this input)
+        and ``flagged`` (time samples per masked-sample flag, see the attribute).
         """
         has_output = self.status == "ok" or self.reason == "up to date"
         return {"file": self.input, "status": self.status, "reason": self.reason,
                 "seconds": round(float(self.seconds), 3),
-                "output": self.output if has_output else None}
+                "output": self.output if has_output else None,
+                "flagged": dict(self.flagged)}
 
 
 # ------------------------------------------------------------------------ helpers
@@ -136,7 +144,9 @@ def output_name(path: Path, suffix: str = SUMMARY_SUFFIX) -> str:
 def format_line(r: FileResult) -> str:
     """Return the one line a run prints for a file (``ok``, ``skipped`` or ``FAILED``)."""
     if r.status == "ok":
-        return f"ok  {r.input} -> {r.output} ({r.seconds:.1f} s)"
+        flagged = ", ".join(f"{n} {name}" for name, n in r.flagged.items() if n)
+        tail = f"; flagged time samples: {flagged}" if flagged else ""
+        return f"ok  {r.input} -> {r.output} ({r.seconds:.1f} s){tail}"
     if r.status == "skipped":
         return f"skipped  {r.input}: {r.reason}"
     return f"FAILED  {r.input}: {r.reason}"

@@ -193,7 +193,8 @@ def diffusion_options(diffusion):
             "interval_sigma": sigma}
 
 
-def run_settings(field, altitude_km, epoch, mapping, compress, diffusion=None) -> dict:
+def run_settings(field, altitude_km, epoch, mapping, compress, diffusion=None,
+                 strict=False) -> dict:
     """Return the settings of a summarize run, as recorded in each output."""
     if mapping is None:
         mapping_key = None
@@ -212,6 +213,8 @@ def run_settings(field, altitude_km, epoch, mapping, compress, diffusion=None) -
     }
     if diffusion is not None:  # only then: summaries made without it stay up to date
         settings["diffusion"] = dict(diffusion)
+    if strict:  # whole-file refusal of per-sample problems (pad.samples); default: flagged
+        settings["strict"] = True
     return settings
 
 

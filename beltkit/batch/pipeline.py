@@ -226,16 +226,25 @@ def write_file(job: FileJob) -> FileResult:
     try:
         with FILE_LOCK, single_threaded():
             # the checksum, if already known, goes in with the other attributes;
-            # otherwise it is added once the data are written
+            # otherwise it is added once the data are written; so are the counts of
+            # flagged samples of a summary (known once every slab is computed)
             known = digest.done() and digest.exception() is None
+            attrs = product.attrs_of(digest.result() if known else "")
+            counted = product.flagged is None or product.loaded
+            if counted:
+                attrs.update(product.flag_attrs())
+
+            def late():
+                extra = {} if known else {"source_sha256": digest.result()}
+                return extra if counted else {**extra, **product.flag_attrs()}
+
             commit = write_stream(
                 product.slabs, out, count=product.count, compress=settings["compress"],
-                history=task["command"], attrs=product.attrs_of(digest.result() if known else ""),
-                finish=product.finish,
-                late_attrs=None if known else (lambda: {"source_sha256": digest.result()}),
-                defer_commit=True)
+                history=task["command"], attrs=attrs, finish=product.finish,
+                late_attrs=None if known and counted else late, defer_commit=True)
         commit()  # flush and rename: no netCDF call, outside the lock
-        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - job.t0)
+        return FileResult(str(src), str(out), "ok", "", _time.perf_counter() - job.t0,
+                          dict(product.flagged or {}))
     except Exception as exc:  # one file's failure is reported, never fatal to the run
         return _failed(task, exc, job.t0)
     finally:

@@ -61,6 +61,10 @@ class Product:
     loaded : bool
         Whether the input's data were read into memory (the file can be
         closed, and the pieces computed without it: :meth:`compute`).
+    flagged : dict or None
+        Of a summary: time samples per masked-sample flag
+        (:func:`beltkit.pad.samples.flag_counts`), summed over the pieces
+        computed so far (complete once every piece is); None otherwise.
     """
 
     slabs: Iterable
@@ -68,6 +72,11 @@ class Product:
     finish: Callable | None
     attrs_of: Callable[[str], dict]
     loaded: bool = False
+    flagged: dict | None = None
+
+    def flag_attrs(self) -> dict:
+        """Return the summary attributes ``beltkit_samples_<meaning>`` of :attr:`flagged`."""
+        return {f"beltkit_samples_{k}": int(v) for k, v in (self.flagged or {}).items()}
 
     def compute(self) -> None:
         """Compute every piece now and run the value checks (of a loaded product)."""
@@ -115,7 +124,7 @@ def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
 
 
 def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=None,
-             diffusion=None, prepared=None):
+             diffusion=None, prepared=None, strict=True):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
     With ``defer_value_check`` the flux values of lazy data are checked by
@@ -128,11 +137,15 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
     model = field_model(field, epoch, ds)
     out, pending = partition_slab(ds, model=model, altitude_km=altitude_km,
                                   defer_value_check=defer_value_check, buffers=buffers,
-                                  prepared=prepared)
+                                  prepared=prepared, strict=strict)
     if diffusion is not None:
         counts = None if pending is None else pending[0]
         valid = None if counts is None or hasattr(counts, "dask") else np.asarray(counts)[0]
-        out = _with_diffusion(out, ds, model, altitude_km, diffusion, valid, prepared)
+        src = ds
+        if not (prepared.strict if prepared is not None else strict):
+            # the partition masked negative flux values: so does the diffusion's input
+            src = ds.assign(flux=ds["flux"].where(~(ds["flux"] < 0)))
+        out = _with_diffusion(out, src, model, altitude_km, diffusion, valid, prepared)
     for name in POSITION_NAMES:
         if name not in out.variables and name in ds.variables and ds[name].dims == ("time",):
             out[name] = ds[name]
@@ -226,13 +239,15 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
     """
     from ..pad.conventions import check
     from ..pad.losscones import dipole_low_altitude_note, model_name
+    from ..pad.samples import flag_counts
 
     settings = task["settings"]
     epoch = task["epoch"]
     altitude_km = settings["altitude_km"]
     diffusion = settings.get("diffusion")
     model = field_model(task["field"], epoch, ds)
-    prep = check(ds, model=model, check_values=False)  # the file's one validation
+    # the file's one validation; per-sample problems are masked and flagged unless strict
+    prep = check(ds, model=model, check_values=False, strict=settings.get("strict", False))
     record = (model_name(model), dipole_low_altitude_note(ds, prep, model))
     geo = "position_geo" in ds.variables
     n = ds.sizes.get("time", 0)
@@ -242,6 +257,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
     slab = TIME_SLAB if n <= TIME_SLAB else STREAM_SLAB
     starts = range(0, n, slab) if n else [0]  # an empty file still gets its summary
     state = {"totals": None, "verify": None}
+    flagged = {}
 
     def slabs():
         for a in starts:
@@ -256,6 +272,8 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
                 buffers=buffers if buffers is not None else _slab_buffers())
             state["totals"] = counts if state["totals"] is None else state["totals"] + counts
             state["verify"] = verify
+            for key, value in flag_counts(out["partition_flag"]).items():
+                flagged[key] = flagged.get(key, 0) + value
             if computed is not None and a == starts[-1]:
                 computed()
             yield out
@@ -267,7 +285,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
     def attrs_of(digest_text):
         return _summary_attrs(src, digest_text, settings, epoch, geo, record)
 
-    return Product(slabs(), len(starts), finish, attrs_of, loaded)
+    return Product(slabs(), len(starts), finish, attrs_of, loaded, flagged)
 
 
 def _read_names(ds) -> list:
@@ -366,3 +384,4 @@ def psd_product(ds, src: Path, task: dict) -> Product:
         }
 
     return Product([out], 1, None, attrs_of, loaded=True)
+

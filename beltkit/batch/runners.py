@@ -15,11 +15,13 @@ import datetime as _dt
 import json
 import os
 import sys
+import tempfile
 import time as _time
 from pathlib import Path
 
 import numpy as np
 
+from ..errors import OptionError
 from ..io import load_mapping, remove_stale_temporaries
 from .inputs import (
     PSD_SUFFIX,
@@ -42,7 +44,7 @@ from .pipeline import FILE_LOCK, digests_dropped, open_file, process_file, write
 from .products import release_buffers
 from .sectored import SECTORS_SUFFIX, sectors_settings
 
-__all__ = ["bin_sectored", "psd_files", "summarize"]
+__all__ = ["output_folder", "bin_sectored", "psd_files", "summarize"]
 
 
 def _default_command(inputs, out_dir, **options) -> str:
@@ -53,7 +55,7 @@ def _default_command(inputs, out_dir, **options) -> str:
 def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
-              debug=False, diffusion=None, kp=None) -> list[FileResult]:
+              debug=False, diffusion=None, kp=None, strict=False) -> list[FileResult]:
     """Summarize flux files into loss-cone summary files, safely and resumably.
 
     Parameters
@@ -114,6 +116,17 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         file that holds Kp per sample. The Kp (or the series' checksum, or
         the variable's name) is part of the settings that decide whether an
         output is up to date.
+    strict : bool
+        False (default): problems of single samples (negative flux or
+        uncertainty, a position outside its physical range, values the reader
+        masked as fill, out of the valid range or quality-rejected) mask those
+        samples only; their outputs are NaN and flagged in ``partition_flag``
+        (:data:`beltkit.pad.samples.SAMPLE_FLAGS`), and the number of time
+        samples per flag is in each result's ``flagged``, its report line, the
+        run report and the summary's ``beltkit_samples_<meaning>``
+        attributes. True: any such problem refuses the whole file. Structural
+        problems (no flux, wrong dimensions, unknown units, an unreadable
+        file) refuse the file either way.
 
     Returns
     -------
@@ -122,6 +135,8 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
 
     Raises
     ------
+    beltkit.errors.OptionError
+        If the output folder cannot be created or written to (nothing is run).
     beltkit.io.MappingError
         If the mapping file itself is malformed (nothing is run).
     ValueError
@@ -136,9 +151,9 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    output_folder(out_dir)
     remove_stale_temporaries(out_dir)
-    settings = run_settings(field, altitude_km, epoch, mapping, compress, diffusion)
+    settings = run_settings(field, altitude_km, epoch, mapping, compress, diffusion, strict)
     if command is None:
         extra = {} if diffusion is None else {"diffusion": diffusion}
         command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
@@ -216,7 +231,7 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    output_folder(out_dir)
     remove_stale_temporaries(out_dir)
     settings = psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
                              compress)
@@ -229,6 +244,28 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         "debug": bool(debug)},
         suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
         scheduler=scheduler, log=log, progress=progress)
+
+
+def output_folder(out_dir: Path) -> None:
+    """Create the output folder if needed and check that a file can be written there.
+
+    Raises
+    ------
+    beltkit.errors.OptionError
+        One line naming the folder and what is wrong, before any input is read.
+    """
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OptionError(f"output folder {out_dir} cannot be created "
+                          f"({exc.strerror or exc}); give a folder you can write to") from None
+    try:  # a probe beside the outputs, as their temporaries will be
+        fd, probe = tempfile.mkstemp(prefix=".beltkit-probe-", dir=out_dir)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise OptionError(f"output folder {out_dir} is not writable "
+                          f"({exc.strerror or exc}); give a folder you can write to") from None
 
 
 def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15)), *,
