@@ -13,7 +13,7 @@ cell as the check.
 import numpy as np
 import pytest
 import xarray as xr
-from test_cf import assert_cf_clean
+from _cf_check import assert_cf_clean
 
 from beltkit import batch, diffusion, dipole
 from beltkit.cli import main

@@ -24,103 +24,16 @@ medium a "should" (a warning), low a suggestion. A file passes here when
   does not report a ``bounds`` attribute naming a missing variable).
 """
 
-import re
 import shutil
-import warnings
 from pathlib import Path
 
 import netCDF4
 import pytest
+from _cf_check import DIM_ORDER, HIGH, MEDIUM, allowed, assert_cf_clean, cf_problems
 from _flux_factory import write_flux_file
 
 from beltkit import batch
 from beltkit.cli import main
-
-HIGH, MEDIUM = 3, 2  # compliance_checker.base.BaseCheck.HIGH / .MEDIUM
-
-#: The one medium-priority message allowed (CF-1.8 §2.4, see the module docstring).
-_DIM_ORDER = re.compile(
-    r"^(?P<var>\S+)'s spatio-temporal dimensions are not in the recommended order T, Z, Y, X "
-    r"and/or further dimensions are not located left of T, Z, Y, X\. The dimensions \(and "
-    r"their guessed types\) are (?P<dims>.*) \(with U: other/unknown; L: unlimited\)\.$"
-)
-_DIM_TYPE = re.compile(r"\S+ \((?P<axis>[TZYXU])(?:, unlimited)?\)")
-
-_SUITE = None
-
-
-def _suite():
-    global _SUITE
-    if _SUITE is None:
-        from compliance_checker.runner import CheckSuite
-
-        with warnings.catch_warnings():  # another of its checkers announces its deprecation
-            warnings.simplefilter("ignore", DeprecationWarning)
-            CheckSuite.load_all_available_checkers()
-        _SUITE = CheckSuite()
-    return _SUITE
-
-
-def cf_findings(path: Path):
-    """Run the compliance checker's cf:1.8 suite on `path`.
-
-    Returns ``(failed, crashed)``: ``failed`` is a list of ``(priority, section,
-    message)`` for every failed check, ``crashed`` maps the name of each check
-    that raised to its exception.
-    """
-    suite = _suite()
-    ds = suite.load_dataset(str(path))
-    try:
-        results = suite.run_all(ds, ["cf:1.8"], skip_checks=[])
-    finally:
-        ds.close()
-    groups, crashed = results["cf:1.8"]
-    assert groups, f"the cf:1.8 suite ran no check on {path.name}"
-    failed = []
-    for r in groups:
-        passed, total = (r.value, True) if isinstance(r.value, bool) else r.value
-        if passed < total:
-            failed += [(r.weight, r.name, m) for m in (r.msgs or ["(no message)"])]
-    return failed, {name: repr(exc) for name, (exc, _tb) in crashed.items()}
-
-
-def _allowed(priority, message) -> bool:
-    """Only the §2.4 'other dimensions to the left' recommendation (see module docstring)."""
-    if priority != MEDIUM:
-        return False
-    m = _DIM_ORDER.match(message)
-    if m is None:
-        return False
-    axes = "".join(t.group("axis") for t in _DIM_TYPE.finditer(m.group("dims")))
-    spatiotemporal = axes.replace("U", "")
-    return bool(re.fullmatch("T?Z?Y?X?", spatiotemporal))
-
-
-def dangling_references(path: Path) -> list[str]:
-    """Names in bounds / ancillary_variables / coordinates attributes that are not variables."""
-    missing = []
-    with netCDF4.Dataset(path) as nc:
-        for name, var in nc.variables.items():
-            for attr in ("bounds", "ancillary_variables", "coordinates"):
-                for ref in str(getattr(var, attr, "")).split():
-                    if ref not in nc.variables:
-                        missing.append(f"{name}:{attr} names {ref!r}, which is not in the file")
-    return missing
-
-
-def cf_problems(path: Path) -> list[tuple]:
-    """Everything that fails `path` here, as ``(priority, section, message)`` tuples."""
-    failed, crashed = cf_findings(path)
-    problems = [(HIGH, "check raised", f"{name}: {exc}") for name, exc in crashed.items()]
-    problems += [f for f in failed if f[0] >= MEDIUM and not _allowed(f[0], f[2])]
-    problems += [(HIGH, "references", msg) for msg in dangling_references(path)]
-    return problems
-
-
-def assert_cf_clean(path: Path):
-    """Zero CF-1.8 errors, no warning but the §2.4 one allowed, no dangling reference."""
-    problems = cf_problems(path)
-    assert problems == [], f"{path.name}:\n" + "\n".join(map(str, problems))
 
 
 @pytest.fixture(scope="module")
@@ -199,7 +112,7 @@ def test_checker_flags_bad_time_units_standard_name_and_missing_bounds(pipeline,
     assert any(s == "§3.3" and "renamed_bnds" in m for s, m in high), problems
 
 
-def test_only_the_left_of_time_recommendation_is_allowed(tmp_path):
+def test_only_the_left_of_time_recommendation_isallowed(tmp_path):
     # the allowance is narrow: spatiotemporal dimensions out of T, Z, Y, X order still fail
     p = tmp_path / "order.nc"
     with netCDF4.Dataset(p, "w") as nc:
@@ -214,8 +127,8 @@ def test_only_the_left_of_time_recommendation_is_allowed(tmp_path):
         x = nc.createVariable("x", "f4", ("lon", "lat"))
         x.units, x.standard_name, x[:] = "K", "air_temperature", 1.0
     [(priority, section, msg)] = cf_problems(p)  # this, and nothing else
-    assert priority == MEDIUM and section.startswith("§2.4") and _DIM_ORDER.match(msg)
-    assert not _allowed(priority, msg)
+    assert priority == MEDIUM and section.startswith("§2.4") and DIM_ORDER.match(msg)
+    assert not allowed(priority, msg)
     # the same message for an energy dimension right of time is the one allowed
     ok = msg.replace("lon (X), lat (Y)", "time (T), energy (U)")
-    assert _allowed(MEDIUM, ok)
+    assert allowed(MEDIUM, ok)

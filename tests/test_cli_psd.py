@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 import xarray as xr
-from test_cf import cf_problems
+from _cf_check import cf_problems
 
 from beltkit import batch, psd
 from beltkit.cli import main

@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 import xarray as xr
+from _diffusion_data import bins_dataset, telescope_dataset
 from scipy.integrate import quad, solve_ivp
 
 from beltkit import diffusion, pad
@@ -230,86 +231,6 @@ def test_half_bounce_loss_time_gives_the_tube_emptying_rate():
 # ------------------------------------------------------------------ data
 
 
-def _band_means(lo_deg, hi_deg, L, mlat, z0, a0_deg, b_ratio, k=120):
-    """Mean profile over local bands (uniform in cos, i.e. in solid angle), Gauss-Legendre."""
-    x, w = np.polynomial.legendre.leggauss(k)
-    c = 0.5 * (x + 1)
-    ca1, ca2 = np.cos(np.radians(lo_deg)), np.cos(np.radians(hi_deg))
-    cc = ca1[..., None] + (ca2 - ca1)[..., None] * c
-    al = np.degrees(np.arccos(cc))
-    al = np.minimum(al, 180 - al)
-    aeq = np.degrees(np.arcsin(np.minimum(np.sin(np.radians(al)) / np.sqrt(b_ratio), 1)))
-    f = diffusion.loss_cone_profile(aeq[None], a0_deg, np.asarray(z0)[:, None, None])
-    return (f * w).sum(-1) / 2
-
-
-def _bins_dataset(z0, L=4.5, mlat=0.0, energies=(300.0, 600.0), err=0.02, seed=0,
-                  edges=None, counts=None):
-    from beltkit import dipole
-
-    z0 = np.asarray(z0, dtype=float)
-    n = z0.shape[0]
-    if edges is None:  # 1 deg bins near both loss cones, 10 deg elsewhere
-        edges = np.concatenate([np.arange(0, 20, 1.0), np.arange(20, 160, 10.0),
-                                np.arange(160, 181, 1.0)])
-    e1, e2 = edges[:-1], edges[1:]
-    a0 = dipole.bounce_loss_cone(L)
-    b_ratio = dipole.field_magnitude(L, mlat) / dipole.equatorial_field(L)
-    f = _band_means(e1, e2, L, mlat, z0, a0, b_ratio)
-    flux = np.repeat(f[:, None, :], len(energies), 1) * 1e4
-    rng = np.random.default_rng(seed)
-    sig = err * flux + 1.0
-    data = {"flux": (("time", "energy", "pitch_angle"),
-                     np.abs(flux + rng.normal(size=flux.shape) * sig),
-                     {"units": "cm-2 s-1 sr-1 keV-1"}),
-            "flux_err": (("time", "energy", "pitch_angle"), sig,
-                         {"units": "cm-2 s-1 sr-1 keV-1"})}
-    if counts is not None:  # Poisson counts with a fixed conversion factor
-        lam = flux / counts
-        n_counts = rng.poisson(lam).astype(float)
-        data = {"flux": (("time", "energy", "pitch_angle"), n_counts * counts,
-                         {"units": "cm-2 s-1 sr-1 keV-1"}),
-                "counts": (("time", "energy", "pitch_angle"), n_counts, {"units": "1"}),
-                "counts_to_flux": ((), counts, {"units": "cm-2 s-1 sr-1 keV-1"})}
-    t = np.datetime64("2026-03-01", "ns") + np.arange(n) * np.timedelta64(1, "s")
-    return xr.Dataset(
-        {**data,
-         "pitch_angle_bnds": (("pitch_angle", "nv"), np.stack([e1, e2], 1)),
-         "energy_bnds": (("energy", "nv"), [[e * 0.9, e * 1.1] for e in energies]),
-         "L": ("time", np.full(n, L), {"units": "1"}),
-         "mlat": ("time", np.full(n, mlat), {"units": "degree"})},
-        coords={"time": t, "energy": ("energy", list(energies), {"units": "keV"}),
-                "pitch_angle": ("pitch_angle", 0.5 * (e1 + e2), {"units": "degree"})})
-
-
-def _telescope_dataset(z0, L=4.5, alt=650.0, half=15.0, err=0.03, seed=1):
-    """Synthetic low-orbit pair: one look along B (into the cone), one at 90 deg."""
-    from beltkit import dipole
-
-    z0 = np.asarray(z0, dtype=float)
-    n = z0.shape[0]
-    mlat = math.degrees(math.acos(math.sqrt((1 + alt / R_E_KM) / L)))
-    looks = np.array([0.0, 90.0])
-    a0 = dipole.bounce_loss_cone(L)
-    b_ratio = dipole.field_magnitude(L, mlat) / dipole.equatorial_field(L)
-    lo, hi = np.maximum(looks - half, 0), np.minimum(looks + half, 180)
-    f = _band_means(lo, hi, L, mlat, z0, a0, b_ratio, k=400)
-    flux = f[:, None, :] * 1e4
-    rng = np.random.default_rng(seed)
-    sig = err * flux + 1.0
-    t = np.datetime64("2026-03-02", "ns") + np.arange(n) * np.timedelta64(1, "s")
-    return xr.Dataset(
-        {"flux": (("time", "energy", "look"), np.abs(flux + rng.normal(size=flux.shape) * sig),
-                  {"units": "cm-2 s-1 sr-1 keV-1"}),
-         "flux_err": (("time", "energy", "look"), sig, {"units": "cm-2 s-1 sr-1 keV-1"}),
-         "look_pitch_angle": (("time", "look"), np.tile(looks, (n, 1)), {"units": "degree"}),
-         "look_half_angle": (("look",), [half, half], {"units": "degree"}),
-         "energy_bnds": (("energy", "nv"), [[270.0, 330.0]]),
-         "L": ("time", np.full(n, L), {"units": "1"}),
-         "mlat": ("time", np.full(n, mlat), {"units": "degree"})},
-        coords={"time": t, "energy": ("energy", [300.0], {"units": "keV"})})
-
-
 def _coverage(out, d_true):
     """Share of resolved samples whose interval holds the true D (a one-sided bound counts)."""
     lo = out["diffusion_coefficient_lower"].values
@@ -330,7 +251,7 @@ def scattering_event():
     # synthetic event: D_true known per sample (log-uniform z0 0.3-20 along 1500 samples)
     rng = np.random.default_rng(7)
     z0 = np.exp(rng.uniform(np.log(0.3), np.log(20.0), 1500))
-    ds = _bins_dataset(z0, seed=3)
+    ds = bins_dataset(z0, seed=3)
     d_true = diffusion.pitch_angle_diffusion(z0[:, None], 4.5, ds.energy.values[None, :])
     return ds, d_true
 
@@ -357,13 +278,13 @@ def test_narrowed_or_widened_interval_fails_the_criterion(scattering_event, fact
 def test_telescope_pair_recovers_d():
     rng = np.random.default_rng(11)
     z0 = np.exp(rng.uniform(np.log(0.3), np.log(10.0), 600))
-    ds = _telescope_dataset(z0)
+    ds = telescope_dataset(z0)
     out = diffusion.from_pitch_angle_data(ds)
     d_true = diffusion.pitch_angle_diffusion(z0[:, None], 4.5, 300.0)
     cov, resolved = _coverage(out, d_true)
     assert resolved > 0.99 and _calibrated(cov), cov
     # noise-free: the band model (cells of alpha_eq / alpha0) is within 0.5 % of z0
-    exact = diffusion.from_pitch_angle_data(_telescope_dataset(np.array([0.5, 2.0, 8.0]),
+    exact = diffusion.from_pitch_angle_data(telescope_dataset(np.array([0.5, 2.0, 8.0]),
                                                                err=0.0))
     np.testing.assert_allclose(exact["z0"].values[:, 0], [0.5, 2.0, 8.0], rtol=5e-3)
 
@@ -381,7 +302,7 @@ def test_noise_free_bins_match_the_cone_mean_closed_form():
     edges = np.concatenate([fine, [a0 + 0.05, 30.0, 90.0, 150.0, 180 - a0 - 0.05],
                             180 - fine[::-1]])
     z0 = np.array([0.3, 1.0, 3.0, 10.0])
-    ds = _bins_dataset(z0, energies=(300.0,), err=0.0, edges=edges)
+    ds = bins_dataset(z0, energies=(300.0,), err=0.0, edges=edges)
     out = diffusion.from_pitch_angle_data(ds, filling_band_deg=0.05)
     b = (a0 + 0.05) / a0
     mean_ln = (b * b * math.log(b) / 2 - b * b / 4 + 0.25) / ((b * b - 1) / 2)
@@ -392,7 +313,7 @@ def test_noise_free_bins_match_the_cone_mean_closed_form():
 
 
 def test_ratio_is_the_partition_filling():
-    ds = _bins_dataset(np.array([0.5, 2.0, 6.0]))
+    ds = bins_dataset(np.array([0.5, 2.0, 6.0]))
     out = diffusion.from_pitch_angle_data(ds)
     part = pad.partition(ds)
     np.testing.assert_allclose(out["diffusion_ratio"], part["loss_cone_filling"], rtol=1e-12)
@@ -404,7 +325,7 @@ def test_ratio_is_the_partition_filling():
 
 
 def test_flags_and_bounds():
-    ds = _bins_dataset(np.array([1.0, 1.0, 1.0, 1.0]), energies=(300.0,))
+    ds = bins_dataset(np.array([1.0, 1.0, 1.0, 1.0]), energies=(300.0,))
     flux = ds["flux"].values.copy()
     err = ds["flux_err"].values.copy()
     bnds = ds["pitch_angle_bnds"].values
@@ -430,7 +351,7 @@ def test_flags_and_bounds():
 
 def test_coarse_bins_leave_the_cone_unresolved():
     edges = np.arange(0.0, 181.0, 15.0)  # 15 deg bins at the equator, cone ~4.4 deg
-    out = diffusion.from_pitch_angle_data(_bins_dataset(np.array([1.0, 5.0]), edges=edges))
+    out = diffusion.from_pitch_angle_data(bins_dataset(np.array([1.0, 5.0]), edges=edges))
     assert np.all(out["diffusion_flag"].values & 8)
     assert np.all(np.isnan(out["z0"].values))
 
@@ -438,7 +359,7 @@ def test_coarse_bins_leave_the_cone_unresolved():
 def test_poisson_counts_give_intervals():
     rng = np.random.default_rng(5)
     z0 = np.exp(rng.uniform(np.log(0.5), np.log(5.0), 400))
-    ds = _bins_dataset(z0, energies=(300.0,), counts=0.5)
+    ds = bins_dataset(z0, energies=(300.0,), counts=0.5)
     out = diffusion.from_pitch_angle_data(ds)
     d_true = diffusion.pitch_angle_diffusion(z0[:, None], 4.5, 300.0)
     cov, resolved = _coverage(out, d_true)
@@ -446,7 +367,7 @@ def test_poisson_counts_give_intervals():
 
 
 def test_outputs_carry_units_and_names(tmp_path):
-    ds = _bins_dataset(np.array([0.5, 2.0]))
+    ds = bins_dataset(np.array([0.5, 2.0]))
     out = diffusion.from_pitch_angle_data(ds, loss_time="quarter_bounce")
     for name, var in out.data_vars.items():
         assert "long_name" in var.attrs, name

@@ -7,8 +7,8 @@ float time since 1970, no fill value on coordinates, ``Conventions`` and
 
 import numpy as np
 import pytest
-from test_cf import assert_cf_clean
-from test_pad_support import make_ds
+from _cf_check import assert_cf_clean
+from _flux_factory import make_ds
 
 from beltkit.io import write_dataset
 from beltkit.pad import fit_sine_power, partition, to_equatorial

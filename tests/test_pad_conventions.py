@@ -5,7 +5,7 @@ import copy
 import numpy as np
 import pytest
 import xarray as xr
-from test_pad_support import make_ds
+from _flux_factory import make_ds
 
 from beltkit.errors import ConventionError
 from beltkit.pad import flux_unit_factor, partition, validate

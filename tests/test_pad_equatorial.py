@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 import xarray as xr
-from test_pad_support import make_ds
+from _flux_factory import make_ds
 
 from beltkit import dipole
 from beltkit.pad import to_equatorial

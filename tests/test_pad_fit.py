@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 import xarray as xr
+from _flux_factory import make_ds
 from scipy import optimize
-from test_pad_support import make_ds
 
 from beltkit.pad import fit_sine_power
 

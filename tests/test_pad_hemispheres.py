@@ -12,8 +12,8 @@ import numpy as np
 import ppigrf
 import pytest
 import xarray as xr
+from _flux_factory import make_ds
 from scipy import integrate
-from test_pad_support import make_ds
 
 from beltkit.constants import R_E_KM
 from beltkit.field import IGRF

@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from test_pad_support import make_ds
+from _flux_factory import make_ds
 
 from beltkit import dipole
 from beltkit.constants import R_E_KM

@@ -5,10 +5,10 @@ import copy
 import numpy as np
 import pytest
 import xarray as xr
+from _flux_factory import make_ds, make_telescope_ds
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import integrate, special
-from test_pad_support import make_ds, make_telescope_ds
 
 import beltkit  # noqa: F401  (registers ds.beltkit)
 from beltkit import dipole

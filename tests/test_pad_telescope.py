@@ -11,8 +11,8 @@ with scipy.integrate.quad (spherical geometry: d Omega = 2 pi sin(alpha) d alpha
 
 import numpy as np
 import pytest
+from _flux_factory import make_telescope_ds
 from scipy import integrate
-from test_pad_support import make_telescope_ds
 
 from beltkit.pad import look_solid_angles, partition
 

@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from test_diffusion import _bins_dataset, _telescope_dataset
+from _diffusion_data import bins_dataset, telescope_dataset
 
 from beltkit import diffusion, plot
 
@@ -11,7 +11,7 @@ from beltkit import diffusion, plot
 def event():
     # synthetic orbit segment (invented data): z0 falls from strong to weak diffusion
     z0 = np.geomspace(0.2, 20.0, 60)
-    ds = _bins_dataset(z0, seed=2)
+    ds = bins_dataset(z0, seed=2)
     ds = ds.assign(L=("time", np.linspace(3.0, 6.0, 60), {"units": "1"}))
     return ds, diffusion.from_pitch_angle_data(ds)
 
@@ -45,7 +45,7 @@ def test_overview_panels_and_values(event):
 
 
 def test_overview_for_telescopes_and_chosen_time(tmp_path):
-    ds = _telescope_dataset(np.geomspace(0.5, 5.0, 20))
+    ds = telescope_dataset(np.geomspace(0.5, 5.0, 20))
     res = diffusion.from_pitch_angle_data(ds)
     fig = plot.diffusion_overview(res, ds, time=str(res.time.values[3]))
     assert str(res.time.values[3])[:19].replace("T", " ") in fig.axes[1].get_title()
