@@ -98,7 +98,7 @@ def test_importing_the_field_package_does_not_load_the_pitch_angle_engine():
     assert out == "[]"
 
 
-def test_tests_import_no_private_names_of_beltkit():
+def test_tests_import_no_private_names_and_no_other_test_module():
     # the tests use the package as its users do: through public names only
     import ast
 
@@ -108,4 +108,10 @@ def test_tests_import_no_private_names_of_beltkit():
             if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("beltkit"):
                 bad += [f"{path.name}: {node.module}.{a.name}" for a in node.names
                         if a.name.startswith("_")]
+            # shared test data live in tests/_*.py helpers; test modules never import each other
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("test_"):
+                bad.append(f"{path.name}: imports the test module {node.module}")
+            if isinstance(node, ast.Import):
+                bad += [f"{path.name}: imports the test module {a.name}" for a in node.names
+                        if a.name.startswith("test_")]
     assert bad == []
