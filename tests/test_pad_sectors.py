@@ -269,6 +269,11 @@ def test_b_along_spin_axis_is_flagged_and_coverage_says_so():
     unsampled = out["look_count"].values == 0
     assert np.isnan(out["flux"].values[unsampled]).all()
     assert ((out["sector_flag"].values[:10] & 1) > 0).all()
+    # bin coverage: the 45-60 deg bin lies inside detector 0's zone 45-65 at psi = 2 deg;
+    # the 90-105 deg bin in neither zone (both detectors' zones: 45-65 and 115-135)
+    bcov = out["bin_coverage"].values
+    assert bcov[:10, 3].min() > 0.99 and bcov[:10, 6].max() == 0.0
+    assert ((out["sector_flag"].values[:10] & 16) > 0).all()
 
 
 def test_bands_against_brute_force(gyrotropic):
@@ -294,7 +299,7 @@ def test_output_follows_pitch_angle_conventions_and_partitions(gyrotropic):
     part = partition(binned.isel(time=slice(0, 50)))
     assert np.isfinite(part["fraction_trapped"].values).mean() > 0.9
     assert binned["flux"].attrs["units"] == FLUX_UNITS
-    assert set(binned["sector_flag"].attrs["flag_masks"]) == {1, 2, 4, 8}
+    assert set(binned["sector_flag"].attrs["flag_masks"]) == {1, 2, 4, 8, 16}
     assert "L" in binned and "mlat" in binned  # positions passed through
     assert "counts" in ds and "sector" in ds["counts"].dims  # input untouched
 

@@ -101,6 +101,7 @@ SECTOR_FLAG_MEANINGS = {
     2: "not_gyrotropic",
     4: "degenerate_geometry",
     8: "no_valid_data",
+    16: "partly_covered_bin",
 }
 
 _INPUT_NAMES = ("counts", "flux", "flux_err", "counts_to_flux", "look_direction", "spin_axis",
@@ -117,7 +118,7 @@ _JIT = {}
 # --------------------------------------------------------------------------- kernel
 def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp1, ph0, ph1,
                   cth, sth, cdel, sdel, cedges, z, tol, pair_min, flux, err, cnt, nlook, chi,
-                  dof, flag, cover, bands):
+                  dof, flag, cover, bcov, bands):
     """Bin one time block (see the module docstring); fills the output arrays in place."""
     n_t, n_e, n_k = x.shape
     n_i = cedges.shape[0] - 1
@@ -133,6 +134,8 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     jb = np.zeros(n_i)
     hs = np.zeros(n_k)
     ls = np.zeros(n_k)
+    rh = np.zeros(n_k)
+    rl = np.zeros(n_k)
     ek = np.zeros(n_k * n_i, np.int64)
     ei = np.zeros(n_k * n_i, np.int64)
     ew = np.zeros(n_k * n_i)
@@ -242,6 +245,7 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             hs[b + 1] = h
             ls[b + 1] = lw
         total = 0.0
+        n_run = 0
         if m > 0:
             run_hi = hs[0]
             run_lo = ls[0]
@@ -250,10 +254,28 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     run_lo = min(run_lo, ls[a])
                 else:
                     total += run_hi - run_lo
+                    rh[n_run] = run_hi
+                    rl[n_run] = run_lo
+                    n_run += 1
                     run_hi = hs[a]
                     run_lo = ls[a]
             total += run_hi - run_lo
+            rh[n_run] = run_hi
+            rl[n_run] = run_lo
+            n_run += 1
         cover[t] = 0.5 * total
+        # each bin's solid-angle fraction inside the union of the bands
+        partial = False
+        for i in range(n_i):
+            inside = 0.0
+            for a in range(n_run):
+                ov = min(rh[a], cedges[i]) - max(rl[a], cedges[i + 1])
+                if ov > 0.0:
+                    inside += ov
+            fr = inside / (cedges[i] - cedges[i + 1])
+            bcov[t, i] = fr
+            if fr < 0.99:
+                partial = True
         if bands.shape[1] == n_k:
             for k in range(n_k):
                 bands[t, k, 0] = blo[k]
@@ -303,6 +325,8 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                 nlook[t, e, i] = nn[i]
             if n_valid == 0:
                 bits |= 8
+            if partial:
+                bits |= 16
             # gyrotropy: looks that sweep (nearly) the same pitch-angle band must agree
             c2 = 0.0
             m = 0
@@ -683,6 +707,7 @@ def _run(s, ds, geo, edges, z, tol=0.0, *, n_e=None, bands=None):
     dof = np.empty((n_t, n_e), np.float32)
     flag = np.empty((n_t, n_e), np.uint8)
     cover = np.empty(n_t)
+    bcov = np.empty((n_t, n_i), np.float32)
     bands = np.zeros((1, 0, 2)) if bands is None else bands
     if n_e and s.is_counts:
         g_all = 1.0 / _factor_array(s.c2f, s, s.c2f_scale)
@@ -721,10 +746,10 @@ def _run(s, ds, geo, edges, z, tol=0.0, *, n_e=None, bands=None):
                bvec[sl], tsl(look, sl), tsl(cp0, sl), tsl(sp0, sl), tsl(cp1, sl), tsl(sp1, sl),
                tsl(ph0, sl), tsl(ph1, sl), cth, sth, cdel, sdel, cedges, z, tol, PAIR_SIMILARITY,
                flux[sl], err[sl], cnt[sl], nlook[sl], chi[sl], dof[sl], flag[sl], cover[sl],
-               bands[sl] if bands.shape[1] else bands)
+               bcov[sl], bands[sl] if bands.shape[1] else bands)
 
     map_slices(block, n_t, _BLOCK)
-    return flux, err, cnt, nlook, chi, dof, flag, cover
+    return flux, err, cnt, nlook, chi, dof, flag, cover, bcov
 
 
 def _passed_through(ds, s):
@@ -793,7 +818,10 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
         input only); ``look_count`` (looks that fed each bin; 0 and NaN flux
         where none did); ``gyrotropy_chi2`` (reduced) and ``gyrotropy_dof``
         (time, energy); ``pitch_angle_coverage`` (time,) (solid angle of the
-        union of the looks' bands over 4 pi); ``spin_b_angle`` (time,) (spin
+        union of the looks' bands over 4 pi); ``bin_coverage`` (time,
+        pitch_angle) (each bin's solid-angle fraction inside that union: a bin
+        below 1 is estimated from looks that see only part of it, bit 16 of
+        ``sector_flag`` where one is below 0.99); ``spin_b_angle`` (time,) (spin
         form); ``sector_flag`` (bits in :data:`SECTOR_FLAG_MEANINGS`);
         ``pitch_angle_bnds``, ``energy_bnds`` and the position variables passed
         through. It passes :func:`beltkit.pad.validate`.
@@ -827,7 +855,7 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
     s = _setup(ds, pitch_angle_edges_deg, field)
     geo = _geometry(s)
     z = float(_normal_isf(gyrotropy_level))
-    flux, err, cnt, nlook, chi, dof, flag, cover = _run(s, ds, geo, s.edges, z,
+    flux, err, cnt, nlook, chi, dof, flag, cover, bcov = _run(s, ds, geo, s.edges, z,
                                                         float(gyrotropy_tolerance))
     psi = geo[-1]
     if psi is not None:
@@ -854,6 +882,9 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
                           {"units": "1", "long_name": "number of look pairs with the same "
                                                       "pitch-angle band (degrees of freedom "
                                                       "of gyrotropy_chi2)"}),
+        "bin_coverage": (("time", "pitch_angle"), bcov,
+                         {"units": "1", "long_name": "solid-angle fraction of the bin inside "
+                                                     "the union of the looks' bands"}),
         "pitch_angle_coverage": ("time", cover.astype(np.float32),
                                  {"units": "1", "long_name": "solid angle of the union of the "
                                                              "looks' pitch-angle bands over "
