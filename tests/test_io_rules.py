@@ -2,6 +2,7 @@
 
 import numpy as np
 import pytest
+import xarray as xr
 from _flux_factory import flux_dataset, write_flux_file
 
 from beltkit import io as bio
@@ -105,3 +106,13 @@ def test_dask_chunks_read_the_masked_flux(tmp_path):
     ref = ds["flux"].values
     np.testing.assert_array_equal(got, np.where(ref > 5e4, np.nan, ref))
     assert lazy.attrs["read_flag_count_out_of_valid_range"] == int((ref > 5e4).sum()) > 0
+
+
+def test_other_cf_time_variables_decode_like_xarray(tmp_path):
+    ds = flux_dataset(n_time=10)
+    ds["sweep_start"] = ("time", ds["time"].values - np.timedelta64(500, "ms"))
+    path = write_flux_file(tmp_path / "t.nc", ds)
+    got = bio.open_indexed(path)["sweep_start"].values
+    with xr.open_dataset(path) as ref:  # xarray's own CF decoding
+        np.testing.assert_array_equal(got, ref["sweep_start"].values)
+    assert got.dtype.kind == "M"

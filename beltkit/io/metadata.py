@@ -205,6 +205,9 @@ def decode_values(ds: xr.Dataset, names, *, where: str = "") -> xr.Dataset:
         var = ds.variables[name]
         if var.dtype.kind not in "iuf":
             continue
+        if " since " in str(var.attrs.get("units", "")):  # another CF time: xarray's decoder
+            out[name] = xr.conventions.decode_cf_variable(name, var, decode_timedelta=False)
+            continue
         rule = value_rule(var, name, where=where)
         attrs = strip_value_attributes(var, rule)
         if rule.trivial:
