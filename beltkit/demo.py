@@ -129,8 +129,8 @@ import xarray as xr
 from . import __version__, dipole
 from .constants import R_E_KM
 
-__all__ = ["SCENARIO", "demo_figures", "generate", "run_demo", "tern_flux_model",
-           "tern_psd_profiles"]
+__all__ = ["SCENARIO", "demo_figures", "generate", "generate_coverage", "run_demo",
+           "tern_flux_model", "tern_psd_profiles"]
 
 FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 
@@ -644,12 +644,14 @@ def _scattering_event(L, energy, look_pa, cones, p):
     return z0, d_true, band_mean
 
 
-def _dunlin_day(day_start, rng):
+def _dunlin_day(day_start, rng, orbits=None, cadence_s=None):
     p = SCENARIO["dunlin"]
+    orbits = p["orbits_per_day"] if orbits is None else orbits
+    cadence_s = p["cadence_s"] if cadence_s is None else cadence_s
     t_start = np.datetime64(SCENARIO["start"], "ns")
     first = day_start + np.timedelta64(int(p["first_orbit_utc_h"] * 3600), "s")
-    n = int(round(p["orbits_per_day"] * p["period_s"] / p["cadence_s"]))
-    time = first + (np.arange(n) * p["cadence_s"] * 1e9).astype("timedelta64[ns]")
+    n = int(round(orbits * p["period_s"] / cadence_s))
+    time = first + (np.arange(n) * cadence_s * 1e9).astype("timedelta64[ns]")
     ra_sun = _sun_right_ascension(t_start)
     raan = ra_sun + np.radians((p["ascending_node_local_time_h"] - 12.0) * 15.0)
     pos, vel, normal = _orbit_gei(time, t_start, a_km=R_E_KM + p["altitude_km"], ecc=0.0,
@@ -773,6 +775,48 @@ def _dunlin_day(day_start, rng):
 
 
 # --------------------------------------------------------------------------- public API
+def generate_coverage(out_dir, *, seed=20261201, orbits=15, cadence_s=10.0) -> Path:
+    """Write one Marram-Dunlin file of many consecutive orbits, for geographic maps.
+
+    The day-files of :func:`generate` hold two orbits a day, whose ground
+    tracks cover two bands of longitude; a map over the globe needs the
+    orbits of a whole day. This file holds `orbits` consecutive orbits from
+    the scenario's first (quiet) day at 06:00 UTC, one sample every
+    `cadence_s` seconds (each still accumulated over 1 s), with the same
+    model, instrument and truth as the day-files. Synthetic, like them.
+
+    Parameters
+    ----------
+    out_dir : str or os.PathLike
+        Folder for the file (created if missing).
+    seed : int
+        Seed of the Poisson counts.
+    orbits : int
+        Consecutive orbits (15 is about one day: the ground track then
+        crosses every longitude).
+    cadence_s : float
+        Time between samples in seconds.
+
+    Returns
+    -------
+    pathlib.Path
+        ``marram_dunlin_quill_synthetic_coverage_YYYYMMDD.nc``.
+    """
+    from .io import write_dataset
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    day_start = np.datetime64(SCENARIO["start"], "ns")
+    ds = _dunlin_day(day_start, np.random.default_rng([seed, 7]), orbits=int(orbits),
+                     cadence_s=float(cadence_s))
+    ds.attrs["comment"] = (f"{ds.attrs.get('comment', '')} {int(orbits)} consecutive "
+                           f"orbits, one sample every {float(cadence_s):g} s, for geographic "
+                           "maps.").strip()
+    tag = str(day_start)[:10].replace("-", "")
+    return write_dataset(ds, out / f"marram_dunlin_quill_synthetic_coverage_{tag}.nc",
+                         compress=True)
+
+
 def generate(out_dir, *, seed=20261201, n_days=None,
              spacecraft=("tern", "dunlin")) -> list[Path]:
     """Write the synthetic Marram scenario as day-files of netCDF.
@@ -1036,6 +1080,33 @@ def tern_psd_profiles(psd_files, mu_mev_per_g=1000.0):
                                lstar_bins=np.arange(2.5, 6.01, 0.25))
 
 
+def _dunlin_geographic(out: Path) -> list[Path]:
+    """Map a day of Dunlin orbits (summarized in the IGRF) by longitude and latitude.
+
+    At 650 km the IGRF's drift loss cone leaves stably trapped electrons only
+    where the field is weakest along their drift, over the South Atlantic: the
+    map of the trapped flux shows it. Writes ``coverage/`` (the data file and
+    its summary), ``survey_dunlin_geo.nc`` and ``figures/dunlin_survey_geo.png``.
+    """
+    from . import batch, plot
+
+    cover = generate_coverage(out / "coverage")
+    [done] = batch.summarize([cover], out / "coverage", field="auto", overwrite=True)
+    if done.status == "failed":
+        raise RuntimeError(f"demo coverage summary failed: {done.input}: {done.reason}")
+    geo = Path(batch.survey([done.output], out / "survey_dunlin_geo.nc", binning="lon-lat",
+                            edges={"lon": np.arange(-180.0, 180.1, 20.0),
+                                   "lat": np.arange(-90.0, 90.1, 10.0)}))
+    fig = plot.survey_cells(geo, "flux_trapped", partial=True)
+    fig_dir = out / "figures"
+    fig_dir.mkdir(parents=True, exist_ok=True)
+    png = fig_dir / "dunlin_survey_geo.png"
+    tmp = fig_dir / ".dunlin_survey_geo.png.tmp.png"
+    fig.savefig(tmp, dpi=120)
+    tmp.replace(png)
+    return [cover, Path(done.output), geo, png]
+
+
 def run_demo(out_dir, *, n_days=None) -> list[Path]:
     """Generate the scenario, run the pipeline on it and draw the figures.
 
@@ -1046,8 +1117,12 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     outputs, ``diffusion=True``), one survey per spacecraft
     (``survey_tern.nc``, hourly windows, and ``survey_dunlin.nc``, daily windows;
     :func:`beltkit.batch.survey`), Marram-Tern's phase-space density at fixed mu
-    and K (``psd/``, :func:`beltkit.batch.psd_files` in the centred dipole) and
-    PNG figures (``figures/``, :func:`demo_figures`, with the radial profiles of f).
+    and K (``psd/``, :func:`beltkit.batch.psd_files` in the centred dipole),
+    PNG figures (``figures/``, :func:`demo_figures`, with the radial profiles of f),
+    and Dunlin's geographic map: a day of orbits (``coverage/``,
+    :func:`generate_coverage`) surveyed by longitude and latitude
+    (``survey_dunlin_geo.nc``, ``figures/dunlin_survey_geo.png``), where the
+    South Atlantic shows in the trapped flux.
 
     Parameters
     ----------
@@ -1101,6 +1176,8 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
             raise RuntimeError("demo phase-space density failed: " + "; ".join(
                 f"{r.input}: {r.reason}" for r in bad))
         psd_out = [Path(r.output) for r in done]
+    geo_out = _dunlin_geographic(out) if any("_dunlin_" in Path(d).name
+                                             for d in data_files) else []
     figures = demo_figures(data_files, summaries, surveys, out / "figures", psd_files=psd_out)
     from .demo_sectors import run_sectors  # the spectrometer as spin-sectored counts, binned
 
@@ -1108,4 +1185,4 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     report = sorted(p for folder in ("summaries", "psd") if (out / folder).is_dir()
                     for p in (out / folder).iterdir()
                     if p.is_file() and not p.name.endswith(".nc"))
-    return [*data_files, *summaries, *psd_out, *report, *surveys.values(), *figures]
+    return [*data_files, *summaries, *psd_out, *report, *surveys.values(), *figures, *geo_out]

@@ -823,7 +823,7 @@ def survey_map(survey, quantity="fraction_precipitating", *, energy=None, kind="
 
 
 def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statistic="median",
-                 time=None, min_count=1, log=None, axes=None):
+                 time=None, min_count=1, log=None, partial=False, axes=None):
     """Map one survey statistic over the survey's two binning axes, with the count per cell.
 
     Works for every binning of :func:`beltkit.batch.survey`: L x MLT,
@@ -850,9 +850,13 @@ def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statisti
         Cells with fewer samples are left blank.
     log : bool, optional
         Logarithmic colour scale. Default: for fluxes and the diffusion
-        outputs when all shown values are positive; linear for fractions.
-        Colour-bar ticks stay labelled whether the values span a factor of
-        two or ten decades.
+        outputs (cells of exactly zero are then drawn light grey, as the
+        title says); linear for fractions. Colour-bar ticks stay labelled
+        whether the values span a factor of two or ten decades.
+    partial : bool
+        Whether the summaries come from partially covered data (telescopes):
+        fractions and fluxes are then labelled as shares of the measured
+        solid angle.
     axes : sequence of two matplotlib.axes.Axes, optional
         Where to draw the statistic and the count.
 
@@ -900,10 +904,14 @@ def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statisti
     finite = values[np.isfinite(values)]
     if log is None:
         log = (statistic != "count" and not quantity.startswith("fraction")
-               and finite.size > 0 and bool(np.all(finite > 0)))
-    label = _LABELS.get(quantity, quantity.replace("_", " "))
+               and bool(np.any(finite > 0)))
+    zero = np.isfinite(values) & (values <= 0) if log else np.zeros(values.shape, bool)
+    if log:
+        values = np.where(zero, np.nan, values)
+    label = _quantity_label(quantity, partial)
     units = survey[name].attrs.get("units", "1")
-    bar_label = label if (quantity in _LABELS or units in ("1", "")) else f"{label} ({units})"
+    plain = _quantity_label(quantity, False)  # the colour bar: quantity and unit only
+    bar_label = plain if (quantity in _LABELS or units in ("1", "")) else f"{plain} ({units})"
     for ax, v, what, lg, cmap in ((axes[0], values, bar_label, log, _FLUX_CMAP),
                                   (axes[1], count, "samples per cell", None, _FRACTION_CMAP)):
         fin = v[np.isfinite(v)]
@@ -919,6 +927,11 @@ def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statisti
             norm = Normalize(lo, hi if hi > lo else lo + 1.0)
         mesh = ax.pcolormesh(x, y, np.ma.masked_invalid(v), norm=norm, cmap=cmap,
                              shading="flat")
+        if ax is axes[0] and zero.any():
+            from matplotlib.colors import ListedColormap
+
+            ax.pcolormesh(x, y, np.ma.masked_where(~zero, zero.astype(float)),
+                          cmap=ListedColormap(["0.85"]), shading="flat")
         bar = fig.colorbar(mesh, ax=ax, label=what, shrink=0.6 if x_dim == "lon" else 0.9,
                            pad=0.01)
         if isinstance(norm, LogNorm):
@@ -935,7 +948,8 @@ def survey_cells(survey, quantity="flux_precipitating", *, energy=None, statisti
             ax.set_yticks(np.arange(-90, 91, 30))
     where = survey.attrs.get("binning", f"{y_dim} x {x_dim}")
     short = label.split(" (")[0]
-    axes[0].set_title(f"{statistic} of {short}\nat {_energy_text(e_all[k])} ({where})",
+    note = "; light grey: 0" if zero.any() else ""
+    axes[0].set_title(f"{statistic} of {short}\nat {_energy_text(e_all[k])} ({where}{note})",
                       fontsize="medium")
     axes[1].set_title("samples per cell", fontsize="medium")
     return fig

@@ -29,7 +29,7 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 SUITES = ("bench_physics", "bench_pad", "bench_batch", "bench_igrf", "bench_field", "bench_t89",
-          "bench_diffusion", "bench_invariants", "bench_sectors")
+          "bench_diffusion", "bench_invariants", "bench_sectors", "bench_survey")
 
 
 def _fmt(value):

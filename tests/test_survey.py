@@ -244,3 +244,31 @@ def test_sigkill_then_resume_ends_equal_to_an_uninterrupted_run(corpus, tmp_path
     folded.clear()
     batch.survey(paths, out, **KW)
     assert len(folded) == N_FILES
+
+
+def test_demo_low_orbit_geographic_map_shows_the_south_atlantic(tmp_path):
+    # common practice: at low altitude, electrons are stably trapped (outside the drift loss
+    # cone) only where the field is weakest along their drift, over the South Atlantic; the
+    # demo's Dunlin telescopes, partitioned in the IGRF, must show that on a longitude-
+    # latitude map (South Atlantic box lon -90..40, lat -50..0)
+    from beltkit import demo, plot
+
+    cover = demo.generate_coverage(tmp_path, orbits=15, cadence_s=60.0)
+    [done] = batch.summarize([cover], tmp_path / "sum", field="auto")
+    assert done.status == "ok", done.reason
+    with xr.open_dataset(done.output) as s:
+        assert s["position_geo"].dims == ("time", "xyz")  # summaries keep the position
+    sv = xr.load_dataset(batch.survey([done.output], tmp_path / "geo.nc", binning="lon-lat",
+                                      edges={"lon": np.arange(-180.0, 180.1, 30.0),
+                                             "lat": np.arange(-90.0, 90.1, 15.0)}))
+    med = sv["flux_trapped_median"].isel(time=0, energy=0)
+    med = med.where(sv["flux_trapped_count"].isel(time=0, energy=0) >= 3)
+    top = med.where(med == med.max(), drop=True)
+    assert -90 <= float(top["lon"][0]) <= 40 and -50 <= float(top["lat"][0]) <= 0
+    box = med.sel(lon=slice(-90, 40), lat=slice(-50, 0))
+    rest = med.where(~((med.lon >= -90) & (med.lon <= 40) & (med.lat >= -50) & (med.lat <= 0)))
+    rest = rest.sel(lat=slice(-50, 50))  # the same latitudes elsewhere
+    assert float(box.max()) > 10 * float(rest.max())  # nudge: not a marginal maximum
+    fig = plot.survey_cells(sv, "flux_trapped", partial=True)
+    assert fig.axes[0].get_xlabel().startswith("geographic longitude")
+    assert fig.axes[1].get_title() == "samples per cell"

@@ -319,11 +319,16 @@ def _q_name(q) -> str:
     return f"q{round(float(q) * 100, 4):g}".replace(".", "_")
 
 
-def _survey_group(task) -> dict:
-    """Fold a group of summaries; reduce the windows that no other group touches."""
+def _survey_group(task, into=None) -> dict:
+    """Fold a group of summaries; reduce the windows that no other group touches.
+
+    With `into` (the caller's open aggregates, in this process) the samples
+    are folded there directly and the caller reduces the windows.
+    """
     spec = task["spec"]
-    open_stats, final, shas = {}, {}, {}
-    left = dict(task["own_windows"])  # window -> files of this group still to read
+    open_stats = {} if into is None else into
+    final, shas = {}, {}
+    left = dict(task["own_windows"]) if into is None else {}  # window -> files still to read
     for path, wins in task["files"]:
         shas[str(path)] = sha256(path)
         _fold_file(path, spec, open_stats)
@@ -332,7 +337,7 @@ def _survey_group(task) -> dict:
                 left[w] -= 1
                 if left[w] == 0 and w in open_stats:
                     final[w] = _reduce(open_stats.pop(w), spec["quantiles"])
-    return {"open": open_stats, "final": final, "sha": shas}
+    return {"open": open_stats if into is None else {}, "final": final, "sha": shas}
 
 
 def _merge_open(total, part) -> None:
@@ -344,30 +349,42 @@ def _merge_open(total, part) -> None:
                 total[w][nm]._absorb(s)
 
 
-def _run_groups(tasks, workers, scheduler):
-    """Yield each group's result as it completes: here, in processes or on a cluster."""
+def _run_groups(tasks, workers, scheduler, into):
+    """Yield each group's result as it completes: here (into `into`), in processes, on a cluster.
+
+    At most two groups per worker are in flight, and a result is dropped as
+    soon as it is merged: the partial aggregates waiting in memory stay few.
+    """
     if scheduler is not None:
-        from distributed import Client, as_completed
+        from distributed import Client, wait
 
         own = not isinstance(scheduler, Client)
         client = Client(scheduler) if own else scheduler
         try:
-            futs = [client.submit(_survey_group, t, pure=False,
-                                  key=f"beltkit-survey-{i}-{os.getpid()}-{_time.time_ns()}")
-                    for i, t in enumerate(tasks)]
-            for fut in as_completed(futs):
-                yield fut.result()
-                fut.release()
+            n_slots = 2 * max(len(client.scheduler_info().get("workers", {})), 1)
+            queue = list(enumerate(tasks))[::-1]
+            running = set()
+            while queue or running:
+                while queue and len(running) < n_slots:
+                    i, t = queue.pop()
+                    running.add(client.submit(
+                        _survey_group, t, pure=False,
+                        key=f"beltkit-survey-{i}-{os.getpid()}-{_time.time_ns()}"))
+                done, running = wait(running, return_when="FIRST_COMPLETED")
+                for fut in done:
+                    res = fut.result()
+                    fut.release()
+                    yield res
         finally:
             if own:
                 client.close()
         return
     if workers <= 1:
         for t in tasks:
-            yield _survey_group(t)
+            yield _survey_group(t, into)
         return
     import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     # fresh interpreters (never a fork of a threaded process), as the summarize runners do
     if "forkserver" in mp.get_all_start_methods():
@@ -376,9 +393,17 @@ def _run_groups(tasks, workers, scheduler):
     else:  # pragma: no cover - Windows
         ctx = mp.get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        futs = [pool.submit(_survey_group, t) for t in tasks]
-        for fut in as_completed(futs):
-            yield fut.result()
+        queue = list(tasks)[::-1]
+        running = set()
+        while queue or running:
+            while queue and len(running) < 2 * workers:
+                running.add(pool.submit(_survey_group, queue.pop()))
+            done, running = wait(running, return_when=FIRST_COMPLETED)
+            for fut in done:
+                res = fut.result()
+                del fut
+                yield res
+            done = None
 
 
 def _fingerprint(spec, files_windows) -> str:
@@ -614,7 +639,7 @@ def survey(summaries, out_file, *, binning="L-MLT", l_edges=None, mlt_edges=None
         tasks.append({"spec": spec, "files": [(paths[k], file_wins[k]) for k in g],
                       "own_windows": own})
     last = _time.monotonic()
-    for res in _run_groups(tasks, workers, scheduler):
+    for res in _run_groups(tasks, workers, scheduler, open_stats):
         _merge_open(open_stats, res["open"])
         final.update(res["final"])
         for p, sha in res["sha"].items():
