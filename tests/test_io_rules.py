@@ -116,3 +116,15 @@ def test_other_cf_time_variables_decode_like_xarray(tmp_path):
     with xr.open_dataset(path) as ref:  # xarray's own CF decoding
         np.testing.assert_array_equal(got, ref["sweep_start"].values)
     assert got.dtype.kind == "M"
+
+
+def test_a_caller_writing_into_a_slab_does_not_change_the_next_read(tmp_path):
+    ds = flux_dataset(n_time=12)
+    ds["flux"].attrs["valid_max"] = np.float32(1e5)
+    path = write_flux_file(tmp_path / "w.nc", ds)
+    opened = bio.open_indexed(path)
+    first = opened["flux"].values
+    first[:] = -1.0
+    again = opened["flux"].values
+    ref = ds["flux"].values
+    np.testing.assert_array_equal(again, np.where(ref > 1e5, np.nan, ref))

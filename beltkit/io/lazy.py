@@ -66,7 +66,7 @@ class Computation:
             cached = self.func(index)
             with self._lock:
                 self._last = (token, cached)
-        out = cached[name]
+        out = cached[name].copy()  # a caller may write into what it gets: the cache stays clean
         return out.reshape([n for a, n in enumerate(out.shape) if a not in drop]) if drop else out
 
 
