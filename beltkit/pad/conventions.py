@@ -269,6 +269,9 @@ def _check_time(ds, problems):
     if t.ndim != 1:
         problems.append("time: must be one-dimensional")
         return
+    if t.size == 0:
+        problems.append("time: no samples (the dataset is empty); nothing to partition")
+        return
     if np.issubdtype(t.dtype, np.datetime64):
         bad_nat = np.isnat(t)
         tv = t.astype("datetime64[ns]", copy=False).view(np.int64)
@@ -478,7 +481,7 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True, strict=Tru
     has_read_flag = _check_read_flag(ds, flux, problems, strict and check_values)
     # values (only when the structure is sound)
     n_negative = 0
-    flux_ok = (set(flux.dims) == want and flux.ndim == 3
+    flux_ok = (set(flux.dims) == want and flux.ndim == 3 and flux.sizes["time"] > 0
                and np.issubdtype(flux.dtype, np.number)
                and (error_source is None or ds[error_source].dims == flux.dims))
     if check_values and flux_ok:
