@@ -384,3 +384,42 @@ def test_unusable_output_folder_is_one_line_naming_it(tmp_path, capsys):
         f"beltkit summarize: error: output folder {ro} is not writable (")
     assert list(ro.iterdir()) == []  # nothing written, no report
     assert _sha256(src) == digest
+
+
+# ---------------------------------------------------------------- masked when read
+
+
+def test_values_masked_when_read_are_flagged_counted_or_refused_with_strict(tmp_path, capsys):
+    # the reader masks values above the CF valid_max and samples whose quality the
+    # mapping rejects (read_flag bits 2 and 4); summarize flags and counts them, and
+    # --strict refuses the file naming both (CF-1.8 section 2.5.1 for valid_max)
+    ds = _good(3)
+    ds["flux"].attrs["valid_max"] = np.float32(1e12)
+    ds["flux"].values[[7, 8], 0, 2] = 5e13  # saturated: above valid_max
+    quality = np.zeros(N_TIME, dtype="int8")
+    quality[[20, 21, 22]] = 2
+    ds["quality"] = ("time", quality, {"flag_values": np.array([0, 1, 2], dtype="int8"),
+                                       "flag_meanings": "good fair bad"})
+    src = write_flux_file(tmp_path / "masked.nc", ds)
+    mapping = tmp_path / "map.toml"
+    mapping.write_text("[quality]\nreject_values = [2]\n")
+    assert main(["summarize", str(src), "--out", str(tmp_path / "a"), "--mapping",
+                 str(mapping)]) == 0
+    line = capsys.readouterr().out.splitlines()[0]
+    assert line.endswith("; flagged time samples: 2 input_out_of_valid_range, "
+                         "3 input_quality_rejected"), line
+    with xr.open_dataset(tmp_path / "a" / ("masked" + SUMMARY)) as got:
+        assert got.attrs["beltkit_samples_input_out_of_valid_range"] == 2
+        assert got.attrs["beltkit_samples_input_quality_rejected"] == 3
+        flag = got["partition_flag"].values
+        assert (flag[[7, 8], 0] & 512).all() and not (flag[:, 1:] & 512).any()
+        assert (flag[[20, 21, 22]] & 1024).all()
+        assert np.isnan(got["flux_trapped"].values[[20, 21, 22]]).all()  # all bins rejected
+        assert np.isfinite(got["flux_trapped"].values[[7, 8], 0]).all()  # one bin masked
+    assert main(["summarize", str(src), "--out", str(tmp_path / "b"), "--mapping",
+                 str(mapping), "--strict"]) == 1
+    line = capsys.readouterr().out.splitlines()[0]
+    assert line.startswith(f"FAILED  {src}: flux: 2 values out of valid range (masked when "
+                           "read)"), line
+    assert "flux: 72 values quality rejected" in line  # 3 samples x 3 energies x 8 bins
+    assert not (tmp_path / "b" / ("masked" + SUMMARY)).exists()

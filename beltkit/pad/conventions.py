@@ -478,7 +478,9 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True, strict=Tru
                                 f"({FLUX_UNITS!r})")
         fills, vmin, vmax = mask_of(ct, problems, "counts")
         counts_mask = ValueMask(1.0, fills, vmin, vmax)
-    has_read_flag = _check_read_flag(ds, flux, problems, strict and check_values)
+    # strict: the reader's masks are counted even without the value scan (the engines'
+    # single pass does not see them): one pass over the uint8 flags, strict runs only
+    has_read_flag = _check_read_flag(ds, flux, problems, strict)
     # values (only when the structure is sound)
     n_negative = 0
     flux_ok = (set(flux.dims) == want and flux.ndim == 3 and flux.sizes["time"] > 0
