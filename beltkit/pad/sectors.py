@@ -136,12 +136,23 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     ls = np.zeros(n_k)
     rh = np.zeros(n_k)
     rl = np.zeros(n_k)
+    order = np.zeros(n_k, np.int64)
+    xt = np.zeros((n_k, n_e))
+    gt = np.zeros((n_k, n_e))
+    ct = np.zeros((n_k, n_e))
+    have_g = False
+    num2 = np.zeros((n_i, n_e))
+    den2 = np.zeros((n_i, n_e))
+    var2 = np.zeros((n_i, n_e))
+    nng = np.zeros(n_i, np.int64)
+    c2v = np.zeros(n_e)
     ek = np.zeros(n_k * n_i, np.int64)
     ei = np.zeros(n_k * n_i, np.int64)
     ew = np.zeros(n_k * n_i)
     pa = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     pb = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     two_pi = 2.0 * math.pi
+    inv_two_pi = 1.0 / two_pi
     nan = np.nan
     for t in range(n_t):
         bs, b1, b2 = bvec[t, 0], bvec[t, 1], bvec[t, 2]
@@ -160,10 +171,10 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                 c1 = b1 * cp1[tp, k] + b2 * sp1[tp, k]
                 hi = max(c0, c1)
                 lo = min(c0, c1)
-                if math.ceil((ph0[tp, k] - phib) / two_pi) * two_pi + phib <= ph1[tp, k]:
+                if math.ceil((ph0[tp, k] - phib) * inv_two_pi) * two_pi + phib <= ph1[tp, k]:
                     hi = rho
                 ph = phib + math.pi
-                if math.ceil((ph0[tp, k] - ph) / two_pi) * two_pi + ph <= ph1[tp, k]:
+                if math.ceil((ph0[tp, k] - ph) * inv_two_pi) * two_pi + ph <= ph1[tp, k]:
                     lo = -rho
                 umin = -(sth[k] * hi + cth[k] * bs)
                 umax = -(sth[k] * lo + cth[k] * bs)
@@ -189,16 +200,21 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             bhi[k] = chi_
             first = -1
             last = -2
-            inv_om = 1.0 / om if om > 0.0 else 0.0
-            for i in range(n_i):
-                ov = min(clo, cedges[i]) - max(chi_, cedges[i + 1])
-                if ov > 0.0 and om > 0.0:
-                    w[k, i] = ov * inv_om
-                    if first < 0:
-                        first = i
-                    last = i
-                else:
-                    w[k, i] = 0.0
+            if om > 0.0:
+                inv_om = 1.0 / om
+                i = 0
+                while i < n_i and cedges[i + 1] >= clo:  # bins wholly above the band
+                    i += 1
+                while i < n_i and cedges[i] > chi_:
+                    ov = min(clo, cedges[i]) - max(chi_, cedges[i + 1])
+                    if ov > 0.0:
+                        w[k, i] = ov * inv_om
+                        if first < 0:
+                            first = i
+                        last = i
+                    else:
+                        w[k, i] = 0.0
+                    i += 1
             if first < 0:
                 i0[k] = 1
                 i1[k] = 0
@@ -214,36 +230,37 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     ei[n_nz] = i
                     ew[n_nz] = w[k, i]
                     n_nz += 1
-        # pairs of looks whose bands nearly coincide (similarity >= pair_min)
-        n_pair = 0
-        for k in range(n_k):
-            if i0[k] > i1[k]:
-                continue
-            for k2 in range(k + 1, n_k):
-                if i0[k2] > i1[k2]:
-                    continue
-                ov = min(blo[k], blo[k2]) - max(bhi[k], bhi[k2])
-                if ov > 0.0:
-                    if ov * ov >= pair_min * (blo[k] - bhi[k]) * (blo[k2] - bhi[k2]):
-                        pa[n_pair] = k
-                        pb[n_pair] = k2
-                        n_pair += 1
-        # solid angle of the union of the bands (cosine length; x 2 pi gives sr)
+        # the valid looks in order of decreasing upper band cosine (insertion sort)
         m = 0
         for k in range(n_k):
             if i0[k] <= i1[k]:
-                hs[m] = blo[k]
-                ls[m] = bhi[k]
+                order[m] = k
                 m += 1
-        for a in range(1, m):  # insertion sort by upper cosine, descending
-            h, lw = hs[a], ls[a]
+        for a in range(1, m):
+            kk = order[a]
             b = a - 1
-            while b >= 0 and hs[b] < h:
-                hs[b + 1] = hs[b]
-                ls[b + 1] = ls[b]
+            while b >= 0 and blo[order[b]] < blo[kk]:
+                order[b + 1] = order[b]
                 b -= 1
-            hs[b + 1] = h
-            ls[b + 1] = lw
+            order[b + 1] = kk
+        for a in range(m):
+            hs[a] = blo[order[a]]
+            ls[a] = bhi[order[a]]
+        # pairs of looks whose bands nearly coincide (similarity >= pair_min); in that
+        # order, once a band starts below the end of band a, no later one overlaps a
+        n_pair = 0
+        for a in range(m):
+            ka = order[a]
+            for b in range(a + 1, m):
+                kb = order[b]
+                if blo[kb] <= bhi[ka]:
+                    break
+                ov = blo[kb] - max(bhi[ka], bhi[kb])
+                if ov * ov >= pair_min * (blo[ka] - bhi[ka]) * (blo[kb] - bhi[kb]):
+                    pa[n_pair] = min(ka, kb)
+                    pb[n_pair] = max(ka, kb)
+                    n_pair += 1
+        # solid angle of the union of the bands (cosine length; x 2 pi gives sr)
         total = 0.0
         n_run = 0
         if m > 0:
@@ -280,6 +297,87 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             for k in range(n_k):
                 bands[t, k, 0] = blo[k]
                 bands[t, k, 1] = bhi[k]
+        # fast path (counts, every value of the sample valid): energies innermost
+        clean = is_counts and (not has_v) and n_e > 0
+        if clean:
+            te = t if g.shape[0] > 1 else 0
+            fresh = g.shape[0] > 1 or not have_g
+            have_g = True
+            for e in range(n_e):
+                ee = e if g.shape[1] > 1 else 0
+                for k in range(n_k):
+                    xv = x[t, e, k]
+                    if not (xv == xv):
+                        clean = False
+                    xt[k, e] = xv
+                    if fresh:  # exposure and its inverse (flux per count), once per block
+                        gt[k, e] = g[te, ee, k]
+                        ct[k, e] = 1.0 / g[te, ee, k]
+        if clean:
+            for i in range(n_i):
+                for e in range(n_e):
+                    num2[i, e] = 0.0
+                    den2[i, e] = 0.0
+                    var2[i, e] = 0.0
+                nng[i] = 0
+            n_valid = 0
+            for k in range(n_k):
+                if i0[k] <= i1[k]:
+                    n_valid += 1
+            for q in range(n_nz):
+                k = ek[q]
+                i = ei[q]
+                wi = ew[q]
+                w2 = wi * wi
+                nng[i] += 1
+                for e in range(n_e):
+                    xv = xt[k, e]
+                    num2[i, e] += wi * xv
+                    den2[i, e] += wi * gt[k, e]
+                    var2[i, e] += w2 * max(xv, 1.0)
+            for e in range(n_e):
+                c2v[e] = 0.0
+            for q in range(n_pair):
+                ka = pa[q]
+                kb = pb[q]
+                for e in range(n_e):
+                    ca = ct[ka, e]
+                    cb = ct[kb, e]
+                    ra = xt[ka, e] * ca
+                    rb = xt[kb, e] * cb
+                    sd = (max(xt[ka, e], 1.0) * ca * ca + max(xt[kb, e], 1.0) * cb * cb
+                          + (tol * 0.5 * (ra + rb)) ** 2)
+                    c2v[e] += (ra - rb) ** 2 / sd
+            for e in range(n_e):
+                bits = 0
+                for i in range(n_i):
+                    if nng[i] > 0 and den2[i, e] > 0.0:
+                        flux[t, e, i] = num2[i, e] / den2[i, e]
+                        err[t, e, i] = math.sqrt(var2[i, e]) / den2[i, e]
+                        cnt[t, e, i] = num2[i, e]
+                    else:
+                        flux[t, e, i] = nan
+                        err[t, e, i] = nan
+                        cnt[t, e, i] = nan
+                        bits |= 1
+                    nlook[t, e, i] = nng[i]
+                if n_valid == 0:
+                    bits |= 8
+                if partial:
+                    bits |= 16
+                m = n_pair
+                if m > 0:
+                    chi[t, e] = c2v[e] / m
+                    dof[t, e] = m
+                    a = 2.0 / (9.0 * m)
+                    crit = m * (1.0 - a + z * math.sqrt(a)) ** 3
+                    if c2v[e] > crit:
+                        bits |= 2
+                else:
+                    chi[t, e] = nan
+                    dof[t, e] = 0.0
+                flag[t, e] = bits
+            continue
         for e in range(n_e):
             for i in range(n_i):
                 num[i] = 0.0
