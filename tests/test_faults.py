@@ -423,3 +423,27 @@ def test_values_masked_when_read_are_flagged_counted_or_refused_with_strict(tmp_
                            "read)"), line
     assert "flux: 72 values quality rejected" in line  # 3 samples x 3 energies x 8 bins
     assert not (tmp_path / "b" / ("masked" + SUMMARY)).exists()
+
+
+def test_record_varying_energy_table_is_summarised_with_its_channel_energies(tmp_path):
+    # an (time, channel) energy table (ISTP record-varying DEPEND_1): each sample keeps its
+    # own channel energies in the summary; the diffusion outputs, which need one energy per
+    # channel, refuse it in one line that says how to get there
+    ds = _good(2)
+    table = ds["energy"].values[None, :] * (1.0 + 0.01 * np.arange(N_TIME)[:, None])
+    varying = ds.drop_vars(["energy", "energy_bnds"])
+    varying["energy_table"] = (("time", "energy"), table / 1e3, {"units": "MeV"})
+    src = write_flux_file(tmp_path / "varying.nc", varying)
+    mapping = {"variables": {"energy": "energy_table"}}
+    [r] = batch.summarize([src], tmp_path / "out", mapping=mapping)
+    assert r.status == "ok", r.reason
+    with xr.open_dataset(r.output) as got, xr.open_dataset(
+            batch.summarize([write_flux_file(tmp_path / "fixed.nc", ds)],
+                            tmp_path / "ref")[0].output) as ref:
+        assert got["channel_energy"].dims == ("time", "energy")
+        np.testing.assert_allclose(got["channel_energy"].values, table, rtol=1e-6)
+        # the partition does not depend on the channel energies: the same numbers
+        np.testing.assert_array_equal(got["flux_trapped"].values, ref["flux_trapped"].values)
+    [r] = batch.summarize([src], tmp_path / "diff", mapping=mapping, diffusion=True)
+    assert r.status == "failed" and r.reason.startswith(
+        "channel_energy: the diffusion outputs need one energy per channel"), r.reason

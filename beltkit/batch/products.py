@@ -18,6 +18,7 @@ import numpy as np
 import xarray as xr
 
 from .. import __version__
+from ..errors import ConventionError
 from ..units import K_UNITS
 from .options import diffusion_options, epoch_text, field_model, kp_text, settings_text
 
@@ -176,6 +177,11 @@ def _with_diffusion(out, ds, model, altitude_km, options, valid=None, prepared=N
     """
     from ..diffusion import from_pitch_angle_data
 
+    if prepared is not None and prepared.energy_kev is None:
+        raise ConventionError(["channel_energy: the diffusion outputs need one energy per "
+                               "channel, and this file's energy table varies from record to "
+                               "record; give the mapping an [energy] common_kev axis, or "
+                               "summarise without --diffusion"], ds.encoding.get("source"))
     dead = None if valid is None or not ds.sizes.get("time") else ~(np.asarray(valid) > 0)
     src = ds
     if dead is not None and dead.any():
