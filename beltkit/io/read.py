@@ -28,6 +28,7 @@ from pathlib import Path
 
 import xarray as xr
 
+from ..errors import MappingError
 from .axes import resolve_energy, resolve_pitch_angle
 from .cdf import open_cdf
 from .mapping import apply_mapping, load_mapping
@@ -147,7 +148,10 @@ def open_indexed(path, mapping=None, *, engine=None) -> xr.Dataset:
         angles; ``channel_energy`` (time, energy) for a record-varying table.
     """
     path = Path(path)
-    m = load_mapping(mapping) if mapping is not None else {}
+    try:
+        m = load_mapping(mapping) if mapping is not None else {}
+    except MappingError as exc:  # name the data file too
+        raise MappingError(f"{path.name}: {exc}") from None
     raw = open_raw(path, engine=engine)
     where = path.name + (f" (mapping {m['source']})" if m else "")
     ds = apply_mapping(raw, m, source=path.name) if m else raw
