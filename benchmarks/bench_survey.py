@@ -88,16 +88,48 @@ def _archive(folder: Path, n_days: int, distinct) -> list[Path]:
 
 
 _CHILD = """
-import json, resource, sys, time
+import json, os, sys, threading, time
 from beltkit.batch import survey
+
+def descendants(root):
+    parent = {}
+    for d in os.listdir('/proc'):
+        if d.isdigit():
+            try:
+                parent[int(d)] = int(open(f'/proc/{d}/stat').read().rsplit(')', 1)[1].split()[1])
+            except (OSError, IndexError, ValueError):
+                pass
+    out, frontier = [], [root]
+    while frontier:
+        p = frontier.pop()
+        kids = [c for c, pp in parent.items() if pp == p]
+        out += kids
+        frontier += kids
+    return out
+
+def hwm_kb(pid):
+    try:
+        for line in open(f'/proc/{pid}/status'):
+            if line.startswith('VmHWM'):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return 0
+
+worker_peak = [0]
+stop = threading.Event()
+def watch():  # the workers' own high-water marks, read while they live
+    while not stop.wait(0.5):
+        for pid in descendants(os.getpid()):
+            worker_peak[0] = max(worker_peak[0], hwm_kb(pid))
+threading.Thread(target=watch, daemon=True).start()
 files = json.loads(open(sys.argv[1]).read())
 t = time.perf_counter()
 survey(files, sys.argv[2], workers=int(sys.argv[3]), resume=False)
 seconds = time.perf_counter() - t
-hwm = [l for l in open('/proc/self/status') if l.startswith('VmHWM')][0]
-child = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-print(json.dumps({"seconds": seconds, "peak_mb": int(hwm.split()[1]) / 1024,
-                  "worker_peak_mb": child / 1024}))
+stop.set()
+print(json.dumps({"seconds": seconds, "peak_mb": hwm_kb(os.getpid()) / 1024,
+                  "worker_peak_mb": worker_peak[0] / 1024}))
 """
 
 

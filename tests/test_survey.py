@@ -272,3 +272,21 @@ def test_demo_low_orbit_geographic_map_shows_the_south_atlantic(tmp_path):
     fig = plot.survey_cells(sv, "flux_trapped", partial=True)
     assert fig.axes[0].get_xlabel().startswith("geographic longitude")
     assert fig.axes[1].get_title() == "samples per cell"
+
+
+def test_command_line_binnings_and_refusal(corpus, tmp_path, capsys):
+    from beltkit.cli import main
+
+    _, paths, _ = corpus
+    out = tmp_path / "geo.nc"
+    assert main(["survey", *map(str, paths[:2]), "--out", str(out), "--binning", "lon-lat",
+                 "--bins", "lon", "-180", "180", "90", "--bins", "lat", "-90", "90", "45",
+                 "--quantiles", "0.1", "0.9", "--restart"]) == 0
+    sv = xr.load_dataset(out)
+    assert sv.sizes["lon"] == 4 and sv.sizes["lat"] == 4
+    assert "omni_flux_q10" in sv and "omni_flux_q90" in sv
+    assert sv.attrs["binning"] == "lon-lat"
+    bare = bio.write_dataset(summary_like_dataset(), tmp_path / f"bare{batch.SUMMARY_SUFFIX}")
+    assert main(["survey", str(bare), "--out", str(tmp_path / "lb.nc"), "--binning", "L-B"]) == 1
+    text = capsys.readouterr().out
+    assert "FAILED" in text and "has no b_local" in text and "--field igrf" in text

@@ -424,10 +424,11 @@ def _write_partial(path, fingerprint, done, open_stats, final, n_windows, n_cell
             parts.append(s.to_dataset(prefix=f"s{len(keys)}_"))
             keys.append([int(w), nm])
     fin = sorted(final)
-    for j, w in enumerate(fin):
-        for nm, r in final[w].items():
-            for stat, arr in r.items():
-                parts.append(xr.Dataset({f"f{j}_{nm}_{stat}": ("cell", arr)}))
+    if fin:  # reduced windows: one (window, cell) array per variable and statistic
+        for nm, r in final[fin[0]].items():
+            for stat in r:
+                parts.append(xr.Dataset({f"f_{nm}_{stat}": (
+                    ("final_window", "final_cell"), np.stack([final[w][nm][stat] for w in fin]))}))
     ds = xr.merge(parts) if parts else xr.Dataset()
     ds.attrs = {"beltkit_survey_fingerprint": fingerprint, "done": json.dumps(done),
                 "open_keys": json.dumps(keys), "final_windows": json.dumps([int(w) for w in fin])}
@@ -455,7 +456,7 @@ def _read_partial(path, fingerprint, files, names, stat_names):
                 open_stats.setdefault(w, {})[nm] = CellStats.from_dataset(ds, prefix=f"s{i}_")
             final = {}
             for j, w in enumerate(json.loads(ds.attrs["final_windows"])):
-                final[w] = {nm: {st: ds[f"f{j}_{nm}_{st}"].values for st in stat_names}
+                final[w] = {nm: {st: ds[f"f_{nm}_{st}"].values[j] for st in stat_names}
                             for nm in names}
     except (OSError, KeyError, ValueError):  # unreadable or foreign: start afresh
         return None
