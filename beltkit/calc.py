@@ -214,8 +214,8 @@ def _losscone_geographic(args, h):
     t = np.array([args.time], dtype="datetime64[ns]")
     res = field.loss_cones(model, xyz, t, altitude_km=h)
     names = [
-        ("L", "L-shell", ""), ("mlat_deg", "magnetic latitude", "degree"),
-        ("mlt_hours", "magnetic local time", "hour"), ("b_local", "field at the point", "nT"),
+        ("L", "L-shell", ""), ("mlat", "magnetic latitude", "degree"),
+        ("mlt", "magnetic local time", "hour"), ("b_local", "field at the point", "nT"),
         ("b_min", "minimum field on the line", "nT"),
         ("b_foot_north", "northern footpoint field", "nT"),
         ("b_foot_south", "southern footpoint field", "nT"),

@@ -62,7 +62,7 @@ def test_centered_dipole_drift_equals_bounce_loss_cone():
         assert ds[name].attrs["units"] == "degree" and ds[name].dims == ("sample",)
     for name in ("b_local", "b_min", "b_foot_north", "b_foot_south", "b_foot_drift_min"):
         assert ds[name].attrs["units"] == "nT"
-    assert ds.mlt.attrs["units"] == "h" and np.all((ds.mlt >= 0) & (ds.mlt < 24))
+    assert ds.mlt.attrs["units"] == "hour" and np.all((ds.mlt >= 0) & (ds.mlt < 24))
 
 
 def test_dipole_table_against_closed_form():
@@ -223,4 +223,6 @@ def test_sample_on_a_grounded_shell():
     np.testing.assert_allclose(ds.dlc_equatorial[0], 90.0)
     np.testing.assert_allclose(ds.b_foot_drift_min[0], ds.b_min[0])
     assert 0 < float(ds.blc_equatorial[1]) < float(ds.dlc_equatorial[1]) < 90.0
-    assert ds.mlat_deg.attrs["units"] == "degree" and "mlt_hours" in ds
+    # one name per quantity, UDUNITS unit strings (issue 14: no alias outputs)
+    assert ds.mlat.attrs["units"] == "degree" and ds.mlt.attrs["units"] == "hour"
+    assert "mlat_deg" not in ds and "mlt_hours" not in ds

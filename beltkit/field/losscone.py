@@ -104,8 +104,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         ``b_foot_drift_min`` (nT); ``L`` (McIlwain L of locally mirroring
         particles; lines whose other mirror point lies below the stop
         altitude are traced to the surface for it), ``L_foot`` (the
-        drift-shell label), ``mlat``, ``mlon`` (deg), ``mlt`` (h) (also as
-        ``mlat_deg``, ``mlt_hours``), ``open`` and ``open_reason`` (CF
+        drift-shell label), ``mlat``, ``mlon`` (deg), ``mlt`` (hour),
+        ``open`` and ``open_reason`` (CF
         flags of :data:`beltkit.field.trace.OPEN_REASONS`: boundary, maximum
         radius, step limit); for :class:`~beltkit.field.T89` also
         ``kp_level`` per sample (-1 where Kp is undefined). Attributes
@@ -240,10 +240,7 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     mlt = coords.magnetic_local_time(x.reshape(-1, 3), t, model=model)
     out["mlat"] = (np.asarray(mlat, dtype=float), "degree", "magnetic (dipole) latitude")
     out["mlon"] = (np.asarray(mlon, dtype=float), "degree", "magnetic (dipole) longitude")
-    out["mlt"] = (np.asarray(mlt, dtype=float), "h", "magnetic local time")
-    # the names of the cross-module contract, beside the short ones
-    out["mlat_deg"] = out["mlat"]
-    out["mlt_hours"] = out["mlt"]
+    out["mlt"] = (np.asarray(mlt, dtype=float), "hour", "magnetic local time")
     data = {k: (dims, np.asarray(v).reshape(lead), {"units": u, "long_name": ln})
             for k, (v, u, ln) in out.items()}
     data["open"] = (dims, is_open.reshape(lead),

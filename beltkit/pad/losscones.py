@@ -367,12 +367,9 @@ def _model_block(pos, time, *, model, altitude_km, from_magnetic):
         return out
     xyz = _positions_geo(pos, time, from_magnetic)
     res = loss_cones(model, xyz, time, altitude_km=altitude_km, dim="time")
-    rename = {"mlat": ("mlat", "mlat_deg"), "mlt": ("mlt", "mlt_hours")}
     for k, name in enumerate(_MODEL_FIELDS):
-        for cand in rename.get(name, (name,)):
-            if cand in res.variables:
-                out[:, k] = np.asarray(res[cand].values, dtype=float).reshape(n)
-                break
+        if name in res.variables:
+            out[:, k] = np.asarray(res[name].values, dtype=float).reshape(n)
     return out
 
 
