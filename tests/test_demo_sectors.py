@@ -67,3 +67,17 @@ def test_figure_draws(day):
     assert ax_d.get_xlabel() == "local pitch angle (degree)"
     assert ax_c.get_ylim() == (180.0, 0.0)
     assert len(ax_d.get_legend().get_texts()) == 2  # binned and truth
+
+
+def test_field_model_at_position_equals_the_stored_field(day):
+    # the files' b_vector is the centred dipole at position_geo (GEO): asking bin_sectors for
+    # that model instead gives the same bins (b_vector is stored as float32)
+    from beltkit.pad import bin_sectors
+
+    ds, binned, _ = day
+    edges = np.linspace(0.0, 180.0, 13)
+    model = bin_sectors(ds.drop_vars("b_vector").isel(time=slice(0, 30)), edges,
+                        field="dipole")
+    np.testing.assert_allclose(model["flux"].values, binned["flux"].values[:30], rtol=1e-4)
+    np.testing.assert_allclose(model["spin_b_angle"].values,
+                               binned["spin_b_angle"].values[:30], atol=1e-3)
