@@ -6,7 +6,9 @@ exact solid-angle partition of the measured flux with uncertainties;
 :func:`to_equatorial` maps distributions to the magnetic equator;
 :func:`fit_sine_power` fits :math:`A \sin^n\alpha` to the trapped part. The same
 operations are available as the xarray accessor ``ds.beltkit`` once
-``beltkit`` is imported.
+``beltkit`` is imported. Before all that, :func:`bin_sectors` turns
+spin-sectored counts into pitch-angle bins (with :func:`look_pitch_angle`
+and :func:`gyrophase` of look directions).
 """
 
 from .conventions import FLUX_UNITS, INTEGRATED_FLUX_UNITS, flux_unit_factor, validate

@@ -853,7 +853,7 @@ def _run(s, ds, geo, edges, z, tol=0.0, *, n_e=None, bands=None):
 def _passed_through(ds, s):
     """Variables of `ds` carried into the output: positions, energy bounds, per-time data."""
     keep = {}
-    skip = set(_INPUT_NAMES) | {"position_geo"} - {"position_geo"}
+    skip = set(_INPUT_NAMES)
     for name, var in ds.data_vars.items():
         if name in skip or {"sector", "detector", "pitch_angle"} & set(var.dims):
             continue
