@@ -582,26 +582,28 @@ def test_suggested_mapping_marks_what_the_file_does_not_say(nc_corpus, tmp_path)
 
 
 def test_cdf_written_by_cdflib_from_xarray_summarises_like_the_netcdf(tmp_path):
-    from _flux_factory import write_flux_file
     from cdflib.xarray import xarray_to_cdf
 
     from beltkit.batch import summarize
+    from beltkit.demo import tern_flux_model
 
-    nc = write_flux_file(tmp_path / "in" / "k2_day.nc", n_time=60, seed=4) if (
-        tmp_path / "in").mkdir() is None else None
+    # a demo day-file (the synthetic Marram-Tern spectrometer), first 30 spectra
+    day, _ = tern_flux_model("2026-03-01", np.random.default_rng(5), n_times=30)
+    nc = bio.write_dataset(day, tmp_path / "nc" / "tern_day.nc")
     with xr.open_dataset(nc) as src:
         src = src.load()
-    (tmp_path / "cdfin").mkdir()
-    cdf = tmp_path / "cdfin" / "k2_day.cdf"
+    (tmp_path / "cdf").mkdir()
+    cdf = tmp_path / "cdf" / "tern_day.cdf"
     xarray_to_cdf(src, str(cdf))  # a general-purpose writer (cdflib), ISTP attributes added
-    a = summarize([nc], tmp_path / "out_nc")
-    b = summarize([cdf], tmp_path / "out_cdf")
+    a = summarize([nc], tmp_path / "out_nc", field="dipole")
+    b = summarize([cdf], tmp_path / "out_cdf", field="dipole")
     assert [r.status for r in a + b] == ["ok", "ok"], [r.reason for r in a + b]
     with xr.open_dataset(a[0].output) as sa, xr.open_dataset(b[0].output) as sb:
-        assert set(sa.data_vars) == set(sb.data_vars)
+        assert set(sa.data_vars) == set(sb.data_vars) and sa.sizes["time"] == 30
         for name in sa.data_vars:
             np.testing.assert_array_equal(sa[name].values, sb[name].values, err_msg=name)
         np.testing.assert_array_equal(sa["time"].values, sb["time"].values)
+        assert np.isfinite(sa["fraction_trapped"].values).any()
 
 
 def test_cli_inspect_suggests_a_mapping_that_summarize_uses_unedited(corpus, tmp_path, capsys):
