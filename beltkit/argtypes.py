@@ -48,11 +48,11 @@ def number_arg(text) -> float:
         raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
 
 
-def _number_type(name, ok, requirement, doc):
-    """Make a type: a number for which ``ok(value)`` holds, else "must be <requirement>"."""
+def _checked_type(name, ok, requirement, doc, convert=number_arg):
+    """Make a type: ``convert(text)`` where ``ok(value)`` holds, else "must be <requirement>"."""
 
     def parse(text):
-        value = number_arg(text)
+        value = convert(text)
         if not ok(value):
             raise argparse.ArgumentTypeError(f"must be {requirement}, got {text}")
         return value
@@ -62,43 +62,31 @@ def _number_type(name, ok, requirement, doc):
     return parse
 
 
-def _integer_type(name, ok, requirement, doc):
-    def parse(text):
-        value = int(text)
-        if not ok(value):
-            raise argparse.ArgumentTypeError(f"must be {requirement}, got {text}")
-        return value
-
-    parse.__name__ = parse.__qualname__ = name
-    parse.__doc__ = doc
-    return parse
-
-
-positive_int = _integer_type("positive_int", lambda v: v >= 1, "a positive integer",
-                             "A whole number >= 1 (worker counts).")
-zlib_level = _integer_type("zlib_level", lambda v: 0 <= v <= 9, "a zlib level 0-9",
-                           "A zlib compression level 0-9.")
-positive_number = _number_type("positive_number", lambda v: math.isfinite(v) and v > 0,
+positive_int = _checked_type("positive_int", lambda v: v >= 1, "a positive integer",
+                             "A whole number >= 1 (worker counts).", convert=int)
+zlib_level = _checked_type("zlib_level", lambda v: 0 <= v <= 9, "a zlib level 0-9",
+                           "A zlib compression level 0-9.", convert=int)
+positive_number = _checked_type("positive_number", lambda v: math.isfinite(v) and v > 0,
                                "a finite number > 0", "A finite number > 0.")
-nonnegative_number = _number_type("nonnegative_number", lambda v: v >= 0, ">= 0",
+nonnegative_number = _checked_type("nonnegative_number", lambda v: v >= 0, ">= 0",
                                   "A number >= 0.")
-energy_kev = _number_type("energy_kev", lambda v: math.isfinite(v) and v > 0,
+energy_kev = _checked_type("energy_kev", lambda v: math.isfinite(v) and v > 0,
                           "a finite kinetic energy > 0 keV", "A kinetic energy in keV (> 0).")
-l_shell = _number_type("l_shell", lambda v: math.isfinite(v) and v >= 1,
+l_shell = _checked_type("l_shell", lambda v: math.isfinite(v) and v >= 1,
                        "a finite L-shell >= 1 (the equatorial distance of the field line in "
                        "Earth radii)", "An L-shell (>= 1).")
-pitch_deg = _number_type("pitch_deg", lambda v: 0 <= v <= 180,
+pitch_deg = _checked_type("pitch_deg", lambda v: 0 <= v <= 180,
                          "a pitch angle of 0-180 degrees", "A pitch angle in degrees (0-180).")
-mlat_deg = _number_type("mlat_deg", lambda v: -90 < v < 90,
+mlat_deg = _checked_type("mlat_deg", lambda v: -90 < v < 90,
                         "a magnetic latitude between -90 and 90 degrees (poles excluded)",
                         "A magnetic latitude in degrees, poles excluded.")
-latitude_deg = _number_type("latitude_deg", lambda v: -90 <= v <= 90,
+latitude_deg = _checked_type("latitude_deg", lambda v: -90 <= v <= 90,
                             "a geodetic latitude of -90 to 90 degrees",
                             "A geodetic latitude in degrees (-90 to 90).")
-longitude_deg = _number_type("longitude_deg", math.isfinite,
+longitude_deg = _checked_type("longitude_deg", math.isfinite,
                              "a finite longitude in degrees, east positive",
                              "A longitude in degrees, east positive.")
-footpoint_km = _number_type("footpoint_km", lambda v: math.isfinite(v) and v >= 0,
+footpoint_km = _checked_type("footpoint_km", lambda v: math.isfinite(v) and v >= 0,
                             f"a finite altitude >= 0 km (above the R_E = {R_E_KM:g} km sphere)",
                             "A footpoint (loss) altitude in km above the sphere of one Earth "
                             "radius.")

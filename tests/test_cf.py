@@ -1,27 +1,7 @@
 """CF-1.8 compliance of real summary and survey files, checked by the IOOS compliance checker.
 
-The reference here is the IOOS compliance checker (``compliance-checker`` from
-the package index) with its ``cf:1.8`` suite. It parses units with cf-units,
-whose wheels bundle the UDUNITS-2 C library, so it needs nothing beyond pip:
-no system library. It reads the CF standard-name table shipped inside the
-package (beltkit's files name no ``standard_name_vocabulary`` version, so it
-downloads nothing).
-
-The checker ranks what it finds: high priority is a CF "must" (an error),
-medium a "should" (a warning), low a suggestion. A file passes here when
-
-* every check ran (none raised),
-* no high-priority check failed: zero errors against CF-1.8,
-* no medium-priority check failed except one recommendation, CF-1.8 §2.4:
-  "All other dimensions should, whenever possible, be placed to the left of
-  the spatiotemporal dimensions". beltkit's outputs are time-major
-  (``(time, energy)``: summaries are streamed slab by slab along ``time``),
-  so that recommendation is knowingly not followed. Only that case is let
-  through: the spatiotemporal dimensions themselves must still be in the
-  order T, Z, Y, X (a nudge test below shows a wrong order still fails),
-* every variable named by a ``bounds`` (CF-1.8 §7.1), ``ancillary_variables``
-  (§3.4) or ``coordinates`` (§5) attribute exists (the compliance checker
-  does not report a ``bounds`` attribute naming a missing variable).
+What passes, and why (the one §2.4 recommendation allowed), is explained in
+tests/_cf_check.py, which holds the checker helpers.
 """
 
 import shutil
