@@ -1090,7 +1090,7 @@ def _dunlin_geographic(out: Path) -> list[Path]:
     """
     from . import batch, plot
 
-    cover = generate_coverage(out / "coverage")
+    cover = generate_coverage(out / "coverage", cadence_s=20.0)  # ~7 samples per cell
     [done] = batch.summarize([cover], out / "coverage", field="auto", overwrite=True)
     if done.status == "failed":
         raise RuntimeError(f"demo coverage summary failed: {done.input}: {done.reason}")

@@ -732,7 +732,7 @@ def survey(summaries, out_file, *, binning="L-MLT", l_edges=None, mlt_edges=None
     attrs = {
         "title": f"beltkit survey: loss-cone populations binned by {where} and time",
         "source": ", ".join(p.name for p, _ in infos),
-        "source_sha256": json.dumps({Path(p).name: s for p, s in done.items()}),
+        "source_sha256": json.dumps({Path(p).name: done[p] for p in paths}),  # input order
         "beltkit_version": __version__,
         "binning": binning if isinstance(binning, str) else " x ".join(binning),
         "field_model": g.get("field_model", "unknown"),
