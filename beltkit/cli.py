@@ -641,6 +641,8 @@ def _cmd_inspect(args, command) -> int:
             with open_flux(path, mapping=args.mapping) as ds:
                 problems = validate(ds)
                 edges = ds.attrs.get("pitch_angle_bnds_source")
+                masked = {k[len("read_flag_count_"):].replace("_", " "): int(v)
+                          for k, v in ds.attrs.items() if k.startswith("read_flag_count_")}
         except Exception as exc:  # unreadable file: one line, then the next file
             if args.debug:
                 import traceback
@@ -658,6 +660,8 @@ def _cmd_inspect(args, command) -> int:
             _say(f"ok  {path}")
         if edges:
             _say(f"    pitch-angle bin edges from: {edges}")
+        if masked:
+            _say("    masked when read: " + ", ".join(f"{n} {k}" for k, n in masked.items()))
     _say(f"{len(files)} file(s) checked, {bad} with problems")
     return 1 if bad else 0
 

@@ -613,6 +613,7 @@ def test_cli_inspect_suggests_a_mapping_that_summarize_uses_unedited(corpus, tmp
     main(["inspect", str(corpus["istp"]), "--suggest-mapping", str(out)])
     text = capsys.readouterr().out
     assert f"wrote  {out}" in text and "pitch-angle bin edges from: delta" in text
+    assert "masked when read: 7 fill, 9 out of valid range, 0 quality rejected" in text
     assert not list(out.parent.glob(".*.tmp"))  # written atomically, nothing left beside it
     assert main(["summarize", str(corpus["istp"]), "--mapping", str(out), "--out",
                  str(tmp_path / "s")]) == 0
