@@ -128,3 +128,14 @@ def test_a_caller_writing_into_a_slab_does_not_change_the_next_read(tmp_path):
     again = opened["flux"].values
     ref = ds["flux"].values
     np.testing.assert_array_equal(again, np.where(ref > 1e5, np.nan, ref))
+
+
+def test_valid_range_from_the_mapping_masks_and_a_misplaced_one_is_refused(tmp_path):
+    ds = flux_dataset(n_time=15)
+    path = write_flux_file(tmp_path / "r.nc", ds)
+    got = bio.open_indexed(path, {"variables": {"flux": "flux"}, "valid": {"flux": [0, 2e4]}})
+    ref = ds["flux"].values
+    np.testing.assert_array_equal(got["flux"].values, np.where(ref > 2e4, np.nan, ref))
+    assert got.attrs["read_flag_count_out_of_valid_range"] == int((ref > 2e4).sum()) > 0
+    with pytest.raises(MappingError, match=r"r\.nc.*\[valid\] counts.*\[valid\] flux"):
+        bio.open_indexed(path, {"variables": {"flux": "flux"}, "valid": {"counts": [0, 9]}})

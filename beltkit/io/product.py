@@ -135,6 +135,11 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
         kind = "counts"
     else:
         return ds
+    for key in valid:
+        if key not in (kind, "flux_err"):
+            raise MappingError(f"{where}: [valid] {key}: the flux is read from {kind} here, so "
+                               f"this range would not be applied; remove it or give "
+                               f"[valid] {kind}")
     if qrule and "quality" not in ds.variables:
         raise MappingError(f"{where}: [quality] rule given but no quality variable; name it "
                            f"with [variables] quality = \"...\"")
