@@ -74,7 +74,8 @@ import scipy.constants as _sc
 
 from ._wrap import array_api, check_range
 from .constants import B0_NT, KEV_J, R_E_M
-from .dipole import fold_pitch_angle, mirror_sin2_cos2
+from .dipole.checks import check_L
+from .dipole.mirror import fold_pitch_angle, over_mirror_points
 from .errors import PhysicsError
 from .particles import get_species
 
@@ -229,26 +230,19 @@ def _integrals(y, with_d=True):
     yf = y.ravel()
     t_out = np.full(yf.shape, np.nan)
     d_out = np.full(yf.shape, np.nan) if with_d else None
-    # split the valid elements into tiers, each pass only over what is left
-    remaining = np.flatnonzero(~np.isnan(yf))
-    for lower, rule_name, n, kind in _TIERS:
-        here = yf[remaining] >= lower
-        sel = remaining[here]
-        remaining = remaining[~here]
+
+    def block(w, u, key):
+        rule_name, n, kind = key
         rule = _RULES[(rule_name, n)]
-        step = max(1, _CHUNK // n)
-        for start in range(0, sel.size, step):
-            idx = sel[start:start + step]
-            yb = yf[idx]
-            w, u = mirror_sin2_cos2(yb * yb, (1.0 - yb) * (1.0 + yb))
-            if kind == "x":
-                tv, dv = _block_algebraic(np.sqrt(w), u, rule, with_d)
-            else:
-                lam_m = np.maximum(np.arctan2(np.sqrt(w), np.sqrt(u)), _LAMBDA_FLOOR)
-                tv, dv = _block_trigonometric(lam_m, rule, with_d)
-            t_out[idx] = tv
-            if with_d:
-                d_out[idx] = dv
+        if kind == "x":
+            return _block_algebraic(np.sqrt(w), u, rule, with_d)
+        lam_m = np.maximum(np.arctan2(np.sqrt(w), np.sqrt(u)), _LAMBDA_FLOOR)
+        return _block_trigonometric(lam_m, rule, with_d)
+
+    # the valid elements split into tiers, each pass only over what is left
+    over_mirror_points(yf, (1.0 - yf) * (1.0 + yf), np.flatnonzero(~np.isnan(yf)),
+                       [(lower, (name, n, kind), n) for lower, name, n, kind in _TIERS],
+                       _CHUNK, block, (t_out, d_out))
     return t_out.reshape(shape), (d_out.reshape(shape) if with_d else None)
 
 
@@ -262,11 +256,6 @@ def _y_from_alpha(alpha_eq_deg):
                     hint="Pitch angles are in degrees, 0-180")
     folded, _ = fold_pitch_angle(a)
     return np.sin(np.deg2rad(folded))
-
-
-def _L(L):
-    return check_range(L, "L", lo=1.0, hi=np.inf, hi_open=True,
-                       hint="L is the equatorial distance of the field line in Earth radii")
 
 
 def _energy(energy_kev):
@@ -405,7 +394,7 @@ def bounce_period(energy_kev, L, alpha_eq_deg, species="electron", method="exact
     m = _method(method, BOUNCE_METHODS, "bounce_period")
     sp = get_species(species)
     e = _energy(energy_kev)
-    L = _L(L)
+    L = check_L(L)
     y = _y_from_alpha(alpha_eq_deg)
     e0 = sp.rest_energy_kev
     v = np.sqrt(e * (e + 2.0 * e0)) / (e + e0) * _sc.speed_of_light
@@ -424,7 +413,7 @@ def _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method):
     m = _method(method, DRIFT_METHODS, "drift_period/drift_rate")
     sp = get_species(species)
     e = _energy(energy_kev)
-    L = _L(L)
+    L = check_L(L)
     b0 = check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
                      hint="b0_nt is the dipole's equatorial surface field in nT")
     y = _y_from_alpha(alpha_eq_deg)

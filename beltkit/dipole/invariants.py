@@ -13,7 +13,7 @@ from .._wrap import array_api, check_range
 from ..constants import B0_NT, GAUSS_PER_NT
 from ..units import K_UNITS
 from .checks import check_b0, check_L, check_pitch, cube
-from .mirror import fold_pitch_angle, mirror_sin2_cos2
+from .mirror import fold_pitch_angle, over_mirror_points
 
 __all__ = [
     "invariants_to_pitch_energy",
@@ -95,20 +95,9 @@ def y_integral_kernel(y, with_j=False, cos2=None):
     y_out[at0] = 2.0 + np.arcsinh(np.sqrt(3.0)) / np.sqrt(3.0)
     if with_j:
         j_out[at0] = 0.0
-    remaining = np.flatnonzero(~np.isnan(yf) & ~at0)
-    for lower, n in _Y_TIERS:
-        here = yf[remaining] >= lower
-        sel = remaining[here]
-        remaining = remaining[~here]
-        step = max(1, _Y_CHUNK // n)
-        for start in range(0, sel.size, step):
-            idx = sel[start:start + step]
-            yb = yf[idx]
-            w, u = mirror_sin2_cos2(yb * yb, cf[idx])
-            yv, jv = _y_block(w, u, _Y_RULES[n], with_j)
-            y_out[idx] = yv
-            if with_j:
-                j_out[idx] = jv
+    over_mirror_points(yf, cf, np.flatnonzero(~np.isnan(yf) & ~at0),
+                       [(lower, n, n) for lower, n in _Y_TIERS], _Y_CHUNK,
+                       lambda w, u, n: _y_block(w, u, _Y_RULES[n], with_j), (y_out, j_out))
     return y_out.reshape(shape), (j_out.reshape(shape) if with_j else None)
 
 

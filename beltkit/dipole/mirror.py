@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["asin_deg", "b_ratio", "b_ratio_cos2", "fold_pitch_angle", "mirror_lat_sc",
-           "mirror_mlat_rad", "mirror_sin2_cos2"]
+           "mirror_mlat_rad", "mirror_sin2_cos2", "over_mirror_points"]
 
 
 def b_ratio(mlat_rad):
@@ -184,3 +184,45 @@ def _mirror_block(s, c):
         u_out[near] = 1.0 - w
     return w_out, u_out
 
+
+def over_mirror_points(yf, cos2, todo, tiers, chunk, block, outs):
+    r"""Run a fixed-node quadrature over mirror points, tier by tier of y = sin(alpha_eq).
+
+    The bounce-path integrals of the dipole (:math:`Y`, :math:`T`, :math:`D`)
+    are integrated with fewer nodes for large :math:`y` (short paths) than
+    for small ones; this loop shares that dispatch. Elements ``todo`` (flat
+    indices into ``yf``) go to the first tier whose lower bound they reach,
+    in blocks of at most ``chunk`` node-element products; for each block
+    the mirror point (:func:`mirror_sin2_cos2`, from :math:`y^2` and
+    :math:`\cos^2\alpha_{eq}` = ``cos2``) is found and ``block(w, u, key)``
+    returns one value array per array of ``outs``, written at the block's
+    indices.
+
+    Parameters
+    ----------
+    yf, cos2 : numpy.ndarray
+        Flat :math:`\sin\alpha_{eq}` and :math:`\cos^2\alpha_{eq}`.
+    todo : numpy.ndarray of int
+        Flat indices to compute.
+    tiers : sequence of (float, object, int)
+        ``(lower bound of y, rule key, nodes)`` from the largest y down.
+    chunk : int
+        Node-element products per block (bounds the temporaries).
+    block : callable
+        ``block(sin2_mirror, cos2_mirror, key) -> tuple of arrays``.
+    outs : sequence of numpy.ndarray or None
+        Flat output arrays (None entries are skipped).
+    """
+    remaining = todo
+    for lower, key, n in tiers:
+        here = yf[remaining] >= lower
+        sel = remaining[here]
+        remaining = remaining[~here]
+        step = max(1, chunk // n)
+        for start in range(0, sel.size, step):
+            idx = sel[start:start + step]
+            yb = yf[idx]
+            w, u = mirror_sin2_cos2(yb * yb, cos2[idx])
+            for out, values in zip(outs, block(w, u, key)):
+                if out is not None:
+                    out[idx] = values
