@@ -139,3 +139,6 @@ def test_valid_range_from_the_mapping_masks_and_a_misplaced_one_is_refused(tmp_p
     assert got.attrs["read_flag_count_out_of_valid_range"] == int((ref > 2e4).sum()) > 0
     with pytest.raises(MappingError, match=r"r\.nc.*\[valid\] counts.*\[valid\] flux"):
         bio.open_indexed(path, {"variables": {"flux": "flux"}, "valid": {"counts": [0, 9]}})
+    with pytest.raises(MappingError, match=r"r\.nc.*\[telescope\].*count_rate"):
+        bio.open_indexed(path, {"variables": {"flux": "flux"},
+                                "telescope": {"geometric_factor": 0.01}})

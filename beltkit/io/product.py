@@ -135,6 +135,10 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
         kind = "counts"
     else:
         return ds
+    if m.get("telescope") and kind == "flux":
+        raise MappingError(f"{where}: [telescope] is given but the file is read as flux; "
+                           f"map the rates with [variables] count_rate = \"...\" or remove "
+                           f"[telescope]")
     for key in valid:
         if key not in (kind, "flux_err"):
             raise MappingError(f"{where}: [valid] {key}: the flux is read from {kind} here, so "
