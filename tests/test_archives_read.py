@@ -710,3 +710,22 @@ def test_suggested_mappings_for_a_telescope_archive_and_gsm_ephemeris(more_corpu
         "dimensions": {"energy": "n_e", "pitch_angle": "n_pa"},
         "position": {"form": "cartesian", "frame": "GSM"}})["position_geo"].values
     np.testing.assert_array_equal(got, ref)
+
+
+def test_cdf_without_istp_depends_reads_on_its_record_axis(tmp_path):
+    # a plain (non-ISTP) CDF: no DEPEND_0 anywhere, time and flux share the record axis
+    j = _truth(41, (5, 2, 4))
+    path = _write_cdf(tmp_path / "k2_plain.cdf", [
+        ("t_epoch", CDF_EPOCH, True, (TIMES[:5].astype("datetime64[ms]") - np.datetime64(
+            "0000-01-01T00:00:00", "ms")).astype(np.float64), {}),
+        ("elx_pad", CDF_REAL4, True, j, {"UNITS": "cm-2 s-1 sr-1 keV-1"}),
+        ("en_centre", CDF_REAL4, False, np.array([100.0, 300.0], np.float32), {"UNITS": "keV"}),
+        ("pa_centre", CDF_REAL4, False, np.linspace(22.5, 157.5, 4).astype(np.float32),
+         {"UNITS": "deg"})])
+    ds = bio.open_indexed(path, {
+        "variables": {"time": "t_epoch", "flux": "elx_pad", "energy": "en_centre",
+                      "pitch_angle": "pa_centre"},
+        "dimensions": {"energy": "elx_pad_dim1", "pitch_angle": "elx_pad_dim2"}})
+    assert ds["flux"].dims == ("time", "energy", "pitch_angle")
+    np.testing.assert_array_equal(ds["time"].values, TIMES[:5])
+    np.testing.assert_allclose(ds["flux"].values, j, rtol=1e-6)

@@ -18,7 +18,8 @@ The ISTP attributes are kept as they are (``FILLVAL``, ``VALIDMIN``,
 ``CATDESC``/``FIELDNAM`` become ``long_name``.
 
 Dimension names: a record-varying variable's first dimension is its
-``DEPEND_0`` (a time variable without one names its own); dimension *i* is
+``DEPEND_0``, else ``record`` (a time variable that others name as their
+``DEPEND_0`` but has none itself names its own); dimension *i* is
 named after ``DEPEND_i`` when that names a one-dimensional, non-record-varying
 variable, else ``<DEPEND_i>_channel`` (a record-varying table such as an
 energy per record, whose own last dimension gets the same name); without a
@@ -124,6 +125,7 @@ def open_cdf(path) -> xr.Dataset:
         return f"{dep}_channel"
 
     dims_of = {}
+    dep0_targets = {str(var_attrs[n].get("DEPEND_0")) for n in names}
     for name in names:
         v, a = infos[name], var_attrs[name]
         sizes = [int(s) for s in (v.Dim_Sizes or [])]
@@ -131,7 +133,10 @@ def open_cdf(path) -> xr.Dataset:
         dims = []
         if v.Rec_Vary:
             dep0 = a.get("DEPEND_0")
-            dims.append(str(dep0) if dep0 else (name if is_time else "record"))
+            # without DEPEND_0 a variable is on the plain record axis; a time variable
+            # names its own axis only when other variables point to it
+            dims.append(str(dep0) if dep0 else (name if is_time and name in dep0_targets
+                                                else "record"))
         elif len(sizes) == 1 and not a.get("DEPEND_1"):
             dims_of[name] = (name,)
             continue
