@@ -142,3 +142,25 @@ def test_valid_range_from_the_mapping_masks_and_a_misplaced_one_is_refused(tmp_p
     with pytest.raises(MappingError, match=r"r\.nc.*\[telescope\].*count_rate"):
         bio.open_indexed(path, {"variables": {"flux": "flux"},
                                 "telescope": {"geometric_factor": 0.01}})
+
+
+def test_cdf_time_types_decode_to_utc():
+    from astropy.time import Time
+
+    from beltkit.io.cdf import cdf_time_to_datetime64
+
+    t = np.array(["2016-12-31T23:59:59", "2017-01-01T00:00:00.25"], "datetime64[ns]")
+    zero = np.datetime64("0000-01-01T00:00:00", "ms")  # the CDF epoch (CDF User's Guide 2.4)
+    ms = (t.astype("datetime64[ms]") - zero).astype(np.int64).astype(np.float64)  # ms, no ns
+    np.testing.assert_array_equal(cdf_time_to_datetime64(ms), t)  # CDF_EPOCH
+    sec = np.floor(ms / 1e3)
+    ps = (ms - sec * 1e3) * 1e9
+    np.testing.assert_array_equal(cdf_time_to_datetime64(sec + 1j * ps), t)  # CDF_EPOCH16
+    # CDF_TIME_TT2000: TT ns since J2000 computed by astropy, across the 2016 leap second
+    d = Time(np.datetime_as_string(t), scale="utc").tt - Time("2000-01-01T12:00:00", scale="tt")
+    tt = np.round(d.jd1 * 86400e9 + d.jd2 * 86400e9).astype(np.int64)
+    np.testing.assert_array_equal(cdf_time_to_datetime64(tt), t)
+    # nudge: ignoring the leap second would put the second time 1 s late
+    assert tt[1] - tt[0] == 2_250_000_000
+    fill = np.int64(np.iinfo(np.int64).min)
+    assert np.isnat(cdf_time_to_datetime64(np.array([fill, tt[0]]), fill)[0])

@@ -36,7 +36,7 @@ import xarray as xr
 from xarray.backends import BackendArray
 from xarray.core import indexing
 
-__all__ = ["CDF_TIME_TYPES", "CdfRecords", "open_cdf"]
+__all__ = ["CDF_TIME_TYPES", "CdfRecords", "cdf_time_to_datetime64", "open_cdf"]
 
 #: CDF data types holding times.
 CDF_TIME_TYPES = ("CDF_EPOCH", "CDF_EPOCH16", "CDF_TIME_TT2000")
@@ -77,6 +77,36 @@ class CdfRecords(BackendArray):
         data = np.asarray(cdflib.CDF(self.path).varget(self.name, startrec=start, endrec=stop))
         data = data.reshape((n,) + self.shape[1:]).astype(self.dtype, copy=False)
         return data[rest]
+
+
+def cdf_time_to_datetime64(raw, fill=None) -> np.ndarray:
+    """Return CDF time values (any of :data:`CDF_TIME_TYPES`) as UTC ``datetime64[ns]``.
+
+    Parameters
+    ----------
+    raw : numpy.ndarray
+        ``CDF_EPOCH`` (float64 ms), ``CDF_EPOCH16`` (complex128: seconds +
+        1j * picoseconds) or ``CDF_TIME_TT2000`` (int64 ns) values as cdflib
+        reads them; the type follows from the dtype.
+    fill : scalar, optional
+        The ISTP ``FILLVAL``; those values become NaT.
+
+    Returns
+    -------
+    numpy.ndarray of datetime64[ns]
+        Decoded by :func:`cdflib.cdfepoch.to_datetime` (TT2000 with its
+        leap-second table).
+    """
+    import cdflib
+
+    raw = np.asarray(raw)
+    if raw.size == 0:
+        return np.empty(raw.shape, "datetime64[ns]")
+    data = np.asarray(cdflib.cdfepoch.to_datetime(raw.ravel()), dtype="datetime64[ns]")
+    data = data.reshape(raw.shape)
+    if fill is not None:  # ISTP fill times (e.g. -1e31, the int64 minimum): NaT
+        data = np.where(raw == np.asarray(fill).astype(raw.dtype), np.datetime64("NaT"), data)
+    return data
 
 
 def _attrs(raw: dict) -> dict:
@@ -175,11 +205,7 @@ def open_cdf(path) -> xr.Dataset:
         shape = ((nrec,) if v.Rec_Vary else ()) + tuple(sizes)
         if v.Data_Type_Description in CDF_TIME_TYPES:
             raw = np.asarray(cdf.varget(name) if nrec else np.empty(0))
-            data = np.asarray(cdflib.cdfepoch.to_datetime(raw), dtype="datetime64[ns]")
-            fill = a.get("FILLVAL")
-            if fill is not None and raw.size:  # ISTP fill times (e.g. -1e31, int64 min): NaT
-                data = np.where(raw.reshape(data.shape) == np.asarray(fill).astype(raw.dtype),
-                                np.datetime64("NaT"), data)
+            data = cdf_time_to_datetime64(raw, a.get("FILLVAL"))
             attrs.pop("units", None)
             attrs["cdf_time_type"] = v.Data_Type_Description
             if len(dims) != data.ndim:
