@@ -358,3 +358,22 @@ def test_missing_counts_skip_the_look_only(gyrotropic):
                                np.nansum(counts[5, 1]), rtol=1e-5)
     # the general path gives the clean path's numbers too (same energy, no NaN)
     np.testing.assert_allclose(out["flux"].values[5, 0], ref["flux"].values[5, 0], rtol=1e-6)
+
+
+def test_flux_input_equals_counts_input(gyrotropic):
+    # flux = counts x counts_to_flux with flux_err = sqrt(max(N, 1)) x counts_to_flux (the
+    # Poisson convention of section 2) bins to the same numbers when the exposure does not
+    # depend on the look: sum w N / sum w G = sum w (N / G) / sum w
+    ds = gyrotropic[3]["sin"][0].isel(time=slice(0, 25))
+    c2f = ds["counts_to_flux"]
+    n = ds["counts"].astype(float)
+    flux_ds = ds.drop_vars(["counts", "counts_to_flux"]).assign(
+        flux=(n * c2f).assign_attrs(units="cm-2 s-1 sr-1 MeV-1"),  # per MeV: x 1e-3 to keV
+        flux_err=(np.sqrt(np.maximum(n, 1)) * c2f).assign_attrs(units=FLUX_UNITS))
+    ref = bin_sectors(ds, EDGES)
+    got = bin_sectors(flux_ds.assign(flux=flux_ds["flux"] * 1e3), EDGES)
+    np.testing.assert_allclose(got["flux"].values, ref["flux"].values, rtol=1e-5)
+    np.testing.assert_allclose(got["flux_err"].values, ref["flux_err"].values, rtol=1e-5)
+    np.testing.assert_allclose(got["gyrotropy_chi2"].values, ref["gyrotropy_chi2"].values,
+                               rtol=1e-4)
+    assert "counts" not in got
