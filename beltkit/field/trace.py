@@ -171,11 +171,16 @@ class _Half:
     rec_x: np.ndarray  # samples: position (M, 3)
 
 
-def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max_steps, slack):
+def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max_steps, slack,
+                b_stop=None):
     """Trace half-lines from `x0` in directions `sign` (per half-line: +1 along B, -1 against).
 
     Both directions of every line are integrated together, as separate
     half-lines, so that each field call serves as many points as possible.
+    With `b_stop` (per half-line, nT), a half-line also ends at its second
+    consecutive sample where |B| rises above ``b_stop`` (past the mirror
+    point of that field): it then has no footpoint, ``length`` is the arc to
+    that sample and ``b_foot`` its |B|.
     """
     n = x0.shape[0]
     foot = np.full((n, 3), np.nan)
@@ -193,6 +198,9 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
     s = np.zeros(idx.size)
     r = np.linalg.norm(x, axis=1)
     h = np.minimum(0.01 * r, 0.5 * (r - r_stop) + slack)
+    if b_stop is not None:
+        b_prev = b0[idx].copy()
+        rising = np.zeros(idx.size, dtype=np.int8)
     tries = 0
     max_tries = 4 * max_steps
     while idx.size:
@@ -252,6 +260,14 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
             r[m] = r_new[m]
             steps[idx[m]] += 1
             rec.append((idx[m], s[m].copy(), b_new[m], x_new[m]))
+            if b_stop is not None:
+                up = (b_new[m] > b_stop[idx[m]]) & (b_new[m] > b_prev[m])
+                rising[m] = np.where(up, rising[m] + 1, 0)
+                b_prev[m] = b_new[m]
+                end = m[rising[m] >= 2]
+                length[idx[end]] = s[end]
+                b_foot[idx[end]] = b_new[end]
+                done[end] = True
         h = h_next
         # a line out of steps is open; never loop forever
         out_of_steps = ~done & (steps[idx] >= max_steps)
@@ -263,6 +279,8 @@ def _trace_half(field, x0, k0, b0, sign, r_stop, r_max, rtol, max_step_frac, max
             done |= out_of_steps
         keep = ~done
         idx, x, k1, s, r, h = idx[keep], x[keep], k1[keep], s[keep], r[keep], h[keep]
+        if b_stop is not None:
+            b_prev, rising = b_prev[keep], rising[keep]
 
     if crossings:
         cx, ck, ch, cr, cxn, ckn, gi, cs = (np.concatenate(q) for q in zip(*crossings))
@@ -502,40 +520,44 @@ def _refine_minimum(field, s, lb, xs, n_samples, ok, iterations=10):
     x_base = xs[rows, ka]
     # stepping from the bracket's left sample towards the south: against the field
     k1, _ = field(x_base, rows)
-    best_s, best_f = sb.copy(), fb.copy()
     best_x = xs[rows, k].copy()
+    # each line iterates until its gain stays below 1e-13 twice (converged lines drop out)
+    act = np.arange(rows.size)
+    stall = np.zeros(rows.size, dtype=np.int8)
     for _ in range(iterations):
-        d1 = (fb - fa) / (sb - sa)
-        d2 = (fc - fb) / (sc - sb)
-        curv = (d2 - d1) / (sc - sa)
+        a_, b_, c_ = sa[act], sb[act], sc[act]
+        fa_, fb_, fc_ = fa[act], fb[act], fc[act]
+        d1 = (fb_ - fa_) / (b_ - a_)
+        d2 = (fc_ - fb_) / (c_ - b_)
+        curv = (d2 - d1) / (c_ - a_)
         with np.errstate(divide="ignore", invalid="ignore"):
-            v = 0.5 * (sa + sb) - d1 / (2 * curv)
-        width = sc - sa
+            v = 0.5 * (a_ + b_) - d1 / (2 * curv)
+        width = c_ - a_
         bad = ~np.isfinite(v) | (curv <= 0)
-        v = np.where(bad, 0.5 * (sa + sc), v)
-        v = np.clip(v, sa + 1e-3 * width, sc - 1e-3 * width)
+        v = np.where(bad, 0.5 * (a_ + c_), v)
+        v = np.clip(v, a_ + 1e-3 * width, c_ - 1e-3 * width)
         # avoid a trial point on top of the current best
-        near = np.abs(v - sb) < 1e-6 * width
-        v = np.where(near, np.where(sb - sa > sc - sb, sb - 1e-3 * width, sb + 1e-3 * width), v)
-        t = v - sa
-        xv, _, _, bv = _rk_step(field, x_base, k1, t, -1.0, rows)
+        near = np.abs(v - b_) < 1e-6 * width
+        v = np.where(near, np.where(b_ - a_ > c_ - b_, b_ - 1e-3 * width, b_ + 1e-3 * width), v)
+        t = v - a_
+        xv, _, _, bv = _rk_step(field, x_base[act], k1[act], t, -1.0, rows[act])
         with np.errstate(divide="ignore", invalid="ignore"):
             fv = np.log(bv)
-        better = fv < fb
-        left = v < sb
+        better = fv < fb_
+        left = v < b_
         # new bracket (a, b, c) keeping the lowest point in the middle
-        na = np.where(better, np.where(left, sa, sb), np.where(left, v, sa))
-        nfa = np.where(better, np.where(left, fa, fb), np.where(left, fv, fa))
-        nb = np.where(better, v, sb)
-        nfb = np.where(better, fv, fb)
-        nc = np.where(better, np.where(left, sb, sc), np.where(left, sc, v))
-        nfc = np.where(better, np.where(left, fb, fc), np.where(left, fc, fv))
-        best_x = np.where(better[:, None], xv, best_x)
-        gain = fb - nfb
-        sa, sb, sc, fa, fb, fc = na, nb, nc, nfa, nfb, nfc
-        best_s, best_f = sb, fb
-        if np.all(gain < 1e-13):
+        sa[act] = np.where(better, np.where(left, a_, b_), np.where(left, v, a_))
+        fa[act] = np.where(better, np.where(left, fa_, fb_), np.where(left, fv, fa_))
+        sb[act] = np.where(better, v, b_)
+        fb[act] = np.where(better, fv, fb_)
+        sc[act] = np.where(better, np.where(left, b_, c_), np.where(left, c_, v))
+        fc[act] = np.where(better, np.where(left, fb_, fc_), np.where(left, fc_, fv))
+        best_x[act] = np.where(better[:, None], xv, best_x[act])
+        stall[act] = np.where(fb_ - fb[act] < 1e-13, stall[act] + 1, 0)
+        act = act[stall[act] < 2]
+        if act.size == 0:
             break
+    best_s, best_f = sb, fb
     b_min[rows] = np.exp(best_f)
     s_min[rows] = best_s
     x_min[rows] = best_x
@@ -596,13 +618,21 @@ def trace_lines(
     max_radius_re=30.0,
     max_steps=3000,
     arg_name="start_xyz_km",
+    b_stop_nt=None,
 ):
     """Trace field lines through start points; return the arrays (:class:`FieldLines`).
 
     This is the array-level engine behind :func:`trace`; it also keeps the
     samples of |B| along each line needed by :func:`integral_invariant`.
     Parameters are those of :func:`trace`; `arg_name` names the positions
-    argument in error messages.
+    argument in error messages. With `b_stop_nt` (nT, scalar or one per
+    line) each direction ends at its second consecutive sample where |B|
+    rises above that field, beyond the mirror point of ``B_m <= b_stop_nt``
+    (the minimum of the line is always passed first): :math:`I(B_m)` is
+    then as on the full line, but such an end has no footpoint
+    (``foot_*`` NaN; ``b_foot_*`` is |B| at the last sample, ``length``
+    the arc between the last samples). Ends that reach the stop altitude
+    first are footpoints as usual.
 
     Returns
     -------
@@ -648,6 +678,9 @@ def trace_lines(
     common = dict(r_stop=r_stop, r_max=r_max, rtol=rtol, max_step_frac=max_step_frac,
                   max_steps=max_steps, slack=slack)
     sign = np.concatenate([np.ones(n), -np.ones(n)])
+    if b_stop_nt is not None:
+        bs = np.broadcast_to(np.asarray(b_stop_nt, dtype=float), (n,))
+        common["b_stop"] = np.concatenate([bs, bs])
     both = _trace_half(field, np.concatenate([x0, x0]), np.concatenate([unit0, unit0]),
                        np.concatenate([b_trace, b_trace]), sign, **common)
     north, south = _split_halves(both, n)
