@@ -134,7 +134,8 @@ def _energy_from_mu(mu, b_m_nt, species):
     return p2 / (np.sqrt(p2 + e0 * e0) + e0) * 1e3
 
 
-def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_options):
+def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_options,
+                 lstar_method="fast"):
     """alpha_eq (deg), ln B_m and L* at coarse time nodes (eager), for each K."""
     from .field import lstar
     from .field.models import as_model
@@ -207,7 +208,7 @@ def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_option
         a_eq = np.degrees(np.arcsin(np.sqrt(np.clip(b_min[:, None] / b_mk, 0.0, 1.0))))
     pos_nk = np.broadcast_to(xyz[:, None, :], (nodes.size, k.size, 3))
     ls = lstar(m, pos_nk, tn[:, None], np.where(np.isfinite(a_loc), a_loc, 90.0),
-               altitude_km=altitude_km, n_mlt=n_mlt, **trace_options)
+               altitude_km=altitude_km, n_mlt=n_mlt, method=lstar_method, **trace_options)
     lst = np.where(np.isfinite(a_loc), ls["lstar"].values, np.nan)
     # interpolate to the samples, linearly in time
     a_s = np.stack([np.interp(ts, ts[nodes], a_eq[:, j]) for j in range(k.size)], -1)
@@ -218,7 +219,8 @@ def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_option
 
 
 def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="electron",
-                        lstar_cadence_s=60.0, altitude_km=100.0, n_mlt=24, **trace_options):
+                        lstar_cadence_s=60.0, altitude_km=100.0, n_mlt=24, lstar_method="fast",
+                        **trace_options):
     r"""Phase-space density at fixed first and second invariants, with L*, per sample.
 
     .. math::
@@ -252,6 +254,9 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
         Stop altitude for loss cones and drift shells.
     n_mlt : int, keyword-only
         MLTs of the drift-shell search (:func:`beltkit.field.lstar`).
+    lstar_method : {"fast", "exact"}, keyword-only
+        ``method`` of :func:`beltkit.field.lstar` (the fast path agrees with
+        the exact one to ~1e-6 in L*).
     **trace_options
         Passed to the field-line tracer.
 
@@ -305,13 +310,14 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
         how = "L* = L (centred dipole)"
     else:
         a_s, bm_s, l_s, cadence, m = _model_nodes(ds, model, k, lstar_cadence_s, altitude_km,
-                                                  n_mlt, trace_options)
+                                                  n_mlt, trace_options, lstar_method)
         tcoord = {"time": ds["time"]}
         a_eq = xr.DataArray(a_s, dims=("time", "k"), coords=tcoord)
         bm = xr.DataArray(bm_s, dims=("time", "k"), coords=tcoord)
         lst = xr.DataArray(l_s, dims=("time", "k"), coords=tcoord)
         e_q = _energy_from_mu(mu_da, bm, species).transpose("time", "mu", "k")
-        how = (f"beltkit.field.lstar ({getattr(m, 'name', type(m).__name__)}, {n_mlt} MLTs) "
+        how = (f"beltkit.field.lstar ({getattr(m, 'name', type(m).__name__)}, {n_mlt} MLTs, "
+               f"method {lstar_method!r}) "
                f"at a cadence of {cadence:g} s, interpolated linearly in time to the samples "
                "(as are alpha_eq and ln B_m)")
     # the equatorial grid: the 1-degree cells that the requested K reach somewhere (the
