@@ -288,7 +288,7 @@ def _trace_footpoints(field, start, r_stop, frac=0.1, slack_km=10.0):
 
 
 @pytest.fixture(scope="module")
-def igrf_case():
+def igrf_case(tmp_path_factory):
     """Three samples at 2,000-3,000 km, the IGRF path of the partition, and ppigrf's lines."""
     lat = np.array([30.0, -30.0, 40.0])
     lon = np.array([10.0, -45.0, -100.0])  # Europe, the South Atlantic, North America
@@ -303,6 +303,7 @@ def igrf_case():
                               l_values=np.array([1.5, 2.0, 3.0, 3.5]), n_lon=8)
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(field_losscone, "loss_cones", small)
+        mp.setenv("BELTKIT_CACHE_DIR", str(tmp_path_factory.mktemp("cache")))
         lc = _cones(ds, model="igrf")
     field = _PpigrfField(dt.datetime(2025, 1, 1))
     north, south, b_min = _trace_footpoints(field, pos, A_KM + 100.0)
