@@ -257,7 +257,8 @@ def run_sectors(out_dir, *, seed=20261201) -> list[Path]:
     pitch-angle file ``sectors/pad/<stem>.pad.nc`` (with ``run-report.jsonl``)
     through :func:`beltkit.batch.bin_sectored` into the Tern file's 12 bins,
     and ``figures/tern_sector_coverage.png`` (:func:`beltkit.plot.sector_coverage`
-    at the first sample after 03:00 UTC, 500 keV).
+    at the first sample after 03:00 UTC, 500 keV). ``beltkit demo`` runs it after
+    :func:`beltkit.demo.run_demo`.
 
     Parameters
     ----------
