@@ -253,7 +253,7 @@ def test_demo_low_orbit_geographic_map_shows_the_south_atlantic(tmp_path):
     # latitude map (South Atlantic box lon -90..40, lat -50..0)
     from beltkit import demo, plot
 
-    cover = demo.generate_coverage(tmp_path, orbits=15, cadence_s=60.0)
+    cover = demo.generate_coverage(tmp_path, orbits=15, cadence_s=120.0)
     [done] = batch.summarize([cover], tmp_path / "sum", field="auto")
     assert done.status == "ok", done.reason
     with xr.open_dataset(done.output) as s:

@@ -214,8 +214,12 @@ def _axes(binning, edges, l_edges, mlt_edges):
     return axes
 
 
-def _inspect(path: Path, axes) -> dict:
-    """Read a summary's header and times (not its data); raise with what it lacks."""
+def _inspect(path: Path, axes, w_ns) -> dict:
+    """Read a summary's header and time span (not its data); raise with what it lacks.
+
+    Only the first and last time and the time windows holding samples are
+    kept, so that the list of summaries costs memory per file, not per sample.
+    """
     with xr.open_dataset(path, engine="netcdf4", chunks=None) as ds:
         if "energy" not in ds.dims or "time" not in ds.dims:
             raise ValueError("has no time and energy dimensions (is it a beltkit summary "
@@ -233,7 +237,8 @@ def _inspect(path: Path, axes) -> dict:
                 + _FIXES.get(m, f"add {m} per time to the summaries") for m in missing))
         t = ds["time"].values.astype("datetime64[ns]").astype(np.int64)
         return {
-            "t": t,
+            "t_range": (int(t.min()), int(t.max())) if t.size else None,
+            "wins": np.unique(t // w_ns) if (w_ns is not None and t.size) else None,
             "energy": ds["energy"].values.astype(float),
             "energy_attrs": dict(ds["energy"].attrs),
             "energy_bnds": (ds["energy_bnds"].values if "energy_bnds" in ds.variables
@@ -554,7 +559,7 @@ def survey(summaries, out_file, *, binning="L-MLT", l_edges=None, mlt_edges=None
     problems, infos = [], []
     for p in files:
         try:
-            infos.append((p, _inspect(p, axes)))
+            infos.append((p, _inspect(p, axes, w_ns)))
         except Exception as exc:  # every bad file is listed, then the survey is refused
             problems.append(f"{p}: {one_line(exc)}")
     names = []
@@ -589,14 +594,17 @@ def survey(summaries, out_file, *, binning="L-MLT", l_edges=None, mlt_edges=None
 
     # time windows: those holding samples (or one spanning them all)
     n_e = ref["energy"].size
+    spans = [i["t_range"] for _, i in infos if i["t_range"] is not None]
+    if not spans:
+        raise SurveyError(["the summaries hold no samples"])
     if w_ns is None:
-        t_lo = min(int(i["t"].min()) for _, i in infos if i["t"].size)
-        t_hi = max(int(i["t"].max()) for _, i in infos if i["t"].size)
+        t_lo, t_hi = min(a for a, _ in spans), max(b for _, b in spans)
         win_ids = np.array([0])
         win_starts, win_ends = np.array([t_lo]), np.array([max(t_hi, t_lo + 1)])
-        file_wins = [[0] if i["t"].size else [] for _, i in infos]
+        file_wins = [[0] if i["t_range"] is not None else [] for _, i in infos]
     else:
-        per_file = [np.unique(i["t"] // w_ns) for _, i in infos]
+        per_file = [i["wins"] if i["wins"] is not None else np.zeros(0, np.int64)
+                    for _, i in infos]
         win_ids = np.unique(np.concatenate(per_file))
         win_starts = win_ids * w_ns
         win_ends = win_starts + w_ns
