@@ -668,11 +668,9 @@ def _cmd_inspect(args, command) -> int:
 
 def _cmd_demo(args, command) -> int:
     from .demo import run_demo
-    from .demo_sectors import run_sectors
 
     out = Path(args.out)
     written = run_demo(out)
-    written += run_sectors(out)  # the spectrometer as spin-sectored counts, binned
     for p in written:
         _say(f"wrote  {p}")
     _say(f"demo written to {out.resolve()} ({len(written)} file(s))")

@@ -1179,6 +1179,9 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     geo_out = _dunlin_geographic(out) if any("_dunlin_" in Path(d).name
                                              for d in data_files) else []
     figures = demo_figures(data_files, summaries, surveys, out / "figures", psd_files=psd_out)
+    from .demo_sectors import run_sectors  # the spectrometer as spin-sectored counts, binned
+
+    figures += run_sectors(out, flux_model=tern_flux_model)
     report = sorted(p for folder in ("summaries", "psd") if (out / folder).is_dir()
                     for p in (out / folder).iterdir()
                     if p.is_file() and not p.name.endswith(".nc"))

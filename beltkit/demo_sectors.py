@@ -40,13 +40,14 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from . import demo
 from .field.coords import convert
 from .field.models import as_model
 
 __all__ = ["SPIN", "bin_and_summarize", "generate_sectored", "run_sectors", "sectored_day"]
 
 FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
+#: The scenario's first day (``beltkit.demo.SCENARIO["start"]``).
+START = "2027-03-08T00:00:00"
 
 #: The invented spinning spacecraft (documentation of what `sectored_day` does).
 SPIN = {
@@ -97,13 +98,17 @@ def _rays_spin_frame(n_phase=4):
     return np.stack(out, 1), weights
 
 
-def sectored_day(day_start="2027-03-08", *, seed=20261201, n_times=None):
+def sectored_day(day_start="2027-03-08", *, flux_model, seed=20261201, n_times=None):
     """One day of the Marram-Tern spectrometer as spin-sectored counts, with its truth.
 
     Parameters
     ----------
     day_start : str or numpy.datetime64
         UTC day of the scenario (2027-03-08 to 2027-03-10).
+    flux_model : callable
+        :func:`beltkit.demo.tern_flux_model` (passed in, so that this module
+        and :mod:`beltkit.demo`, whose :func:`~beltkit.demo.run_demo` runs
+        :func:`run_sectors`, do not import each other).
     seed : int
         Seed of the Poisson counts.
     n_times : int, optional
@@ -122,7 +127,7 @@ def sectored_day(day_start="2027-03-08", *, seed=20261201, n_times=None):
     day = np.datetime64(day_start, "ns")
     rng = np.random.default_rng([seed, 7, int((day - np.datetime64("2027-03-08", "ns"))
                                               // np.timedelta64(1, "D"))])
-    tern, flux = demo.tern_flux_model(day, rng, n_times)
+    tern, flux = flux_model(day, rng, n_times)
     time = tern["time"].values
     n_t = time.size
     xyz_geo = tern["position_geo"].values.astype(float)
@@ -198,13 +203,15 @@ def sectored_day(day_start="2027-03-08", *, seed=20261201, n_times=None):
     return ds
 
 
-def generate_sectored(out_dir, *, seed=20261201, n_days=1) -> list[Path]:
+def generate_sectored(out_dir, *, flux_model, seed=20261201, n_days=1) -> list[Path]:
     """Write sectored Marram-Tern day-files (``marram_tern_sectors_synthetic_YYYYMMDD.nc``).
 
     Parameters
     ----------
     out_dir : str or os.PathLike
         Folder (created if missing).
+    flux_model : callable
+        :func:`beltkit.demo.tern_flux_model`.
     seed : int
         Seed of the Poisson counts.
     n_days : int
@@ -219,12 +226,12 @@ def generate_sectored(out_dir, *, seed=20261201, n_days=1) -> list[Path]:
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    start = np.datetime64(demo.SCENARIO["start"], "ns")
+    start = np.datetime64(START, "ns")
     files = []
     for k in range(int(n_days)):
         day = start + np.timedelta64(k, "D")
         tag = str(day)[:10].replace("-", "")
-        files.append(write_dataset(sectored_day(day, seed=seed),
+        files.append(write_dataset(sectored_day(day, flux_model=flux_model, seed=seed),
                                    out / f"marram_tern_sectors_synthetic_{tag}.nc",
                                    compress=True))
     return files
@@ -250,20 +257,22 @@ def bin_and_summarize(ds):
     return binned, partition(binned, model="dipole")
 
 
-def run_sectors(out_dir, *, seed=20261201) -> list[Path]:
+def run_sectors(out_dir, *, flux_model, seed=20261201) -> list[Path]:
     """Write day 1 as sectored counts, bin it and draw its figure (the demo's sectored step).
 
     Writes ``sectors/marram_tern_sectors_synthetic_20270308.nc``, its
     pitch-angle file ``sectors/pad/<stem>.pad.nc`` (with ``run-report.jsonl``)
     through :func:`beltkit.batch.bin_sectored` into the Tern file's 12 bins,
     and ``figures/tern_sector_coverage.png`` (:func:`beltkit.plot.sector_coverage`
-    at the first sample after 03:00 UTC, 500 keV). ``beltkit demo`` runs it after
-    :func:`beltkit.demo.run_demo`.
+    at the first sample after 03:00 UTC, 500 keV). :func:`beltkit.demo.run_demo`
+    runs it.
 
     Parameters
     ----------
     out_dir : str or os.PathLike
         The demo's output folder.
+    flux_model : callable
+        :func:`beltkit.demo.tern_flux_model`.
     seed : int
         Seed of the Poisson counts.
 
@@ -275,7 +284,7 @@ def run_sectors(out_dir, *, seed=20261201) -> list[Path]:
     from . import batch, plot
 
     out = Path(out_dir)
-    data = generate_sectored(out / "sectors", seed=seed, n_days=1)
+    data = generate_sectored(out / "sectors", flux_model=flux_model, seed=seed, n_days=1)
     done = batch.bin_sectored(data, out / "sectors" / "pad",
                               np.asarray(SPIN["pitch_angle_edges_deg"]), overwrite=True)
     bad = [r for r in done if r.status == "failed"]

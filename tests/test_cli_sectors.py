@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from beltkit import cli, demo_sectors
+from beltkit import cli, demo, demo_sectors
 from beltkit.batch import summarize_dataset
 from beltkit.io import write_dataset
 from beltkit.pad import bin_sectors, validate
@@ -21,7 +21,7 @@ EDGES = [0.0, 10.0, 30.0, 60.0, 90.0, 120.0, 150.0, 170.0, 180.0]
 
 @pytest.fixture(scope="module")
 def sectored():
-    return demo_sectors.sectored_day(n_times=40)
+    return demo_sectors.sectored_day(flux_model=demo.tern_flux_model, n_times=40)
 
 
 def test_chain_equals_python_and_batch_safety(sectored, tmp_path, capsys):

@@ -9,14 +9,14 @@ validator and the `beltkit inspect` command unchanged (the contract of issue 16)
 import numpy as np
 import pytest
 
-from beltkit import cli, demo_sectors, plot
+from beltkit import cli, demo, demo_sectors, plot
 from beltkit.io import write_dataset
 from beltkit.pad import validate
 
 
 @pytest.fixture(scope="module")
 def day():
-    ds = demo_sectors.sectored_day(n_times=120)
+    ds = demo_sectors.sectored_day(flux_model=demo.tern_flux_model, n_times=120)
     binned, summary = demo_sectors.bin_and_summarize(ds)
     return ds, binned, summary
 
