@@ -241,6 +241,41 @@ def second_invariant_k(model, xyz_km, time, alpha_local_deg, *, altitude_km=100.
 # ---------------------------------------------------------------- L*
 
 
+def _guide_from_neighbours(search, ln_r0, start, best_f, slope_seen, todo, m):
+    """Start the pairs `todo` from their MLT neighbours' shell lines (staged fast path).
+
+    The searched MLTs (every third) give d = ln r_shell - ln r_contour and the
+    residual's slope; each other MLT gets both by periodic four-point Lagrange
+    interpolation in MLT. Returns the pairs so guided (the rest keep the
+    contour guess and the dipole slope).
+    """
+    ns = ln_r0.size // m
+    nodes = m // 3
+    found = best_f < _SHELL_ACCEPT
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = np.log(np.linalg.norm(start, axis=1) / R_E_KM) - ln_r0
+    d = np.where(found, d, np.nan).reshape(ns, m)[:, ::3]
+    sl = np.where(found, slope_seen, np.nan).reshape(ns, m)[:, ::3]
+    j = np.arange(m)
+    q, r = j // 3, j % 3
+    d_g = np.zeros((ns, m))
+    s_g = np.zeros((ns, m))
+    t = r / 3.0
+    for k, off in enumerate((-1, 0, 1, 2)):
+        w = np.ones(m)
+        for kk, off2 in enumerate((-1, 0, 1, 2)):
+            if kk != k:
+                w = w * (t - off2) / (off - off2)
+        col = (q + off) % nodes
+        d_g += w * d[:, col]
+        s_g += w * sl[:, col]
+    d_g, s_g = d_g.reshape(-1), s_g.reshape(-1)
+    ok = todo & np.isfinite(d_g) & np.isfinite(s_g) & (s_g > 0)
+    search.x[ok] = ln_r0[ok] + d_g[ok]
+    search.slope[ok] = s_g[ok]
+    return ok
+
+
 def _lstar_block(model, x, t, a_deg, n_mlt, altitude_km, max_iterations, opts, search_rtol,
                  fast):
     """L* and companions for one block of samples (all of its MLT lines traced together).
@@ -318,57 +353,72 @@ def _lstar_block(model, x, t, a_deg, n_mlt, altitude_km, max_iterations, opts, s
     foot = np.full((npair, 3), np.nan)
     start = np.full((npair, 3), np.nan)
     below_any = np.zeros(npair, dtype=bool)
-    active = np.ones(npair, dtype=bool)
     ln_floor = np.log(1.001 * r_stop / R_E_KM)
     # the candidate lines are traced at the search tolerance (never tighter than the
     # sample's own line): fewer Runge-Kutta steps per candidate line
     s_opts = dict(opts, rtol=max(float(search_rtol), float(opts.get("rtol", 0.0))))
-    for it in range(max_iterations):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        search.x[idx] = np.maximum(search.x[idx], ln_floor)
-        xyz = ray[idx] * (np.exp(search.x[idx]) * R_E_KM)[:, None]
-        ti = tb[idx] if np.ndim(tb) else tb
-        if fast:
-            s_opts["b_stop_nt"] = b_m[si[idx]]
-        cand = trace_lines(model, xyz, ti, altitude_km, arg_name="xyz_km", **s_opts)
-        f, below = shell_residual(cand, b_m[si[idx]], i0[si[idx]], use_i[idx], compiled=fast)
-        below_any[idx] |= below
-        better = np.abs(f) < best_f[idx]
-        sel = idx[better]
-        best_f[sel] = np.abs(f[better])
-        foot[sel] = cand.foot_north[better]
-        start[sel] = xyz[better]
-        conv = (np.abs(f) < _SHELL_TOL) | below
-        fp = search.fp[idx]
-        sec = search.update(idx, np.where(below, 0.0, f))
-        if fast:
-            # two residuals whose product is tiny: the secant root through them is
-            # within ~|f fp| of the root (superlinear convergence); take it untraced
-            with np.errstate(invalid="ignore"):
-                take = (~conv & np.isfinite(sec) & (np.abs(f) < _SECANT_MAX)
-                        & (np.abs(f * fp) < _SECANT_PRODUCT))
-            sel = idx[take]
-            best_f[sel] = 0.0
-            start[sel] = ray[sel] * (np.exp(sec[take]) * R_E_KM)[:, None]
-            conv |= take
-            if it == 0:
-                # a table guess with a small residual: its Newton step (table slope, good
-                # to ~1e-2) is within ~1e-2 |f| / slope of the root; take it untraced
-                take = guided[idx] & ~conv & (np.abs(f) < _TABLE_NEWTON_MAX)
+    # fast path without a table: every third MLT is searched first; the others start from
+    # their neighbours' shell, interpolated in MLT as a correction to the contour guess
+    staged = fast and table is None and m % 3 == 0
+    first = (mj % 3 == 0) if staged else np.ones(npair, dtype=bool)
+    slope_seen = np.full(npair, np.nan)
+    for stage in ((first, ~first) if staged else (first,)):
+        dead = np.bincount(np.arange(npair) // m, weights=below_any, minlength=npair // m)
+        active = stage & ~np.repeat(dead > 0, m)
+        if stage is not first:
+            guided = _guide_from_neighbours(search, ln_r0, start, best_f, slope_seen, stage, m)
+            guided &= active
+        for it in range(max_iterations):
+            idx = np.flatnonzero(active)
+            if idx.size == 0:
+                break
+            search.x[idx] = np.maximum(search.x[idx], ln_floor)
+            x_now = search.x[idx].copy()
+            xyz = ray[idx] * (np.exp(x_now) * R_E_KM)[:, None]
+            ti = tb[idx] if np.ndim(tb) else tb
+            if fast:
+                s_opts["b_stop_nt"] = b_m[si[idx]]
+            cand = trace_lines(model, xyz, ti, altitude_km, arg_name="xyz_km", **s_opts)
+            f, below = shell_residual(cand, b_m[si[idx]], i0[si[idx]], use_i[idx],
+                                      compiled=fast)
+            below_any[idx] |= below
+            better = np.abs(f) < best_f[idx]
+            sel = idx[better]
+            best_f[sel] = np.abs(f[better])
+            foot[sel] = cand.foot_north[better]
+            start[sel] = xyz[better]
+            conv = (np.abs(f) < _SHELL_TOL) | below
+            fp, xp = search.fp[idx], search.xp[idx]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                seen = (f - fp) / (x_now - xp)
+            slope_seen[idx] = np.where(np.isfinite(seen) & (seen > 0), seen, slope_seen[idx])
+            sec = search.update(idx, np.where(below, 0.0, f))
+            if fast:
+                # two residuals whose product is tiny: the secant root through them is
+                # within ~|f fp| of the root (superlinear convergence); take it untraced
+                with np.errstate(invalid="ignore"):
+                    take = (~conv & np.isfinite(sec) & (np.abs(f) < _SECANT_MAX)
+                            & (np.abs(f * fp) < _SECANT_PRODUCT))
                 sel = idx[take]
                 best_f[sel] = 0.0
-                start[sel] = ray[sel] * (np.exp(search.x[sel]) * R_E_KM)[:, None]
+                start[sel] = ray[sel] * (np.exp(sec[take]) * R_E_KM)[:, None]
                 conv |= take
-        narrow = np.abs(search.hi[idx] - search.lo[idx]) < 1e-10
-        active[idx[conv | narrow]] = False
-        # a sample with one MLT below the stop altitude is undefined (reason 4) whatever
-        # its other MLTs give: stop searching them (they are the slow tail of the search)
-        if np.any(below):
-            dead = np.zeros(si.size // m, dtype=bool)
-            dead[idx[below] // m] = True
-            active &= ~np.repeat(dead, m)
+                if it == 0:
+                    # a guided guess with a small residual: its Newton step (slope good
+                    # to ~1e-2) is within ~1e-2 |f| / slope of the root; take it untraced
+                    take = guided[idx] & ~conv & (np.abs(f) < _TABLE_NEWTON_MAX)
+                    sel = idx[take]
+                    best_f[sel] = 0.0
+                    start[sel] = ray[sel] * (np.exp(search.x[sel]) * R_E_KM)[:, None]
+                    conv |= take
+            narrow = np.abs(search.hi[idx] - search.lo[idx]) < 1e-10
+            active[idx[conv | narrow]] = False
+            # a sample with one MLT below the stop altitude is undefined (reason 4) whatever
+            # its other MLTs give: stop searching them (they are the slow tail of the search)
+            if np.any(below):
+                dead = np.zeros(si.size // m, dtype=bool)
+                dead[idx[below] // m] = True
+                active &= ~np.repeat(dead, m)
     found = best_f < _SHELL_ACCEPT
     # per sample: every MLT found, none below the stop altitude
     rows = np.flatnonzero(ok)
