@@ -80,7 +80,9 @@ less work, in three ways (:mod:`beltkit.field.shellsearch`,
   least 5,000 sample x MLT pairs or when one is in memory), which gives each
   shell line to ~1e-5 in :math:`\ln r`: one traced line and a Newton step with
   the table's slope (taken when that line's residual is below 3e-4) replace
-  the search.
+  the search; without a table (T89, small calls) every third MLT is searched
+  first and the others start from their neighbours' shells (correction to
+  the contour guess and residual slope interpolated in MLT).
 
 The exact path (``method="exact"``) traces every candidate to both footpoints,
 accepts only traced lines and integrates the flux over the footprint cap. The
