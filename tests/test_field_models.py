@@ -267,3 +267,13 @@ def test_as_model():
     with pytest.raises(FieldModelError, match=r"must be None, 'dipole', 'igrf' or a FieldModel.*"
                                               r"got object"):
         as_model(object())
+
+
+def test_a_frozen_dipole_keeps_the_shape_of_the_times():
+    # the docstrings promise (..., 3) axes and B0 per time for frozen and live dipoles alike
+    # (found by the mirror tests: a frozen model returned one axis for many times)
+    t = np.array([1990.0, 2029.0])
+    frozen, live = CenteredDipole(epoch=2020.0), CenteredDipole()
+    assert frozen.dipole_axis_geo(t).shape == live.dipole_axis_geo(t).shape == (2, 3)
+    assert np.shape(frozen.dipole_b0_nt(t)) == (2,)
+    np.testing.assert_array_equal(frozen.dipole_axis_geo(t)[0], frozen.dipole_axis_geo(t)[1])

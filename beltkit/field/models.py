@@ -205,8 +205,9 @@ class CenteredDipole:
         return f"CenteredDipole(epoch={self.epoch!r})"
 
     def _time(self, time):
-        if self.epoch is not None:
-            return np.asarray(self.epoch)
+        if self.epoch is not None:  # frozen: the one epoch, in the shape of the times given
+            shape = () if time is None else np.shape(np.asarray(time))
+            return np.broadcast_to(np.asarray(self.epoch, float), shape)
         return np.asarray(decimal_year(time), float)
 
     def field_geo(self, xyz_km, time) -> np.ndarray:
