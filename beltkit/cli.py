@@ -639,7 +639,13 @@ def _cmd_inspect(args, command) -> int:
     for path in files:
         try:
             with open_flux(path, mapping=args.mapping) as ds:
-                problems = validate(ds)
+                # per-sample problems (masked and flagged by summarize, refused with
+                # --strict) are listed apart from the structural ones that refuse the file
+                every = validate(ds)  # strict: both kinds, one pass over the values
+                problems = validate(ds, strict=False, check_values=False) if every else []
+                if every and not problems:  # only bad samples: is any valid value left?
+                    problems = validate(ds, strict=False)
+                per_sample = [p for p in every if p not in problems]
                 edges = ds.attrs.get("pitch_angle_bnds_source")
                 masked = {k[len("read_flag_count_"):].replace("_", " "): int(v)
                           for k, v in ds.attrs.items() if k.startswith("read_flag_count_")}
@@ -658,6 +664,8 @@ def _cmd_inspect(args, command) -> int:
                 _say(f"    - {problem}")
         else:
             _say(f"ok  {path}")
+        for problem in per_sample:
+            _say(f"    masked and flagged by summarize (refused with --strict): {problem}")
         if edges:
             _say(f"    pitch-angle bin edges from: {edges}")
         if masked:

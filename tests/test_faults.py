@@ -447,3 +447,17 @@ def test_record_varying_energy_table_is_summarised_with_its_channel_energies(tmp
     [r] = batch.summarize([src], tmp_path / "diff", mapping=mapping, diffusion=True)
     assert r.status == "failed" and r.reason.startswith(
         "channel_energy: the diffusion outputs need one energy per channel"), r.reason
+
+
+def test_inspect_separates_bad_samples_from_bad_files(tmp_path, capsys):
+    ds = _good(4)
+    ds["L"].values[3] = 0.7
+    ds["flux"].values[5, 1, 2] = -1.0
+    src = write_flux_file(tmp_path / "samples.nc", ds)
+    assert main(["inspect", str(src), str(tmp_path / "typo.nc")]) == 1  # the typo fails
+    out = capsys.readouterr().out.splitlines()
+    assert out[0] == f"ok  {src}"
+    notes = [ln for ln in out if ln.startswith("    masked and flagged by summarize")]
+    assert [n.split(": ", 1)[1].split(":")[0] for n in notes] == ["L", "flux"]
+    assert f"FAILED  {tmp_path / 'typo.nc'}: no such file" in out
+    assert out[-1] == "2 file(s) checked, 1 with problems"
