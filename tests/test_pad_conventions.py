@@ -275,6 +275,14 @@ def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked
     ref = partition(clean.isel(time=valid), engine=engine)
     xr.testing.assert_allclose(out.isel(time=valid).drop_attrs(), ref.drop_attrs(),
                                rtol=1e-12)
+    # and the valid samples beside each glitch equal the dipole calculation written out here
+    for t in sorted({min(g + 1, 298) if g + 1 not in GLITCH_TIMES else g - 1
+                     for g in GLITCH_TIMES}):
+        blc = _dipole_blc_deg(bad.L.values[t], bad.mlat.values[t])
+        for e in range(3):
+            fp, ft, frac = _independent_row(bad.flux.values[t, e], EDGES, blc)
+            assert float(out.flux_trapped[t, e]) == pytest.approx(ft, rel=1e-9)
+            assert float(out.fraction_precipitating[t, e]) == pytest.approx(frac, rel=1e-9)
     if not chunked:
         assert out.attrs["beltkit_samples_position_out_of_range"] == 5
         assert out.attrs["beltkit_samples_negative_flux_masked"] == 0

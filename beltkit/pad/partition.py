@@ -565,6 +565,8 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
     the previous call's outputs, which are overwritten. ``hemispheres``
     defaults to True here: the summaries include the losses per hemisphere.
+    ``strict`` is as for :func:`partition` (with ``prepared``, the strictness
+    it was made with applies).
     ``prepared``, the :class:`Prepared` result of
     :func:`beltkit.pad.conventions.check` on the whole file (with the same
     model), is trusted instead of validating ``ds`` again: a file summarized
