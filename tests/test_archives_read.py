@@ -729,3 +729,14 @@ def test_cdf_without_istp_depends_reads_on_its_record_axis(tmp_path):
     assert ds["flux"].dims == ("time", "energy", "pitch_angle")
     np.testing.assert_array_equal(ds["time"].values, TIMES[:5])
     np.testing.assert_allclose(ds["flux"].values, j, rtol=1e-6)
+
+
+def test_suggested_mapping_reads_a_record_varying_energy_table(corpus, tmp_path):
+    table, _ = corpus["table_truth"]
+    text = bio.suggest_mapping(corpus["table"])
+    assert 'energy = "e_table"' in text and "# common_kev" in text
+    path = tmp_path / "table.toml"
+    path.write_text(text)
+    ds = bio.open_indexed(corpus["table"], path)
+    np.testing.assert_allclose(ds["channel_energy"].values, table, rtol=1e-6)
+    assert ds["read_flag"].values[3, 1, 2] == 1
