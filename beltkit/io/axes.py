@@ -49,8 +49,8 @@ ANGLE_UNITS = "degree"
 def _to_unit(var: xr.Variable, want: str, name: str, where: str, parent_units=None):
     """Return `var` converted to `want` when its units say how (else unchanged)."""
     units = var.attrs.get("units", parent_units)
-    if units is None:
-        return var
+    if units is None or (units == want and "units" in var.attrs):
+        return var  # nothing to convert (the fast path of conventions files)
     factor = conversion_factor(str(units), want)
     if factor is None:
         return var  # the validator names the unit problem
@@ -104,18 +104,21 @@ def resolve_pitch_angle(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset
     """
     if "pitch_angle" not in ds.variables or ds["pitch_angle"].ndim != 1:
         return ds
+    ds = ds.copy(deep=False)  # attributes are set below: never on the caller's dataset
     original_units = ds.variables["pitch_angle"].attrs.get("units")
     pa = _to_unit(ds.variables["pitch_angle"], ANGLE_UNITS, "pitch_angle", where)
     if rule.get("folded"):
         pa.attrs["folded"] = "true"
-    ds = ds.assign_coords(pitch_angle=pa)
+    if pa is not ds.variables["pitch_angle"]:
+        ds = ds.assign_coords(pitch_angle=pa)
     bounds = str(pa.attrs.get("bounds", "pitch_angle_bnds"))
     if bounds in ds.variables:
         bnds = _to_unit(ds.variables[bounds], ANGLE_UNITS, bounds, where,
                         parent_units=original_units)
         if bounds != "pitch_angle_bnds":
             ds = ds.drop_vars(bounds)
-        ds["pitch_angle_bnds"] = bnds
+        if bnds is not ds.variables.get("pitch_angle_bnds"):
+            ds["pitch_angle_bnds"] = bnds
         source = "bounds"
     else:
         delta = _delta_edges(ds, "pitch_angle", ANGLE_UNITS, where, original_units)
@@ -170,6 +173,7 @@ def resolve_energy(ds: xr.Dataset, *, where: str) -> xr.Dataset:
     """
     if "energy" not in ds.variables:
         return ds
+    ds = ds.copy(deep=False)  # attributes are set below: never on the caller's dataset
     var = ds.variables["energy"]
     if var.ndim == 2 and "time" in var.dims:
         chan = [d for d in var.dims if d != "time"][0]
@@ -197,14 +201,17 @@ def resolve_energy(ds: xr.Dataset, *, where: str) -> xr.Dataset:
         return ds
     if var.ndim != 1:
         return ds
-    ds = ds.assign_coords(energy=_to_unit(var, ENERGY_UNITS, "energy", where))
+    converted = _to_unit(var, ENERGY_UNITS, "energy", where)
+    if converted is not var:
+        ds = ds.assign_coords(energy=converted)
     bounds = str(var.attrs.get("bounds", "energy_bnds"))
     if bounds in ds.variables:
         bnds = _to_unit(ds.variables[bounds], ENERGY_UNITS, bounds, where,
                         parent_units=var.attrs.get("units"))
         if bounds != "energy_bnds":
             ds = ds.drop_vars(bounds)
-        ds["energy_bnds"] = bnds
+        if bnds is not ds.variables.get("energy_bnds"):
+            ds["energy_bnds"] = bnds
         ds["energy"].attrs["bounds"] = "energy_bnds"
     else:
         delta = _delta_edges(ds, "energy", ENERGY_UNITS, where, var.attrs.get("units"))

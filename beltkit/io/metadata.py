@@ -200,7 +200,7 @@ def decode_values(ds: xr.Dataset, names, *, where: str = "") -> xr.Dataset:
     Small variables (no dimension longer than 100,000) are decoded at once;
     larger ones lazily, slab by slab.
     """
-    out = {}
+    out, stripped = {}, {}
     for name in names:
         var = ds.variables[name]
         if var.dtype.kind not in "iuf":
@@ -212,9 +212,7 @@ def decode_values(ds: xr.Dataset, names, *, where: str = "") -> xr.Dataset:
         attrs = strip_value_attributes(var, rule)
         if rule.trivial:
             if attrs != var.attrs:
-                new = var.copy(deep=False)
-                new.attrs = attrs
-                out[name] = new
+                stripped[name] = attrs
             continue
         if var.size <= 100_000:
             values, _, _ = rule.apply(var.values, index={})
@@ -231,6 +229,10 @@ def decode_values(ds: xr.Dataset, names, *, where: str = "") -> xr.Dataset:
         new.encoding = {"beltkit_read": {k: v for k, v in var.attrs.items()
                                          if k in VALUE_ATTRIBUTES}}
         out[name] = new
+    if stripped:  # attributes only: on a shallow copy, without rebuilding the dataset
+        ds = ds.copy(deep=False)
+        for name, attrs in stripped.items():
+            ds.variables[name].attrs = attrs
     if not out:
         return ds
     coords = {n: v for n, v in out.items() if n in ds.coords}
