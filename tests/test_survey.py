@@ -105,6 +105,8 @@ def test_l_mlt_survey_against_brute_force(corpus, tmp_path):
 
 
 def test_geographic_field_and_named_binnings(corpus, tmp_path):
+    from beltkit import plot
+
     _, paths, src = corpus
     xyz = src["position_geo"].values
     lon = np.degrees(np.arctan2(xyz[:, 1], xyz[:, 0]))
@@ -135,8 +137,21 @@ def test_geographic_field_and_named_binnings(corpus, tmp_path):
     cell = _cells(src, [(src["mlat"].values, mlat_e), (src["mlt"].values, mlt_e)])
     assert int(sv["omni_flux_count"].isel(time=0, energy=0, mlat=1, mlt=0)) == np.sum(cell == 2)
 
+    fig = plot.survey_cells(sv, "omni_flux", energy=500.0)  # first axis along x
+    assert (fig.axes[0].get_xlabel(), fig.axes[0].get_ylabel()) == (
+        "mlat", "magnetic local time (h)")
     sv = xr.load_dataset(batch.survey(paths, tmp_path / "lt.nc", binning="L-time"))
     assert sv["omni_flux_median"].dims == ("time", "energy", "L")
+    fig = plot.survey_cells(sv, "omni_flux")
+    assert fig.axes[0].get_xlabel() == "time (UTC)" and fig.axes[0].get_ylabel() == "L-shell"
+    # readable whatever the range: a colour scale spanning a factor of three keeps >= 3
+    # labelled ticks (matplotlib alone would label none inside one decade)
+    narrow = sv.assign(omni_flux_median=sv["omni_flux_median"] * 0 + 1.0
+                       + 2.0 * (sv["L"] > 4))
+    fig = plot.survey_cells(narrow, "omni_flux")
+    bar = fig.axes[2]
+    ticks = [t for t in bar.get_yticks() if 1.0 <= t <= 3.0]
+    assert len(ticks) >= 3
     assert sv.sizes["time"] == 3  # daily windows: 2026-03-01 to 03-03 (the last file ends then)
     day = src["time"].values.astype("datetime64[D]")
     inside = (src["L"].values >= 1) & (src["L"].values <= 8)
