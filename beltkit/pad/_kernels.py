@@ -9,17 +9,15 @@ arrays plus the per-sample weight matrices. Sums are accumulated in float64.
 
 from __future__ import annotations
 
-import importlib.util
 import math
 
 import numpy as np
 
-# numba is a declared dependency; it is imported (and the kernels compiled, or
-# loaded from numba's cache) on first use, so `import beltkit` stays fast.
-HAVE_NUMBA = importlib.util.find_spec("numba") is not None
+# numba (a dependency) is imported, and the kernels compiled or loaded from numba's
+# cache, on first use, so `import beltkit` stays fast.
 _JIT = {}
 
-__all__ = ["HAVE_NUMBA", "dipole_cones", "partition_block", "value_scan"]
+__all__ = ["partition_block", "value_scan"]
 
 _TWO_PI = 2.0 * math.pi
 _FOUR_PI = 4.0 * math.pi
@@ -30,7 +28,7 @@ _CHUNK = 256
 
 
 def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, cosb,
-                        cosd, coso, cosn, coss, hrow, has_neg, out, flag, stats, chunk,
+                        cosd, coso, cosn, coss, hrow, out, flag, stats, chunk,
                         count_row):
     n, n_e, n_p = x.shape
     xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
@@ -477,7 +475,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     | ((cov2 > 0.0) & (cov2 < lim)))
             fl[j] = ((1 if e0 > (m_0[j] > TOL_SR) else 0) + (2 if e1 > (m_1[j] > TOL_SR) else 0)
                      + (4 if e2 > (m_2[j] > TOL_SR) else 0) + (8 if part else 0)
-                     + (16 if (has_neg and n_g[j] > 0.0) else 0)
+                     + (16 if n_g[j] > 0.0 else 0)
                      + (0 if m_4[j] > 0.0 else 32))
         if has_s:
             for j in range(m):
@@ -549,67 +547,6 @@ def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
                     n_neg[e] += 1
 
 
-def _dipole_cones_py(L, mlat, b_loc, has_b, rf, b0, blc, blc_eq, bl, b_eq):
-    r"""Dipole loss cones per sample: the closed forms of beltkit.dipole in one pass.
-
-    With :math:`c_f^2 = r_f/L` (footpoint latitude), :math:`c^2 = \cos^2\lambda`
-    and :math:`b(c^2) = \sqrt{4 - 3c^2}/c^6` (:math:`B/B_\mathrm{eq}`, as
-    ``dipole._b_ratio_cos2``): :math:`B_\mathrm{eq} = B_0/L^3`,
-    :math:`B_\mathrm{loc} = B_\mathrm{eq}\,b(c^2)` (or the measured one),
-    :math:`\sin^2\alpha_\mathrm{eq} = 1/b(c_f^2)` and
-    :math:`\sin^2\alpha_\mathrm{loc} = (B_\mathrm{loc}/B_\mathrm{eq})/b(c_f^2)`,
-    clipped to [0, 1]; NaN propagates (comparisons with NaN are false).
-    """
-    to_deg = 180.0 / math.pi
-    for i in range(L.shape[0]):
-        Li = L[i]
-        be = b0 / (Li * Li * Li)
-        cf2 = rf / Li
-        eq_over_foot = (cf2 * cf2 * cf2) / math.sqrt(4.0 - 3.0 * cf2)
-        if has_b:
-            ratio = b_loc[i] / be
-            bl[i] = b_loc[i]
-        else:
-            c = math.cos(mlat[i] * (math.pi / 180.0))
-            c2 = c * c
-            ratio = math.sqrt(4.0 - 3.0 * c2) / (c2 * c2 * c2)
-            bl[i] = be * ratio
-        b_eq[i] = be
-        r = ratio * eq_over_foot
-        r = 1.0 if r > 1.0 else r
-        r = 0.0 if r < 0.0 else r
-        q = 1.0 if eq_over_foot > 1.0 else eq_over_foot
-        q = 0.0 if q < 0.0 else q
-        blc[i] = math.asin(math.sqrt(r)) * to_deg
-        blc_eq[i] = math.asin(math.sqrt(q)) * to_deg
-
-
-def dipole_cones(L, mlat, b_loc, rf, b0, blc, blc_eq, bl, b_eq):
-    """Fill the per-sample dipole loss cones and fields (see ``_dipole_cones_py``).
-
-    Parameters
-    ----------
-    L, mlat : numpy.ndarray
-        (n,) float64 dipole L and magnetic latitude (deg), already checked.
-    b_loc : numpy.ndarray or None
-        (n,) measured local field (nT), replacing the dipole's.
-    rf : float
-        Footpoint radius over R_E (1 + altitude / R_E).
-    b0 : float
-        Equatorial surface field (nT).
-    blc, blc_eq, bl, b_eq : numpy.ndarray
-        (n,) float64 outputs: local and equatorial bounce loss cones (deg),
-        local and equatorial field (nT).
-    """
-    has_b = b_loc is not None
-    args = (L, mlat, b_loc if has_b else L, has_b, float(rf), float(b0), blc, blc_eq, bl,
-            b_eq)
-    if HAVE_NUMBA:
-        _jitted("cones")(*args)
-    else:  # pragma: no cover
-        _dipole_cones_py(*args)
-
-
 def _jitted(name):
     """Return the compiled kernel `name`, compiling (or loading from cache) once."""
     if name not in _JIT:
@@ -617,12 +554,11 @@ def _jitted(name):
 
         # fast-math without the no-NaN/no-inf flags: NaN tests stay valid, sums vectorise
         fastmath = {"reassoc", "contract", "arcp", "nsz"}
-        py = {"partition": _partition_block_py, "scan": _value_scan_py,
-              "cones": _dipole_cones_py}[name]
+        py = {"partition": _partition_block_py, "scan": _value_scan_py}[name]
         # numpy's error model: every division is guarded by a select already, and no
         # zero-divisor branch is left to stop the vectoriser (NaN and inf propagate)
         opts = ({"fastmath": fastmath, "error_model": "numpy"}
-                if name in ("partition", "cones") else {})
+                if name == "partition" else {})
         _JIT[name] = numba.njit(cache=True, nogil=True, **opts)(py)
     return _JIT[name]
 
@@ -636,7 +572,7 @@ def _same_view(a, b):
             and a.shape == b.shape and a.strides == b.strides and a.dtype == b.dtype)
 
 
-def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, out, stats,
+def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats,
                     flag=None, count_row=-1, cones_ns=None, hemi_row=-1):
     """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
 
@@ -658,8 +594,6 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
         Bounce and drift loss cones (n,) in degrees.
     band : float
         Width of the band outside the loss cone for the filling ratio (deg).
-    has_neg : bool
-        Whether to flag negative values.
     out : numpy.ndarray
         Output array (n_out, >= n * E), written in place at ``[k, t * E + e]``
         (each output row contiguous; rows may be padded apart). Row 14 (the
@@ -722,11 +656,8 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, has_neg, o
     flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
             np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso, cosn,
-            coss, int(hemi_row), bool(has_neg), out, flag_arr, stats, _CHUNK, int(count_row))
-    if HAVE_NUMBA:
-        _jitted("partition")(*args)
-    else:  # pragma: no cover
-        _partition_block_py(*args)
+            coss, int(hemi_row), out, flag_arr, stats, _CHUNK, int(count_row))
+    _jitted("partition")(*args)
     if flag is None:
         out[14, : flag_arr.size] = flag_arr
 
@@ -753,8 +684,5 @@ def value_scan(x, fills, vmin, vmax):
     lo = np.full(x.shape[1], np.nan)
     n_neg = np.zeros(x.shape[1], dtype=np.int64)
     f = np.asarray(fills, dtype=float).reshape(-1)
-    if HAVE_NUMBA:
-        _jitted("scan")(x, f, float(vmin), float(vmax), lo, n_neg)
-    else:  # pragma: no cover
-        _value_scan_py(x, f, float(vmin), float(vmax), lo, n_neg)
+    _jitted("scan")(x, f, float(vmin), float(vmax), lo, n_neg)
     return lo, n_neg

@@ -206,7 +206,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
         cos_a1, cos_a2 = geom["cos_a1"], geom["cos_a2"]
         fold = 2.0 if geom["folded"] else 1.0
     _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
-                             opts["has_negative"], out, stats, flag,
+                             out, stats, flag,
                              n_data if counts else -1,
                              cones_ns=(lcn, lcs) if hemi else None,
                              hemi_row=_hemi_row(s is not None, hemi))
@@ -597,10 +597,8 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
                                "looks"], ds.encoding.get("source"))
     if engine not in ("auto", "numba", "numpy"):
         raise ValueError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
-    if engine == "numba" and not _kernels.HAVE_NUMBA:
-        raise ImportError("engine='numba' needs numba installed (pip install numba)")
-    use = "numpy" if engine == "numpy" or not _kernels.HAVE_NUMBA else "numba"
-    opts = {"band_deg": float(filling_band_deg), "has_negative": True, "engine": use,
+    use = "numpy" if engine == "numpy" else "numba"
+    opts = {"band_deg": float(filling_band_deg), "engine": use,
             "hemispheres": bool(hemispheres),
             "mask_negative": not prep.strict and not allow_negative,
             "mask_err": not prep.strict}

@@ -199,8 +199,7 @@ def reference_kernel(x, s, cones, look, *, geom, opts):
             flag |= np.where(nonempty[..., k] & ~sampled[..., k], 1 << k, 0).astype(np.int16)
         partial = ((cov[..., :3] < 1 - 1e-6) & (cov[..., :3] > 0)).any(axis=-1)
         flag |= np.where(partial, 8, 0).astype(np.int16)
-        if opts["has_negative"]:
-            flag |= np.where((x < 0).any(axis=-1), 16, 0).astype(np.int16)
+        flag |= np.where((x < 0).any(axis=-1), 16, 0).astype(np.int16)
         flag |= np.where(~(m[..., 4] > 0), 32, 0).astype(np.int16)
         unknown = np.isnan(blc) | np.isnan(dlc)
         flag[unknown] = 64
