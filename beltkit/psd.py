@@ -139,6 +139,7 @@ def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_option
     """alpha_eq (deg), ln B_m and L* at coarse time nodes (eager), for each K."""
     from .field import lstar
     from .field.models import as_model
+    from .field.shellsearch import integral_invariant_many
     from .field.trace import trace_lines
     from .units import conversion_factor
 
@@ -176,8 +177,12 @@ def _model_nodes(ds, model, k, lstar_cadence_s, altitude_km, n_mlt, trace_option
 
     def k_at(alpha):
         b = b_loc[:, None] / np.sin(np.radians(alpha)) ** 2
+        # I by the compiled kernel, one column of mirror fields at a time (same values as
+        # lines.integral_invariant)
+        i_km = np.stack([integral_invariant_many(lines, b[:, c]) for c in range(b.shape[1])],
+                        axis=1)
         with np.errstate(invalid="ignore"):
-            return np.sqrt(b * GAUSS_PER_NT) * lines.integral_invariant(b) / R_E_KM
+            return np.sqrt(b * GAUSS_PER_NT) * i_km / R_E_KM
 
     kk = k_at(a_grid)
     kk[:, -1] = np.where(np.isfinite(kk[:, -1]), kk[:, -1], 0.0)
