@@ -15,6 +15,7 @@ from matplotlib.colors import LogNorm  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 from beltkit import batch, pad, plot  # noqa: E402
+from beltkit.plot.surveys import nice_log_ticks  # noqa: E402
 
 STORM = "2027-03-09T07:00"
 
@@ -341,9 +342,9 @@ def test_log_colour_scale_follows_the_data(demo_data, span):
 
 def test_nice_log_ticks_cover_the_range():
     # 1-2-5 ticks over decades; finer mantissas for short ranges (always two or more)
-    np.testing.assert_allclose(plot._nice_log_ticks(1.0, 1000.0), [1, 10, 100, 1000])
-    np.testing.assert_allclose(plot._nice_log_ticks(1e5, 3e5), [1e5, 1.5e5, 2e5, 3e5])
-    ticks = plot._nice_log_ticks(0.21, 0.24)
+    np.testing.assert_allclose(nice_log_ticks(1.0, 1000.0), [1, 10, 100, 1000])
+    np.testing.assert_allclose(nice_log_ticks(1e5, 3e5), [1e5, 1.5e5, 2e5, 3e5])
+    ticks = nice_log_ticks(0.21, 0.24)
     assert ticks.size >= 2 and ticks.min() >= 0.21 and ticks.max() <= 0.24
 
 
