@@ -489,7 +489,9 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
         lines only; most converge in 5-8, dayside lines of a stretched
         external field can take 15).
     block_samples : int, keyword-only
-        Samples per batch (default: ``BLOCK_LINES // n_mlt``), bounding memory.
+        Samples per batch (default: ``BLOCK_LINES // n_mlt``, four times that
+        on the fast path, whose lines stop at their mirror points), bounding
+        memory.
     search_rtol : float, keyword-only
         Tracing tolerance of the candidate shell lines (the sample's own line
         keeps ``rtol``; the looser of the two is used). The default 1e-7
@@ -553,7 +555,10 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
     if method not in ("fast", "exact"):
         raise PhysicsError(f"argument 'method' must be 'fast' or 'exact'; got {method!r}")
     fast = method == "fast"
-    size = int(block_samples) if block_samples else max(1, BLOCK_LINES // n_mlt)
+    # the fast path's lines stop at their mirror points (a tenth of the samples per line):
+    # four times as many fit the same memory, and bigger calls run the field kernels threaded
+    size = int(block_samples) if block_samples else max(1, (4 if fast else 1) * BLOCK_LINES
+                                                          // n_mlt)
     res = dict(lstar=np.full(n, np.nan), reason=np.ones(n, dtype=np.int8),
                k=np.full(n, np.nan), b_m=np.full(n, np.nan), i=np.full(n, np.nan),
                shell=np.full((n, n_mlt, 3), np.nan), b0=np.full(n, np.nan))
