@@ -129,9 +129,9 @@ def test_lstar_fast_path_agrees_with_exact_path_t89():
     # untraced, flux from the shell's start curve in the magnetic equatorial plane by
     # Gauss's theorem, which holds because T89's modules are divergence-free) against the
     # exact path (every line traced to both footpoints, flux through the footprint cap):
-    # the same L* to 1e-4 relative (measured ~3e-7) on 24 samples of an invented orbit
+    # the same L* to 1e-4 relative (measured ~3e-7) on 18 samples of an invented orbit
     # (synthetic: 2-6.5 R_E, all MLTs) with a Kp series 1-6, and the same reasons.
-    n = 24
+    n = 18
     times = TIME + (np.arange(n) * 25).astype("timedelta64[m]")
     nu = np.linspace(0.0, 2 * np.pi, n, endpoint=False)
     r = (2.0 + 4.5 * (0.5 - 0.5 * np.cos(3 * nu))) * R_E_KM
@@ -145,7 +145,7 @@ def test_lstar_fast_path_agrees_with_exact_path_t89():
     exact = lstar(model, xyz, times, alpha, method="exact")
     assert fast.lstar_reason.values.tolist() == exact.lstar_reason.values.tolist()
     ok = exact.lstar_reason.values == 0
-    assert ok.sum() >= 20 and len(set(fast.kp_level.values[ok].tolist())) >= 3
+    assert ok.sum() >= 15 and len(set(fast.kp_level.values[ok].tolist())) >= 3
     np.testing.assert_allclose(fast.lstar.values[ok], exact.lstar.values[ok], rtol=1e-4)
     assert fast.attrs["lstar_method"] == "fast" and exact.attrs["lstar_method"] == "exact"
     # nudge: the check is sensitive to a 1e-3 error (L* of every sample 1e-3 too large)

@@ -233,11 +233,11 @@ def _orbit_samples(n, t0, cadence_min=37.0):
 def igrf_fast_and_exact():
     from beltkit.field.shelltable import shell_table
 
-    xyz, times, alpha = _orbit_samples(30, T_IGRF)
+    xyz, times, alpha = _orbit_samples(24, T_IGRF)
     m = IGRF()
     # the table of equatorial lines that guides the fast path in IGRF (built by lstar
     # itself for large blocks; built here so that these 30 samples use it too)
-    assert shell_table(m, times[15]) is shell_table(m, times[0], build=False)
+    assert shell_table(m, times[12]) is shell_table(m, times[0], build=False)
     return (m, times, lstar(m, xyz, times, alpha, method="fast"),
             lstar(m, xyz, times, alpha, method="exact"))
 
@@ -247,12 +247,12 @@ def test_lstar_fast_path_agrees_with_exact_path_igrf(igrf_fast_and_exact):
     # secant roots taken untraced, flux from the shell's equatorial start curve; see
     # beltkit.field.invariants) against the exact path
     # (every line traced to both footpoints, converged traces only, flux through the
-    # footprint cap): the same L* to 1e-4 relative on 30 orbit samples (measured ~3e-7),
+    # footprint cap): the same L* to 1e-4 relative on 24 orbit samples (measured ~3e-7),
     # the same reasons and the same K of the sample.
     m, times, fast, exact = igrf_fast_and_exact
     assert fast.lstar_reason.values.tolist() == exact.lstar_reason.values.tolist()
     ok = exact.lstar_reason.values == 0
-    assert ok.sum() >= 25
+    assert ok.sum() >= 20
     np.testing.assert_allclose(fast.lstar.values[ok], exact.lstar.values[ok], rtol=1e-4)
     np.testing.assert_allclose(fast.k.values[ok], exact.k.values[ok], rtol=1e-6)
     # the shells' start points agree too (each MLT: the same field line)
