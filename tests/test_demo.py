@@ -202,7 +202,10 @@ def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatc
     assert paths and all(Path(p).is_file() for p in paths)
     names = {Path(p).name for p in paths}
     assert {"survey_tern.nc", "survey_dunlin.nc", "run-report.jsonl"} <= names
-    assert sum(n.endswith(".summary.nc") for n in names) == 4
+    assert sum(n.endswith(".summary.nc") and "_coverage_" not in n for n in names) == 4
+    # Dunlin's day of orbits mapped by longitude and latitude (beltkit.demo.generate_coverage)
+    assert {"marram_dunlin_quill_synthetic_coverage_20270308.summary.nc",
+            "survey_dunlin_geo.nc", "dunlin_survey_geo.png"} <= names
     pngs = [Path(p) for p in paths if str(p).endswith(".png")]
     assert len(pngs) >= 6
     for p in pngs:
