@@ -11,8 +11,9 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from beltkit import cli, demo, demo_sectors
+from beltkit import cli, demo
 from beltkit.batch import summarize_dataset
+from beltkit.demo import sectors as demo_sectors
 from beltkit.io import write_dataset
 from beltkit.pad import bin_sectors, validate
 

@@ -17,6 +17,7 @@ import pytest
 import xarray as xr
 
 from beltkit import demo, pad
+from beltkit.demo.run import survey_dials, survey_is_partial
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA_DEMO = ROOT / "data_demo"
@@ -217,10 +218,10 @@ def test_run_demo_writes_data_summaries_surveys_and_figures(tmp_path, monkeypatc
     import matplotlib.text
 
     summaries = [Path(p) for p in paths if str(p).endswith(".summary.nc")]
-    assert demo._partial(summaries, "dunlin") and not demo._partial(summaries, "tern")
+    assert survey_is_partial(summaries, "dunlin") and not survey_is_partial(summaries, "tern")
     for craft, e_kev in (("tern", 160.0), ("dunlin", 190.0)):
-        partial = demo._partial(summaries, craft)
-        fig = demo._survey_dials(out / f"survey_{craft}.nc", e_kev, partial,
+        partial = survey_is_partial(summaries, craft)
+        fig = survey_dials(out / f"survey_{craft}.nc", e_kev, partial,
                                  "note" if partial else "")
         text = " ".join(t.get_text() for t in fig.findobj(matplotlib.text.Text))
         dials = len([a for a in fig.axes if a.name == "polar"])

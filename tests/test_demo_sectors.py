@@ -9,7 +9,8 @@ validator and the `beltkit inspect` command unchanged (the contract of issue 16)
 import numpy as np
 import pytest
 
-from beltkit import cli, demo, demo_sectors, plot
+from beltkit import cli, demo, plot
+from beltkit.demo import sectors as demo_sectors
 from beltkit.io import write_dataset
 from beltkit.pad import validate
 

@@ -40,8 +40,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from .field.coords import convert
-from .field.models import as_model
+from ..field.coords import convert
+from ..field.models import as_model
 
 __all__ = ["SPIN", "bin_and_summarize", "generate_sectored", "run_sectors", "sectored_day"]
 
@@ -222,7 +222,7 @@ def generate_sectored(out_dir, *, flux_model, seed=20261201, n_days=1) -> list[P
     list of pathlib.Path
         The files written.
     """
-    from .io import write_dataset
+    from ..io import write_dataset
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -251,7 +251,7 @@ def bin_and_summarize(ds):
         :func:`beltkit.pad.bin_sectors` output and its
         :func:`beltkit.pad.partition` (``model="dipole"``, the truth's field).
     """
-    from .pad import bin_sectors, partition
+    from ..pad import bin_sectors, partition
 
     binned = bin_sectors(ds, np.asarray(SPIN["pitch_angle_edges_deg"]))
     return binned, partition(binned, model="dipole")
@@ -281,7 +281,7 @@ def run_sectors(out_dir, *, flux_model, seed=20261201) -> list[Path]:
     list of pathlib.Path
         The files written.
     """
-    from . import batch, plot
+    from .. import batch, plot
 
     out = Path(out_dir)
     data = generate_sectored(out / "sectors", flux_model=flux_model, seed=seed, n_days=1)
