@@ -110,9 +110,9 @@ def _tern_day(day_start, rng):
         "true_local_source_factor": (
             ("time", "energy"), source.astype("float32"),
             {"units": "1", "long_name": "true flux multiplier of the local source",
-             "comment": ("Invented local source (beltkit.demo.scenario.local_source): the model flux "
-                         "is multiplied by this factor at every pitch angle, so the phase-space "
-                         "density at fixed mu and K is too; it peaks at L* = L = "
+             "comment": ("Invented local source (beltkit.demo.scenario.local_source): the "
+                         "model flux is multiplied by this factor at every pitch angle, so the "
+                         "phase-space density at fixed mu and K is too; it peaks at L* = L = "
                          f"{p['source_lstar']} (dipole) and grows after the storm onset.")}),
     }
     day = str(day_start)[:10]
