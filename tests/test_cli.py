@@ -17,6 +17,18 @@ def _json(capsys, argv):
     return {k: v["value"] for k, v in json.loads(capsys.readouterr().out).items()}
 
 
+def test_python_dash_m_runs_the_same_command():
+    import subprocess
+    import sys
+
+    import beltkit
+
+    proc = subprocess.run([sys.executable, "-m", "beltkit", "--version"],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert beltkit.__version__ in proc.stdout
+
+
 def test_help_version_and_usage_errors(capsys):
     assert main(["--help"]) == 0
     assert "summarize" in capsys.readouterr().out
