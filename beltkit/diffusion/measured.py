@@ -501,7 +501,7 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
     res.attrs = {
         "title": "beltkit pitch-angle diffusion from the loss-cone filling",
         "beltkit_field_model": str(getattr(model, "name", model)),
-        "beltkit_footpoint_altitude_km": alt,
+        "footpoint_altitude_km": alt,
         "beltkit_loss_time": loss_time,
         "beltkit_interval_sigma": k_sigma,
         "beltkit_diffusion_ratio": (

@@ -655,7 +655,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     out.attrs = {
         "title": "beltkit pitch-angle partition",
         "beltkit_field_model": model_name(model),
-        "beltkit_footpoint_altitude_km": float(altitude_km),
+        "footpoint_altitude_km": float(altitude_km),
         "beltkit_filling_band_deg": float(filling_band_deg),
         "beltkit_assumptions": "gyrotropic flux; populations from the bounce (min of the two "
                                "footpoint fields) and drift (drift-shell minimum) loss cones",
