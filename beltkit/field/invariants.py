@@ -14,7 +14,7 @@ conserved) and the trade's modified second invariant is
 between the mirror points, in G^(1/2) R_E (Roederer 1970, ch. 3). The field
 line through each sample is traced once (:func:`beltkit.field.trace.trace_lines`)
 and :math:`I` is integrated on it for every requested pitch angle
-(:meth:`beltkit.field.trace.FieldLines.integral_invariant`, the same
+(:meth:`beltkit.field.fieldlines.FieldLines.integral_invariant`, the same
 machinery as McIlwain's L in :mod:`beltkit.field.lshell`).
 
 Roederer's L*

@@ -106,7 +106,7 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
         altitude are traced to the surface for it), ``L_foot`` (the
         drift-shell label), ``mlat``, ``mlon`` (deg), ``mlt`` (hour),
         ``open`` and ``open_reason`` (CF
-        flags of :data:`beltkit.field.trace.OPEN_REASONS`: boundary, maximum
+        flags of :data:`beltkit.field.trace_ends.OPEN_REASONS`: boundary, maximum
         radius, step limit); for :class:`~beltkit.field.T89` also
         ``kp_level`` per sample (-1 where Kp is undefined). Attributes
         ``field_model`` (short name), ``field_model_description`` (internal

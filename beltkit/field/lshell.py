@@ -124,7 +124,7 @@ def hilton_l(b_m_nt, i_km, b0_nt):
 
 def needs_surface(lines, b_m):
     """Flag closed lines whose mirror field `b_m` exceeds a footpoint field (mirror below)."""
-    from .trace import FOOT_TOLERANCE
+    from .trace_integral import FOOT_TOLERANCE
 
     with np.errstate(invalid="ignore"):
         weak = np.fmin(lines.b_foot_north, lines.b_foot_south)
@@ -221,8 +221,8 @@ def kp_level_variable(model, time, lead, dims):
 
 
 def open_reason_variable(reason, lead, dims):
-    """``open_reason`` of traced lines as a CF flag variable (codes of ``trace.OPEN_REASONS``)."""
-    from .trace import OPEN_REASONS
+    """``open_reason`` of traced lines as a CF flag variable (flags of ``OPEN_REASONS``)."""
+    from .trace_ends import OPEN_REASONS
 
     return xr.Variable(dims, np.asarray(reason, dtype=np.int8).reshape(lead), {
         "long_name": "why the field line through the sample is open (0: not open)",
@@ -266,7 +266,7 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
         leading dimensions, for DataArray input). NaN for NaN positions, open
         field lines and mirror points below the stop altitude. A DataArray
         carries the coordinate ``open_reason`` (CF flags of
-        :data:`beltkit.field.trace.OPEN_REASONS`: why a line is open), for
+        :data:`beltkit.field.trace_ends.OPEN_REASONS`: why a line is open), for
         :class:`~beltkit.field.T89` also ``kp_level``, and the attributes of
         :func:`model_attrs` (which model and Kp).
 

@@ -52,7 +52,7 @@ import numba as nb
 import numpy as np
 
 from ..constants import R_E_KM
-from .trace import FOOT_TOLERANCE
+from .trace_integral import FOOT_TOLERANCE
 
 __all__ = ["NODES_ANY", "NODES_INTERNAL", "ShellSearch", "cap_flux_equator",
            "cap_flux_footprints", "contour_radius", "integral_invariant_many", "shell_residual"]
@@ -387,7 +387,7 @@ def _invariant_rows(s, lb, ns_all, s_min_all, log_bm_all, rows, theta, w, out):
 def integral_invariant_many(lines, b_m_nt):
     r"""Integral invariant :math:`I` (km), one mirror field per line, in a compiled kernel.
 
-    The same computation as :meth:`beltkit.field.trace.FieldLines.integral_invariant`
+    The same computation as :meth:`beltkit.field.fieldlines.FieldLines.integral_invariant`
     (mirror points as roots of the local cubic of :math:`\ln B(s)` through the
     samples; :math:`s = c + d\sin\theta` and 64-point Gauss-Legendre in
     :math:`\theta`), each line on its own thread, each root iterated until it
