@@ -249,8 +249,7 @@ NEGATIVE = [(5, 0, 3), (60, 1, 0), (61, 2, 11), (150, 0, 6), (250, 1, 5)]
 
 
 @pytest.mark.parametrize("chunked", [False, True])
-@pytest.mark.parametrize("engine", ["numba", "numpy"])
-def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked):
+def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(chunked):
     # issue 15: five ephemeris glitches (magnetic latitude 95 deg, L = 0.7) among 300 good
     # samples: strict refuses the file; otherwise those five samples are NaN and flagged
     # position_out_of_range and the other 295 equal a partition of the valid samples alone
@@ -259,12 +258,12 @@ def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked
     bad["L"].values[GLITCH_TIMES[:2]] = 0.7
     bad["mlat"].values[GLITCH_TIMES[2:]] = 95.0
     with pytest.raises(ConventionError) as err:
-        partition(bad, engine=engine)
+        partition(bad)
     assert [p.split(":")[0] for p in err.value.problems] == ["L", "mlat"]
     assert validate(bad, strict=False) == []
     before = copy.deepcopy(bad)
     src = bad.chunk(time=64) if chunked else bad
-    out = partition(src, engine=engine, strict=False).compute()
+    out = partition(src, strict=False).compute()
     xr.testing.assert_identical(bad, before)
     flag = out.partition_flag.values
     assert (flag[GLITCH_TIMES] & 4096).all() and (flag[GLITCH_TIMES] & 64).all()
@@ -272,7 +271,7 @@ def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked
     assert not (flag[valid] & 4096).any()
     for name in ("flux_trapped", "fraction_precipitating", "omni_flux", "blc_local"):
         assert np.isnan(out[name].values[GLITCH_TIMES]).all(), name
-    ref = partition(clean.isel(time=valid), engine=engine)
+    ref = partition(clean.isel(time=valid))
     xr.testing.assert_allclose(out.isel(time=valid).drop_attrs(), ref.drop_attrs(),
                                rtol=1e-12)
     # and the valid samples beside each glitch equal the dipole calculation written out here
@@ -288,8 +287,7 @@ def test_ephemeris_glitches_flag_those_samples_and_keep_the_rest(engine, chunked
         assert out.attrs["beltkit_samples_negative_flux_masked"] == 0
 
 
-@pytest.mark.parametrize("engine", ["numba", "numpy"])
-def test_negative_flux_values_masked_and_equal_an_independent_calculation(engine):
+def test_negative_flux_values_masked_and_equal_an_independent_calculation():
     # issue 15: five negative background-subtracted values; strict refuses, otherwise the
     # value is masked (NaN), its (time, energy) output flagged negative_flux_masked and
     # computed on the remaining bins: equal to the zone solid-angle sums written out here
@@ -298,8 +296,8 @@ def test_negative_flux_values_masked_and_equal_an_independent_calculation(engine
     for t, e, p in NEGATIVE:
         bad["flux"].values[t, e, p] = -2.5
     with pytest.raises(ConventionError, match="5 negative values"):
-        partition(bad, engine=engine)
-    out = partition(bad, engine=engine, strict=False)
+        partition(bad)
+    out = partition(bad, strict=False)
     assert out.attrs["beltkit_samples_negative_flux_masked"] == 5
     flag = out.partition_flag.values
     rows = {(t, e) for t, e, _ in NEGATIVE}
@@ -324,12 +322,12 @@ def test_negative_flux_values_masked_and_equal_an_independent_calculation(engine
     other = np.ones((300, 3), dtype=bool)
     for t, e in rows:
         other[t, e] = False
-    ref = partition(clean, engine=engine)
+    ref = partition(clean)
     for name in ("flux_trapped", "fraction_precipitating", "coverage_trapped"):
         np.testing.assert_allclose(out[name].values[other], ref[name].values[other],
                                    rtol=1e-12)
     # allow_negative keeps them (flag 16) as before
-    kept = partition(bad, engine=engine, strict=False, allow_negative=True)
+    kept = partition(bad, strict=False, allow_negative=True)
     assert (kept.partition_flag.values[[t for t, _, _ in NEGATIVE],
                                        [e for _, e, _ in NEGATIVE]] & 16).all()
     assert kept.attrs["beltkit_samples_negative_flux_masked"] == 0
@@ -340,13 +338,12 @@ def test_negative_uncertainties_masked_or_refused():
     ds["flux_err"].values[2, 1, 4] = -0.1
     with pytest.raises(ConventionError, match="negative uncertainties"):
         partition(ds)
-    for engine in ("numba", "numpy"):
-        out = partition(ds, strict=False, engine=engine)
-        assert out.partition_flag.values[2, 1] & 8192
-        assert np.isnan(out.flux_trapped_err.values[2, 1])  # unknown, not a wrong number
-        assert np.isfinite(out.flux_trapped.values[2, 1])  # the flux itself is measured
-        assert np.isfinite(out.flux_trapped_err.values[2, 0])
-        assert out.attrs["beltkit_samples_negative_uncertainty_masked"] == 1
+    out = partition(ds, strict=False)
+    assert out.partition_flag.values[2, 1] & 8192
+    assert np.isnan(out.flux_trapped_err.values[2, 1])  # unknown, not a wrong number
+    assert np.isfinite(out.flux_trapped.values[2, 1])  # the flux itself is measured
+    assert np.isfinite(out.flux_trapped_err.values[2, 0])
+    assert out.attrs["beltkit_samples_negative_uncertainty_masked"] == 1
 
 
 def test_reader_masks_become_flag_bits_and_strict_refuses_range_and_quality():

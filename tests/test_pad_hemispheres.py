@@ -13,6 +13,7 @@ import ppigrf
 import pytest
 import xarray as xr
 from _flux_factory import make_ds
+from _partition_reference import reference_partition
 from scipy import integrate
 
 from beltkit.constants import R_E_KM
@@ -37,14 +38,13 @@ def _binned_integral(edges, j, a1_deg, a2_deg):
                           epsrel=1e-12, limit=200)[0]
 
 
-@pytest.mark.parametrize("engine", ["numba", "numpy"])
-def test_centred_dipole_hemispheres_add_up_to_the_precipitating_flux(engine):
+def test_centred_dipole_hemispheres_add_up_to_the_precipitating_flux():
     rng = np.random.default_rng(4)
     j = rng.uniform(1, 2, (3, 2, 12))
     j[..., 6:] += 4.0  # up- and down-going flux differ
     ds = make_ds(j, EDGES_12, L=[1.3, 1.6, 2.2], mlat=[0.0, 20.0, -15.0],
                  flux_err=0.1 * j)
-    out = partition(ds, engine=engine, hemispheres=True)
+    out = partition(ds, hemispheres=True)
     # centred dipole: B_N = B_S, both cones equal the bounce loss cone
     np.testing.assert_array_equal(out.loss_cone_north.values, out.blc_local.values)
     np.testing.assert_array_equal(out.loss_cone_south.values, out.blc_local.values)
@@ -174,14 +174,13 @@ def test_off_equator_igrf_hemispheres_match_an_independent_calculation():
                      - out.flux_lost_south[0, e]) == pytest.approx(gap, rel=1e-3)
 
 
-@pytest.mark.parametrize("engine", ["numba", "numpy"])
-def test_hemispheres_on_request_change_nothing_else(engine):
+def test_hemispheres_on_request_change_nothing_else():
     rng = np.random.default_rng(6)
     j = rng.uniform(1, 10, (5, 2, 12))
     j[1, 0, 3] = np.nan  # the general path of the compiled kernel too
     ds = make_ds(j, EDGES_12, L=np.linspace(1.3, 3, 5), flux_err=0.1 * j)
-    full = partition(ds, engine=engine, hemispheres=True)
-    lean = partition(ds, engine=engine)  # the default leaves them out
+    full = partition(ds, hemispheres=True)
+    lean = partition(ds)  # the default leaves them out
     hemi = [n for n in full.data_vars if "_lost_" in n]
     assert len(hemi) == 8 and not [n for n in lean.data_vars if "_lost_" in n]
     xr.testing.assert_identical(full.drop_vars(hemi), lean)
@@ -193,17 +192,18 @@ def test_hemispheres_on_request_change_nothing_else(engine):
 
 
 @pytest.mark.parametrize("folded", [False, True])
-def test_engines_agree_on_the_hemisphere_outputs(folded):
-    # the compiled kernel (fused and general paths) against the numpy reference
+def test_compiled_engine_agrees_with_the_numpy_reference_on_the_hemisphere_outputs(folded):
+    # the compiled kernel (fused and general paths) against the plain numpy reference of
+    # tests/_partition_reference.py (the formulas of docs/conventions.md, section 5)
     rng = np.random.default_rng(9)
     edges = np.linspace(0, 90 if folded else 180, 10)
     j = rng.uniform(1, 10, (50, 3, 9))
     j[5, 1, 2] = j[20, :, 0] = np.nan
     ds = make_ds(j, edges, L=np.linspace(1.25, 6, 50), mlat=np.linspace(-35, 35, 50),
                  flux_err=0.1 * j, folded=folded)
-    a = partition(ds, engine="numba", hemispheres=True)
-    b = partition(ds, engine="numpy", hemispheres=True)
+    a = partition(ds, hemispheres=True)
+    b = reference_partition(ds, a)
     for name in [n for n in a.data_vars if "_lost_" in n]:
         # atol: an error bar that cancels to zero keeps only its rounding (~1e-10)
-        np.testing.assert_allclose(a[name].values, b[name].values, rtol=1e-11, atol=1e-8,
+        np.testing.assert_allclose(a[name].values, b[name], rtol=1e-11, atol=1e-8,
                                    err_msg=name)

@@ -1,10 +1,13 @@
 """Fused single-pass kernels (numba) of the partition and of the validator's value scan.
 
-The numpy implementation in :mod:`beltkit.pad.partition` is the reference;
-these kernels compute the same quantities in one pass over the data (read
-each flux value once, write each output once), which the partition benchmark
-showed to be needed: the numpy path costs about 40 passes over (time, energy)
-arrays plus the per-sample weight matrices. Sums are accumulated in float64.
+The package's one partition engine: the formulas are stated in
+:mod:`beltkit.pad.partition`, and a plain numpy reference of them lives with
+the tests (``tests/_partition_reference.py``), which check these kernels
+against it to float rounding. The kernels compute the outputs in one pass over
+the data (read each flux value once, write each output once), which the
+partition benchmark showed to be needed: a numpy formulation costs about 40
+passes over (time, energy) arrays plus the per-sample weight matrices. Sums
+are accumulated in float64.
 """
 
 from __future__ import annotations
@@ -464,7 +467,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             r_f2[j] = pops2 * itot
         fl = flag[o:o + m]
         lim = 1 - 1e-6
-        for j in range(m):  # flags (coverage again in float64, as in the numpy engine)
+        for j in range(m):  # flags (coverage again in float64, as in the numpy reference)
             e0 = o_0[j] > TOL_SR
             e1 = o_1[j] > TOL_SR
             e2 = o_2[j] > TOL_SR

@@ -10,6 +10,11 @@ band of pitch angles that its field of view sweeps over a gyration
 (:func:`swept_band`), with its flux uniform over that band; overlapping looks
 share the pitch angles they both cover (:func:`look_bands`).
 
+The weights that the partition kernel uses come from the same geometry: the
+solid angle of each bin or look inside each population's pitch-angle range
+(:func:`range_weights`, :func:`telescope_weights`; the ranges are written
+with the cosines of the loss-cone edges, :func:`edge_cosines`).
+
 All functions broadcast their arguments (numpy rules), take angles in degrees
 and never modify their inputs.
 """
@@ -22,12 +27,18 @@ __all__ = [
     "band_solid_angle",
     "band_overlap_solid_angle",
     "band_weights",
+    "edge_cosines",
     "look_bands",
     "look_solid_angles",
+    "range_weights",
     "swept_band",
+    "telescope_weights",
 ]
 
 _TWO_PI = 2.0 * np.pi
+#: weight columns of :func:`range_weights`: 0-2 populations, 3 the band outside the loss
+#: cone, 4 the whole interval, 5 lost north, 6 lost south
+_N_W = 7
 
 
 def band_solid_angle(a1_deg, a2_deg):
@@ -242,3 +253,61 @@ def swept_band(axis_deg, half_angle_deg):
     axis = np.asarray(axis_deg, dtype=float)
     delta = np.asarray(half_angle_deg, dtype=float)
     return np.maximum(axis - delta, 0.0), np.minimum(axis + delta, 180.0)
+
+
+def edge_cosines(blc, dlc, outer, lcn, lcs):
+    """Return the cosines of the loss-cone edges (degree): bounce, drift, band, north, south."""
+    return tuple(np.cos(np.radians(np.asarray(a, dtype=float)))
+                 for a in (blc, dlc, outer, lcn, lcs))
+
+
+def range_weights(cos_a1, cos_a2, cos_edges, folded):
+    r"""Solid angles (n, P, 7) of pitch-angle intervals inside each population's range.
+
+    Interval :math:`[a_1, a_2]` (given by its cosines, (P,) or (n, P)) inside the
+    range :math:`[r_1, r_2]` has the zone solid angle
+    :math:`2\pi\max(0, \cos\max(a_1, r_1) - \cos\min(a_2, r_2))` (spherical
+    geometry). Columns: precipitating :math:`[0, \alpha_B] \cup [180 - \alpha_B,
+    180]`, quasi-trapped, trapped :math:`[\alpha_D, 180 - \alpha_D]`, the band
+    :math:`[\alpha_B, \alpha_o]` outside the loss cone (both sides), the whole
+    interval, lost north :math:`[0, \alpha_N]`, lost south :math:`[180 -
+    \alpha_S, 180]`. ``cos_edges`` is :func:`edge_cosines` per sample, each
+    (n,). A folded bin also stands for its mirror image :math:`[180 - a_2,
+    180 - a_1]`.
+    """
+    cb, cd, co, cn, cs = (c[:, None] for c in cos_edges)  # cosines of the edges, (n, 1)
+
+    def cum(c):  # solid angle of each interval below the pitch angle arccos(c)
+        return _TWO_PI * (cos_a1 - np.clip(c, cos_a2, cos_a1))
+
+    full = _TWO_PI * (cos_a1 - cos_a2)
+    c_b, c_d, c_o = cum(cb), cum(cd), cum(co)
+    c_bm, c_dm, c_om = cum(-cb), cum(-cd), cum(-co)
+    c_n, c_sm = cum(cn), cum(-cs)
+    w = np.empty(np.broadcast_shapes(c_b.shape, np.shape(full)) + (_N_W,))
+    w[..., 0] = c_b + full - c_bm
+    w[..., 1] = c_d - c_b + c_bm - c_dm
+    w[..., 2] = c_dm - c_d
+    w[..., 3] = c_o - c_b + c_bm - c_om
+    w[..., 4] = full
+    w[..., 5] = c_n
+    w[..., 6] = full - c_sm
+    if folded:  # each folded bin also stands for its mirror image [180 - a2, 180 - a1]
+        w[..., :5] *= 2.0  # the populations are symmetric
+        w[..., 5] += full - cum(-cn)  # mirror image below lcn
+        w[..., 6] += cum(cs)  # mirror image above 180 - lcs
+    np.maximum(w, 0.0, out=w)
+    return w
+
+
+def telescope_weights(look_deg, half_deg, cos_edges):
+    """Weights (n, K, 7) of telescope looks in each population: the union of their bands.
+
+    Each elementary interval of the union (:func:`look_bands`) is split among
+    the populations like a bin (:func:`range_weights`), and its solid angles
+    are shared among the looks that cover it in proportion to their band
+    solid angles. A NaN look samples nothing.
+    """
+    a1, a2, share = look_bands(look_deg, half_deg)  # (n, M), (n, M), (n, M, K)
+    wm = range_weights(np.cos(np.radians(a1)), np.cos(np.radians(a2)), cos_edges, False)
+    return np.einsum("nmk,nmp->nkp", share, wm)

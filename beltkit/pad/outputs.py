@@ -1,4 +1,4 @@
-"""The partition outputs: their memory, long names and units."""
+"""The partition outputs: their names and order, memory, long names and units."""
 
 from __future__ import annotations
 
@@ -6,7 +6,57 @@ import numpy as np
 
 from .conventions import INTEGRATED_FLUX_UNITS
 
-__all__ = ["LONG_NAMES", "OutputBuffers", "alloc_out", "as_3d", "output_units"]
+__all__ = [
+    "ERR_NAMES",
+    "HEMI_ERR_NAMES",
+    "HEMI_NAMES",
+    "LONG_NAMES",
+    "NAMES",
+    "POPULATIONS",
+    "OutputBuffers",
+    "alloc_out",
+    "as_3d",
+    "hemisphere_row",
+    "n_outputs",
+    "output_names",
+    "output_units",
+]
+
+#: The three populations, in the order of the output rows.
+POPULATIONS = ("precipitating", "quasi_trapped", "trapped")
+#: Output rows of every partition; then the uncertainties (``ERR_NAMES``) and the losses
+#: per hemisphere (``HEMI_NAMES``, ``HEMI_ERR_NAMES``) when asked for.
+NAMES = (
+    [f"flux_{p}" for p in POPULATIONS] + ["omni_flux"]
+    + [f"fraction_{p}" for p in POPULATIONS]
+    + [f"coverage_{p}" for p in POPULATIONS]
+    + [f"solid_angle_{p}" for p in POPULATIONS]
+    + ["loss_cone_filling", "partition_flag"]
+)
+ERR_NAMES = [f"flux_{p}_err" for p in POPULATIONS] + ["omni_flux_err"] + [
+    f"fraction_{p}_err" for p in POPULATIONS] + ["loss_cone_filling_err"]
+_HEMIS = ("north", "south")
+HEMI_NAMES = [f"flux_lost_{h}" for h in _HEMIS] + [f"fraction_lost_{h}" for h in _HEMIS]
+HEMI_ERR_NAMES = [f"{name}_err" for name in HEMI_NAMES]
+
+
+def output_names(with_err, hemispheres):
+    """Names of the output rows, in the order the kernel writes them."""
+    names = list(NAMES) + (list(ERR_NAMES) if with_err else [])
+    if hemispheres:
+        names += HEMI_NAMES + (HEMI_ERR_NAMES if with_err else [])
+    return names
+
+
+def n_outputs(with_err, hemispheres):
+    """Return the number of output rows (see :func:`output_names`)."""
+    return len(output_names(with_err, hemispheres))
+
+
+def hemisphere_row(with_err, hemispheres):
+    """First row of the hemisphere outputs (-1 without them)."""
+    return len(NAMES) + (len(ERR_NAMES) if with_err else 0) if hemispheres else -1
+
 
 #: ``long_name`` of each output.
 LONG_NAMES = {

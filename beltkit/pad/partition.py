@@ -65,6 +65,7 @@ from .._threads import cores, map_slices
 from ..errors import ConventionError
 from . import _kernels
 from .conventions import Prepared, check
+from .geometry import edge_cosines, telescope_weights
 from .losscones import (
     dipole_low_altitude_note,
     model_name,
@@ -72,16 +73,19 @@ from .losscones import (
     sample_loss_cones,
     time_coords,
 )
-from .outputs import LONG_NAMES, OutputBuffers, alloc_out, as_3d, output_units
-from .reference import HEMI_NAMES as _HEMI_NAMES
-from .reference import NAMES as _NAMES
-from .reference import POPULATIONS as _POPS
-from .reference import edge_cosines as _edge_cosines
-from .reference import hemisphere_row as _hemi_row
-from .reference import n_outputs as _n_out
-from .reference import output_names as _out_names
-from .reference import reference_kernel as _kernel
-from .reference import telescope_weights as _telescope_weights
+from .outputs import (
+    HEMI_NAMES,
+    LONG_NAMES,
+    NAMES,
+    POPULATIONS,
+    OutputBuffers,
+    alloc_out,
+    as_3d,
+    hemisphere_row,
+    n_outputs,
+    output_names,
+    output_units,
+)
 from .rows import mask_bad_rows, or_bits, overlap_rows, repartition_rows, sample_bits
 from .samples import SAMPLE_FLAGS, flag_counts, mask_positions, position_mask
 from .values import value_problems
@@ -90,7 +94,7 @@ __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "OutputBuffers", "partition", "parti
 
 #: Names of the per-(time, energy) outputs (uncertainties add ``_err``); the losses per
 #: hemisphere (``flux_lost_*``, ``fraction_lost_*``, with ``hemispheres=True``) come last.
-OUTPUT_NAMES = tuple(_NAMES + _HEMI_NAMES)
+OUTPUT_NAMES = tuple(NAMES + HEMI_NAMES)
 #: Bits of ``partition_flag``.
 FLAG_MEANINGS = {
     1: "precipitating_unsampled",
@@ -138,13 +142,6 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_count
     return x, s, err_bad
 
 
-def _numpy_stats(x, s, stats):
-    stats[:, 0] += np.isfinite(x).sum(axis=(0, 2))
-    stats[:, 1] += (x < 0).sum(axis=(0, 2))
-    if s is not None:
-        stats[:, 2] += (s < 0).sum(axis=(0, 2))
-
-
 def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
                out=None, stats=None, flag=None, counts=False, rf_blk=None, pos_blk=None):
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
@@ -163,31 +160,10 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
                                   mask_err=opts.get("mask_err", False))
     n, n_e = x.shape[:2]
     hemi = opts.get("hemispheres", True)
-    n_data = _n_out(s is not None, hemi)
+    n_data = n_outputs(s is not None, hemi)
     rows = None
     if geom["kind"] == "telescope":
         rows = overlap_rows(x, look, geom["half"])
-    if opts["engine"] == "numpy":
-        _numpy_stats(x, s, stats)
-        res = _kernel(x, s, cones, look, geom=geom, opts=opts)
-        if rows is not None:
-            res[:, rows[0], rows[1]] = repartition_rows(rows, x, s, cones, look, geom, opts)
-        if counts:
-            neg_err = neg_counts[0] if neg_counts else (
-                (s < 0).sum(axis=2) if s is not None else np.zeros((n, n_e)))
-            res = np.concatenate([res, np.stack([np.isfinite(x).sum(axis=2),
-                                                 (x < 0).sum(axis=2), neg_err])
-                                  .astype(res.dtype)])
-        r2 = res.reshape(res.shape[0], -1)
-        mask_bad_rows(x, s, cones, look, geom, opts, r2, r2[14], n_data, err_bad,
-                       int(stats[:, 2].sum()) > err_before)
-        or_bits(r2[14], sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
-        if out is None:
-            return res
-        out[:, : n * n_e] = res.reshape(res.shape[0], -1)
-        if flag is not None:
-            flag[: n * n_e] = res[14].reshape(-1)
-        return out
     x = np.ascontiguousarray(x)
     s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
@@ -198,8 +174,8 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     wpre = None
     if geom["kind"] == "telescope":
         outer = np.minimum(blc + opts["band_deg"], 90.0)
-        wpre = _telescope_weights(np.asarray(look, dtype=float), geom["half"],
-                                  _edge_cosines(blc, np.maximum(dlc, blc), outer, lcn, lcs))
+        wpre = telescope_weights(np.asarray(look, dtype=float), geom["half"],
+                                  edge_cosines(blc, np.maximum(dlc, blc), outer, lcn, lcs))
         cos_a1 = cos_a2 = np.zeros(x.shape[2])
         fold = 1.0
     else:
@@ -209,7 +185,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
                              out, stats, flag,
                              n_data if counts else -1,
                              cones_ns=(lcn, lcs) if hemi else None,
-                             hemi_row=_hemi_row(s is not None, hemi))
+                             hemi_row=hemisphere_row(s is not None, hemi))
     if rows is not None:
         j = rows[0] * n_e + rows[1]
         sub = repartition_rows(rows, x, s, cones, look, geom, opts)
@@ -226,6 +202,17 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
 
 
 # ------------------------------------------------------------------ assembly
+
+
+def _check_engine(engine):
+    """Accept ``engine`` "auto" or "numba" (the one compiled engine); refuse the rest."""
+    if engine == "numpy":
+        raise ValueError("engine='numpy' is no longer available: the numpy reference of the "
+                         "partition moved to the tests (tests/_partition_reference.py), where "
+                         "the compiled engine is checked against it; drop the 'engine' "
+                         "argument to use the compiled engine")
+    if engine not in ("auto", "numba"):
+        raise ValueError(f"engine must be 'auto' or 'numba', got {engine!r}")
 
 
 def _is_lazy(ds):
@@ -276,7 +263,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     ``read_flag`` (DataArray (time, energy, angle) or None) and ``pos_bad``
     (bool (time,) or None) add the bits of masked input samples.
     """
-    nout = _n_out(err is not None, opts.get("hemispheres", True)) + (3 if counts else 0)
+    nout = n_outputs(err is not None, opts.get("hemispheres", True)) + (3 if counts else 0)
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look) + tuple(cones) if a is not None)
     if lazy:
@@ -349,7 +336,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     n_blocks = max(2 * n_cores, -(-n_t // _BLOCK))
     n_blocks = -(-n_blocks // n_cores) * n_cores
     block = max(4096, -(-n_t // n_blocks))
-    parts = map_slices(one, n_t, block, parallel=opts["engine"] != "numpy")
+    parts = map_slices(one, n_t, block, parallel=True)
     if stats is not None:
         for block_stats in parts:
             stats += block_stats
@@ -408,7 +395,7 @@ def _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative):
     ).transpose("time", "energy", "_pop")
     filled = {}
     any_fill = None
-    for k, pop in enumerate(_POPS):
+    for k, pop in enumerate(POPULATIONS):
         name = f"flux_{pop}"
         f = fill.isel(_pop=k, drop=True)
         use = np.isfinite(f) & (f > 0)
@@ -416,7 +403,7 @@ def _apply_fill(out, ds, prep, lc, model, altitude_km, allow_negative):
         any_fill = use if any_fill is None else (any_fill | use)
     dtype = out["flux_trapped"].dtype
     total = filled["precipitating"] + filled["quasi_trapped"] + filled["trapped"]
-    for pop in _POPS:
+    for pop in POPULATIONS:
         out[f"flux_{pop}"] = filled[pop].astype(dtype).assign_attrs(out[f"flux_{pop}"].attrs)
         frac = xr.where(total > 0, filled[pop] / total, np.nan)
         out[f"fraction_{pop}"] = frac.astype(dtype).assign_attrs(out[f"fraction_{pop}"].attrs)
@@ -457,9 +444,11 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
     allow_negative : bool, keyword-only
         Keep negative flux values (flag bit 16 of ``partition_flag``) instead
         of refusing the dataset (or, with ``strict=False``, masking them).
-    engine : {"auto", "numba", "numpy"}, keyword-only
-        "auto" uses the fused numba kernel when numba is importable, else the
-        numpy reference implementation (same results to float rounding).
+    engine : {"auto", "numba"}, keyword-only
+        Both use the compiled (numba) kernel, the package's one engine.
+        ``"numpy"`` raises a ValueError: the plain numpy reference that the
+        kernel is checked against lives with the tests
+        (``tests/_partition_reference.py``).
     fill : {None, "sine_power"}, keyword-only
         None (default): nothing is extrapolated. "sine_power": add the fitted
         :math:`A\sin^n\alpha` of the trapped bins over each population's
@@ -572,6 +561,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     model), is trusted instead of validating ``ds`` again: a file summarized
     slab by slab is validated once.
     """
+    _check_engine(engine)  # the cheap option checks first
     model = resolve_model(ds, model)
     lazy = _is_lazy(ds)
     deferred = bool(defer_value_check and lazy)
@@ -595,10 +585,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     if fill is not None and prep.kind != "bins":
         raise ConventionError(["flux: fill='sine_power' needs pitch-angle bins, not telescope "
                                "looks"], ds.encoding.get("source"))
-    if engine not in ("auto", "numba", "numpy"):
-        raise ValueError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
-    use = "numpy" if engine == "numpy" else "numba"
-    opts = {"band_deg": float(filling_band_deg), "engine": use,
+    opts = {"band_deg": float(filling_band_deg),
             "hemispheres": bool(hemispheres),
             "mask_negative": not prep.strict and not allow_negative,
             "mask_err": not prep.strict}
@@ -624,10 +611,10 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
         else:
             verify(stats.T)
     if deferred:
-        n_data = _n_out(err is not None, opts.get("hemispheres", True))
+        n_data = n_outputs(err is not None, opts.get("hemispheres", True))
         pending = (data[n_data:].astype(np.int64).sum(axis=1), verify)
     with_err = err is not None
-    names = _out_names(with_err, opts.get("hemispheres", True))
+    names = output_names(with_err, opts.get("hemispheres", True))
     dims = ("time", "energy")
     out_vars = {}
     for k, name in enumerate(names):

@@ -5,7 +5,8 @@ overlapping telescope looks where some look has no value at that energy (the
 union of bands changes), and rows holding a negative flux value or a negative
 uncertainty that are masked rather than refused (``strict=False``,
 :mod:`beltkit.pad.samples`). Both are rare; they are partitioned again one
-row at a time with the reference kernel. Also here: the flag bits of masked
+row at a time with the compiled kernel (:mod:`beltkit.pad._kernels`), each
+row a sample of its own with one energy. Also here: the flag bits of masked
 input samples (reader bits, fill and valid-range hits, positions).
 """
 
@@ -13,7 +14,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .reference import reference_kernel
+from . import _kernels
+from .geometry import edge_cosines, telescope_weights
+from .outputs import hemisphere_row, n_outputs
 from .samples import read_flag_bits
 
 __all__ = [
@@ -58,14 +61,33 @@ def repartition_rows(rows, x, s, cones, look, geom, opts):
 
 
 def rows_kernel(xs, ss, ti, cones, look, geom, opts):
-    """Partition single (time, energy) rows ``xs`` (r, angle) of the samples ``ti``."""
-    lk = None
-    if look is not None:  # each row with only the looks that have a value
+    """Partition single (time, energy) rows ``xs`` (r, angle) of the samples ``ti``.
+
+    Returns the outputs (n_out, r), the flags (row 14) as numbers.
+    """
+    r = xs.shape[0]
+    hemi = opts.get("hemispheres", True)
+    with_err = ss is not None
+    blc, dlc, lcn, lcs = (np.asarray(c, dtype=float)[ti] for c in cones)
+    x = np.ascontiguousarray(xs[:, None, :])
+    s = None if ss is None else np.ascontiguousarray(ss[:, None, :])
+    wpre = None
+    fold = 1.0
+    cos_a1 = cos_a2 = np.zeros(x.shape[2])
+    if geom["kind"] == "telescope":  # each row with only the looks that have a value
         lk = np.where(np.isfinite(xs), np.asarray(look, dtype=float)[ti], np.nan)
-    sub = reference_kernel(xs[:, None, :], None if ss is None else ss[:, None, :],
-                  tuple(np.asarray(c, dtype=float)[ti] for c in cones), lk, geom=geom,
-                  opts=opts)
-    return sub[:, :, 0]
+        outer = np.minimum(blc + opts["band_deg"], 90.0)
+        wpre = telescope_weights(lk, geom["half"],
+                                 edge_cosines(blc, np.maximum(dlc, blc), outer, lcn, lcs))
+    else:
+        cos_a1, cos_a2 = geom["cos_a1"], geom["cos_a2"]
+        fold = 2.0 if geom["folded"] else 1.0
+    out = np.empty((n_outputs(with_err, hemi), r), dtype=x.dtype)
+    stats = np.zeros((1, 3), dtype=np.int64)  # the rows' values were counted by the block
+    _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
+                             out, stats, cones_ns=(lcn, lcs) if hemi else None,
+                             hemi_row=hemisphere_row(with_err, hemi))
+    return out
 
 
 def mask_bad_rows(x, s, cones, look, geom, opts, o2, fl, n_data, err_bad, err_grew):

@@ -1,136 +1,33 @@
-"""The numpy reference implementation of the pitch-angle partition (one time block).
+"""A plain numpy reference of the pitch-angle partition, for the tests of the compiled engine.
 
-:mod:`beltkit.pad.partition` states the formulas and runs either this kernel or
-the compiled one in :mod:`beltkit.pad._kernels`, which must agree with it to
-float rounding. Here: the names and order of the output rows, the exact
-solid-angle weights of bins and telescope bands in each population, and the
-kernel itself.
+Formerly beltkit's ``engine="numpy"``; the package now has one engine (the
+numba kernels of :mod:`beltkit.pad._kernels`), and this reference lives with
+the tests that compare the engine against it. It follows the formulas of the
+module docstring of :mod:`beltkit.pad.partition` (exact zone solid angles of
+each bin inside each population, spherical geometry; first-order error
+propagation) with whole-array numpy operations, in float64 throughout.
+
+:func:`reference_kernel` partitions one block of samples;
+:func:`reference_partition` runs it on a whole convention-following dataset
+(canonical units), with the per-sample loss cones of a partition of the same
+dataset (the loss cones are not what is compared).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from . import _kernels
-from .geometry import look_bands
+from beltkit.pad.geometry import edge_cosines, range_weights, telescope_weights
+from beltkit.pad.outputs import NAMES, hemisphere_row, output_names
+from beltkit.units import FLUX_UNITS
 
-__all__ = [
-    "ERR_NAMES",
-    "HEMI_ERR_NAMES",
-    "HEMI_NAMES",
-    "NAMES",
-    "POPULATIONS",
-    "bin_weights",
-    "edge_cosines",
-    "hemisphere_row",
-    "n_outputs",
-    "output_names",
-    "range_weights",
-    "reference_kernel",
-    "telescope_weights",
-]
+__all__ = ["TOL_SR", "reference_kernel", "reference_partition"]
 
-#: The three populations, in the order of the output rows.
-POPULATIONS = ("precipitating", "quasi_trapped", "trapped")
-#: Output rows of every partition; then the uncertainties (``ERR_NAMES``) and the losses
-#: per hemisphere (``HEMI_NAMES``, ``HEMI_ERR_NAMES``) when asked for.
-NAMES = (
-    [f"flux_{p}" for p in POPULATIONS] + ["omni_flux"]
-    + [f"fraction_{p}" for p in POPULATIONS]
-    + [f"coverage_{p}" for p in POPULATIONS]
-    + [f"solid_angle_{p}" for p in POPULATIONS]
-    + ["loss_cone_filling", "partition_flag"]
-)
-ERR_NAMES = [f"flux_{p}_err" for p in POPULATIONS] + ["omni_flux_err"] + [
-    f"fraction_{p}_err" for p in POPULATIONS] + ["loss_cone_filling_err"]
-_HEMIS = ("north", "south")
-HEMI_NAMES = [f"flux_lost_{h}" for h in _HEMIS] + [f"fraction_lost_{h}" for h in _HEMIS]
-HEMI_ERR_NAMES = [f"{name}_err" for name in HEMI_NAMES]
+#: solid angles (sr) below this count as empty (the rounding crumbs of cos near 90 deg);
+#: the same threshold as the compiled kernel's
+TOL_SR = 1e-12
 _FOUR_PI = 4.0 * np.pi
 _TWO_PI = 2.0 * np.pi
-
-
-# ------------------------------------------------------------------ weights
-
-
-#: weight columns: 0-2 populations, 3 the band outside the loss cone, 4 the whole bin,
-#: 5 lost north, 6 lost south
-_N_W = 7
-
-
-def range_weights(cos_a1, cos_a2, cos_edges, folded):
-    """Solid-angle weights (n, P, 7) of intervals [a1, a2] (cosines, (P,) or (n, P)).
-
-    Columns: precipitating, quasi-trapped, trapped, band outside the loss cone,
-    whole interval, lost north ``[0, lcn]``, lost south ``[180 - lcs, 180]``.
-    """
-    cb, cd, co, cn, cs = (c[:, None] for c in cos_edges)  # cosines of the edges, (n, 1)
-
-    def cum(c):  # solid angle of each interval below the pitch angle arccos(c)
-        return _TWO_PI * (cos_a1 - np.clip(c, cos_a2, cos_a1))
-
-    full = _TWO_PI * (cos_a1 - cos_a2)
-    c_b, c_d, c_o = cum(cb), cum(cd), cum(co)
-    c_bm, c_dm, c_om = cum(-cb), cum(-cd), cum(-co)
-    c_n, c_sm = cum(cn), cum(-cs)
-    w = np.empty(np.broadcast_shapes(c_b.shape, np.shape(full)) + (_N_W,))
-    w[..., 0] = c_b + full - c_bm
-    w[..., 1] = c_d - c_b + c_bm - c_dm
-    w[..., 2] = c_dm - c_d
-    w[..., 3] = c_o - c_b + c_bm - c_om
-    w[..., 4] = full
-    w[..., 5] = c_n
-    w[..., 6] = full - c_sm
-    if folded:  # each folded bin also stands for its mirror image [180 - a2, 180 - a1]
-        w[..., :5] *= 2.0  # the populations are symmetric
-        w[..., 5] += full - cum(-cn)  # mirror image below lcn
-        w[..., 6] += cum(cs)  # mirror image above 180 - lcs
-    np.maximum(w, 0.0, out=w)
-    return w
-
-
-def bin_weights(cos_a1, cos_a2, cos_edges, folded):
-    """Solid-angle weights (n, P, 7) of fixed pitch-angle bins (see :func:`range_weights`)."""
-    return range_weights(cos_a1, cos_a2, cos_edges, folded)
-
-
-def telescope_weights(look_deg, half_deg, cos_edges):
-    """Weights (n, K, 7) of telescope looks: the union of their swept bands.
-
-    Each elementary interval of the union (:func:`beltkit.pad.geometry.look_bands`)
-    is split among the populations like a bin, and its solid angles are shared
-    among the looks that cover it in proportion to their band solid angles.
-    """
-    a1, a2, share = look_bands(look_deg, half_deg)  # (n, M), (n, M), (n, M, K)
-    wm = range_weights(np.cos(np.radians(a1)), np.cos(np.radians(a2)), cos_edges, False)
-    return np.einsum("nmk,nmp->nkp", share, wm)
-
-
-def edge_cosines(blc, dlc, outer, lcn, lcs):
-    """Return the cosines of the loss-cone edges (degree): bounce, drift, band, north, south."""
-    return tuple(np.cos(np.radians(np.asarray(a, dtype=float)))
-                 for a in (blc, dlc, outer, lcn, lcs))
-
-
-# ------------------------------------------------------------------ kernel
-
-
-def output_names(with_err, hemispheres):
-    """Names of the output rows, in the order the kernels write them."""
-    names = list(NAMES) + (list(ERR_NAMES) if with_err else [])
-    if hemispheres:
-        names += HEMI_NAMES + (HEMI_ERR_NAMES if with_err else [])
-    return names
-
-
-def n_outputs(with_err, hemispheres):
-    """Return the number of output rows (see :func:`output_names`)."""
-    return len(output_names(with_err, hemispheres))
-
-
-def hemisphere_row(with_err, hemispheres):
-    """First row of the hemisphere outputs (-1 without them)."""
-    return len(NAMES) + (len(ERR_NAMES) if with_err else 0) if hemispheres else -1
 
 
 def reference_kernel(x, s, cones, look, *, geom, opts):
@@ -152,7 +49,7 @@ def reference_kernel(x, s, cones, look, *, geom, opts):
     outer = np.minimum(blc + band, 90.0)
     cos_edges = edge_cosines(blc, dlc, outer, lcn, lcs)
     if geom["kind"] == "bins":
-        w64 = bin_weights(geom["cos_a1"], geom["cos_a2"], cos_edges, geom["folded"])
+        w64 = range_weights(geom["cos_a1"], geom["cos_a2"], cos_edges, geom["folded"])
     else:
         w64 = telescope_weights(np.asarray(look, dtype=float), geom["half"], cos_edges)
     w64[np.isnan(blc)] = np.nan
@@ -169,13 +66,13 @@ def reference_kernel(x, s, cones, look, *, geom, opts):
     omega = np.stack([_FOUR_PI * (1.0 - cb), _FOUR_PI * (cb - cd), _FOUR_PI * cd,
                       _FOUR_PI * (cb - co), _FOUR_PI + 0 * cb, _TWO_PI * (1.0 - cn),
                       _TWO_PI * (1.0 - cs)], axis=-1)[:, None, :]  # (n, 1, 7)
-    omega = np.where(omega > _kernels.TOL_SR, omega, 0.0)
+    omega = np.where(omega > TOL_SR, omega, 0.0)
     names = output_names(s is not None, hemi)
     out = np.empty((len(names), n, n_e), dtype=dtype)
     nan = dtype.type(np.nan)
     hrow = hemisphere_row(s is not None, hemi)
     with np.errstate(invalid="ignore", divide="ignore"):
-        sampled = m > _kernels.TOL_SR
+        sampled = m > TOL_SR
         nonempty = np.broadcast_to(omega > 0, sampled.shape)
         pops = np.where(nonempty, np.where(sampled, r, nan), 0.0)
         cov = np.where(nonempty, np.minimum(m / np.where(omega > 0, omega, 1), 1), 1.0)
@@ -245,3 +142,46 @@ def reference_kernel(x, s, cones, look, *, geom, opts):
     out[:14, unknown] = nan
     out[15:, unknown] = nan
     return out.astype(out_dtype, copy=False)
+
+
+def reference_partition(ds, out, *, filling_band_deg=10.0):
+    """Return ``{name: (time, energy) array}`` of the reference on a whole dataset.
+
+    ``ds`` follows docs/conventions.md in canonical units (flux and
+    ``flux_err`` in cm-2 s-1 sr-1 keV-1, angles in degree); ``out`` is a
+    partition of it, whose loss cones (``blc_local``, ``dlc_local``,
+    ``loss_cone_north``, ``loss_cone_south``) are used, and whose outputs
+    decide whether the losses per hemisphere are computed. Telescope looks
+    without a value at an energy leave that energy's union of bands to the
+    other looks (docs/conventions.md, section 5): each energy is partitioned
+    with the looks that have a value there.
+    """
+    assert ds["flux"].attrs["units"] == FLUX_UNITS, "the reference takes canonical units"
+    telescope = "look" in ds["flux"].dims
+    adim = "look" if telescope else "pitch_angle"
+    order = ("time", "energy", adim)
+    x = np.asarray(ds["flux"].transpose(*order).values)
+    s = (np.asarray(ds["flux_err"].transpose(*order).values) if "flux_err" in ds else None)
+    cones = tuple(np.asarray(out[k].values, dtype=float)
+                  for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
+    opts = {"band_deg": float(filling_band_deg), "hemispheres": "flux_lost_north" in out}
+    if telescope:
+        look = np.asarray(ds["look_pitch_angle"].transpose("time", "look").values, dtype=float)
+        geom = {"kind": "telescope",
+                "half": np.asarray(ds["look_half_angle"].values, dtype=float)}
+        parts = []
+        for e in range(x.shape[1]):
+            xe = x[:, e:e + 1, :]
+            lk = np.where(np.isfinite(xe[:, 0, :]), look, np.nan)
+            parts.append(reference_kernel(xe, None if s is None else s[:, e:e + 1, :], cones,
+                                          lk, geom=geom, opts=opts))
+        res = np.concatenate(parts, axis=2)
+    else:
+        edges = np.radians(np.asarray(ds["pitch_angle_bnds"].values, dtype=float))
+        flag = str(ds["pitch_angle"].attrs.get("folded", "false")).strip().lower()
+        folded = flag in ("true", "yes", "1")
+        geom = {"kind": "bins", "cos_a1": np.cos(edges[:, 0]), "cos_a2": np.cos(edges[:, 1]),
+                "folded": folded}
+        res = reference_kernel(x, s, cones, None, geom=geom, opts=opts)
+    names = output_names(s is not None, opts["hemispheres"])
+    return dict(zip(names, res))
