@@ -374,15 +374,16 @@ def test_empty_loss_cone_keeps_a_finite_filling_error():
     np.testing.assert_allclose(err, tiny.loss_cone_filling_err.values.item(), rtol=1e-6)
 
 
-def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
-    # batch runs leave the value checks of dask data to the engine's own pass (the file is
-    # read once); summed over the chunks they must name exactly the validator's problems
+def test_value_checks_counted_slab_by_slab_in_the_engine_pass_equal_the_validator():
+    # batch runs partition a file slab by slab and leave the value checks to the engine's
+    # own pass (the file is read once); summed over the slabs they must name exactly the
+    # validator's problems
     from beltkit.pad.conventions import validate
     from beltkit.pad.partition import partition_slab
 
     rng = np.random.default_rng(5)
     j = rng.uniform(1, 50, (40, 3, 12))
-    j[3, 0, 2] = -1.0  # negatives in three different chunks
+    j[3, 0, 2] = -1.0  # negatives in three different slabs
     j[17, 2, 7] = -2.0
     j[39, 0, 0] = -0.5
     j[:, 1, :] = np.nan  # a dead channel
@@ -391,32 +392,30 @@ def test_lazy_value_checks_counted_in_the_engine_pass_equal_the_validator():
     ds = make_ds(j, EDGES_12, flux_err=err)
     want = validate(ds)
     assert len(want) == 3 and "3 negative values" in want[1]
-    out, (totals, verify) = partition_slab(ds.chunk(time=7), defer_value_check=True)
-    assert out["flux_trapped"].chunks is not None
-    totals = totals_bad = totals.compute()
-    with pytest.raises(ConventionError) as exc:
-        verify(totals)
-    assert exc.value.problems == want
-    np.testing.assert_array_equal(totals[0], [40 * 12, 0, 40 * 12])  # valid values per energy
-    # good data: the same outputs as the eager engine, and nothing raised
-    good = make_ds(np.abs(np.nan_to_num(j, nan=3.0)), EDGES_12, flux_err=np.abs(err))
-    out, (totals, verify) = partition_slab(good.chunk(time=7), defer_value_check=True)
-    verify(totals.compute())
-    # (partition_slab, the summaries' entry, includes the losses per hemisphere by default)
-    xr.testing.assert_allclose(out.compute(), partition(good, hemispheres=True))
-    # eager data: the engine's own counts, which slab-by-slab callers sum over the slabs
     slabs = [partition_slab(ds.isel(time=slice(a, a + 16)), defer_value_check=True)[1]
              for a in range(0, 40, 16)]
     summed = sum(p[0] for p in slabs)
-    np.testing.assert_array_equal(summed, totals_bad)
+    # valid values, negative values, negative errors per energy (numpy's count)
+    np.testing.assert_array_equal(summed, [np.isfinite(j).sum(axis=(0, 2)),
+                                           (j < 0).sum(axis=(0, 2)),
+                                           (err < 0).sum(axis=(0, 2))])
     with pytest.raises(ConventionError) as exc:
         slabs[0][1](summed)
     assert exc.value.problems == want
-    # the public function keeps checking before it returns
+    # good data: nothing raised, and the same outputs as the public function
+    good = make_ds(np.abs(np.nan_to_num(j, nan=3.0)), EDGES_12, flux_err=np.abs(err))
+    out, (totals, verify) = partition_slab(good, defer_value_check=True)
+    verify(totals)
+    # (partition_slab, the summaries' entry, includes the losses per hemisphere by default)
+    xr.testing.assert_allclose(out, partition(good, hemispheres=True), rtol=0, atol=0)
+    # the public function keeps checking before it returns, eager or dask
     with pytest.raises(ConventionError, match="3 negative values"):
         partition(ds.chunk(time=7))
     with pytest.raises(ConventionError, match="3 negative values"):
         partition(ds)
+    # deferring is for eager slabs: dask data are checked by the validator
+    with pytest.raises(ValueError, match="for eager data"):
+        partition_slab(good.chunk(time=7), defer_value_check=True)
 
 
 @pytest.mark.parametrize("errors", [None, "flux_err"])
@@ -469,11 +468,10 @@ def test_compiled_engine_agrees_with_the_reference_on_clean_and_unclean_chunks(d
             verify(counts)
     else:
         verify(counts)
-    # the same counts from the lazy path, where the engine adds them to its outputs
-    out, (totals, _) = partition_slab(ds.chunk(time=400), defer_value_check=True,
-                                  allow_negative=True)
-    np.testing.assert_array_equal(totals.compute(), counts)
-    xr.testing.assert_allclose(out.compute(), fast, rtol=rtol)
+    # dask data give the same outputs (the validator checks their values first)
+    lazy = partition_slab(ds.chunk(time=400), allow_negative=True, strict=False)[0]
+    xr.testing.assert_allclose(lazy.compute(), partition_slab(ds, allow_negative=True,
+                                                              strict=False)[0], rtol=rtol)
 
 
 def test_eager_dipole_loss_cones_equal_the_dipole_module():

@@ -31,8 +31,7 @@ _CHUNK = 256
 
 
 def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, dlc, cosb,
-                        cosd, coso, cosn, coss, hrow, out, flag, stats, chunk,
-                        count_row):
+                        cosd, coso, cosn, coss, hrow, out, flag, stats, chunk):
     n, n_e, n_p = x.shape
     xf = x.reshape(n, n_e * n_p)  # the same values, one row per sample
     sf = s.reshape(s.shape[0], -1)
@@ -87,10 +86,6 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     stats[e, 0] += nf
                     stats[e, 1] += ng
                     stats[e, 2] += nq
-                    if count_row >= 0:
-                        out[count_row, t * n_e + e] = nf
-                        out[count_row + 1, t * n_e + e] = ng
-                        out[count_row + 2, t * n_e + e] = nq
                     for k in range(n_rows):
                         sc[k, j0 + e] = 0.0
                 continue
@@ -233,10 +228,6 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         out[hrow + 1, j] = pops6
                         out[hrow + 2, j] = pops5 * itot
                         out[hrow + 3, j] = pops6 * itot
-                    if count_row >= 0:
-                        out[count_row, j] = n_p
-                        out[count_row + 1, j] = 0
-                        out[count_row + 2, j] = 0
                     if has_s:  # error sums and uncertainties, as in the general path below
                         v0 = v1 = v2 = v3 = v4 = v5 = v6 = v7 = v8 = 0.0
                         for p in range(n_p):
@@ -343,10 +334,6 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                             m6 += fin * wt[6, p]
                 stats[e, 0] += nf
                 stats[e, 1] += ng
-                if count_row >= 0:
-                    out[count_row, t * n_e + e] = nf
-                    out[count_row + 1, t * n_e + e] = ng
-                    out[count_row + 2, t * n_e + e] = 0
                 sc[0, j] = a0
                 sc[1, j] = a1
                 sc[2, j] = a2
@@ -379,8 +366,6 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                         v7 += q2 * wq[7, p]
                         v8 += q2 * wq[8, p]
                     stats[e, 2] += nq
-                    if count_row >= 0:
-                        out[count_row + 2, t * n_e + e] = nq
                     sc[14, j] = v0
                     sc[15, j] = v1
                     sc[16, j] = v2
@@ -524,7 +509,7 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
             d = dlc[t]
             if not (b == b) or not (d == d):
                 for e in range(n_e):
-                    for k in range(count_row if count_row >= 0 else out.shape[0]):
+                    for k in range(out.shape[0]):
                         out[k, t * n_e + e] = nan
                     flag[t * n_e + e] = 64
 
@@ -576,7 +561,7 @@ def _same_view(a, b):
 
 
 def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats,
-                    flag=None, count_row=-1, cones_ns=None, hemi_row=-1):
+                    flag=None, cones_ns=None, hemi_row=-1):
     """Fill ``out`` (and ``flag``) with the partition outputs of one time block.
 
     Parameters
@@ -608,11 +593,6 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats
     flag : numpy.ndarray, optional
         (>= n * E,) int16 array receiving ``partition_flag``; None: the flags
         go to ``out[14]`` as numbers.
-    count_row : int, optional
-        When >= 0, rows ``count_row`` to ``count_row + 2`` of ``out`` receive
-        the per-(time, energy) counts of valid flux values, negative flux
-        values and negative errors (so that a lazy caller can sum the value
-        checks over its blocks afterwards).
     cones_ns : tuple of numpy.ndarray, optional
         ``(loss_cone_north, loss_cone_south)`` (n,) in degrees, needed when
         ``hemi_row >= 0``.
@@ -659,7 +639,7 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats
     flag_arr = np.empty(n * x.shape[1], dtype=np.int16) if flag is None else flag
     args = (x, s_arr, has_s, w_arr, use_pre, np.asarray(cos_a1, dtype=float),
             np.asarray(cos_a2, dtype=float), float(fold), blc, dlc, cosb, cosd, coso, cosn,
-            coss, int(hemi_row), out, flag_arr, stats, _CHUNK, int(count_row))
+            coss, int(hemi_row), out, flag_arr, stats, _CHUNK)
     _jitted("partition")(*args)
     if flag is None:
         out[14, : flag_arr.size] = flag_arr

@@ -113,8 +113,7 @@ FLAG_MEANINGS = {
 _BLOCK = 65536
 
 
-def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_counts=None,
-                  mask_err=False):
+def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, mask_err=False):
     """Return ``(x, s, err_bad)``: flux and 1-sigma in canonical units, masked.
 
     ``err_bad`` (n, E) marks the rows whose negative counts were masked (with
@@ -130,8 +129,6 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_count
         negative = counts < 0
         if stats is not None:
             stats[:, 2] += negative.sum(axis=(0, 2))
-        if neg_counts is not None:
-            neg_counts.append(negative.sum(axis=2))
         # Poisson: sigma_N = sqrt(N), with N = 0 counted as 1 (documented convention)
         s = (np.sqrt(np.maximum(counts, 1)) * c2f_blk).astype(dtype, copy=False)
         missing = np.isnan(counts)
@@ -143,20 +140,18 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, neg_count
 
 
 def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
-               out=None, stats=None, flag=None, counts=False, rf_blk=None, pos_blk=None):
+               out=None, stats=None, flag=None, rf_blk=None, pos_blk=None):
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
 
     ``cones`` is ``(blc, dlc, lcn, lcs)`` per sample (deg). With ``flag``
-    (int16, n * E) the flags go there instead of ``out[14]``. With ``counts``
-    (new arrays only) three rows follow the outputs: per time and energy the
-    number of valid flux values, of negative flux values and of negative
-    errors (the value checks, summed by the caller).
+    (int16, n * E) the flags go there instead of ``out[14]``. ``stats`` ((E, 3)
+    int64, see :func:`beltkit.pad._kernels.partition_block`) receives the
+    value checks of the block.
     """
-    neg_counts = [] if counts else None
     if stats is None:
         stats = np.zeros((np.shape(flux_blk)[1], 3), dtype=np.int64)
     err_before = int(stats[:, 2].sum())
-    x, s, err_bad = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, neg_counts,
+    x, s, err_bad = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats,
                                   mask_err=opts.get("mask_err", False))
     n, n_e = x.shape[:2]
     hemi = opts.get("hemispheres", True)
@@ -168,7 +163,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     s = None if s is None else np.ascontiguousarray(s)
     ret3d = out is None
     if out is None:
-        out = alloc_out(n_data + (3 if counts else 0), n, n_e, dtype)
+        out = alloc_out(n_data, n, n_e, dtype)
     blc, dlc, lcn, lcs = (np.asarray(c, dtype=float) for c in cones)
     # dlc is raised to at least blc by partition_block
     wpre = None
@@ -183,7 +178,6 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
         fold = 2.0 if geom["folded"] else 1.0
     _kernels.partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, opts["band_deg"],
                              out, stats, flag,
-                             n_data if counts else -1,
                              cones_ns=(lcn, lcs) if hemi else None,
                              hemi_row=hemisphere_row(s is not None, hemi))
     if rows is not None:
@@ -192,8 +186,6 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
         out[:n_data, j] = sub
         if flag is not None:
             flag[j] = sub[14]
-    if neg_counts:  # Poisson errors: the negative counts are those of `counts`
-        out[n_data + 2, : n * n_e] = neg_counts[0].reshape(-1)
     fl = flag if flag is not None else out[14]
     mask_bad_rows(x, s, cones, look, geom, opts, out, fl, n_data, err_bad,
                    int(stats[:, 2].sum()) > err_before)
@@ -257,13 +249,13 @@ def _arrays(ds, prep):
 
 
 def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
-             counts=False, buffers=None, read_flag=None, pos_bad=None):
+             buffers=None, read_flag=None, pos_bad=None):
     """Partition outputs ``(data, flags)``; ``cones`` is ``(blc, dlc, lcn, lcs)`` (DataArrays).
 
     ``read_flag`` (DataArray (time, energy, angle) or None) and ``pos_bad``
     (bool (time,) or None) add the bits of masked input samples.
     """
-    nout = n_outputs(err is not None, opts.get("hemispheres", True)) + (3 if counts else 0)
+    nout = n_outputs(err is not None, opts.get("hemispheres", True))
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look) + tuple(cones) if a is not None)
     if lazy:
@@ -296,7 +288,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
 
         def func(f, e, c, b, d, cn, cs, lk, rf, pb):
             return _run_block(f, e, c, (b, d, cn, cs), lk, prep=prep, geom=geom, opts=opts,
-                              dtype=dtype, counts=counts, rf_blk=rf, pos_blk=pb)
+                              dtype=dtype, rf_blk=rf, pos_blk=pb)
 
         args = [fx, "tep", ex, "tep" if ex is not None else None,
                 cx, "tep" if cx is not None else None, bx, "t", dx, "t", nx, "t", sx, "t",
@@ -541,16 +533,16 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     The entry of callers that partition a file slab by slab (``beltkit
     summarize``); :func:`partition` is this function's ``out``.
 
-    Returns ``(out, pending)``. With ``defer_value_check`` and dask data, the
-    validator's value scan (a pass over the whole file) is skipped and the
-    engine counts the values while it computes the outputs: ``pending`` is
-    ``(stats, verify)``, a dask array to compute *together with* the outputs
-    (so that the data are read once) and a function of its value that raises
-    the :class:`ConventionError` listing every problem. With eager data
-    ``stats`` is the engine's count itself, a (3, energy) integer array
-    (valid values, negative values, negative errors), which a caller that
-    partitions a file slab by slab sums before calling ``verify`` once. Without
-    ``defer_value_check`` ``pending`` is None and the checks have been made.
+    Returns ``(out, pending)``. The engine counts the values of eager data
+    while it computes the outputs. With ``defer_value_check`` (eager data
+    only: a file partitioned slab by slab) nothing is raised here:
+    ``pending`` is ``(stats, verify)``, the engine's count, a (3, energy)
+    integer array (valid values, negative values, negative errors), and a
+    function that raises the :class:`ConventionError` listing every problem
+    of such counts; the caller sums ``stats`` over the slabs and calls
+    ``verify`` once. Without ``defer_value_check`` ``pending`` is None and
+    the checks have been made (dask data: by the validator, before the
+    partition).
     ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
     the previous call's outputs, which are overwritten. ``hemispheres``
     defaults to True here: the summaries include the losses per hemisphere.
@@ -564,15 +556,15 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     _check_engine(engine)  # the cheap option checks first
     model = resolve_model(ds, model)
     lazy = _is_lazy(ds)
-    deferred = bool(defer_value_check and lazy)
+    if lazy and (defer_value_check or prepared is not None):
+        raise ValueError("defer_value_check= and prepared= are for eager data (a file "
+                         "partitioned slab by slab); dask data are checked by the validator")
     # eager data: the value checks are gathered by the engine in its single pass
     if prepared is not None:  # validated once by the caller, on the whole file
         prep: Prepared = prepared
-        if lazy and not deferred:
-            raise ValueError("prepared= is for eager data or deferred value checks")
     else:
-        prep = check(ds, model=model, allow_negative=allow_negative,
-                     check_values=lazy and not deferred, strict=strict)
+        prep = check(ds, model=model, allow_negative=allow_negative, check_values=lazy,
+                     strict=strict)
     pos_bad = None if prep.strict else position_mask(ds, prep.other_scale)
     # samples at impossible positions: no loss cone (NaN), flagged position_out_of_range
     lc = sample_loss_cones(ds if pos_bad is None else mask_positions(ds, pos_bad), prep,
@@ -592,8 +584,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
     cones = tuple(lc[k] for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
     data, flags = _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats,
-                           counts=deferred, buffers=buffers, read_flag=read_flag,
-                           pos_bad=pos_bad)
+                           buffers=buffers, read_flag=read_flag, pos_bad=pos_bad)
     source = ds.encoding.get("source")
 
     def verify(totals):
@@ -610,9 +601,6 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
             pending = (stats.T.copy(), verify)
         else:
             verify(stats.T)
-    if deferred:
-        n_data = n_outputs(err is not None, opts.get("hemispheres", True))
-        pending = (data[n_data:].astype(np.int64).sum(axis=1), verify)
     with_err = err is not None
     names = output_names(with_err, opts.get("hemispheres", True))
     dims = ("time", "energy")
