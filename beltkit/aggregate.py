@@ -267,7 +267,7 @@ class CellStats:
         nb = self.scale.n_bins
         other.hist = np.bincount(cell * nb + self.scale.bin_index(v),
                                  minlength=self.n_cells * nb).reshape(self.n_cells, nb)
-        self._absorb(other)
+        self.absorb(other)
 
     def _check_compatible(self, other: CellStats) -> None:
         if not isinstance(other, CellStats):
@@ -277,8 +277,23 @@ class CellStats:
                              f"{self.n_cells} cells on {self.scale} vs {other.n_cells} cells "
                              f"on {other.scale}")
 
-    def _absorb(self, other: CellStats) -> None:
-        """Merge `other` into this object (Chan, Golub & LeVeque 1979)."""
+    def absorb(self, other: CellStats) -> None:
+        """Merge `other` into this object in place (`other` is not changed).
+
+        The in-place form of :meth:`merge` (same formulas, Chan, Golub &
+        LeVeque 1979), for callers that fold many partial aggregates into one
+        without a copy each time.
+
+        Parameters
+        ----------
+        other : CellStats
+            Statistics on the same grid and scale.
+
+        Raises
+        ------
+        TypeError, ValueError
+            If `other` is not a :class:`CellStats` of the same grid and scale.
+        """
         self._check_compatible(other)
         na, nb = self.count, other.count
         n = na + nb
@@ -315,7 +330,7 @@ class CellStats:
                 \delta = \bar x_b - \bar x_a .
         """
         out = self.copy()
-        out._absorb(other)
+        out.absorb(other)
         return out
 
     def copy(self) -> CellStats:

@@ -21,6 +21,8 @@ from beltkit.constants import R_E_KM
 N_FILES = 6
 # the module (beltkit.batch.survey is the function)
 survey_module = importlib.import_module("beltkit.batch.survey")
+# the room that reads each summary (patched below to count, or stop, the files folded)
+fold_module = importlib.import_module("beltkit.batch.survey_fold")
 
 
 def _with_positions(ds, seed):
@@ -201,17 +203,18 @@ def test_workers_and_cluster_merge_to_the_single_pass(corpus, tmp_path):
 
 _KILLER = textwrap.dedent("""
     import importlib, os, signal, sys
-    m = importlib.import_module("beltkit.batch.survey")
-    fold = m._fold_file
+    from beltkit.batch import survey
+    m = importlib.import_module("beltkit.batch.survey_fold")
+    fold = m.fold_summary
     seen = []
     def dying(path, spec, open_stats):
         if len(seen) == 3:  # after three summaries (and their checkpoint): SIGKILL
             os.kill(os.getpid(), signal.SIGKILL)
         seen.append(path)
         fold(path, spec, open_stats)
-    m._fold_file = dying
+    m.fold_summary = dying
     m_kw = dict(time_window="12h", l_edges=[1, 4, 8], mlt_edges=[0, 12, 24])
-    m.survey(sys.argv[2:], sys.argv[1], checkpoint_s=0.0, **m_kw)
+    survey(sys.argv[2:], sys.argv[1], checkpoint_s=0.0, **m_kw)
 """)
 
 
@@ -230,8 +233,8 @@ def test_sigkill_then_resume_ends_equal_to_an_uninterrupted_run(corpus, tmp_path
     assert partial.exists() and not out.exists()
 
     folded = []
-    fold = survey_module._fold_file
-    monkeypatch.setattr(survey_module, "_fold_file",
+    fold = fold_module.fold_summary
+    monkeypatch.setattr(fold_module, "fold_summary",
                         lambda p, s, o: (folded.append(os.path.basename(p)), fold(p, s, o)))
     resumed = xr.load_dataset(batch.survey(paths, out, **KW))
     assert folded == [p.name for p in paths[3:]]  # the three folded before the kill reused
@@ -246,7 +249,7 @@ def test_sigkill_then_resume_ends_equal_to_an_uninterrupted_run(corpus, tmp_path
         folded.append(p)
         fold(p, s, o)
 
-    monkeypatch.setattr(survey_module, "_fold_file", interrupted)
+    monkeypatch.setattr(fold_module, "fold_summary", interrupted)
     folded.clear()
     with pytest.raises(KeyboardInterrupt):
         batch.survey(paths, out, **KW, checkpoint_s=0.0)
@@ -254,7 +257,7 @@ def test_sigkill_then_resume_ends_equal_to_an_uninterrupted_run(corpus, tmp_path
     changed = summary_like_dataset(n_time=1500, seed=99, cadence_s=20.0,
                                    start="2026-03-01T00:00:00")
     bio.write_dataset(_with_positions(changed, 1), paths[0])
-    monkeypatch.setattr(survey_module, "_fold_file",
+    monkeypatch.setattr(fold_module, "fold_summary",
                         lambda p, s, o: (folded.append(os.path.basename(p)), fold(p, s, o)))
     folded.clear()
     batch.survey(paths, out, **KW)

@@ -31,7 +31,12 @@ The package's rooms, in the order a file meets them:
 * :mod:`beltkit.batch.pipeline`: the one per-file pipeline (open, compute, write);
 * :mod:`beltkit.batch.runners`: :func:`summarize`, :func:`psd_files` and the
   serial, process-pool and dask.distributed runners;
-* :mod:`beltkit.batch.survey`: :func:`survey`.
+* :mod:`beltkit.batch.survey`: :func:`survey`, the runner, and its rooms
+  :mod:`~beltkit.batch.survey_grid` (variables, scales, axes, windows),
+  :mod:`~beltkit.batch.survey_inputs` (summaries listed and checked),
+  :mod:`~beltkit.batch.survey_fold` (samples to cell statistics, in groups),
+  :mod:`~beltkit.batch.survey_checkpoint` (resuming) and
+  :mod:`~beltkit.batch.survey_output` (the survey file).
 """
 
 from ..errors import SurveyError
