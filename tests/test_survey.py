@@ -101,6 +101,8 @@ def test_l_mlt_survey_against_brute_force(corpus, tmp_path):
                                       mlt_edges=mlt_edges))
     cell = _cells(src, [(src["L"].values, l_edges), (src["mlt"].values, mlt_edges)])
     assert _check_against_brute_force(sv, src, cell, (3, 4)) > 60
+    # MLT in the UDUNITS-2 name "hour", the one spelling beltkit writes (common practice)
+    assert sv["mlt"].attrs["units"] == "hour"
     assert sv["omni_flux_median"].attrs["quantile_error_kind"] == "relative"
     assert json.loads(sv.attrs["quantile_error_bound"])["fraction_trapped"] == pytest.approx(
         1 / 512)

@@ -60,7 +60,7 @@ BINNINGS = ("L-MLT", "lon-lat", "L-B", "L-time")
 AXES = {
     "L": ("L", np.arange(1.0, 8.01, 0.5), {"units": "1", "long_name": "L-shell bin centre"}),
     "mlt": ("mlt", np.arange(0.0, 24.01, 1.0),
-            {"units": "h", "long_name": "magnetic local time bin centre"}),
+            {"units": "hour", "long_name": "magnetic local time bin centre"}),
     "lon": ("position_geo", np.arange(-180.0, 180.01, 10.0),
             {"units": "degrees_east", "standard_name": "longitude",
              "long_name": "geographic (geocentric) longitude bin centre"}),
