@@ -165,7 +165,7 @@ def _cmd_summarize(args, command) -> int:
     kp = _kp_args(args)
     _expand_flux_inputs(args.inputs)  # before summarize creates the output folder
     results = summarize(
-        args.inputs, args.out, field=args.field, altitude_km=args.footpoint_km,
+        args.inputs, args.out, model=args.field, altitude_km=args.footpoint_km,
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=say, debug=args.debug,
@@ -198,7 +198,7 @@ def _cmd_psd(args, command) -> int:
     kp = _kp_args(args)
     _expand_flux_inputs(args.inputs)  # before psd_files creates the output folder
     results = psd_files(
-        args.inputs, args.out, args.mu, args.k, field=args.field, species=species,
+        args.inputs, args.out, args.mu, args.k, model=args.field, species=species,
         lstar_cadence_s=pd.to_timedelta(args.lstar_cadence).total_seconds(),
         altitude_km=args.footpoint_km, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
@@ -219,7 +219,7 @@ def _cmd_bin_sectors(args, command) -> int:
     try:
         results = bin_sectored(
             args.inputs, args.out, edges,
-            field=None if args.field == "b_vector" else args.field,
+            model=None if args.field == "b_vector" else args.field,
             gyrotropy_level=args.gyrotropy_level,
             gyrotropy_tolerance=args.gyrotropy_tolerance,
             degenerate_deg=args.degenerate_deg, mapping=args.mapping,
@@ -237,7 +237,7 @@ def _cmd_bin_sectors(args, command) -> int:
         say("beltkit bin-sectors: no pitch-angle file to summarize", sys.stderr)
         return 1
     summaries = summarize(
-        ready, args.summarize, field=args.summary_field, compress=args.compression,
+        ready, args.summarize, model=args.summary_field, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=say, debug=args.debug)
     chained = _argparse.Namespace(out=args.summarize)

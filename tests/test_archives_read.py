@@ -595,8 +595,8 @@ def test_cdf_written_by_cdflib_from_xarray_summarises_like_the_netcdf(tmp_path):
     (tmp_path / "cdf").mkdir()
     cdf = tmp_path / "cdf" / "tern_day.cdf"
     xarray_to_cdf(src, str(cdf))  # a general-purpose writer (cdflib), ISTP attributes added
-    a = summarize([nc], tmp_path / "out_nc", field="dipole")
-    b = summarize([cdf], tmp_path / "out_cdf", field="dipole")
+    a = summarize([nc], tmp_path / "out_nc", model="dipole")
+    b = summarize([cdf], tmp_path / "out_cdf", model="dipole")
     assert [r.status for r in a + b] == ["ok", "ok"], [r.reason for r in a + b]
     with xr.open_dataset(a[0].output) as sa, xr.open_dataset(b[0].output) as sb:
         assert set(sa.data_vars) == set(sb.data_vars) and sa.sizes["time"] == 30

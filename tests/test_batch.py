@@ -110,7 +110,7 @@ def test_survey_refuses_mismatched_summaries_and_writes_nothing(tmp_path):
     text = str(err.value)
     assert "four.summary.nc: its energies differ" in text
     assert "igrf.summary.nc: field_model 'igrf' differs" in text
-    assert "survey the files of each model apart" in text  # the way out with field="auto"
+    assert "survey the files of each model apart" in text  # the way out with model="auto"
     assert "junk.summary.nc" in text
     assert len(err.value.problems) == 3
     assert not (tmp_path / "sv.nc").exists()
@@ -452,7 +452,7 @@ def test_survey_records_each_file_model_and_the_low_altitude_note(tmp_path):
     # L >= 3 above 12,000 km
     low = write_flux_file(tmp_path / "low.nc", flux_dataset(n_time=40, l_range=(1.1, 1.2)))
     high = write_flux_file(tmp_path / "high.nc", flux_dataset(n_time=40))
-    results = batch.summarize([low, high], tmp_path / "s")  # field="auto": the dipole here
+    results = batch.summarize([low, high], tmp_path / "s")  # model="auto": the dipole here
     with xr.open_dataset(results[0].output) as a, xr.open_dataset(results[1].output) as b:
         assert a.attrs["field_model"] == b.attrs["field_model"] == "dipole"
         assert a.attrs["field_model_note"].startswith("40 of 40 samples lie below 2000 km")
@@ -469,12 +469,12 @@ def test_epoch_override_is_recorded_and_part_of_the_settings(tmp_path):
     [r] = batch.summarize([src], tmp_path / "o")
     with xr.open_dataset(r.output) as ds:
         assert ds.attrs["field_epoch"].startswith("2020")
-    [r] = batch.summarize([src], tmp_path / "o", field="dipole", epoch=2015.5)
+    [r] = batch.summarize([src], tmp_path / "o", model="dipole", epoch=2015.5)
     assert r.status == "ok"  # other settings: redone, not skipped
     with xr.open_dataset(r.output) as ds:
         assert ds.attrs["field_epoch"] == "2015.5 (fixed by the caller)"
         assert json.loads(ds.attrs["beltkit_settings"])["epoch"] == "2015.5"
-    [r] = batch.summarize([src], tmp_path / "o", field="dipole", epoch=2015.5)
+    [r] = batch.summarize([src], tmp_path / "o", model="dipole", epoch=2015.5)
     assert (r.status, r.reason) == ("skipped", "up to date")
     with pytest.raises(ValueError, match="use --field dipole"):  # auto: no epoch override
         batch.summarize([src], tmp_path / "o", epoch=2015.5)

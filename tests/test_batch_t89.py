@@ -1,4 +1,4 @@
-"""The storm-time field in batch: ``summarize(field="t89", kp=...)`` and ``--field t89``.
+"""The storm-time field in batch: ``summarize(model="t89", kp=...)`` and ``--field t89``.
 
 The T89 model itself is checked against the geopack reference implementation
 in test_field_t89.py; here the batch layer must hand each file the model the
@@ -41,7 +41,7 @@ def _summary(path):
 
 def test_summary_equals_the_library_partition_in_t89(small_file, tmp_path):
     path, ds = small_file
-    res = batch.summarize([path], tmp_path / "fixed", field="t89", kp=3.0)
+    res = batch.summarize([path], tmp_path / "fixed", model="t89", kp=3.0)
     assert [r.status for r in res] == ["ok"]
     out = _summary(res[0].output)
     ref = pad.partition(ds, model=T89(kp=3.0), hemispheres=True)
@@ -53,9 +53,9 @@ def test_summary_equals_the_library_partition_in_t89(small_file, tmp_path):
     # the storm-time field gives the low-orbit sample a quasi-trapped population (IGRF-like)
     assert np.nanmax(out["fraction_quasi_trapped"].values) > 0.1
     # a rerun is up to date; another Kp redoes the file
-    assert [r.status for r in batch.summarize([path], tmp_path / "fixed", field="t89",
+    assert [r.status for r in batch.summarize([path], tmp_path / "fixed", model="t89",
                                               kp=3.0)] == ["skipped"]
-    assert [r.status for r in batch.summarize([path], tmp_path / "fixed", field="t89",
+    assert [r.status for r in batch.summarize([path], tmp_path / "fixed", model="t89",
                                               kp=3.3)] == ["ok"]
 
 
@@ -64,10 +64,10 @@ def test_kp_from_a_variable_and_from_a_series_file_match_the_value(small_file, t
     csv = tmp_path / "kp.csv"
     csv.write_text("time,kp\n2027-03-09T06:00,3\n")
     series = read_kp(csv)
-    fixed = _summary(batch.summarize([path], tmp_path / "a", field="t89", kp=3.0)[0].output)
-    by_var = _summary(batch.summarize([path], tmp_path / "b", field="t89",
+    fixed = _summary(batch.summarize([path], tmp_path / "a", model="t89", kp=3.0)[0].output)
+    by_var = _summary(batch.summarize([path], tmp_path / "b", model="t89",
                                       kp="kp_index")[0].output)
-    by_series = _summary(batch.summarize([path], tmp_path / "c", field="t89",
+    by_series = _summary(batch.summarize([path], tmp_path / "c", model="t89",
                                          kp=series)[0].output)
     for other in (by_var, by_series):
         np.testing.assert_array_equal(other["dlc_local"].values, fixed["dlc_local"].values)
@@ -77,7 +77,7 @@ def test_kp_from_a_variable_and_from_a_series_file_match_the_value(small_file, t
 
 def test_a_missing_kp_variable_fails_that_file_alone(small_file, tmp_path):
     path, _ = small_file
-    res = batch.summarize([path], tmp_path / "m", field="t89", kp="no_such_kp")
+    res = batch.summarize([path], tmp_path / "m", model="t89", kp="no_such_kp")
     assert res[0].status == "failed" and "no_such_kp" in res[0].reason
 
 

@@ -43,7 +43,7 @@ def test_chain_equals_python_and_batch_safety(sectored, tmp_path, capsys):
     # the chained summary equals binning in Python and summarising
     with xr.open_dataset(good) as ds:
         binned = bin_sectors(ds, EDGES)
-    ref = summarize_dataset(binned, field="dipole")
+    ref = summarize_dataset(binned, model="dipole")
     with xr.open_dataset(summary_file) as got, xr.open_dataset(pad_file) as p:
         assert validate(p) == []
         np.testing.assert_array_equal(p["flux"].values, binned["flux"].values)
@@ -52,7 +52,7 @@ def test_chain_equals_python_and_batch_safety(sectored, tmp_path, capsys):
                                        equal_nan=True)
         # nudge: other bins give another summary
         other = summarize_dataset(bin_sectors(sectored, np.linspace(0, 180, 13)),
-                                  field="dipole")
+                                  model="dipole")
         assert np.nanmax(np.abs(got["flux_precipitating"].values
                                 - other["flux_precipitating"].values)) > 0
     # resumable: nothing is redone

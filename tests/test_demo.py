@@ -245,14 +245,14 @@ def test_demo_summaries_record_their_field_models(tmp_path):
     """
     from beltkit import batch
 
-    tern = batch.summarize(TERN[:1], tmp_path, field="dipole")[0]
+    tern = batch.summarize(TERN[:1], tmp_path, model="dipole")[0]
     # every 10th sample of a day-file keeps the IGRF part quick (the orbit is still sampled)
     with xr.open_dataset(DUNLIN[0]) as ds:
         part = ds.isel(time=slice(0, None, 10)).load()
     sub = tmp_path / "in" / DUNLIN[0].name
     sub.parent.mkdir()
     part.to_netcdf(sub)
-    dunlin = batch.summarize([sub], tmp_path)[0]  # field="auto"
+    dunlin = batch.summarize([sub], tmp_path)[0]  # model="auto"
     with xr.open_dataset(tern.output) as t, xr.open_dataset(dunlin.output) as d:
         assert t.attrs["field_model"] == "dipole"
         assert "no quasi-trapped population" in t.attrs["field_model_note"]
@@ -401,7 +401,7 @@ def test_psd_profiles_show_the_injected_local_source(tmp_path):
                 top = np.unravel_index(np.argmax(factor), factor.shape)
                 assert abs(float(ds["L"][top[0]]) - p["source_lstar"]) < 0.1
     done = batch.psd_files(TERN, tmp_path, p["psd_mu_mev_per_g"], p["psd_k_g05_re"],
-                           field="dipole")
+                           model="dipole")
     assert [r.status for r in done] == ["ok"] * len(TERN)
     profiles = demo.tern_psd_profiles([r.output for r in done], mu_mev_per_g=1000.0)
     centres = profiles["lstar"].values

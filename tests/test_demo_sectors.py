@@ -78,7 +78,7 @@ def test_field_model_at_position_equals_the_stored_field(day):
     ds, binned, _ = day
     edges = np.linspace(0.0, 180.0, 13)
     model = bin_sectors(ds.drop_vars("b_vector").isel(time=slice(0, 30)), edges,
-                        field="dipole")
+                        model="dipole")
     np.testing.assert_allclose(model["flux"].values, binned["flux"].values[:30], rtol=1e-4)
     np.testing.assert_allclose(model["spin_b_angle"].values,
                                binned["spin_b_angle"].values[:30], atol=1e-3)

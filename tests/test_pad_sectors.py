@@ -377,3 +377,21 @@ def test_flux_input_equals_counts_input(gyrotropic):
     np.testing.assert_allclose(got["gyrotropy_chi2"].values, ref["gyrotropy_chi2"].values,
                                rtol=1e-4)
     assert "counts" not in got
+
+
+def test_field_keyword_is_a_deprecated_spelling_of_model(gyrotropic):
+    # issue 14: the field model is model= throughout; field= warns for one release
+    ds = gyrotropic[3]["sin"][0].isel(time=slice(0, 20))
+    with pytest.warns(FutureWarning, match="use model="):
+        got = bin_sectors(ds, EDGES, field=None)
+    xr.testing.assert_identical(got, bin_sectors(ds, EDGES))
+    with pytest.warns(FutureWarning, match="use model="):
+        bands = sector_bands(ds, field=None)
+    xr.testing.assert_identical(bands, sector_bands(ds))
+    # the value reaches the geometry: a model needs position_geo, which this set lacks
+    with pytest.raises(ConventionError, match="position_geo"):
+        bin_sectors(ds, EDGES, model="dipole")
+    with pytest.warns(FutureWarning), pytest.raises(ConventionError, match="position_geo"):
+        bin_sectors(ds, EDGES, field="dipole")
+    with pytest.raises(TypeError, match="give model= only"):
+        bin_sectors(ds, EDGES, model=None, field=None)

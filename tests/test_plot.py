@@ -35,7 +35,7 @@ def demo_data(tmp_path_factory):
         out[craft] = (ds, pad.partition(ds, model="dipole" if craft == "tern" else "auto"))
     root = tmp_path_factory.mktemp("plotdata")
     tern_files = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
-    results = batch.summarize(tern_files, root / "summaries", field="dipole")
+    results = batch.summarize(tern_files, root / "summaries", model="dipole")
     assert all(r.status == "ok" for r in results), [r.reason for r in results]
     out["survey"] = batch.survey([r.output for r in results], root / "survey.nc",
                                  time_window="3h")

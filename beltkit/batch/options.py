@@ -1,4 +1,4 @@
-"""The options of a batch run, checked once before any file is read: field, diffusion, settings.
+"""The options of a batch run, checked before any file is read: field model, diffusion, settings.
 
 The settings of a run (:func:`run_settings`) decide whether an existing
 output is up to date: an output is redone when its recorded settings or its
@@ -31,6 +31,7 @@ __all__ = [
     "storm_field",
 ]
 
+#: Names of the field model a batch run takes (``model=``; ``--field`` on the command line;
 #: "t89": the IGRF plus Tsyganenko's 1989 external field, with ``kp=``).
 FIELD_CHOICES = ("auto", "dipole", "igrf", "t89")
 
@@ -93,49 +94,49 @@ class StormField:
         return {"kp_series_sha256": digest, "kp_series_length": int(values.size)}
 
 
-def storm_field(field, kp):
-    """Turn ``field="t89"`` and ``kp`` into a :class:`StormField`; refuse a stray ``kp``."""
-    if isinstance(field, str) and field == "t89":
+def storm_field(model, kp):
+    """Turn ``model="t89"`` and ``kp`` into a :class:`StormField`; refuse a stray ``kp``."""
+    if isinstance(model, str) and model == "t89":
         if kp is None:
-            raise ValueError("field 't89' needs Kp: give kp= a value 0-9, a Kp series "
+            raise ValueError("field model 't89' needs Kp: give kp= a value 0-9, a Kp series "
                              "(beltkit.field.read_kp) or the name of a Kp variable of the files "
                              "(--kp VALUE|FILE or --kp-variable NAME)")
         return StormField(kp)
     if kp is not None:
-        raise ValueError(f"kp applies to field 't89' only, not to field={field!r}")
-    return field
+        raise ValueError(f"kp applies to field model 't89' only, not to model={model!r}")
+    return model
 
 
-def check_field(field, epoch):
-    """Refuse an unknown field name, or an epoch override with a model that does not take one."""
-    if not isinstance(field, str):
-        if epoch is not None and getattr(field, "name", None) == "t89":
+def check_field(model, epoch):
+    """Refuse an unknown field-model name, or an epoch override with a model that takes none."""
+    if not isinstance(model, str):
+        if epoch is not None and getattr(model, "name", None) == "t89":
             raise ValueError("an epoch override applies to the dipole model only, not to "
-                             "field='t89'")
+                             "model='t89'")
         return
-    if field not in FIELD_CHOICES:
+    if model not in FIELD_CHOICES:
         raise ValueError(f"field model must be one of {', '.join(map(repr, FIELD_CHOICES))}, "
-                         f"got {field!r}")
-    if field != "dipole" and epoch is not None:
+                         f"got {model!r}")
+    if model != "dipole" and epoch is not None:
         raise ValueError(f"an epoch override applies to the dipole model only, not to "
-                         f"field={field!r}: the IGRF is evaluated at each sample's time (drop "
+                         f"model={model!r}: the IGRF is evaluated at each sample's time (drop "
                          f"--epoch, or use --field dipole)")
 
 
-def field_model(field, epoch, ds):
+def field_model(model, epoch, ds):
     """Return the ``model`` argument for :func:`beltkit.pad.partition`.
 
     ``"auto"`` becomes the IGRF where the dataset carries ``position_geo``
     and the centred dipole (closed forms from ``L`` and ``mlat``) otherwise.
     """
-    if isinstance(field, StormField):
-        return field.resolve(ds)
-    if not isinstance(field, str):
-        return field
-    check_field(field, epoch)
-    if field == "t89":
-        raise ValueError("field 't89' needs Kp (kp=...)")
-    name = field
+    if isinstance(model, StormField):
+        return model.resolve(ds)
+    if not isinstance(model, str):
+        return model
+    check_field(model, epoch)
+    if model == "t89":
+        raise ValueError("field model 't89' needs Kp (kp=...)")
+    name = model
     if name == "auto":
         name = "igrf" if "position_geo" in ds.variables else "dipole"
     if name == "dipole":
@@ -150,11 +151,11 @@ def field_model(field, epoch, ds):
     return as_model("igrf")
 
 
-def epoch_text(field, epoch, geo_position) -> str:
+def epoch_text(model_name, epoch, geo_position) -> str:
     """Say which epoch a summary's field model used (recorded as ``field_epoch``)."""
     if epoch is not None:
         return f"{epoch} (fixed by the caller)"
-    if field == "igrf" or geo_position:
+    if model_name == "igrf" or geo_position:
         return "time of each sample"
     from ..constants import B0_EPOCH
 
@@ -193,9 +194,14 @@ def diffusion_options(diffusion):
             "interval_sigma": sigma}
 
 
-def run_settings(field, altitude_km, epoch, mapping, compress, diffusion=None,
+def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
                  strict=False) -> dict:
-    """Return the settings of a summarize run, as recorded in each output."""
+    """Return the settings of a summarize run, as recorded in each output.
+
+    The field model is recorded under the key ``"field"`` (the name of the
+    first release), so that outputs made before the keyword became ``model=``
+    stay up to date.
+    """
     if mapping is None:
         mapping_key = None
     elif isinstance(mapping, dict):
@@ -203,8 +209,8 @@ def run_settings(field, altitude_km, epoch, mapping, compress, diffusion=None,
     else:
         mapping_key = sha256(mapping)
     settings = {
-        "field": field if isinstance(field, str) else getattr(field, "name", repr(field)),
-        **(field.settings_key() if isinstance(field, StormField) else {}),
+        "field": model if isinstance(model, str) else getattr(model, "name", repr(model)),
+        **(model.settings_key() if isinstance(model, StormField) else {}),
         "altitude_km": float(altitude_km),
         "epoch": None if epoch is None else str(epoch),
         "mapping": mapping_key,
@@ -239,10 +245,10 @@ def kp_text(settings: dict) -> str | None:
 
 
 
-def psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
+def psd_settings(mu, k, model, species, lstar_cadence_s, altitude_km, mapping,
                  compress) -> dict:
     """Return the settings of a psd run (those of :func:`run_settings` plus the invariants)."""
-    settings = run_settings(field, altitude_km, None, mapping, compress)
+    settings = run_settings(model, altitude_km, None, mapping, compress)
     settings.update({"product": "psd", "mu_mev_per_g": [float(v) for v in mu],
                      "k_g05_re": [float(v) for v in k], "species": species,
                      "lstar_cadence_s": float(lstar_cadence_s)})

@@ -18,6 +18,7 @@ import numpy as np
 import xarray as xr
 
 from .. import __version__
+from .._renamed import renamed_keyword
 from ..errors import ConventionError
 from ..units import K_UNITS
 from .options import diffusion_options, epoch_text, field_model, kp_text, settings_text
@@ -87,7 +88,8 @@ class Product:
             self.finish = None
 
 
-def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
+@renamed_keyword("field", "model")
+def summarize_dataset(ds: xr.Dataset, *, model="auto", altitude_km=100.0,
                       epoch=None, diffusion=None) -> xr.Dataset:
     """Partition one flux dataset and keep the position for the survey.
 
@@ -95,16 +97,18 @@ def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
     ----------
     ds : xarray.Dataset
         Convention-following flux dataset (lazy or not; not modified).
-    field : {"auto", "dipole", "igrf"} or FieldModel
+    model : {"auto", "dipole", "igrf"} or FieldModel
         Field model for the loss cones. "auto" (default): the IGRF at each
         sample's time where the dataset carries ``position_geo``, else the
-        centred dipole from ``L`` and ``mlat``.
+        centred dipole from ``L`` and ``mlat``. ``field=`` is the deprecated
+        former spelling (warns; removed in the next release).
     altitude_km : float
-        Footpoint altitude of the loss cones (km above a sphere of one Earth
-        radius, as in :func:`beltkit.pad.partition`).
+        Footpoint altitude of the loss cones: km above the sphere of radius
+        R_E = :data:`beltkit.constants.R_E_KM` (not above the ellipsoid), as in
+        :func:`beltkit.pad.partition`.
     epoch : float or str, optional
         Epoch of the dipole (decimal year); used when the dataset gives its
-        position in GEO coordinates (``field="dipole"`` only).
+        position in GEO coordinates (``model="dipole"`` only).
     diffusion : bool or dict, optional
         Add the outputs of :func:`beltkit.diffusion.from_pitch_angle_data`
         (``z0``, ``diffusion_coefficient``, ``lifetime``, their intervals, the
@@ -120,11 +124,11 @@ def summarize_dataset(ds: xr.Dataset, *, field="auto", altitude_km=100.0,
         per time when the input has them; its attributes name the model used
         (and, with ``diffusion``, the diffusion conventions as ``beltkit_*``).
     """
-    return _summary(ds, field=field, altitude_km=altitude_km, epoch=epoch,
+    return _summary(ds, model=model, altitude_km=altitude_km, epoch=epoch,
                     diffusion=diffusion_options(diffusion))[0]
 
 
-def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=None,
+def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=None,
              diffusion=None, prepared=None, strict=True):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
@@ -135,7 +139,7 @@ def _summary(ds, *, field, altitude_km, epoch, defer_value_check=False, buffers=
     """
     from ..pad.partition import partition_slab
 
-    model = field_model(field, epoch, ds)
+    model = field_model(model, epoch, ds)
     out, pending = partition_slab(ds, model=model, altitude_km=altitude_km,
                                   defer_value_check=defer_value_check, buffers=buffers,
                                   prepared=prepared, strict=strict)
@@ -251,7 +255,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
     epoch = task["epoch"]
     altitude_km = settings["altitude_km"]
     diffusion = settings.get("diffusion")
-    model = field_model(task["field"], epoch, ds)
+    model = field_model(task["model"], epoch, ds)
     # the file's one validation; per-sample problems are masked and flagged unless strict
     prep = check(ds, model=model, check_values=False, strict=settings.get("strict", False))
     record = (model_name(model), dipole_low_altitude_note(ds, prep, model))
@@ -273,7 +277,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
             # each slab is written out before the next is computed: the memory of its
             # outputs serves the next slab, and the next file (one file at a time)
             out, (counts, verify) = _summary(
-                piece, field=model, altitude_km=altitude_km, epoch=None,
+                piece, model=model, altitude_km=altitude_km, epoch=None,
                 defer_value_check=True, diffusion=diffusion, prepared=prep,
                 buffers=buffers if buffers is not None else _slab_buffers())
             state["totals"] = counts if state["totals"] is None else state["totals"] + counts
@@ -347,7 +351,7 @@ def psd_product(ds, src: Path, task: dict) -> Product:
     from ..psd import at_fixed_invariants
 
     settings = task["settings"]
-    model = field_model(task["field"], None, ds)
+    model = field_model(task["model"], None, ds)
     out = at_fixed_invariants(ds, settings["mu_mev_per_g"], settings["k_g05_re"], model=model,
                               species=settings["species"],
                               lstar_cadence_s=settings["lstar_cadence_s"],

@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._renamed import renamed_keyword
 from ..errors import OptionError
 from ..io import load_mapping, remove_stale_temporaries
 from .inputs import (
@@ -52,7 +53,8 @@ def _default_command(inputs, out_dir, **options) -> str:
     return f"beltkit.batch.summarize({len(inputs)} file(s), {str(out_dir)!r}, {shown})"
 
 
-def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
+@renamed_keyword("field", "model")
+def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
               debug=False, diffusion=None, kp=None, strict=False) -> list[FileResult]:
@@ -65,8 +67,10 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     out_dir : str or path
         Output folder (created if needed); gets ``<stem>.summary.nc`` per input
         and ``run-report.jsonl``.
-    field : {"auto", "dipole", "igrf", "t89"}
-        Field model of the loss cones. "t89": the IGRF plus Tsyganenko's
+    model : {"auto", "dipole", "igrf", "t89"}
+        Field model of the loss cones (``--field`` on the command line;
+        ``field=`` is the deprecated former spelling: warns, removed in the
+        next release). "t89": the IGRF plus Tsyganenko's
         (1989) external field with ``kp``. "auto" (default) chooses per file: the
         IGRF at each sample's time where the file carries ``position_geo``,
         else the centred dipole from ``L`` and ``mlat`` (an ``L`` declared
@@ -75,10 +79,12 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         in ``field_model_requested``); a dipole summary of samples below
         2,000 km altitude carries ``field_model_note``.
     altitude_km : float
-        Footpoint altitude of the loss cones (km).
+        Footpoint altitude of the loss cones: km above the sphere of radius
+        R_E = :data:`beltkit.constants.R_E_KM` (not above the ellipsoid);
+        recorded in each summary as ``footpoint_altitude_km``.
     epoch : float or str, optional
         Dipole epoch override (decimal year), used for GEO positions
-        (``field="dipole"`` only).
+        (``model="dipole"`` only).
     mapping : str, path or dict, optional
         Variable-name mapping for non-conventional files (see :mod:`beltkit.io`).
     compress : bool or int
@@ -110,7 +116,7 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
         The options are part of the settings that decide whether an output is
         up to date, so changing them redoes the files.
     kp : float, xarray.DataArray or str, optional
-        Kp for ``field="t89"`` (required there, refused otherwise): one value
+        Kp for ``model="t89"`` (required there, refused otherwise): one value
         0-9 for every sample, a Kp series along time (e.g. from
         :func:`beltkit.field.read_kp`), or the name of a variable of each
         file that holds Kp per sample. The Kp (or the series' checksum, or
@@ -145,27 +151,28 @@ def summarize(inputs, out_dir, *, field="auto", altitude_km=100.0, epoch=None,
     """
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
-    check_field(field, epoch)
-    field = storm_field(field, kp)
+    check_field(model, epoch)
+    model = storm_field(model, kp)
     diffusion = diffusion_options(diffusion)
     mapping_checked = load_mapping(mapping) if mapping is not None else None
     files = expand_inputs(inputs)
     out_dir = Path(out_dir)
     output_folder(out_dir)
     remove_stale_temporaries(out_dir)
-    settings = run_settings(field, altitude_km, epoch, mapping, compress, diffusion, strict)
+    settings = run_settings(model, altitude_km, epoch, mapping, compress, diffusion, strict)
     if command is None:
         extra = {} if diffusion is None else {"diffusion": diffusion}
-        command = _default_command(files, out_dir, field=field, altitude_km=altitude_km,
+        command = _default_command(files, out_dir, model=model, altitude_km=altitude_km,
                                    epoch=epoch, overwrite=overwrite, **extra)
     return _run_batch(files, out_dir, {
-        "settings": settings, "field": field, "epoch": epoch, "mapping": mapping_checked,
+        "settings": settings, "model": model, "epoch": epoch, "mapping": mapping_checked,
         "overwrite": bool(overwrite), "command": command, "debug": bool(debug)},
         suffix=SUMMARY_SUFFIX, desc="summarize", fail_fast=fail_fast, workers=workers,
         scheduler=scheduler, log=log, progress=progress)
 
 
-def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species="electron",
+@renamed_keyword("field", "model")
+def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, model="auto", species="electron",
               lstar_cadence_s=60.0, altitude_km=100.0, mapping=None, compress=True,
               overwrite=False, fail_fast=False, workers=1, scheduler=None, command=None,
               log=None, progress=None, debug=False, kp=None) -> list[FileResult]:
@@ -186,7 +193,8 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         Output folder (created if needed).
     mu_mev_per_g, k_g05_re : float or sequence of float
         First invariants (MeV/G) and second invariants (G^(1/2) R_E).
-    field : {"auto", "dipole", "igrf", "t89"}
+    model : {"auto", "dipole", "igrf", "t89"}
+        Field model (``field=`` is the deprecated former spelling).
         "auto": the IGRF for a file with ``position_geo``, else the centred
         dipole from ``L`` and ``mlat`` (where L* = L); "t89": the IGRF plus
         Tsyganenko's (1989) external field with ``kp``.
@@ -196,7 +204,9 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
         Cadence (s) of the field-line work (K, B_m, L*) in a field model,
         interpolated linearly in time to the samples.
     altitude_km : float
-        Loss altitude of the loss cones and drift shells (km).
+        Loss altitude of the loss cones and drift shells: km above the sphere
+        of radius R_E = :data:`beltkit.constants.R_E_KM` (not above the
+        ellipsoid).
     mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug, kp
         As for :func:`summarize`.
 
@@ -214,8 +224,8 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
 
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
-    check_field(field, None)
-    field = storm_field(field, kp)
+    check_field(model, None)
+    model = storm_field(model, kp)
     mu = np.atleast_1d(np.asarray(mu_mev_per_g, dtype=float))
     k = np.atleast_1d(np.asarray(k_g05_re, dtype=float))
     if mu.ndim != 1 or k.ndim != 1 or not mu.size or not k.size:
@@ -233,13 +243,13 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, field="auto", species=
     out_dir = Path(out_dir)
     output_folder(out_dir)
     remove_stale_temporaries(out_dir)
-    settings = psd_settings(mu, k, field, species, lstar_cadence_s, altitude_km, mapping,
+    settings = psd_settings(mu, k, model, species, lstar_cadence_s, altitude_km, mapping,
                              compress)
     if command is None:
         command = (f"beltkit.batch.psd_files({len(files)} file(s), {str(out_dir)!r}, "
-                   f"mu={mu.tolist()}, k={k.tolist()}, field={field!r})")
+                   f"mu={mu.tolist()}, k={k.tolist()}, model={model!r})")
     return _run_batch(files, out_dir, {
-        "product": "psd", "settings": settings, "field": field, "epoch": None,
+        "product": "psd", "settings": settings, "model": model, "epoch": None,
         "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
         "debug": bool(debug)},
         suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
@@ -268,8 +278,9 @@ def output_folder(out_dir: Path) -> None:
                           f"({exc.strerror or exc}); give a folder you can write to") from None
 
 
+@renamed_keyword("field", "model")
 def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15)), *,
-                 field=None, gyrotropy_level=1e-3, gyrotropy_tolerance=0.1,
+                 model=None, gyrotropy_level=1e-3, gyrotropy_tolerance=0.1,
                  degenerate_deg=10.0, mapping=None, compress=True, overwrite=False,
                  fail_fast=False, workers=1, scheduler=None, command=None, log=None,
                  progress=None, debug=False) -> list[FileResult]:
@@ -292,9 +303,10 @@ def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15))
         Output folder (created if needed).
     pitch_angle_edges_deg : sequence of float
         Bin edges (degree; default 12 bins of 15 deg).
-    field : {None, "dipole", "igrf"}
-        None: each file's ``b_vector``; otherwise the model evaluated at its
-        ``position_geo``.
+    model : {None, "dipole", "igrf"}
+        Field model giving the field direction: None, each file's
+        ``b_vector``; otherwise the model evaluated at its ``position_geo``
+        (``field=`` is the deprecated former spelling).
     gyrotropy_level, gyrotropy_tolerance, degenerate_deg
         As for :func:`beltkit.pad.bin_sectors`.
     mapping, compress, overwrite, fail_fast, workers, scheduler, command, log, progress, debug
@@ -309,8 +321,8 @@ def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15))
     """
     if workers is None or int(workers) < 1:
         raise ValueError(f"workers must be a positive integer, got {workers!r}")
-    if field not in (None, "dipole", "igrf"):
-        raise ValueError(f"field must be None (b_vector), 'dipole' or 'igrf', got {field!r}")
+    if model not in (None, "dipole", "igrf"):
+        raise ValueError(f"model must be None (b_vector), 'dipole' or 'igrf', got {model!r}")
     edges = np.asarray(pitch_angle_edges_deg, dtype=float)
     if (edges.ndim != 1 or edges.size < 2 or not np.all(np.isfinite(edges))
             or np.any(np.diff(edges) <= 0) or edges[0] < 0 or edges[-1] > 180):
@@ -323,13 +335,13 @@ def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15))
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     remove_stale_temporaries(out_dir)
-    settings = sectors_settings(edges, field, gyrotropy_level, gyrotropy_tolerance,
+    settings = sectors_settings(edges, model, gyrotropy_level, gyrotropy_tolerance,
                                 degenerate_deg, mapping, compress)
     if command is None:
         command = (f"beltkit.batch.bin_sectored({len(files)} file(s), {str(out_dir)!r}, "
-                   f"edges={edges.tolist()}, field={field!r})")
+                   f"edges={edges.tolist()}, model={model!r})")
     return _run_batch(files, out_dir, {
-        "product": "sectors", "settings": settings, "field": field, "epoch": None,
+        "product": "sectors", "settings": settings, "model": model, "epoch": None,
         "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
         "debug": bool(debug)},
         suffix=SECTORS_SUFFIX, desc="bin-sectors", fail_fast=fail_fast, workers=workers,

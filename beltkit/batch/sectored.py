@@ -23,13 +23,13 @@ __all__ = ["SECTORS_SUFFIX", "sectors_product", "sectors_settings"]
 SECTORS_SUFFIX = ".pad.nc"
 
 
-def sectors_settings(edges_deg, field, gyrotropy_level, gyrotropy_tolerance, degenerate_deg,
+def sectors_settings(edges_deg, model, gyrotropy_level, gyrotropy_tolerance, degenerate_deg,
                      mapping, compress) -> dict:
     """Return the settings of a sector-binning run (recorded in each output)."""
     return {
         "product": "sectors",
         "pitch_angle_edges_deg": [float(v) for v in np.asarray(edges_deg, float)],
-        "field": field if field is not None else "b_vector",
+        "field": model if model is not None else "b_vector",
         "gyrotropy_level": float(gyrotropy_level),
         "gyrotropy_tolerance": float(gyrotropy_tolerance),
         "degenerate_deg": float(degenerate_deg),
@@ -48,11 +48,11 @@ def sectors_product(ds, src: Path, task: dict) -> Product:
     from ..pad import bin_sectors
 
     settings = task["settings"]
-    field = None if settings["field"] == "b_vector" else settings["field"]
+    model = None if settings["field"] == "b_vector" else settings["field"]
     edges = np.asarray(settings["pitch_angle_edges_deg"], float)
     n = ds.sizes.get("time", 0)
     starts = range(0, n, STREAM_SLAB) if n else [0]
-    options = {"field": field, "gyrotropy_level": settings["gyrotropy_level"],
+    options = {"model": model, "gyrotropy_level": settings["gyrotropy_level"],
                "gyrotropy_tolerance": settings["gyrotropy_tolerance"],
                "degenerate_deg": settings["degenerate_deg"]}
     first = bin_sectors(ds.isel(time=slice(0, STREAM_SLAB)), edges, **options)

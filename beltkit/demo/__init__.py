@@ -69,10 +69,10 @@ that is a property of the centred dipole, not of the real field. In the
 IGRF at low altitude the drift loss cone is much wider than the bounce loss
 cone (at 650 km and L < 2.5 away from the South Atlantic nothing is stably
 trapped), so :func:`run_demo` summarises Marram-Dunlin, whose files carry
-``position_geo``, with ``field="auto"`` (the IGRF at each sample's time),
+``position_geo``, with ``model="auto"`` (the IGRF at each sample's time),
 and its figures show a quasi-trapped population. Marram-Tern, whose truth is
 the recovery target, is summarised in the centred dipole the truth is
-defined in (``field="dipole"``).
+defined in (``model="dipole"``).
 
 * Spectrometer (Marram-Tern): the truth is what the pipeline estimates from
   the *expected* measured flux: the solid-angle-weighted share of each

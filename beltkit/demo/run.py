@@ -230,7 +230,7 @@ def _dunlin_geographic(out: Path) -> list[Path]:
     from .. import batch, plot
 
     cover = generate_coverage(out / "coverage", cadence_s=20.0)  # ~7 samples per cell
-    [done] = batch.summarize([cover], out / "coverage", field="auto", overwrite=True)
+    [done] = batch.summarize([cover], out / "coverage", model="auto", overwrite=True)
     if done.status == "failed":
         raise RuntimeError(f"demo coverage summary failed: {done.input}: {done.reason}")
     geo = Path(batch.survey([done.output], out / "survey_dunlin_geo.nc", binning="lon-lat",
@@ -251,7 +251,7 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
 
     Writes into `out_dir`: the synthetic day-files (``data/``), one loss-cone
     summary per file (``summaries/``, :func:`beltkit.batch.summarize`: Tern in
-    the centred dipole its truth is defined in, Dunlin with ``field="auto"``,
+    the centred dipole its truth is defined in, Dunlin with ``model="auto"``,
     i.e. the IGRF at each sample's time, and with the pitch-angle diffusion
     outputs, ``diffusion=True``), one survey per spacecraft
     (``survey_tern.nc``, hourly windows, and ``survey_dunlin.nc``, daily windows;
@@ -281,12 +281,12 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     data_files = generate(out / "data", n_days=n_days)
     results = []
     # Tern's truth (the recovery target) is defined in the centred dipole; Dunlin's files
-    # carry position_geo, so field="auto" partitions them in the IGRF at each sample's time
+    # carry position_geo, so model="auto" partitions them in the IGRF at each sample's time
     # Dunlin's summaries add the pitch-angle diffusion outputs (its scattering event)
-    for craft, field, diff in (("tern", "dipole", None), ("dunlin", "auto", True)):
+    for craft, model, diff in (("tern", "dipole", None), ("dunlin", "auto", True)):
         files = [d for d in data_files if f"_{craft}_" in Path(d).name]
         if files:
-            results += batch.summarize(files, out / "summaries", field=field, overwrite=True,
+            results += batch.summarize(files, out / "summaries", model=model, overwrite=True,
                                        diffusion=diff)
     order = {str(d): k for k, d in enumerate(data_files)}
     results.sort(key=lambda r: order.get(r.input, len(order)))
@@ -309,7 +309,7 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     if tern:
         p = SCENARIO["tern"]
         done = batch.psd_files(tern, out / "psd", p["psd_mu_mev_per_g"], p["psd_k_g05_re"],
-                               field="dipole", overwrite=True)
+                               model="dipole", overwrite=True)
         bad = [r for r in done if r.status == "failed"]
         if bad:
             raise RuntimeError("demo phase-space density failed: " + "; ".join(

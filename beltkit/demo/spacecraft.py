@@ -206,7 +206,7 @@ def _cap_nodes(half_angle_deg, n_theta=4, n_phi=12):
 def _event_cones(time, xyz_geo, mlat, mlt, L, look_pa, half_deg, energy, e_bnds):
     """Loss cones of the pipeline (IGRF, 100 km) at the event samples.
 
-    The partition of the files (``field="auto"``: IGRF at each sample's time)
+    The partition of the files (``model="auto"``: IGRF at each sample's time)
     is run on the event samples' positions and looks, so that the profile is
     mapped with the very loss cones and field ratio the pipeline uses.
     """

@@ -115,7 +115,7 @@ def _field_direction(ds, field, time, target, problems):
         return unit_vectors(b)
     if "b_vector" not in ds.variables:
         problems.append("b_vector: missing; give the field vector per time (time, 3) with a "
-                        "'frame' attribute, or pass field=... (a field model evaluated at "
+                        "'frame' attribute, or pass model=... (a field model evaluated at "
                         "position_geo)")
         return None
     var = _vector_var(ds, "b_vector", problems, ("time",))

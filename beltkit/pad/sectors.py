@@ -92,6 +92,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
+from .._renamed import renamed_keyword
 from ._sector_kernel import run_blocks
 from .conventions import FLUX_UNITS
 from .sector_input import look_geometry, passed_through, read_sectored
@@ -112,7 +113,8 @@ SECTOR_FLAG_MEANINGS = {
 PAIR_SIMILARITY = 0.8
 
 
-def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
+@renamed_keyword("field", "model")
+def bin_sectors(ds, pitch_angle_edges_deg, *, model=None, gyrotropy_level=1e-3,
                 gyrotropy_tolerance=0.1, degenerate_deg=10.0):
     r"""Bin a sectored dataset into pitch-angle bins (pitch-angle conventions out).
 
@@ -134,13 +136,14 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
         ``counts_to_flux`` (or ``flux`` with optional ``flux_err``) on (time,
         energy, sector[, detector]); the look directions (``look_direction``
         with a ``frame``, or the spin form); ``b_vector`` (time, 3) with a
-        ``frame`` (or `field`); ``fov_half_angle``. Not modified; a file
+        ``frame`` (or `model`); ``fov_half_angle``. Not modified; a file
         opened lazily is read one block of times at a time.
     pitch_angle_edges_deg : array_like
         Bin edges (degree, strictly increasing, within 0-180).
-    field : FieldModel or str, optional
+    model : FieldModel or str, optional
         Field model evaluated at ``position_geo`` (GEO km) instead of the
-        dataset's ``b_vector``.
+        dataset's ``b_vector``. ``field=`` is the deprecated former spelling
+        (warns; removed in the next release).
     gyrotropy_level : float
         Significance level of the gyrotropy test (default 1e-3): a sample and
         energy whose chi-square exceeds the quantile ``1 - level`` is flagged.
@@ -198,7 +201,7 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
     >>> out["flux"].values[0, 0].tolist()  # isotropic counts: every bin 200
     [200.0, 200.0, 200.0, 200.0, 200.0, 200.0]
     """
-    s = read_sectored(ds, pitch_angle_edges_deg, field)
+    s = read_sectored(ds, pitch_angle_edges_deg, model)
     geo = look_geometry(s)
     z = float(_normal_isf(gyrotropy_level))
     flux, err, cnt, nlook, chi, dof, flag, cover, bcov = run_blocks(
@@ -270,7 +273,7 @@ def bin_sectors(ds, pitch_angle_edges_deg, *, field=None, gyrotropy_level=1e-3,
     out.attrs["beltkit_sectors"] = (
         f"binned from {s.n_s} sectors x {s.n_d} detector(s) by beltkit.pad.bin_sectors "
         f"({'spin form' if s.mode == 1 else 'look directions'}; field "
-        f"{'model ' + str(field) if field is not None else 'b_vector'})")
+        f"{'model ' + str(model) if model is not None else 'b_vector'})")
     out.attrs.setdefault("Conventions", "CF-1.8")
     return out
 
@@ -285,7 +288,8 @@ def _normal_isf(level):
     return -ndtri(level)
 
 
-def sector_bands(ds, *, field=None):
+@renamed_keyword("field", "model")
+def sector_bands(ds, *, model=None):
     r"""Pitch-angle band (deg) each look of a sectored dataset sweeps.
 
     The band :math:`[\max(0, \min_\varphi\alpha - \delta), \min(180,
@@ -297,15 +301,15 @@ def sector_bands(ds, *, field=None):
     ds : xarray.Dataset
         Sectored dataset (``docs/conventions.md`` section 9); its counts are
         not read.
-    field : FieldModel or str, optional
-        As for :func:`bin_sectors`.
+    model : FieldModel or str, optional
+        As for :func:`bin_sectors` (``field=`` is its deprecated spelling).
 
     Returns
     -------
     xarray.Dataset
         ``band_lower``, ``band_upper`` (time, sector[, detector]) in degree.
     """
-    s = read_sectored(ds, [0.0, 180.0], field)
+    s = read_sectored(ds, [0.0, 180.0], model)
     geo = look_geometry(s)
     bands = np.zeros((s.n_t, s.n_k, 2))
     run_blocks(s, ds, geo, s.edges, 0.0, 0.0, PAIR_SIMILARITY, n_e=0, bands=bands)

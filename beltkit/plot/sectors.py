@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 from matplotlib.figure import Figure
 
+from .._renamed import renamed_keyword
 from .style import (
     FLUX_LABEL,
     energy_style,
@@ -17,7 +18,8 @@ __all__ = [
 ]
 
 
-def sector_coverage(sectored, binned=None, *, time=None, energy=None, field=None, axes=None):
+@renamed_keyword("field", "model")
+def sector_coverage(sectored, binned=None, *, time=None, energy=None, model=None, axes=None):
     """Draw the sectors' pitch-angle coverage over a spin and the binned distribution.
 
     Left: for each sector (at its mid spin phase) and detector, the band of
@@ -38,8 +40,9 @@ def sector_coverage(sectored, binned=None, *, time=None, energy=None, field=None
         Sample to show (nearest; default the first).
     energy : float, optional
         Channel (keV, nearest; default the middle one).
-    field : FieldModel or str, optional
-        As for :func:`beltkit.pad.bin_sectors`.
+    model : FieldModel or str, optional
+        Field model, as for :func:`beltkit.pad.bin_sectors` (``field=`` is the
+        deprecated former spelling).
     axes : pair of matplotlib.axes.Axes, optional
         Where to draw.
 
@@ -53,13 +56,13 @@ def sector_coverage(sectored, binned=None, *, time=None, energy=None, field=None
         sectored["time"].values - np.datetime64(time, "ns"))))
     one = sectored.isel(time=[t_index])
     if binned is None:
-        binned = bin_sectors(one, np.linspace(0.0, 180.0, 13), field=field)
+        binned = bin_sectors(one, np.linspace(0.0, 180.0, 13), model=model)
     else:
         binned = binned.sel(time=one["time"].values)
     e_values = binned["energy"].values
     e_index = e_values.size // 2 if energy is None else int(np.argmin(np.abs(e_values -
                                                                              energy)))
-    bands = sector_bands(one, field=field).isel(time=0)
+    bands = sector_bands(one, model=model).isel(time=0)
     if axes is None:
         fig = Figure(figsize=(10.0, 4.2), layout="constrained")
         ax_c, ax_d = fig.subplots(1, 2)
