@@ -274,7 +274,7 @@ def test_demo_low_orbit_geographic_map_shows_the_south_atlantic(tmp_path):
     from beltkit import demo, plot
 
     cover = demo.generate_coverage(tmp_path, orbits=15, cadence_s=120.0)
-    [done] = batch.summarize([cover], tmp_path / "sum", field="auto")
+    [done] = batch.summarize([cover], tmp_path / "sum", model="auto")
     assert done.status == "ok", done.reason
     with xr.open_dataset(done.output) as s:
         assert s["position_geo"].dims == ("time", "xyz")  # summaries keep the position
