@@ -15,6 +15,8 @@ from .constants import R_E_KM
 
 __all__ = [
     "DEFAULT_HEIGHT_KM",
+    "FOOTPOINT_REFERENCE",
+    "HEIGHT_REFERENCE",
     "TIME_EXAMPLE",
     "duration",
     "energy_kev",
@@ -38,6 +40,10 @@ __all__ = [
 TIME_EXAMPLE = "2024-06-01T12:00"
 #: Height of a geographic point when ``--height-km`` is not given (km above the WGS-84 ellipsoid).
 DEFAULT_HEIGHT_KM = 650.0
+#: What a footpoint (loss) altitude is measured from, as the help texts say it.
+FOOTPOINT_REFERENCE = f"km above the sphere of radius R_E = {R_E_KM:g} km, not the ellipsoid"
+#: What a geodetic height is measured from, as the help texts say it.
+HEIGHT_REFERENCE = "km above the WGS-84 ellipsoid"
 
 
 def number_arg(text) -> float:
@@ -88,8 +94,8 @@ longitude_deg = _checked_type("longitude_deg", math.isfinite,
                              "A longitude in degrees, east positive.")
 footpoint_km = _checked_type("footpoint_km", lambda v: math.isfinite(v) and v >= 0,
                             f"a finite altitude >= 0 km (above the R_E = {R_E_KM:g} km sphere)",
-                            "A footpoint (loss) altitude in km above the sphere of one Earth "
-                            "radius.")
+                            f"A footpoint (loss) altitude in {FOOTPOINT_REFERENCE} "
+                            "(beltkit.constants.R_E_KM).")
 
 
 def height_km(text):

@@ -60,7 +60,8 @@ Commands
 ``beltkit motion --energy-kev E --L L --pitch-angle DEG [--species NAME]``
     Gyration, bounce and drift timescales and the mirror point in a dipole;
     a ``note:`` line (JSON: ``in_bounce_loss_cone`` and ``notes``) says when
-    the pitch angle lies inside the bounce loss cone of ``--footpoint-km``::
+    the pitch angle lies inside the bounce loss cone of ``--footpoint-km``
+    (km above the sphere of radius R_E, :data:`beltkit.constants.R_E_KM`)::
 
         beltkit motion --energy-kev 1000 --L 4 --pitch-angle 45 --species electron
 
@@ -127,14 +128,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="files, folders or glob patterns")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
     p.add_argument("--field", choices=("auto", "dipole", "igrf", "t89"), default="auto",
-                   help="field model of the loss cones (default: auto = the IGRF at each "
+                   help="field model of the loss cones (Python: model=; default: auto = the "
+                        "IGRF at each "
                         "sample's time for files with position_geo, the centred dipole for "
                         "files with only L and mlat; t89 = the IGRF plus Tsyganenko's 1989 "
                         "external field, with --kp or --kp-variable); each summary records "
                         "the model used")
     _kp_options(p)
     p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
-                   help="footpoint altitude defining the loss cones (default: 100)")
+                   help=f"footpoint altitude defining the loss cones, {T.FOOTPOINT_REFERENCE} "
+                        "(Python: altitude_km=; default: 100)")
     p.add_argument("--epoch", type=T.epoch_year, default=None, metavar="YEAR",
                    help="dipole epoch as a decimal year, with --field dipole (default: the "
                         "dipole of 2020.0)")
@@ -177,7 +180,8 @@ def build_parser() -> argparse.ArgumentParser:
                    metavar="G05_RE", help="second invariants K in G^(1/2) R_E")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
     p.add_argument("--field", choices=("auto", "dipole", "igrf", "t89"), default="auto",
-                   help="field model (default: auto = the IGRF for files with position_geo, "
+                   help="field model (Python: model=; default: auto = the IGRF for files with "
+                        "position_geo, "
                         "the centred dipole, where L* = L, for files with only L and mlat; "
                         "t89 = the IGRF plus Tsyganenko's 1989 external field, with --kp or "
                         "--kp-variable)")
@@ -188,7 +192,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--species", default="electron", metavar="NAME",
                    help="species of the flux (default: electron)")
     p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
-                   help="loss altitude of loss cones and drift shells (default: 100)")
+                   help=f"loss altitude of loss cones and drift shells, {T.FOOTPOINT_REFERENCE} "
+                        "(Python: altitude_km=; default: 100)")
     p.add_argument("--mapping", metavar="TOML", default=None,
                    help="variable-name mapping file for files with other names")
     p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
@@ -210,8 +215,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="pitch-angle bin edges in degree, increasing within 0-180 (default: "
                         "12 bins of 15 degree)")
     p.add_argument("--field", choices=("b_vector", "dipole", "igrf"), default="b_vector",
-                   help="field direction: each file's b_vector (default), or a model at its "
-                        "position_geo")
+                   help="field direction: each file's b_vector (default), or the field model "
+                        "at its position_geo (Python: model=, None for b_vector)")
     p.add_argument("--gyrotropy-level", type=T.positive_number, default=1e-3, metavar="P",
                    help="significance level of the gyrotropy flag (default: 1e-3)")
     p.add_argument("--gyrotropy-tolerance", type=T.nonnegative_number, default=0.1,
@@ -235,7 +240,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="then summarize the pitch-angle files into DIR2 (as beltkit "
                         "summarize does)")
     p.add_argument("--summary-field", choices=("auto", "dipole", "igrf"), default="auto",
-                   help="with --summarize: field model of the loss cones (default: auto)")
+                   help="with --summarize: field model of the loss cones (Python: model= of "
+                        "beltkit.batch.summarize; default: auto)")
 
     p = sub.add_parser("survey", parents=[common], help="summaries -> binned survey file",
                        description="Bin the summaries' fractions and integrated fluxes onto "
@@ -299,8 +305,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--pitch-angle", type=T.pitch_deg, default=90.0, metavar="DEG",
                    help="equatorial pitch angle in degrees, 0-180 (default: 90)")
     p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
-                   help="altitude below which a particle is lost, for the bounce loss cone "
-                        "(default: 100)")
+                   help="altitude below which a particle is lost, for the bounce loss cone, "
+                        f"{T.FOOTPOINT_REFERENCE} (default: 100)")
     p.add_argument("--species", default="electron",
                    help="electron, proton, alpha or oxygen+ (default: electron)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
@@ -310,7 +316,7 @@ def build_parser() -> argparse.ArgumentParser:
                                    "magnetic latitude (dipole) or from a geographic position "
                                    "and time (--field igrf, or dipole).")
     p.add_argument("--field", choices=("dipole", "igrf"), default="dipole",
-                   help="field model (default: dipole)")
+                   help="field model (Python: model=; default: dipole)")
     p.add_argument("--L", type=T.l_shell, dest="L", default=None, metavar="L",
                    help="L-shell (centred-dipole closed forms)")
     p.add_argument("--mlat", type=T.mlat_deg, default=None, metavar="DEG",
@@ -320,12 +326,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--longitude", type=T.longitude_deg, default=None, metavar="DEG",
                    help="geographic longitude, east positive")
     p.add_argument("--height-km", type=T.height_km, default=None, metavar="KM",
-                   help=f"height above the WGS-84 ellipsoid (default: {T.DEFAULT_HEIGHT_KM:g})")
+                   help=f"height of the point, {T.HEIGHT_REFERENCE} (geodetic; default: "
+                        f"{T.DEFAULT_HEIGHT_KM:g})")
     p.add_argument("--time", type=T.utc_time, default=None, metavar="ISO",
                    help=f"UTC time of a geographic point, e.g. {T.TIME_EXAMPLE} (required with "
                         f"--latitude/--longitude: MLT and the field epoch depend on it)")
     p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
-                   help="footpoint altitude defining the loss cones (default: 100)")
+                   help=f"footpoint altitude defining the loss cones, {T.FOOTPOINT_REFERENCE} "
+                        "(default: 100)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return parser
 

@@ -512,3 +512,26 @@ def test_losscone_explains_an_undefined_mcilwain_l(capsys):
     [note] = got["notes"]["value"]
     assert note.startswith("L is undefined here: a particle mirroring at this point would "
                            "mirror below the Earth's surface")
+
+
+def test_every_altitude_option_names_its_reference_surface_and_field_its_python_name():
+    # issue 14: footpoint (loss) altitudes are measured from the sphere of radius
+    # 6371.2 km, the IGRF reference radius (IAGA, IGRF-14 definition); geodetic heights
+    # from the WGS-84 ellipsoid (NIMA TR8350.2)
+    from beltkit.cli import build_parser
+
+    sub = next(a for a in build_parser()._actions if a.dest == "command").choices
+    seen = 0
+    for name, parser in sub.items():
+        for action in parser._actions:
+            text = " ".join((action.help or "").split())
+            if "--footpoint-km" in action.option_strings:
+                assert "above the sphere of radius R_E = 6371.2 km" in text, (name, text)
+                seen += 1
+            if "--height-km" in action.option_strings:
+                assert "above the WGS-84 ellipsoid" in text, (name, text)
+                seen += 1
+            if "--field" in action.option_strings or "--summary-field" in action.option_strings:
+                assert "model=" in text, (name, text)
+                seen += 1
+    assert seen == 10  # 4 --footpoint-km, 1 --height-km, 4 --field, 1 --summary-field
