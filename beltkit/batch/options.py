@@ -8,23 +8,26 @@ input's checksum differ from the present ones.
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
 
 from .. import __version__
 from ..errors import ConventionError
-from ..io import sha256
+from ..io import MAPPING_SECTIONS, sha256
 
 __all__ = [
     "DIFFUSION_DEFAULTS",
     "FIELD_CHOICES",
+    "FIRST_MAPPING_SECTIONS",
     "StormField",
     "check_field",
     "diffusion_options",
     "epoch_text",
     "field_model",
     "kp_text",
+    "mapping_key",
     "psd_settings",
     "run_settings",
     "settings_text",
@@ -194,6 +197,33 @@ def diffusion_options(diffusion):
             "interval_sigma": sigma}
 
 
+#: Sections of a mapping dict always in its fingerprint (the sections of the first format).
+FIRST_MAPPING_SECTIONS = ("variables", "units", "dimensions")
+
+
+def mapping_key(mapping):
+    """Return what of a mapping decides whether an output made with it is up to date.
+
+    Every section of :data:`beltkit.io.MAPPING_SECTIONS` changes what is read
+    (names, time decoding, pitch-angle edges, common energies, quality rule,
+    position form, telescope conversion, valid ranges), so every one is in
+    the fingerprint. A mapping file counts by its content (SHA-256), so
+    editing any section redoes the outputs. A mapping dict counts by its
+    sections: the three of the first format always (as before, so outputs
+    made with such a mapping stay up to date), every later section when it
+    is not empty. The ``source`` entry of a checked mapping is only its name
+    and does not count. None without a mapping.
+    """
+    if mapping is None:
+        return None
+    if not isinstance(mapping, Mapping):
+        return sha256(mapping)
+    key = {k: mapping.get(k, {}) for k in FIRST_MAPPING_SECTIONS}
+    key.update({k: mapping[k] for k in MAPPING_SECTIONS
+                if k not in FIRST_MAPPING_SECTIONS and mapping.get(k)})
+    return key
+
+
 def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
                  strict=False) -> dict:
     """Return the settings of a summarize run, as recorded in each output.
@@ -202,18 +232,12 @@ def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
     first release), so that outputs made before the keyword became ``model=``
     stay up to date.
     """
-    if mapping is None:
-        mapping_key = None
-    elif isinstance(mapping, dict):
-        mapping_key = {k: mapping.get(k, {}) for k in ("variables", "units", "dimensions")}
-    else:
-        mapping_key = sha256(mapping)
     settings = {
         "field": model if isinstance(model, str) else getattr(model, "name", repr(model)),
         **(model.settings_key() if isinstance(model, StormField) else {}),
         "altitude_km": float(altitude_km),
         "epoch": None if epoch is None else str(epoch),
-        "mapping": mapping_key,
+        "mapping": mapping_key(mapping),
         "compress": int(4 if compress is True else 0 if not compress else compress),
         "beltkit_version": __version__,
     }

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from .options import settings_text
+from .options import mapping_key, settings_text
 from .products import STREAM_SLAB, Product
 
 __all__ = ["SECTORS_SUFFIX", "sectors_product", "sectors_settings"]
@@ -33,7 +33,7 @@ def sectors_settings(edges_deg, model, gyrotropy_level, gyrotropy_tolerance, deg
         "gyrotropy_level": float(gyrotropy_level),
         "gyrotropy_tolerance": float(gyrotropy_tolerance),
         "degenerate_deg": float(degenerate_deg),
-        "mapping": None if mapping is None else str(mapping),
+        "mapping": mapping_key(mapping),
         "compress": compress if isinstance(compress, bool) else int(compress),
     }
 
