@@ -256,7 +256,9 @@ def at_fixed_invariants(ds, mu_mev_per_g, k_g05_re, model=None, *, species="elec
         this far apart (and the last sample) and interpolated linearly in time
         (ln B_m linearly) to every sample.
     altitude_km : float, keyword-only
-        Stop altitude for loss cones and drift shells.
+        Stop (loss) altitude for loss cones and drift shells, in km above the
+        sphere of radius R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`),
+        not the ellipsoid.
     n_mlt : int, keyword-only
         MLTs of the drift-shell search (:func:`beltkit.field.lstar`).
     lstar_method : {"fast", "exact"}, keyword-only

@@ -341,7 +341,8 @@ def from_pitch_angle_data(ds, model="auto", altitude_km=100.0, *, cones=None,
         (``"auto"`` is partition's default: dipole closed forms from ``L`` and
         ``mlat`` when present).
     altitude_km : float
-        Altitude of the feet (km).
+        Altitude of the feet, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     cones : xarray.Dataset, keyword-only, optional
         The partition of ``ds`` (or its summary) when already computed: its
         ``blc_local``, ``blc_equatorial``, ``b_local``, ``b_min`` and ``L`` are

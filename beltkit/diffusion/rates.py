@@ -98,7 +98,9 @@ def strong_diffusion_lifetime(L, energy_kev, species="electron", altitude_km=100
     species : str or Species
         Particle species (:func:`beltkit.particles.get_species`).
     altitude_km : float
-        Altitude of the feet where particles are lost (km, default 100).
+        Altitude of the feet where particles are lost, in km above the sphere
+        of radius R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the
+        ellipsoid (default 100).
 
     Returns
     -------
@@ -166,7 +168,8 @@ def pitch_angle_diffusion(z0, L, energy_kev, species="electron", *, altitude_km=
     species : str or Species
         Particle species.
     altitude_km : float, keyword-only
-        Altitude of the feet (km, default 100).
+        Altitude of the feet, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid (default 100).
     loss_time : {"half_bounce", "quarter_bounce"}, keyword-only
         Loss time inside the cone, as a fraction of the bounce period.
 

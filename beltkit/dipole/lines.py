@@ -112,7 +112,8 @@ def footpoint_mlat(L, altitude_km=100.0):
     L : array_like or xarray.DataArray
         Dipole L, at least ``1 + altitude_km / R_E``.
     altitude_km : float or array_like
-        Footpoint altitude in km above R_E = 6371.2 km (default 100 km).
+        Footpoint altitude in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid (default 100 km).
 
     Returns
     -------
@@ -149,7 +150,8 @@ def footpoint_field(L, altitude_km=100.0, b0_nt=B0_NT):
     L : array_like or xarray.DataArray
         Dipole L, at least ``1 + altitude_km / R_E``.
     altitude_km : float or array_like
-        Footpoint altitude in km (default 100).
+        Footpoint altitude in km above the sphere of radius R_E = 6371.2 km,
+        not the ellipsoid (default 100).
     b0_nt : float or array_like
         Equatorial surface field in nT.
 
@@ -185,7 +187,8 @@ def arc_length(L, altitude_km=100.0):
     L : array_like or xarray.DataArray
         Dipole L, at least ``1 + altitude_km / R_E``.
     altitude_km : float or array_like
-        Footpoint altitude in km (default 100).
+        Footpoint altitude in km above the sphere of radius R_E = 6371.2 km,
+        not the ellipsoid (default 100).
 
     Returns
     -------
@@ -268,7 +271,8 @@ def mirror_altitude(L, alpha_eq_deg):
     Returns
     -------
     float, numpy.ndarray or xarray.DataArray
-        Mirror altitude in km.
+        Mirror altitude in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
 
     Notes
     -----
@@ -372,7 +376,8 @@ def bounce_loss_cone(L, altitude_km=100.0):
     L : array_like or xarray.DataArray
         Dipole L, at least ``1 + altitude_km / R_E``.
     altitude_km : float or array_like
-        Altitude in km at which particles are taken as lost (default 100).
+        Altitude at which particles are taken as lost, in km above the sphere
+        of radius R_E = 6371.2 km, not the ellipsoid (default 100).
 
     Returns
     -------
@@ -405,7 +410,8 @@ def local_loss_cone(L, mlat_deg, altitude_km=100.0):
     mlat_deg : array_like or xarray.DataArray
         Magnetic latitude in degrees, in (-90, 90).
     altitude_km : float or array_like
-        Altitude in km at which particles are taken as lost (default 100).
+        Altitude at which particles are taken as lost, in km above the sphere
+        of radius R_E = 6371.2 km, not the ellipsoid (default 100).
 
     Returns
     -------

@@ -310,7 +310,8 @@ def drift_shell_table(
     time : numpy.datetime64, str or float
         One time; the table is computed for the model's epoch containing it.
     altitude_km : float, default 100
-        Footpoint (stop) altitude.
+        Footpoint (stop) altitude, in km above the sphere of radius
+        R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     l_values : array_like, default 1.1 to 8.0 in steps of 0.05
         Increasing grid of McIlwain L (drift-shell labels, see module notes).
     n_lon : int, default 72

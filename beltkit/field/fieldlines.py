@@ -105,7 +105,9 @@ def lines_to_dataset(lines, altitude_km=100.0, samples=False):
     lines : FieldLines
         Result of :func:`beltkit.field.trace.trace_lines`.
     altitude_km : float
-        Stop altitude used (stored as an attribute).
+        Stop altitude used, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid (stored as an
+        attribute).
     samples : bool
         Include the samples along each line.
 

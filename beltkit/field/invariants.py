@@ -195,7 +195,9 @@ def second_invariant_k(model, xyz_km, time, alpha_local_deg, *, altitude_km=100.
         Local pitch angle(s) in degrees, (0, 180] (folded about 90), shared by
         all positions: one trace per position serves all of them.
     altitude_km : float, keyword-only
-        Stop altitude of the tracing; a mirror point below it gives NaN.
+        Stop altitude of the tracing, in km above the sphere of radius
+        R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the
+        ellipsoid; a mirror point below it gives NaN.
     **trace_options
         Passed to :func:`beltkit.field.trace.trace_lines` (``rtol``, ...).
 
@@ -482,7 +484,9 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
         Magnetic local times at which the shell is traced (>= 24 recommended;
         uniform in SM longitude).
     altitude_km : float, keyword-only
-        Stop altitude: the footprints lie on the sphere :math:`R_E + h`, and
+        Stop altitude h in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid: the
+        footprints lie on the sphere :math:`R_E + h`, and
         a shell whose mirror points dip below it anywhere is undefined.
     max_iterations : int, keyword-only
         Iterations of the shell search (each traces the still unresolved

@@ -86,7 +86,8 @@ def loss_cones(model, xyz_km, time, altitude_km=100.0, dim="sample", *, l_values
     time : numpy.datetime64 or array_like
         Time(s), broadcast against the leading dimensions of `xyz_km`.
     altitude_km : float, default 100
-        Footpoint (stop) altitude.
+        Footpoint (stop) altitude, in km above the sphere of radius
+        R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     dim : str, default "sample"
         Dimension name for 1-D numpy input (``dim_0``, ``dim_1``, ... style
         suffixes for more dimensions); DataArray input keeps its dims.
@@ -274,7 +275,8 @@ def loss_cones_vs_longitude(model, L, time, altitude_km=100.0, n_lon=72, **trace
     time : numpy.datetime64, str or float
         One time (the model's epoch containing it is used).
     altitude_km : float, default 100
-        Footpoint altitude.
+        Footpoint altitude, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     n_lon : int, default 72
         Number of magnetic longitudes.
     **trace_options

@@ -249,8 +249,10 @@ def mcilwain_l(model, xyz_km, time, alpha_local_deg=90.0, altitude_km=100.0, *,
         Local pitch angle in degrees, broadcast against the leading
         dimensions; sets the mirror field :math:`B_m = B_{local}/\sin^2\alpha`.
     altitude_km : float, default 100
-        Stop altitude of the tracing. Lines whose mirror point lies below
-        it are traced again down to the surface (the reference sphere);
+        Stop altitude of the tracing, in km above the sphere of radius
+        R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the
+        ellipsoid. Lines whose mirror point lies below it are traced again
+        down to the surface (that reference sphere);
         particles that would mirror below the surface get NaN.
     as_dataset : bool, default False, keyword-only
         Return an :class:`xarray.Dataset` (dimension ``sample`` for numpy

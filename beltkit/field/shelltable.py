@@ -59,7 +59,8 @@ class ShellTable:
     time : numpy.datetime64
         Epoch of the table.
     altitude_km : float
-        Stop altitude of the tracing.
+        Stop altitude of the tracing, in km above the sphere of radius
+        R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     rtol : float
         Tracing tolerance.
     """

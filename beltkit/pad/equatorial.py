@@ -111,7 +111,9 @@ def to_equatorial(ds, model=None, alpha_eq_deg=None, *, altitude_km=100.0, metho
         Equatorial pitch-angle grid (deg, 0-180); default 0.5 to 179.5 in
         1-degree steps.
     altitude_km : float, keyword-only
-        Footpoint altitude for the loss cones carried along (km).
+        Footpoint altitude for the loss cones carried along, in km above the
+        sphere of radius R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`),
+        not the ellipsoid.
     method : {"linear", "bin"}, keyword-only
         Linear interpolation between bin centres, or the containing bin's value.
     allow_negative : bool, keyword-only

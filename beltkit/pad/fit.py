@@ -136,7 +136,8 @@ def fit_sine_power(ds, model=None, *, altitude_km=100.0, method="linear", max_it
     model : None, "dipole", "igrf" or FieldModel, optional
         Field model for the drift loss cone that bounds the trapped range.
     altitude_km : float, keyword-only
-        Footpoint altitude (km).
+        Footpoint altitude, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     method : {"linear", "nonlinear"}, keyword-only
         Linearised weighted log fit (closed form), or batched
         Levenberg-Marquardt in flux space started from it.

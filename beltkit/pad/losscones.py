@@ -382,7 +382,9 @@ def sample_loss_cones(ds, prep: Prepared, model=None, altitude_km=100.0):
         dataset with only ``position_geo``) uses
         :func:`beltkit.field.loss_cones`.
     altitude_km : float
-        Footpoint altitude at which particles count as lost (km).
+        Footpoint altitude at which particles count as lost, in km above the
+        sphere of radius R_E = 6371.2 km (:data:`beltkit.constants.R_E_KM`),
+        not the ellipsoid.
 
     Returns
     -------

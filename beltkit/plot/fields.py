@@ -44,7 +44,8 @@ def loss_cone_longitude(L=None, time=None, *, data=None, models=("dipole", "igrf
     models : sequence of str or FieldModel
         Models to compute (``"dipole"``, ``"igrf"``).
     altitude_km : float
-        Footpoint altitude in km.
+        Footpoint altitude, in km above the sphere of radius R_E = 6371.2 km
+        (:data:`beltkit.constants.R_E_KM`), not the ellipsoid.
     n_lon : int
         Number of magnetic longitudes.
     ax : matplotlib.axes.Axes, optional
