@@ -346,6 +346,79 @@ def test_negative_uncertainties_masked_or_refused():
     assert out.attrs["beltkit_samples_negative_uncertainty_masked"] == 1
 
 
+INFINITE = [(7, 0, 2, np.inf), (42, 1, 9, -np.inf), (43, 2, 0, np.inf), (180, 0, 11, -np.inf)]
+
+
+@pytest.mark.parametrize("chunked", [False, True])
+@pytest.mark.parametrize("variable", ["flux", "flux_err"])
+def test_infinite_values_are_masked_and_flagged_like_the_other_bad_samples(variable, chunked,
+                                                                           tmp_path):
+    # issue 15: +inf and -inf in an otherwise good file are masked like NaN and the outputs
+    # they touch flagged input_out_of_valid_range (bit 512, shared with the values outside a
+    # declared valid range: an infinite value lies outside every valid range; see
+    # docs/conventions.md, section 2a); strict refuses the file naming the variable. The
+    # expected numbers are the same file's with those samples set to NaN.
+    from beltkit.io import open_flux
+
+    def with_err():
+        ds = _glitchy(seed=11)
+        return ds.assign(flux_err=(ds.flux.dims, 0.1 * ds.flux.values + 0.05, ds.flux.attrs))
+
+    clean, bad, nan = with_err(), with_err(), with_err()
+    for t, e, p, value in INFINITE:
+        bad[variable].values[t, e, p] = value
+        nan[variable].values[t, e, p] = np.nan
+    for name, ds in (("clean", clean), ("bad", bad), ("nan", nan)):
+        ds.to_netcdf(tmp_path / f"{name}.nc")
+    chunks = {"time": 64} if chunked else None
+
+    def run(name, **kw):
+        with open_flux(tmp_path / f"{name}.nc", chunks=chunks) as ds:
+            if name == "bad":  # the reader leaves the values as they are
+                assert int(np.isinf(ds[variable].values).sum()) == 4
+            return partition(ds, **kw).compute()
+
+    with pytest.raises(ConventionError) as err:
+        run("bad")
+    assert len(err.value.problems) == 1
+    what = "values" if variable == "flux" else "uncertainties"
+    assert err.value.problems[0].startswith(f"{variable}: 4 infinite {what} (+inf or -inf)")
+    with open_flux(tmp_path / "bad.nc", chunks=None) as ds:
+        assert validate(ds) == err.value.problems  # the validator's own scan agrees
+        assert validate(ds, strict=False) == []
+    out, ref, before = run("bad", strict=False), run("nan", strict=False), run("clean")
+    rows = {(t, e) for t, e, _, _ in INFINITE}
+    hit = np.zeros((300, 3), dtype=bool)
+    for t, e in rows:
+        hit[t, e] = True
+    flag = out.partition_flag.values
+    np.testing.assert_array_equal((flag & 512) != 0, hit)  # exactly those samples' outputs
+    np.testing.assert_array_equal(flag & ~512, ref.partition_flag.values)
+    for name in out.data_vars:
+        if name == "partition_flag":
+            continue
+        got = out[name].values
+        assert not np.isinf(got).any(), name
+        # masked: every output equals the partition with those samples NaN
+        np.testing.assert_array_equal(got, ref[name].values, err_msg=name)
+        if got.ndim == 2:  # the other samples' outputs are the clean file's (to the rounding
+            # of the kernel's two summation paths; atol: an error bar whose variance nearly
+            # cancels keeps only the square root of its rounding, ~1e-8)
+            np.testing.assert_allclose(got[~hit], before[name].values[~hit], rtol=1e-12,
+                                       atol=1e-7 if name.endswith("_err") else 1e-12,
+                                       err_msg=name)
+    ti, ei = np.nonzero(hit)
+    if variable == "flux":  # the value is masked, the rest of its bins still measure
+        assert np.isfinite(out.flux_trapped.values[ti, ei]).all()
+        assert (out.coverage_trapped.values[ti, ei] < 1).all()
+    else:  # the uncertainty is masked: the flux is measured, its error unknown
+        assert np.isfinite(out.flux_trapped.values[ti, ei]).all()
+        assert np.isnan(out.flux_trapped_err.values[ti, ei]).all()
+        assert np.isnan(out.fraction_precipitating_err.values[ti, ei]).all()
+    if not chunked:
+        assert out.attrs["beltkit_samples_input_out_of_valid_range"] == 4
+
+
 def test_reader_masks_become_flag_bits_and_strict_refuses_range_and_quality():
     # contract with beltkit.io: masked values arrive as NaN with read_flag bits
     # 1 fill, 2 out of the valid range, 4 quality-rejected; a (time, energy) output carries

@@ -514,8 +514,8 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                     flag[t * n_e + e] = 64
 
 
-def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
-    """Per-energy NaN-ignoring minimum of the masked values, and the negative count."""
+def _value_scan_py(x, fills, vmin, vmax, lo, n_neg, n_inf):
+    """Per-energy NaN-ignoring minimum of the masked finite values; negative and inf counts."""
     n, n_e, n_p = x.shape
     for t in range(n):
         for e in range(n_e):
@@ -528,6 +528,9 @@ def _value_scan_py(x, fills, vmin, vmax, lo, n_neg):
                     if v == f:
                         bad = True
                 if bad:
+                    continue
+                if v - v != 0.0:  # +-inf that no fill value or valid range masked
+                    n_inf[e] += 1
                     continue
                 if not (lo[e] <= v):  # lo NaN or larger
                     lo[e] = v
@@ -646,7 +649,7 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats
 
 
 def value_scan(x, fills, vmin, vmax):
-    """Return the per-energy minimum of valid values (NaN if none) and negative counts.
+    """Return the per-energy minimum of valid values (NaN if none), negative and inf counts.
 
     Parameters
     ----------
@@ -663,9 +666,13 @@ def value_scan(x, fills, vmin, vmax):
         (E,) minimum valid value per energy, NaN where none is valid.
     n_neg : numpy.ndarray
         (E,) number of negative valid values.
+    n_inf : numpy.ndarray
+        (E,) number of infinite values that neither a fill value nor the
+        valid range masked (not valid, neither in ``lo`` nor in ``n_neg``).
     """
     lo = np.full(x.shape[1], np.nan)
     n_neg = np.zeros(x.shape[1], dtype=np.int64)
+    n_inf = np.zeros(x.shape[1], dtype=np.int64)
     f = np.asarray(fills, dtype=float).reshape(-1)
-    _jitted("scan")(x, f, float(vmin), float(vmax), lo, n_neg)
-    return lo, n_neg
+    _jitted("scan")(x, f, float(vmin), float(vmax), lo, n_neg, n_inf)
+    return lo, n_neg, n_inf

@@ -488,17 +488,18 @@ def _inspect(ds, model=None, allow_negative=False, check_values=True, strict=Tru
                and (error_source is None or ds[error_source].dims == flux.dims))
     if check_values and flux_ok:
         eax = flux.dims.index("energy")
-        lo, negs = value_summary(flux, flux_mask, eax)
-        n_err_neg = 0
-        if error_source == "flux_err":
-            elo, _ = value_summary(ds["flux_err"], err_mask, eax)
+        lo, negs, infs = value_summary(flux, flux_mask, eax)
+        n_err_neg = n_err_inf = 0
+        if error_source in ("flux_err", "counts"):
+            emask = err_mask if error_source == "flux_err" else counts_mask
+            elo, _, einf = value_summary(ds[error_source], emask, eax)
             n_err_neg = int(np.sum(elo[~np.isnan(elo)] < 0))
-        if error_source == "counts":
-            clo, _ = value_summary(ds["counts"], counts_mask, eax)
-            n_err_neg = int(np.sum(clo[~np.isnan(clo)] < 0))
+            n_err_inf = int(np.sum(einf))
         n_negative = int(np.sum(negs))
         problems.extend(value_problems(energy_kev, ~np.isnan(lo), n_negative, n_err_neg,
-                                       error_source, allow_negative, strict=strict))
+                                       error_source, allow_negative, strict=strict,
+                                       n_infinite=int(np.sum(infs)),
+                                       n_err_infinite=n_err_inf))
     prepared = None
     if not problems:
         prepared = Prepared(kind=kind, edges=edges, centres=centres, folded=folded,

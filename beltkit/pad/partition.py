@@ -87,7 +87,13 @@ from .outputs import (
     output_units,
 )
 from .rows import mask_bad_rows, or_bits, overlap_rows, repartition_rows, sample_bits
-from .samples import SAMPLE_FLAGS, flag_counts, mask_positions, position_mask
+from .samples import (
+    INFINITE_VALUE_BIT,
+    SAMPLE_FLAGS,
+    flag_counts,
+    mask_positions,
+    position_mask,
+)
 from .values import value_problems
 
 __all__ = ["FLAG_MEANINGS", "OUTPUT_NAMES", "OutputBuffers", "partition", "partition_slab"]
@@ -111,24 +117,44 @@ FLAG_MEANINGS = {
 #: samples per block of the compiled kernel (a few blocks per core: the threads stay busy
 #: while the page faults of the fresh output memory are spread between them)
 _BLOCK = 65536
+#: columns of the value checks' counts per energy: valid flux values, negative flux values,
+#: negative errors (the compiled kernel's three), infinite flux values, infinite errors
+_N_STATS = 5
 
 
-def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, mask_err=False):
-    """Return ``(x, s, err_bad)``: flux and 1-sigma in canonical units, masked.
+def _mask_infinite(a, raw_dtype, stats):
+    """Return ``(a, rows)``: ``a`` with +-inf as NaN and the (n, E) rows that held one.
+
+    ``a`` is returned unchanged (and ``rows`` None) when it holds no infinite
+    value, as integer data never do; their number goes to ``stats[:, 4]``.
+    """
+    if np.dtype(raw_dtype).kind != "f":
+        return a, None
+    inf = np.isinf(a)
+    if not inf.any():
+        return a, None
+    stats[:, 4] += inf.sum(axis=(0, 2))
+    return np.where(inf, a.dtype.type(np.nan), a), inf.any(axis=2)
+
+
+def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats, mask_err=False):
+    """Return ``(x, s, err_bad, err_inf)``: flux and 1-sigma in canonical units, masked.
 
     ``err_bad`` (n, E) marks the rows whose negative counts were masked (with
-    ``mask_err`` and Poisson errors; else None).
+    ``mask_err`` and Poisson errors; else None); ``err_inf`` (n, E) the rows
+    whose infinite uncertainties (or counts) became NaN (else None).
     """
     x = prep.flux_mask.apply(flux_blk, dtype)
     s = None
-    err_bad = None
+    err_bad = err_inf = None
     if prep.error_source == "flux_err":
         s = prep.err_mask.apply(err_blk, dtype)
+        s, err_inf = _mask_infinite(s, np.asarray(err_blk).dtype, stats)
     elif prep.error_source == "counts":
         counts = prep.counts_mask.apply(err_blk, dtype)
+        counts, err_inf = _mask_infinite(counts, np.asarray(err_blk).dtype, stats)
         negative = counts < 0
-        if stats is not None:
-            stats[:, 2] += negative.sum(axis=(0, 2))
+        stats[:, 2] += negative.sum(axis=(0, 2))
         # Poisson: sigma_N = sqrt(N), with N = 0 counted as 1 (documented convention)
         s = (np.sqrt(np.maximum(counts, 1)) * c2f_blk).astype(dtype, copy=False)
         missing = np.isnan(counts)
@@ -136,7 +162,22 @@ def _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats=None, mask_err=
             err_bad = negative.any(axis=2)
             missing |= negative
         s = np.where(missing, dtype.type(np.nan), s)
-    return x, s, err_bad
+    return x, s, err_bad, err_inf
+
+
+def _infinite_flux_rows(x, stats, n_finite):
+    """Return the (n, E) rows of ``x`` holding +-inf (None if none); count them in ``stats``.
+
+    ``n_finite`` is the number of finite values the kernel counted in ``x``:
+    when it is every value, no pass is made (the common case).
+    """
+    if n_finite >= x.size:
+        return None
+    inf = np.isinf(x)
+    if not inf.any():
+        return None
+    stats[:, 3] += inf.sum(axis=(0, 2))
+    return inf.any(axis=2)
 
 
 def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dtype,
@@ -144,15 +185,18 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     """Partition one time block into ``out`` (new (n_out, n, E) array if None).
 
     ``cones`` is ``(blc, dlc, lcn, lcs)`` per sample (deg). With ``flag``
-    (int16, n * E) the flags go there instead of ``out[14]``. ``stats`` ((E, 3)
-    int64, see :func:`beltkit.pad._kernels.partition_block`) receives the
-    value checks of the block.
+    (int16, n * E) the flags go there instead of ``out[14]``. ``stats`` ((E, 5)
+    int64) receives the value checks of the block: the compiled kernel's three
+    (:func:`beltkit.pad._kernels.partition_block`), then the infinite flux
+    values and the infinite uncertainties, which are masked (NaN) and flag
+    their rows :data:`beltkit.pad.samples.INFINITE_VALUE_BIT`.
     """
     if stats is None:
-        stats = np.zeros((np.shape(flux_blk)[1], 3), dtype=np.int64)
+        stats = np.zeros((np.shape(flux_blk)[1], _N_STATS), dtype=np.int64)
     err_before = int(stats[:, 2].sum())
-    x, s, err_bad = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats,
-                                  mask_err=opts.get("mask_err", False))
+    finite_before = int(stats[:, 0].sum())
+    x, s, err_bad, err_inf = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats,
+                                           mask_err=opts.get("mask_err", False))
     n, n_e = x.shape[:2]
     hemi = opts.get("hemispheres", True)
     n_data = n_outputs(s is not None, hemi)
@@ -180,6 +224,10 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
                              out, stats, flag,
                              cones_ns=(lcn, lcs) if hemi else None,
                              hemi_row=hemisphere_row(s is not None, hemi))
+    # the kernel takes +-inf flux for missing values (as NaN); their rows are flagged below
+    inf_rows = _infinite_flux_rows(x, stats, int(stats[:, 0].sum()) - finite_before)
+    if err_inf is not None:
+        inf_rows = err_inf if inf_rows is None else (inf_rows | err_inf)
     if rows is not None:
         j = rows[0] * n_e + rows[1]
         sub = repartition_rows(rows, x, s, cones, look, geom, opts)
@@ -190,6 +238,8 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     mask_bad_rows(x, s, cones, look, geom, opts, out, fl, n_data, err_bad,
                    int(stats[:, 2].sum()) > err_before)
     or_bits(fl, sample_bits(flux_blk, rf_blk, pos_blk, prep, n, n_e))
+    if inf_rows is not None:
+        or_bits(fl, np.where(inf_rows, INFINITE_VALUE_BIT, 0).astype(np.int16).reshape(-1))
     return as_3d(out, n, n_e) if ret3d else out
 
 
@@ -312,7 +362,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
         flag = np.empty(n_t * n_e, dtype=np.int16)  # written once, in its final dtype
 
     def one(sl):
-        block_stats = np.zeros((n_e, 3), dtype=np.int64)
+        block_stats = np.zeros((n_e, _N_STATS), dtype=np.int64)
         _run_block(fv[sl], None if ev is None else ev[sl], None if cv is None else cv[sl],
                    tuple(c[sl] for c in cv4), None if lv is None else lv[sl], prep=prep, geom=geom,
                    opts=opts, dtype=dtype, out=buf[:, sl.start * n_e: sl.stop * n_e],
@@ -457,13 +507,14 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
     strict : bool, keyword-only
         True (default): any per-sample problem refuses the dataset. False:
         only structural problems refuse it; negative flux values (unless
-        ``allow_negative``), negative uncertainties and positions outside
-        their physical range are masked, the outputs they touch flagged
-        (:data:`beltkit.pad.samples.SAMPLE_FLAGS`), and the number of time
-        samples with each such bit recorded in the attributes
-        ``beltkit_samples_<meaning>``. Flux values the reader masked
-        (``read_flag``: fill, out of the valid range, quality-rejected) are
-        flagged either way; with ``strict`` the last two refuse the dataset.
+        ``allow_negative``), negative uncertainties, infinite (+-inf) flux
+        values and uncertainties (bit 512, as out of the valid range) and
+        positions outside their physical range are masked, the outputs they
+        touch flagged (:data:`beltkit.pad.samples.SAMPLE_FLAGS`), and the
+        number of time samples with each bit in ``beltkit_samples_<meaning>``.
+        Flux values the reader masked (``read_flag``: fill, out of the valid
+        range, quality-rejected) are flagged either way; with ``strict`` the
+        last two refuse the dataset.
 
     Returns
     -------
@@ -581,17 +632,18 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
             "hemispheres": bool(hemispheres),
             "mask_negative": not prep.strict and not allow_negative,
             "mask_err": not prep.strict}
-    stats = None if lazy else np.zeros((ds.sizes["energy"], 3), dtype=np.int64)
+    stats = None if lazy else np.zeros((ds.sizes["energy"], _N_STATS), dtype=np.int64)
     cones = tuple(lc[k] for k in ("blc_local", "dlc_local", "loss_cone_north", "loss_cone_south"))
     data, flags = _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats,
                            buffers=buffers, read_flag=read_flag, pos_bad=pos_bad)
     source = ds.encoding.get("source")
 
     def verify(totals):
-        """Raise the ConventionError of the value checks from (valid, negative, negative err)."""
-        valid, neg, neg_err = (np.asarray(t) for t in totals)
+        """Raise the ConventionError of the value checks from the engine's counts."""
+        valid, neg, neg_err, inf, inf_err = (np.asarray(t) for t in totals)
         problems = value_problems(prep.energy_kev, valid > 0, int(neg.sum()), int(neg_err.sum()),
-                                  prep.error_source, allow_negative, strict=prep.strict)
+                                  prep.error_source, allow_negative, strict=prep.strict,
+                                  n_infinite=int(inf.sum()), n_err_infinite=int(inf_err.sum()))
         if problems:
             raise ConventionError(problems, source)
 

@@ -9,6 +9,9 @@ and keeps the rest of the file:
   mapping's quality rule), or that the variable's own CF attributes mask;
 * negative flux values (unless ``allow_negative``) and negative
   uncertainties;
+* infinite (+-inf) flux values, uncertainties or counts: they share the bit
+  of values outside the valid range (:data:`INFINITE_VALUE_BIT`), since an
+  infinite value lies outside every valid range;
 * positions outside their physical range (:data:`POSITION_RANGES`): the
   whole time sample is then unusable (no loss cone can be computed).
 
@@ -30,6 +33,7 @@ __all__ = [
     "READ_FLAG_SHIFT",
     "SAMPLE_FLAGS",
     "MIN_GEOCENTRIC_KM",
+    "INFINITE_VALUE_BIT",
     "flag_counts",
     "inside_earth",
     "mask_positions",
@@ -50,6 +54,10 @@ SAMPLE_FLAGS = {
     4096: "position_out_of_range",
     8192: "negative_uncertainty_masked",
 }
+#: ``partition_flag`` bit of infinite input values (flux, uncertainty or counts): the bit of
+#: values outside the valid range, where a declared ``valid_range`` or ``VALIDMAX`` puts them
+#: already; with or without one, the value is masked and its outputs flagged alike.
+INFINITE_VALUE_BIT = 512
 #: Physical range of each position variable, in the canonical unit (None: open).
 #: L < 1 is inside the Earth and |mlat| > 90 deg does not exist (McIlwain's
 #: and the dipole's definitions); MLT is an hour of the day; a field strength

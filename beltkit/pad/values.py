@@ -6,8 +6,9 @@ range (CF ``_FillValue``/``missing_value``, ``valid_range``/``valid_min``/
 ``valid_max``; ISTP ``FILLVAL``/``VALIDMIN``/``VALIDMAX`` are turned into
 these by :mod:`beltkit.io`). The engines apply it block by block, so that no
 full-size copy of a file's flux is made. The value checks (negative flux,
-channels without any valid value, position variables outside their physical
-range) are written once here and shared by the validator and the engines.
+infinite values, channels without any valid value, position variables
+outside their physical range) are written once here and shared by the
+validator and the engines.
 """
 
 from __future__ import annotations
@@ -157,7 +158,11 @@ def _blocks(n):
 
 
 def value_summary(da, mask, energy_axis):
-    """Return per-energy NaN-ignoring minimum and negative count of the masked values."""
+    """Return per-energy NaN-ignoring minimum, negative count and inf count of the masked values.
+
+    Infinite values (+-inf) that the mask leaves are counted apart: they are
+    not valid, and neither set the minimum nor count as negative.
+    """
     data = da.data
     tax = da.dims.index("time")
     other = tuple(i for i in range(da.ndim) if i != energy_axis)
@@ -165,11 +170,14 @@ def value_summary(da, mask, energy_axis):
         import dask.array as dsa
 
         masked = dsa.map_blocks(mask.apply, data, dtype=np.float64)
-        lo = dsa.nanmin(masked, axis=other)
+        infinite = dsa.isinf(masked)
+        finite = dsa.where(infinite, np.nan, masked)
+        lo = dsa.nanmin(finite, axis=other)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
-            lo, n_neg = dsa.compute(lo, (masked < 0).sum(axis=other))
-        return np.asarray(lo), np.asarray(n_neg)
+            lo, n_neg, n_inf = dsa.compute(lo, (finite < 0).sum(axis=other),
+                                           infinite.sum(axis=other))
+        return np.asarray(lo), np.asarray(n_neg), np.asarray(n_inf)
     from ._kernels import value_scan
 
     data = np.asarray(data)
@@ -178,11 +186,13 @@ def value_summary(da, mask, energy_axis):
     n_e = data.shape[1]
     lo = np.full(n_e, np.nan)
     n_neg = np.zeros(n_e, dtype=np.int64)
+    n_inf = np.zeros(n_e, dtype=np.int64)
     for sl in _blocks(data.shape[0]):
-        blo, bneg = value_scan(data[sl], mask.fill, mask.vmin, mask.vmax)
+        blo, bneg, binf = value_scan(data[sl], mask.fill, mask.vmin, mask.vmax)
         lo = np.fmin(lo, blo)
         n_neg += bneg
-    return lo, n_neg
+        n_inf += binf
+    return lo, n_neg, n_inf
 
 
 def check_range(ds, name, lo, hi, problems, scale=1.0, pending=None):
@@ -235,7 +245,7 @@ def run_pending_ranges(pending, problems):
 
 
 def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_source,
-                   allow_negative, *, strict=True):
+                   allow_negative, *, strict=True, n_infinite=0, n_err_infinite=0):
     """Return the problems found by the value checks (shared by the validator and engines).
 
     Parameters
@@ -256,6 +266,10 @@ def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_sour
         True: each of these is a problem of the dataset. False: the engines
         mask and flag those samples; only a dataset without any valid flux
         value is a problem.
+    n_infinite, n_err_infinite : int, keyword-only
+        Number of infinite (+-inf) flux values and uncertainties (or counts)
+        that no fill value or valid range masked. With ``strict=False`` they
+        are masked and flagged ``input_out_of_valid_range``.
 
     Returns
     -------
@@ -280,7 +294,15 @@ def value_problems(energy_kev, has_valid, n_negative, n_err_negative, error_sour
         problems.append(f"flux: {n_negative} negative values; set them to NaN, or pass "
                         "allow_negative=True to keep them (they are then flagged in "
                         "partition_flag), or strict=False to mask and flag them")
+    if n_infinite:
+        problems.append(f"flux: {n_infinite} infinite values (+inf or -inf); set them to NaN, "
+                        "give the variable a valid range, or pass strict=False to mask and "
+                        "flag them")
     if n_err_negative:
         what = "negative counts" if error_source == "counts" else "negative uncertainties"
         problems.append(f"{error_source}: {what}")
+    if n_err_infinite:
+        what = "counts" if error_source == "counts" else "uncertainties"
+        problems.append(f"{error_source}: {n_err_infinite} infinite {what} (+inf or -inf); set "
+                        "them to NaN, or pass strict=False to mask and flag them")
     return problems
