@@ -132,10 +132,12 @@ def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=
              diffusion=None, prepared=None, strict=True):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
-    With ``defer_value_check`` the flux values of lazy data are checked by
-    the engine while the summary is computed (see
-    ``beltkit.pad.partition.partition_slab``), instead of in a separate pass
-    over the file before it. ``prepared`` is the file's validation, trusted.
+    With ``defer_value_check`` (eager data: one slab of a file) the flux
+    values are counted by the engine while the summary is computed and the
+    pending check is returned, to be made once on the counts summed over the
+    slabs (see ``beltkit.pad.partition.partition_slab``), instead of in a
+    separate pass over the file before it. ``prepared`` is the file's
+    validation, trusted.
     """
     from ..pad.partition import partition_slab
 
@@ -145,7 +147,7 @@ def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=
                                   prepared=prepared, strict=strict)
     if diffusion is not None:
         counts = None if pending is None else pending[0]
-        valid = None if counts is None or hasattr(counts, "dask") else np.asarray(counts)[0]
+        valid = None if counts is None else np.asarray(counts)[0]
         src = ds
         if not (prepared.strict if prepared is not None else strict):
             # the partition masked negative flux values: so does the diffusion's input

@@ -590,9 +590,9 @@ def partition_block(x, s, wpre, cos_a1, cos_a2, fold, blc, dlc, band, out, stats
         (each output row contiguous; rows may be padded apart). Row 14 (the
         flag) is written only when ``flag`` is None.
     stats : numpy.ndarray
-        (E, 3) int64 counters, incremented in place: valid flux values,
-        negative flux values, negative errors (the validator's value checks,
-        gathered in the same pass).
+        (E, >= 3) int64 counters; columns 0-2 are incremented in place: valid
+        (finite) flux values, negative flux values, negative errors (the
+        validator's value checks, gathered in the same pass).
     flag : numpy.ndarray, optional
         (>= n * E,) int16 array receiving ``partition_flag``; None: the flags
         go to ``out[14]`` as numbers.
