@@ -21,6 +21,7 @@ from .. import __version__
 from ..aggregate import CellStats
 from ..atomic import atomic_file
 from ..io import sha256
+from .pipeline import FILE_LOCK
 
 __all__ = ["PARTIAL_SUFFIX", "read_partial", "settings_fingerprint", "write_partial"]
 
@@ -87,7 +88,8 @@ def write_partial(path, fingerprint, done, open_stats, final) -> None:
         ds.to_netcdf(tmp, engine="netcdf4",
                      encoding={v: {"zlib": True, "complevel": 1} for v in ds.data_vars})
 
-    atomic_file(path, fill)
+    with FILE_LOCK:  # the groups may be reading summaries in other threads meanwhile
+        atomic_file(path, fill)
 
 
 def read_partial(path, fingerprint, files, names, stat_names):

@@ -8,7 +8,10 @@ windows that no other group touches (:func:`reduce_window`) and hands back
 the others open, to be merged (:func:`merge_open`) by the caller. The groups
 run in this process, in local processes or on a dask.distributed cluster
 (:func:`run_groups`); whatever the split, the merged counts and histograms
-are the same bit for bit, means and standard deviations to rounding.
+are the same bit for bit, means and standard deviations to rounding. As in
+the per-file pipeline, every netCDF call holds
+:data:`beltkit.batch.pipeline.FILE_LOCK` (netCDF-C and HDF5 are not
+thread-safe, and a threaded dask worker runs several groups at once).
 
 A *spec* is the dict :func:`beltkit.batch.survey` builds once for all groups:
 ``axes`` (list of :class:`beltkit.batch.survey_grid.Axis`), ``names`` (the
@@ -27,6 +30,7 @@ import xarray as xr
 
 from ..aggregate import CellStats
 from ..io import sha256
+from .pipeline import FILE_LOCK
 from .survey_grid import quantile_name
 
 __all__ = ["BLOCK", "fold_group", "fold_summary", "merge_open", "reduce_window", "run_groups"]
@@ -77,15 +81,22 @@ def fold_summary(path, spec, open_stats) -> None:
     n_cells = n_e * n_xy
     win_ids = spec["win_ids"]
     w_ns = spec["w_ns"]
-    with xr.open_dataset(path, engine="netcdf4", chunks=None, cache=False) as ds:
-        n = ds.sizes["time"]
-        t_all = ds["time"].values.astype("datetime64[ns]").astype(np.int64)
+    # netCDF-C and HDF5 are not thread-safe: every call holds the process's netCDF lock (the
+    # groups of a threaded dask worker run side by side); the binning runs outside it
+    with FILE_LOCK:
+        ds = xr.open_dataset(path, engine="netcdf4", chunks=None, cache=False)
+    try:
+        with FILE_LOCK:
+            n = ds.sizes["time"]
+            t_all = ds["time"].values.astype("datetime64[ns]").astype(np.int64)
         for a in range(0, n, spec["block"]):
             sl = slice(a, min(a + spec["block"], n))
+            with FILE_LOCK:
+                axis_values = [_axis_values(ds, sl, ax) for ax in axes]
             xy = np.zeros(sl.stop - sl.start, np.int64)
             ok = np.ones(xy.size, bool)
-            for ax, size in zip(axes, sizes):
-                k = _bin(_axis_values(ds, sl, ax), ax.edges)
+            for ax, size, v in zip(axes, sizes, axis_values):
+                k = _bin(v, ax.edges)
                 ok &= k >= 0
                 xy = xy * size + k
             if w_ns is None:
@@ -95,7 +106,8 @@ def fold_summary(path, spec, open_stats) -> None:
             if not ok.any():
                 continue
             cell = np.arange(n_e)[None, :] * n_xy + xy[:, None]  # (time, energy)
-            values = {nm: ds[nm][sl].transpose("time", "energy").values for nm in names}
+            with FILE_LOCK:
+                values = {nm: ds[nm][sl].transpose("time", "energy").values for nm in names}
             for w in np.unique(wpos[ok]).tolist():
                 m = ok & (wpos == w)
                 stats = open_stats.get(w)
@@ -105,6 +117,9 @@ def fold_summary(path, spec, open_stats) -> None:
                 c = cell[m]
                 for nm in names:
                     stats[nm].add(c, values[nm][m])
+    finally:
+        with FILE_LOCK:
+            ds.close()
 
 
 def reduce_window(stats, quantiles) -> dict:
