@@ -597,7 +597,7 @@ def lstar(model, xyz_km, time, alpha_local_deg=90.0, *, n_mlt=24, altitude_km=10
                                "lines, GEO Cartesian", ("mlt", "xyz")),
     }, coords=c)
     ds = ds.assign_coords(mlt=xr.Variable("mlt", 24.0 * np.arange(n_mlt) / n_mlt,
-                                          {"units": "hours", "long_name": "magnetic local time"}),
+                                          {"units": "hour", "long_name": "magnetic local time"}),
                           xyz=["x", "y", "z"])
     ds["lstar"].attrs["ancillary_variables"] = "lstar_reason"
     ds.attrs = {
