@@ -261,7 +261,7 @@ def test_dataarray_in_dataarray_out():
     assert mlat.dims == ("sample",) and mlat.attrs["units"] == "degrees_north"
     assert r.attrs["units"] == "R_E"
     mlt = coords.magnetic_local_time(xyz, "2022-02-02")
-    assert mlt.attrs["units"] == "hours"
+    assert mlt.attrs["units"] == "hour"
     lat, lon, h = coords.geo_to_geodetic(xyz)
     assert lat.dims == ("sample",) and h.attrs["units"] == "km"
     back = coords.geodetic_to_geo(lat, lon, h)

@@ -321,7 +321,7 @@ def magnetic_local_time(xyz_geo_km, time, *, model=None):
     """
     sm = np.asarray(convert(_as_xyz(xyz_geo_km, "xyz_geo_km"), time, "GEO", "SM", model=model))
     mlt = np.mod(12.0 + np.degrees(np.arctan2(sm[..., 1], sm[..., 0])) / 15.0, 24.0)
-    return _wrap_like(xyz_geo_km, mlt, "hours", "magnetic local time", drop_last=True)
+    return _wrap_like(xyz_geo_km, mlt, "hour", "magnetic local time", drop_last=True)
 
 
 def geodetic_to_geo(lat_deg, lon_deg, alt_km):
