@@ -178,6 +178,19 @@ def test_missing_binning_variable_is_refused_with_the_way_to_get_it(tmp_path):
     assert not any(tmp_path.glob("*.nc.*"))
 
 
+def test_summaries_of_other_settings_are_refused_naming_the_values(tmp_path):
+    paths = []
+    for k, alt in enumerate((100.0, 200.0)):
+        ds = summary_like_dataset(seed=k)
+        ds.attrs.update(field_model="dipole", footpoint_altitude_km=alt)
+        paths.append(bio.write_dataset(ds, tmp_path / f"s{k}{batch.SUMMARY_SUFFIX}"))
+    with pytest.raises(batch.SurveyError) as err:
+        batch.survey(paths, tmp_path / "mixed.nc")
+    # the values as written in the files, not their numpy repr
+    assert "footpoint_altitude_km 200.0 differs from 100.0" in str(err.value)
+    assert "np.float64" not in str(err.value)
+
+
 def _assert_same_survey(a, b, exact_means=False):
     assert set(a.data_vars) == set(b.data_vars)
     for v in a.data_vars:

@@ -31,6 +31,13 @@ _FIXES = {
 }
 
 
+
+def _shown(value):
+    """Show a header attribute as a user reads it (``200.0``, not its numpy repr)."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    return repr(value)
+
 def list_summaries(summaries) -> list:
     """Return the summary files named by paths, folders (their summaries) or glob patterns.
 
@@ -163,20 +170,20 @@ def check_summaries(files, axes, w_ns) -> tuple:
                                 f"files of one instrument setting at a time")
             for key in ("field_model", "footpoint_altitude_km"):
                 if str(info["global"].get(key)) != str(ref["global"].get(key)):
-                    fix = (" (field=\"auto\" chooses per file: survey the files of each "
-                           "model apart, or summarize them all with one --field)"
+                    fix = (" (model=\"auto\", --field auto, chooses per file: survey the "
+                           "files of each model apart, or summarize them all with one --field)"
                            if key == "field_model" else "")
-                    problems.append(f"{p}: {key} {info['global'].get(key)!r} differs from "
-                                    f"{ref['global'].get(key)!r} in {ref_path}{fix}")
+                    problems.append(f"{p}: {key} {_shown(info['global'].get(key))} differs from "
+                                    f"{_shown(ref['global'].get(key))} in {ref_path}{fix}")
         names = [n for n in SURVEY_VARIABLES if all(n in i["vars"] for _, i in infos)]
         if any(n in LOG_SPREAD for n in names):  # D depends on these conventions
             for p, info in infos[1:]:
                 for key in ("beltkit_loss_time", "beltkit_species", "beltkit_interval_sigma"):
                     if str(info["global"].get(key)) != str(ref["global"].get(key)):
                         problems.append(f"{p}: diffusion setting {key} "
-                                        f"{info['global'].get(key)!r} differs from "
-                                        f"{ref['global'].get(key)!r} in {ref_path}; summarize "
-                                        f"them all with the same diffusion options")
+                                        f"{_shown(info['global'].get(key))} differs from "
+                                        f"{_shown(ref['global'].get(key))} in {ref_path}; "
+                                        f"summarize them all with the same diffusion options")
         if not names:
             problems.append("the summaries share none of the variables "
                             + ", ".join(SURVEY_VARIABLES))

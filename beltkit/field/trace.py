@@ -263,7 +263,8 @@ def trace(
     time : numpy.datetime64 or array_like
         One time, or one per start point (UTC).
     altitude_km : float, default 100
-        Stop altitude above the reference sphere :math:`R_E` = 6371.2 km.
+        Stop altitude above the reference sphere :math:`R_E` = 6371.2 km (not the
+        WGS-84 ellipsoid).
     rtol : float, default 1e-8
         Local error tolerance per step, relative to the geocentric distance.
     max_step_frac : float, default 0.1

@@ -478,7 +478,8 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
         "igrf" uses :func:`beltkit.field.loss_cones`. The model used is
         recorded in the attribute ``beltkit_field_model``.
     altitude_km : float
-        Altitude of the footpoints where particles are lost (km).
+        Altitude of the footpoints where particles are lost, in km above the
+        sphere of radius R_E = 6371.2 km (not the WGS-84 ellipsoid).
     filling_band_deg : float, keyword-only
         Width of the band just outside the bounce loss cone,
         :math:`[\alpha_B, \alpha_B + \Delta]` (capped at 90 deg), whose mean
