@@ -141,21 +141,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--epoch", type=T.epoch_year, default=None, metavar="YEAR",
                    help="dipole epoch as a decimal year, with --field dipole (default: the "
                         "dipole of 2020.0)")
-    p.add_argument("--mapping", metavar="TOML", default=None,
-                   help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
-                   help="zlib level of the outputs, 0 = none (default: 4)")
-    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
-    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
+    _file_options(p)
     p.add_argument("--strict", action="store_true",
                    help="refuse a whole file for any bad sample (negative flux, impossible "
                         "position, values masked when read); default: mask and flag those "
                         "samples, count them in the report and summarise the rest")
-    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
-                   help="local worker processes (default: 1)")
-    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                   help="address of a running dask.distributed scheduler, e.g. "
-                        "tcp://10.0.0.5:8786")
+    _worker_options(p, example="tcp://10.0.0.5:8786")
     p.add_argument("--diffusion", action="store_true",
                    help="add pitch-angle diffusion outputs (z0, diffusion coefficient, "
                         "lifetime with their intervals, regime, flags) from the loss-cone "
@@ -194,16 +185,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--footpoint-km", type=T.footpoint_km, default=100.0, metavar="KM",
                    help=f"loss altitude of loss cones and drift shells, {T.FOOTPOINT_REFERENCE} "
                         "(Python: altitude_km=; default: 100)")
-    p.add_argument("--mapping", metavar="TOML", default=None,
-                   help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
-                   help="zlib level of the outputs, 0 = none (default: 4)")
-    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
-    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
-    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
-                   help="local worker processes (default: 1)")
-    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                   help="address of a running dask.distributed scheduler")
+    _file_options(p)
+    _worker_options(p)
 
     p = sub.add_parser("bin-sectors", parents=[common],
                        help="spin-sectored files -> pitch-angle files (optionally summarized)",
@@ -226,16 +209,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--degenerate-deg", type=T.positive_number, default=10.0, metavar="DEG",
                    help="flag samples whose field lies within DEG of the spin axis "
                         "(default: 10)")
-    p.add_argument("--mapping", metavar="TOML", default=None,
-                   help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
-                   help="zlib level of the outputs, 0 = none (default: 4)")
-    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
-    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
-    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
-                   help="local worker processes (default: 1)")
-    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                   help="address of a running dask.distributed scheduler")
+    _file_options(p)
+    _worker_options(p)
     p.add_argument("--summarize", metavar="DIR2", default=None,
                    help="then summarize the pitch-angle files into DIR2 (as beltkit "
                         "summarize does)")
@@ -272,10 +247,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "relative; default 32: 3.7%%)")
     p.add_argument("--linear-bins", type=T.positive_int, default=256, metavar="N",
                    help="histogram bins of fractions over 0-1 (error 1/(2N); default 256)")
-    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
-                   help="local worker processes (default: 1)")
-    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                   help="address of a running dask.distributed scheduler")
+    _worker_options(p)
     p.add_argument("--restart", action="store_true",
                    help="ignore the partial aggregate of an interrupted run (default: reuse "
                         "it for the summaries whose checksum still matches)")
@@ -348,6 +320,29 @@ def _kp_options(p):
                    help="with --field t89: the variable of each flux file that holds Kp per "
                         "sample")
 
+
+
+def _file_options(p):
+    """Add the per-file options of a batch command (mapping, compression, rerun, failures)."""
+    p.add_argument("--mapping", metavar="TOML", default=None,
+                   help="variable-name mapping file for files with other names")
+    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
+                   help="zlib level of the outputs, 0 = none (default: 4)")
+    p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
+    p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
+
+
+def _worker_options(p, example=None):
+    """Add ``--workers`` and ``--scheduler`` to a batch command's parser.
+
+    `example`, when given, is a scheduler address that the help shows.
+    """
+    p.add_argument("--workers", type=T.positive_int, default=1, metavar="N",
+                   help="local worker processes (default: 1)")
+    scheduler_help = "address of a running dask.distributed scheduler"
+    if example is not None:
+        scheduler_help += f", e.g. {example}"
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None, help=scheduler_help)
 
 
 _CALCULATORS = ("motion", "losscone")
