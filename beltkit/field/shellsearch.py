@@ -52,7 +52,7 @@ import numba as nb
 import numpy as np
 
 from ..constants import R_E_KM
-from .trace_integral import FOOT_TOLERANCE
+from .trace_integral import FOOT_TOLERANCE, mirror_rows
 
 __all__ = ["NODES_ANY", "NODES_INTERNAL", "ShellSearch", "cap_flux_equator",
            "cap_flux_footprints", "contour_radius", "integral_invariant_many", "shell_residual"]
@@ -408,15 +408,8 @@ def integral_invariant_many(lines, b_m_nt):
     bm = np.asarray(b_m_nt, dtype=float).reshape(-1)
     n = bm.size
     result = np.full(n, np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        log_bm = np.log(bm)
-        b_min = lines.b_min
-        ok = lines.closed & np.isfinite(log_bm) & (bm > 0) & np.isfinite(b_min)
-        eq = ok & (bm <= b_min * (1 + 1e-12)) & (bm >= b_min * (1 - 1e-9))
-        reach = ((bm <= lines.b_foot_north * (1 + FOOT_TOLERANCE))
-                 & (bm <= lines.b_foot_south * (1 + FOOT_TOLERANCE)))
+    log_bm, eq, work = mirror_rows(lines, bm)
     result[eq] = 0.0
-    work = ok & ~eq & (bm > b_min) & reach & (lines.n_samples >= 4)
     rows = np.flatnonzero(work)
     if rows.size:
         out = np.full(n, np.nan)

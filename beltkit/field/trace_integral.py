@@ -14,7 +14,7 @@ import numpy as np
 
 from ..errors import PhysicsError
 
-__all__ = ["FOOT_TOLERANCE", "integral_invariant_of_lines"]
+__all__ = ["FOOT_TOLERANCE", "integral_invariant_of_lines", "mirror_rows"]
 
 _GAUSS_NODES = 64
 #: Relative excess of a mirror field over a footpoint field still placed on the footpoint.
@@ -132,23 +132,57 @@ def integral_invariant_of_lines(lines, b_m_nt):
     return out[:, 0] if squeeze else out
 
 
+def mirror_rows(lines, bm):
+    r"""Sort lines by what their mirror field makes of :math:`I`: zero, to compute, or NaN.
+
+    Parameters
+    ----------
+    lines : FieldLines
+        Sampled field lines (``closed``, ``b_min``, ``b_foot_north``,
+        ``b_foot_south``, ``n_samples``).
+    bm : ndarray (N,)
+        Mirror field per line, nT.
+
+    Returns
+    -------
+    log_bm : ndarray (N,)
+        :math:`\ln B_m` (NaN or -inf where :math:`B_m \le 0`).
+    at_minimum : ndarray of bool (N,)
+        Closed lines whose :math:`B_m` equals :math:`B_{min}` within rounding
+        (:math:`B_{min}(1 - 10^{-9}) \le B_m \le B_{min}(1 + 10^{-12})`):
+        :math:`I = 0` there.
+    work : ndarray of bool (N,)
+        Closed lines with :math:`B_{min} < B_m`, :math:`B_m` at most
+        ``FOOT_TOLERANCE`` (relative) above both footpoint fields (the
+        mirror points lie on the line) and the four samples a cubic needs.
+        The other lines have no :math:`I` (NaN).
+
+    Notes
+    -----
+    A particle mirrors where :math:`B(s) = B_m`; between :math:`B_{min}` and
+    the footpoint fields such points exist on both sides of the minimum
+    (Roederer 1970, *Dynamics of Geomagnetically Trapped Radiation*, ch. 3).
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_bm = np.log(bm)
+        b_min = lines.b_min
+        ok = lines.closed & np.isfinite(log_bm) & (bm > 0) & np.isfinite(b_min)
+        # mirror field at (or within rounding of) the minimum: I = 0
+        at_minimum = ok & (bm <= b_min * (1 + 1e-12)) & (bm >= b_min * (1 - 1e-9))
+        # mirror fields at most FOOT_TOLERANCE above a footpoint field mirror on the footpoint
+        reach = ((bm <= lines.b_foot_north * (1 + FOOT_TOLERANCE))
+                 & (bm <= lines.b_foot_south * (1 + FOOT_TOLERANCE)))
+        # a cubic through the samples needs four of them
+        work = ok & ~at_minimum & (bm > b_min) & reach & (lines.n_samples >= 4)
+    return log_bm, at_minimum, work
+
+
 def _invariant_one(lines, bm):
     """Compute I of each line for one mirror field per line, `bm` (N,)."""
     n = bm.size
     result = np.full(n, np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        log_bm = np.log(bm)
-    b_min = lines.b_min
-    ok = lines.closed & np.isfinite(log_bm) & (bm > 0) & np.isfinite(b_min)
-    # mirror field at (or within rounding of) the minimum: I = 0
-    eq = ok & (bm <= b_min * (1 + 1e-12)) & (bm >= b_min * (1 - 1e-9))
+    log_bm, eq, work = mirror_rows(lines, bm)
     result[eq] = 0.0
-    # mirror fields at most FOOT_TOLERANCE above a footpoint field mirror on the footpoint
-    with np.errstate(invalid="ignore"):
-        reach = ((bm <= lines.b_foot_north * (1 + FOOT_TOLERANCE))
-                 & (bm <= lines.b_foot_south * (1 + FOOT_TOLERANCE)))
-    # a cubic through the samples needs four of them
-    work = ok & ~eq & (bm > b_min) & reach & (lines.n_samples >= 4)
     rows = np.flatnonzero(work)
     if rows.size == 0:
         return result
