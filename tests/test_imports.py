@@ -103,7 +103,7 @@ def test_tests_import_no_private_names_and_no_other_test_module():
     import ast
 
     bad = []
-    for path in sorted((PACKAGE.parent / "tests").glob("*.py")):
+    for path in sorted((PACKAGE.parent / "tests").rglob("*.py")):
         for node in ast.walk(ast.parse(path.read_text())):
             if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("beltkit"):
                 bad += [f"{path.name}: {node.module}.{a.name}" for a in node.names

@@ -2,7 +2,7 @@
 
 References: f = j / p^2 (Liouville; the constant derived in beltkit.particles and
 checked there against astropy.units); the dipole inverse problem (checked against
-scipy quad in tests/test_dipole.py); an analytic test distribution
+scipy quad in tests/dipole/test_dipole.py); an analytic test distribution
 j = A E^-3 sin^2(alpha) whose f at given (mu, K) is computed here in closed form.
 """
 

@@ -21,7 +21,7 @@ from .points import broadcast_time, positions, start_points
 __all__ = ["dipole_l", "hilton_l", "kp_level_variable", "mcilwain_l", "model_attrs",
            "open_reason_variable"]
 
-# Hilton (1971) coefficients (from memory; verified in tests/test_field_lshell.py by
+# Hilton (1971) coefficients (from memory; verified in tests/field/test_lshell.py by
 # quadrature of I in a dipole, which gives back the dipole L to better than 3e-4)
 _HILTON_A = (1.35047, 0.465376, 0.0475455)
 

@@ -10,7 +10,7 @@ References used here:
   B_r = -2 B0 (a/r)^3 sin(lambda), B_lambda = B0 (a/r)^3 cos(lambda),
   |B| = B0 (a/r)^3 sqrt(1 + 3 sin^2(lambda)), B0 = sqrt(g10^2 + g11^2 + h11^2),
   axis towards the northern geomagnetic pole -(g11, h11, g10) / B0.
-* beltkit.dipole's closed forms (themselves checked in test_dipole.py).
+* beltkit.dipole's closed forms (themselves checked in tests/dipole/test_dipole.py).
 * The IGRF time interpolation: linear in the decimal year between 5-year epochs
   (IAGA IGRF-14 release notes; common practice).
 """

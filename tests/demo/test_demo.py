@@ -19,7 +19,7 @@ import xarray as xr
 from beltkit import demo, pad
 from beltkit.demo.run import survey_dials, survey_is_partial
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 DATA_DEMO = ROOT / "data_demo"
 TERN = sorted(DATA_DEMO.glob("marram_tern_fan_synthetic_*.nc"))
 DUNLIN = sorted(DATA_DEMO.glob("marram_dunlin_quill_synthetic_*.nc"))

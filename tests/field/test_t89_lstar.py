@@ -11,7 +11,7 @@ References used by the checks
   McIlwain's L of the same point *increases* (L^3 ~ M / B_m with a weaker
   B_m): L* is a flux invariant, L is not.
 * ``geopack`` (PyPI) is the reference of the field itself
-  (tests/test_field_t89.py); here the model's levels are the published
+  (tests/field/test_t89.py); here the model's levels are the published
   Kp bins of Tsyganenko (1989).
 * The demo orbit (data_demo, synthetic) for the "computed on a real orbit"
   check.
@@ -37,7 +37,7 @@ from beltkit.field import (
 from beltkit.field.invariants import LSTAR_REASONS
 
 TIME = np.datetime64("2020-03-20T00:00")
-DEMO = Path(__file__).resolve().parents[1] / "data_demo" / "marram_tern_fan_synthetic_20270308.nc"
+DEMO = Path(__file__).resolve().parents[2] / "data_demo" / "marram_tern_fan_synthetic_20270308.nc"
 
 
 def test_lstar_of_night_side_point_decreases_with_kp_mcilwain_l_increases():

@@ -477,8 +477,8 @@ def test_compiled_engine_agrees_with_the_reference_on_clean_and_unclean_chunks(d
 
 def test_eager_dipole_loss_cones_equal_the_dipole_module():
     # the eager path computes the per-sample dipole cones in one compiled pass; the public
-    # closed forms of beltkit.dipole (checked against textbook limits in test_dipole.py)
-    # are the reference
+    # closed forms of beltkit.dipole (checked against textbook limits in
+    # tests/dipole/test_dipole.py) are the reference
     from beltkit.constants import R_E_KM
     from beltkit.pad.conventions import check
     from beltkit.pad.losscones import sample_loss_cones

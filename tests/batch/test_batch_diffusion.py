@@ -1,7 +1,7 @@
 """Diffusion outputs in summaries and surveys (``summarize(..., diffusion=...)``, ``--diffusion``).
 
 The reference for the values is :func:`beltkit.diffusion.from_pitch_angle_data`
-run on the whole dataset in memory (its physics is tested in test_diffusion.py);
+run on the whole dataset in memory (its physics is tested in tests/diffusion/test_diffusion.py);
 here the summaries must reproduce it on both of summarize's paths (one slab read
 and computed ahead of the writer, and a long file streamed slab by slab), keep
 the settings that decide whether an output is up to date, write ``inf`` bounds

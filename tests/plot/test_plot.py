@@ -20,7 +20,7 @@ from beltkit.plot.surveys import nice_log_ticks  # noqa: E402
 STORM = "2027-03-09T07:00"
 
 
-DATA_DEMO = Path(__file__).resolve().parents[1] / "data_demo"
+DATA_DEMO = Path(__file__).resolve().parents[2] / "data_demo"
 
 
 @pytest.fixture(scope="module")

@@ -2,7 +2,7 @@
 
 Checks against: the centred dipole's closed forms (Roederer 1970: L* = L in a
 centred dipole; K = sqrt(B0/L) Y(y)/y, itself checked against scipy quad in
-tests/test_dipole.py), an independent field-line integration of K with
+tests/dipole/test_dipole.py), an independent field-line integration of K with
 scipy.integrate.solve_ivp in the ppigrf reference library's IGRF, and the
 definition of a drift shell (samples started on one shell share its L*).
 """
@@ -191,7 +191,7 @@ def test_k_igrf_traced_against_independent_integration():
     # state, to 2e-5. The field along that integration is beltkit's IGRF (ppigrf costs
     # 25 ms a call, too slow inside an ODE solver); it is checked against the ppigrf
     # reference library here at the start and at both mirror points (and at 20,000
-    # points in tests/test_field_igrf.py).
+    # points in tests/field/test_igrf.py).
     m = IGRF()
     start = np.array([3.2 * R_E_KM, 1.1 * R_E_KM, 0.6 * R_E_KM])
     alphas = np.array([35.0, 65.0])

@@ -25,7 +25,7 @@ def small_file(tmp_path_factory):
     """50 samples of the demo's low-orbit satellite within one UTC hour, with a Kp variable."""
     from pathlib import Path
 
-    root = Path(__file__).resolve().parents[1]
+    root = Path(__file__).resolve().parents[2]
     ds = xr.open_dataset(root / DUNLIN).isel(time=slice(0, 3000, 60)).load()
     ds["kp_index"] = ("time", np.full(ds.sizes["time"], 3.0), {"units": "1",
                                                                 "long_name": "Kp index"})
