@@ -154,21 +154,16 @@ def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
     check_field(model, epoch)
     model = storm_field(model, kp)
     diffusion = diffusion_options(diffusion)
-    mapping_checked = load_mapping(mapping) if mapping is not None else None
-    files = expand_inputs(inputs)
-    out_dir = Path(out_dir)
-    output_folder(out_dir)
-    remove_stale_temporaries(out_dir)
+    mapping_checked, files, out_dir = _start_run(inputs, out_dir, mapping)
     settings = run_settings(model, altitude_km, epoch, mapping, compress, diffusion, strict)
     if command is None:
         extra = {} if diffusion is None else {"diffusion": diffusion}
         command = _default_command(files, out_dir, model=model, altitude_km=altitude_km,
                                    epoch=epoch, overwrite=overwrite, **extra)
-    return _run_batch(files, out_dir, {
-        "settings": settings, "model": model, "epoch": epoch, "mapping": mapping_checked,
-        "overwrite": bool(overwrite), "command": command, "debug": bool(debug)},
-        suffix=SUMMARY_SUFFIX, desc="summarize", fail_fast=fail_fast, workers=workers,
-        scheduler=scheduler, log=log, progress=progress)
+    return _run_batch(files, out_dir, _job(None, settings, model, epoch, mapping_checked,
+                                           overwrite, command, debug),
+                      suffix=SUMMARY_SUFFIX, desc="summarize", fail_fast=fail_fast,
+                      workers=workers, scheduler=scheduler, log=log, progress=progress)
 
 
 @renamed_keyword("field", "model")
@@ -238,22 +233,16 @@ def psd_files(inputs, out_dir, mu_mev_per_g, k_g05_re, *, model="auto", species=
         raise ValueError(f"lstar_cadence_s must be a positive number of seconds, got "
                          f"{lstar_cadence_s!r}")
     species = get_species(species).name
-    mapping_checked = load_mapping(mapping) if mapping is not None else None
-    files = expand_inputs(inputs)
-    out_dir = Path(out_dir)
-    output_folder(out_dir)
-    remove_stale_temporaries(out_dir)
+    mapping_checked, files, out_dir = _start_run(inputs, out_dir, mapping)
     settings = psd_settings(mu, k, model, species, lstar_cadence_s, altitude_km, mapping,
                              compress)
     if command is None:
         command = (f"beltkit.batch.psd_files({len(files)} file(s), {str(out_dir)!r}, "
                    f"mu={mu.tolist()}, k={k.tolist()}, model={model!r})")
-    return _run_batch(files, out_dir, {
-        "product": "psd", "settings": settings, "model": model, "epoch": None,
-        "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
-        "debug": bool(debug)},
-        suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
-        scheduler=scheduler, log=log, progress=progress)
+    return _run_batch(files, out_dir, _job("psd", settings, model, None, mapping_checked,
+                                           overwrite, command, debug),
+                      suffix=PSD_SUFFIX, desc="psd", fail_fast=fail_fast, workers=workers,
+                      scheduler=scheduler, log=log, progress=progress)
 
 
 def output_folder(out_dir: Path) -> None:
@@ -330,29 +319,64 @@ def bin_sectored(inputs, out_dir, pitch_angle_edges_deg=tuple(range(0, 181, 15))
                          f"0-180 degree, got {edges.tolist()}")
     if not 0.0 < float(gyrotropy_level) < 1.0:
         raise ValueError(f"gyrotropy_level must lie in (0, 1), got {gyrotropy_level!r}")
-    mapping_checked = load_mapping(mapping) if mapping is not None else None
-    files = expand_inputs(inputs)
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    remove_stale_temporaries(out_dir)
+    mapping_checked, files, out_dir = _start_run(inputs, out_dir, mapping, probe=False)
     settings = sectors_settings(edges, model, gyrotropy_level, gyrotropy_tolerance,
                                 degenerate_deg, mapping, compress)
     if command is None:
         command = (f"beltkit.batch.bin_sectored({len(files)} file(s), {str(out_dir)!r}, "
                    f"edges={edges.tolist()}, model={model!r})")
-    return _run_batch(files, out_dir, {
-        "product": "sectors", "settings": settings, "model": model, "epoch": None,
-        "mapping": mapping_checked, "overwrite": bool(overwrite), "command": command,
-        "debug": bool(debug)},
-        suffix=SECTORS_SUFFIX, desc="bin-sectors", fail_fast=fail_fast, workers=workers,
-        scheduler=scheduler, log=log, progress=progress)
+    return _run_batch(files, out_dir, _job("sectors", settings, model, None, mapping_checked,
+                                           overwrite, command, debug),
+                      suffix=SECTORS_SUFFIX, desc="bin-sectors", fail_fast=fail_fast,
+                      workers=workers, scheduler=scheduler, log=log, progress=progress)
+
+
+def _start_run(inputs, out_dir, mapping, *, probe=True):
+    """Check the mapping, list the inputs and ready the output folder, before any input is read.
+
+    Parameters
+    ----------
+    inputs : str, path or sequence of them
+        Files, folders or glob patterns (:func:`~beltkit.batch.inputs.expand_inputs`).
+    out_dir : str or path
+        Output folder, created if needed.
+    mapping : str, path, dict or None
+        Variable-name mapping, loaded (and so checked) here.
+    probe : bool
+        Also check that a file can be written in `out_dir` (:func:`output_folder`);
+        False only creates it.
+
+    Returns
+    -------
+    mapping_checked, files, out_dir
+        The loaded mapping (or None), the input files, and `out_dir` as a Path
+        with stale temporaries of an interrupted run removed.
+    """
+    mapping_checked = load_mapping(mapping) if mapping is not None else None
+    files = expand_inputs(inputs)
+    out_dir = Path(out_dir)
+    if probe:
+        output_folder(out_dir)
+    else:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out_dir)
+    return mapping_checked, files, out_dir
+
+
+def _job(product, settings, model, epoch, mapping_checked, overwrite, command, debug) -> dict:
+    """Return what every file of a run shares in its task (product None: a summary)."""
+    common = {} if product is None else {"product": product}
+    common.update({"settings": settings, "model": model, "epoch": epoch,
+                   "mapping": mapping_checked, "overwrite": bool(overwrite),
+                   "command": command, "debug": bool(debug)})
+    return common
 
 
 def _run_batch(files, out_dir, common, *, suffix, desc, fail_fast, workers, scheduler, log,
                progress) -> list[FileResult]:
     """Run one per-file job (``common`` plus the file's input and output) over every file.
 
-    Shared by :func:`summarize` and :func:`psd_files`: duplicate
+    Shared by :func:`summarize`, :func:`psd_files` and :func:`bin_sectored`: duplicate
     output names, the run report, the progress bar, and the sequential,
     process-pool or dask.distributed run.
     """
