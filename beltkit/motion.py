@@ -74,7 +74,7 @@ import scipy.constants as _sc
 
 from ._wrap import array_api, check_range
 from .constants import B0_NT, KEV_J, R_E_M
-from .dipole.checks import check_L
+from .dipole.checks import check_b0, check_L, check_pitch, check_sine_pitch
 from .dipole.mirror import fold_pitch_angle, over_mirror_points
 from .errors import PhysicsError
 from .particles import get_species
@@ -246,14 +246,8 @@ def _integrals(y, with_d=True):
     return t_out.reshape(shape), (d_out.reshape(shape) if with_d else None)
 
 
-def _y(y):
-    return check_range(y, "y", lo=0.0, hi=1.0,
-                       hint="y is sin(alpha_eq), the sine of the equatorial pitch angle")
-
-
 def _y_from_alpha(alpha_eq_deg):
-    a = check_range(alpha_eq_deg, "alpha_eq_deg", lo=0.0, hi=180.0,
-                    hint="Pitch angles are in degrees, 0-180")
+    a = check_pitch(alpha_eq_deg, "alpha_eq_deg")
     folded, _ = fold_pitch_angle(a)
     return np.sin(np.deg2rad(folded))
 
@@ -306,7 +300,7 @@ def bounce_integral(y):
     >>> round(bounce_integral(1.0), 6)
     0.74048
     """
-    return _integrals(_y(y), with_d=False)[0]
+    return _integrals(check_sine_pitch(y), with_d=False)[0]
 
 
 @array_api("1", long_name="drift integral D(y)")
@@ -343,7 +337,7 @@ def drift_integral(y):
     >>> round(drift_integral(1.0) / bounce_integral(1.0), 12)
     0.5
     """
-    return _integrals(_y(y), with_d=True)[1]
+    return _integrals(check_sine_pitch(y), with_d=True)[1]
 
 
 def _bounce_t(y, method):
@@ -414,8 +408,7 @@ def _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method):
     sp = get_species(species)
     e = _energy(energy_kev)
     L = check_L(L)
-    b0 = check_range(b0_nt, "b0_nt", lo=0.0, lo_open=True, hi=np.inf, hi_open=True,
-                     hint="b0_nt is the dipole's equatorial surface field in nT")
+    b0 = check_b0(b0_nt)
     y = _y_from_alpha(alpha_eq_deg)
     e0 = sp.rest_energy_kev
     pv_j = e * (e + 2.0 * e0) / (e + e0) * KEV_J

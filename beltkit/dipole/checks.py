@@ -8,8 +8,8 @@ from .._wrap import check_range
 from ..constants import R_E_KM
 from ..errors import PhysicsError
 
-__all__ = ["check_L", "check_altitude", "check_b0", "check_mlat", "check_pitch", "cube",
-           "footpoint_cos2"]
+__all__ = ["check_L", "check_altitude", "check_b0", "check_mlat", "check_pitch",
+           "check_sine_pitch", "cube", "footpoint_cos2"]
 
 
 def check_L(L):
@@ -28,6 +28,12 @@ def check_pitch(alpha_deg, name):
     """Return pitch angles (deg), refusing values outside 0-180."""
     return check_range(alpha_deg, name, lo=0.0, hi=180.0,
                        hint="Pitch angles are in degrees, 0-180")
+
+
+def check_sine_pitch(y):
+    """Return y = sin(alpha_eq) as an array, refusing values outside 0-1."""
+    return check_range(y, "y", lo=0.0, hi=1.0,
+                       hint="y is sin(alpha_eq), the sine of the equatorial pitch angle")
 
 
 def check_b0(b0_nt):

@@ -12,7 +12,7 @@ import numpy as np
 from .._wrap import array_api, check_range
 from ..constants import B0_NT, GAUSS_PER_NT
 from ..units import K_UNITS
-from .checks import check_b0, check_L, check_pitch, cube
+from .checks import check_b0, check_L, check_pitch, check_sine_pitch, cube
 from .mirror import fold_pitch_angle, over_mirror_points
 
 __all__ = [
@@ -101,11 +101,6 @@ def y_integral_kernel(y, with_j=False, cos2=None):
     return y_out.reshape(shape), (j_out.reshape(shape) if with_j else None)
 
 
-def _y_check(y):
-    return check_range(y, "y", lo=0.0, hi=1.0,
-                       hint="y is sin(alpha_eq), the sine of the equatorial pitch angle")
-
-
 @array_api("1", long_name="second-invariant integral Y(y)")
 def second_invariant_integral(y):
     r"""Dimensionless second-invariant integral :math:`Y(y)` of the centred dipole.
@@ -145,7 +140,7 @@ def second_invariant_integral(y):
     >>> round(second_invariant_integral(0.0), 6)
     2.760346
     """
-    return y_integral_kernel(_y_check(y))[0]
+    return y_integral_kernel(check_sine_pitch(y))[0]
 
 
 def _k_core(L, alpha_eq_deg, b0_nt):
