@@ -1,4 +1,4 @@
-"""ISTP and CF value attributes: fill values, valid ranges, packing and quality flags.
+"""ISTP and CF value attributes: fill values, valid ranges, packing, quality flags, units.
 
 A :class:`ValueRule` collects what a variable's attributes say about its
 values, and :meth:`ValueRule.apply` turns a slab of stored values into
@@ -18,6 +18,10 @@ A quality variable is judged by :func:`quality_rejected` with the mapping's
 ``[quality]`` rule: listed values, set bits, or the CF ``flag_values`` /
 ``flag_masks`` of the named ``flag_meanings``.
 
+:func:`units_factor` converts a variable's ``units`` attribute into the
+units the conventions ask for, naming the ``[units]`` entry that fixes it
+when they are missing or do not convert.
+
 The attributes that were applied are removed from the variable (they no
 longer describe its values) and kept in its ``encoding["beltkit_read"]``.
 """
@@ -30,6 +34,7 @@ import numpy as np
 import xarray as xr
 
 from ..errors import MappingError
+from ..units import conversion_factor
 from .lazy import Computation, derived_variable, read_block
 
 __all__ = [
@@ -39,6 +44,7 @@ __all__ = [
     "ValueRule",
     "decode_values",
     "quality_rejected",
+    "units_factor",
     "value_rule",
 ]
 
@@ -295,3 +301,42 @@ def quality_rejected(values, attrs: dict, rule: dict, *, where: str = "") -> np.
                     f"{where}: [quality] reject_meanings needs flag_values or flag_masks on "
                     f"the quality variable; use reject_values or reject_bits instead")
     return bad
+
+
+def units_factor(var, want: str, key: str, where: str, default=None) -> float:
+    """Return the factor that converts a variable's ``units`` attribute into `want`.
+
+    Parameters
+    ----------
+    var : xarray.Variable or xarray.DataArray
+        The variable as read (mapping applied).
+    want : str
+        The units the conventions ask for (e.g. ``"km"``, ``"degree"``).
+    key : str
+        Its conventional name, as a mapping's ``[units]`` table would name it.
+    where : str
+        File and mapping, for messages.
+    default : str, optional
+        Units taken when the variable declares none (None: refuse).
+
+    Returns
+    -------
+    float
+        Multiply the values by it to get `want`
+        (:func:`beltkit.units.conversion_factor`).
+
+    Raises
+    ------
+    MappingError
+        One line naming the file, the variable and the ``[units]`` entry that
+        fixes it, when the units are missing or not convertible to `want`.
+    """
+    units = var.attrs.get("units", default)
+    if units is None:
+        raise MappingError(f"{where}: {key} has no units; give them with [units] {key} = "
+                           f"\"{want}\"")
+    f = conversion_factor(str(units), want)
+    if f is None:
+        raise MappingError(f"{where}: {key} has units {units!r}, not convertible to {want}; "
+                           f"fix them with [units] {key} = \"...\"")
+    return f

@@ -28,8 +28,8 @@ import numpy as np
 import xarray as xr
 
 from ..errors import MappingError
-from ..units import conversion_factor
 from .lazy import Computation, derived_variable, read_block
+from .metadata import units_factor
 
 __all__ = ["gei_to_geo", "resolve_position"]
 
@@ -43,18 +43,6 @@ def gei_to_geo(xyz, time):
     c, s = np.cos(theta), np.sin(theta)
     return np.stack([c * v[..., 0] + s * v[..., 1], -s * v[..., 0] + c * v[..., 1],
                      v[..., 2]], axis=-1)
-
-
-def _factor(var, want, name, where, key):
-    units = var.attrs.get("units")
-    if units is None:
-        raise MappingError(f"{where}: {name} has no units; give them with [units] {key} = "
-                           f"\"{want}\"")
-    f = conversion_factor(str(units), want)
-    if f is None:
-        raise MappingError(f"{where}: {name} has units {units!r}, not convertible to {want}; "
-                           f"fix them with [units] {key} = \"...\"")
-    return f
 
 
 def resolve_position(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset:
@@ -95,9 +83,9 @@ def resolve_position(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset:
         if missing:
             raise MappingError(f"{where}: [position] form = \"geodetic\" needs "
                                + ", ".join(f"[variables] {k}" for k in missing))
-        f_lat = _factor(ds[names[0]], "degree", "latitude", where, "latitude")
-        f_lon = _factor(ds[names[1]], "degree", "longitude", where, "longitude")
-        f_alt = _factor(ds[names[2]], "km", "altitude", where, "altitude")
+        f_lat = units_factor(ds[names[0]], "degree", "latitude", where)
+        f_lon = units_factor(ds[names[1]], "degree", "longitude", where)
+        f_alt = units_factor(ds[names[2]], "km", "altitude", where)
         srcs = [ds.variables[k] for k in names]
 
         def func(index):
@@ -119,7 +107,7 @@ def resolve_position(ds: xr.Dataset, rule: dict, *, where: str) -> xr.Dataset:
         if pos.ndim != 2 or "time" not in pos.dims or not comp:
             raise MappingError(f"{where}: position has dims {pos.dims}; it must be (time, 3)")
         pos = pos.transpose("time", comp[0])
-        f = _factor(pos, "km", "position", where, "position")
+        f = units_factor(pos, "km", "position", where)
 
         def func(index):
             from ..field.coords import convert

@@ -37,7 +37,13 @@ from ..errors import MappingError
 from ..units import FLUX_UNITS, conversion_factor
 from .axes import interpolate_loglog
 from .lazy import Computation, derived_variable, read_block
-from .metadata import READ_FLAG_BITS, READ_FLAG_MEANINGS, quality_rejected, value_rule
+from .metadata import (
+    READ_FLAG_BITS,
+    READ_FLAG_MEANINGS,
+    quality_rejected,
+    units_factor,
+    value_rule,
+)
 from .telescope import rate_to_flux
 
 __all__ = ["COUNT_BLOCK", "resolve_flux"]
@@ -58,18 +64,6 @@ def _aligned(value, index, dims, shape):
     return block.set_dims(sizes).transpose(*dims).values
 
 
-def _factor(var, want, key, where, default=None):
-    units = var.attrs.get("units", default)
-    if units is None:
-        raise MappingError(f"{where}: {key} has no units; give them with [units] {key} = "
-                           f"\"{want}\"")
-    f = conversion_factor(str(units), want)
-    if f is None:
-        raise MappingError(f"{where}: {key} has units {units!r}, not convertible to {want}; "
-                           f"fix them with [units] {key} = \"...\"")
-    return f
-
-
 def _telescope_inputs(ds, m, where, kind):
     """Scalars or variables (with unit factors applied) of the telescope conversion."""
     tel = m.get("telescope", {})
@@ -81,7 +75,7 @@ def _telescope_inputs(ds, m, where, kind):
                             ("energy_width", "keV", None)):
         if key in ds.variables:
             var = ds.variables[key]
-            f = _factor(var, unit, key, where, default="1" if key == "efficiency" else None)
+            f = units_factor(var, unit, key, where, default="1" if key == "efficiency" else None)
             out[key] = xr.Variable(var.dims, np.asarray(var.values, float) * f) \
                 if var.size < 1_000_000 else var
         elif tkey is not None and tkey in tel:
@@ -173,7 +167,7 @@ def resolve_flux(ds: xr.Dataset, m: dict, *, where: str) -> xr.Dataset:
         err_f = conversion_factor(str(err.attrs.get("units", main.attrs.get("units", ""))),
                                   FLUX_UNITS) if err is not None else None
     else:
-        unit_f = _factor(main, "s-1" if kind == "count_rate" else "1", kind, where,
+        unit_f = units_factor(main, "s-1" if kind == "count_rate" else "1", kind, where,
                          default=None)
         err_f = None
     quality = ds.variables.get("quality") if qrule else None
