@@ -208,18 +208,37 @@ def summary_like_dataset(n_time=200, n_energy=3, *, start="2026-03-01T00:00:00",
     )
 
 
+def _times(n_t, start, cadence_s):
+    """Return `n_t` datetime64[ns] times from ISO `start` every `cadence_s` seconds."""
+    step = (np.arange(n_t) * cadence_s * 1e9).astype("timedelta64[ns]")
+    return np.datetime64(start, "ns") + step
+
+
 def make_ds(flux, edges_deg, *, L=4.0, mlat=0.0, mlt=None, b_local=None, flux_err=None,
-            energy_kev=None, dtype=float, folded=False):
-    """Return a bins dataset: flux (time, energy, pitch_angle), edges (P+1,) or (P, 2) deg."""
+            energy_kev=None, energy_edges_kev=None, counts=None, counts_to_flux=None,
+            start="2026-06-01T00:00:00", cadence_s=1.0, dtype=float, folded=False):
+    """Return a bins dataset: flux (time, energy, pitch_angle), edges (P+1,) or (P, 2) deg.
+
+    Energies are `energy_kev` with bounds 0.9 and 1.1 times each (default 100,
+    200, ... keV), or the geometric centres of `energy_edges_kev` (E+1,) with
+    those edges as bounds. `counts` (time, energy, pitch_angle) and
+    `counts_to_flux` (scalar or (energy,)) add the count variables; times run
+    from `start` every `cadence_s` seconds.
+    """
     flux = np.asarray(flux, dtype=dtype)
     n_t, n_e, n_p = flux.shape
     edges = np.asarray(edges_deg, dtype=float)
     bnds = np.stack([edges[:-1], edges[1:]], axis=1) if edges.ndim == 1 else edges
-    if energy_kev is None:
-        energy_kev = 100.0 * (1 + np.arange(n_e))
-    energy_kev = np.asarray(energy_kev, dtype=float)
-    ebnds = np.stack([energy_kev * 0.9, energy_kev * 1.1], axis=1)
-    time = np.datetime64("2026-06-01T00:00:00", "ns") + np.arange(n_t) * np.timedelta64(1, "s")
+    if energy_edges_kev is not None:
+        e_edges = np.asarray(energy_edges_kev, dtype=float)
+        energy_kev = np.sqrt(e_edges[:-1] * e_edges[1:])
+        ebnds = np.stack([e_edges[:-1], e_edges[1:]], axis=1)
+    else:
+        if energy_kev is None:
+            energy_kev = 100.0 * (1 + np.arange(n_e))
+        energy_kev = np.asarray(energy_kev, dtype=float)
+        ebnds = np.stack([energy_kev * 0.9, energy_kev * 1.1], axis=1)
+    time = _times(n_t, start, cadence_s)
     L = np.broadcast_to(np.asarray(L, dtype=float), (n_t,)).copy()
     mlat = np.broadcast_to(np.asarray(mlat, dtype=float), (n_t,)).copy()
     pa_attrs = {"units": "degree", "long_name": "local pitch angle", "bounds": "pitch_angle_bnds"}
@@ -241,6 +260,12 @@ def make_ds(flux, edges_deg, *, L=4.0, mlat=0.0, mlt=None, b_local=None, flux_er
     if flux_err is not None:
         data["flux_err"] = (("time", "energy", "pitch_angle"), np.asarray(flux_err, dtype=dtype),
                             {"units": FLUX_UNITS})
+    if counts is not None:
+        data["counts"] = (("time", "energy", "pitch_angle"), np.asarray(counts), {"units": "1"})
+    if counts_to_flux is not None:
+        factor = np.asarray(counts_to_flux, dtype=float)
+        data["counts_to_flux"] = (("energy",) if factor.ndim else (), factor,
+                                  {"units": FLUX_UNITS})
     return xr.Dataset(
         data,
         coords={"time": time,
@@ -249,15 +274,27 @@ def make_ds(flux, edges_deg, *, L=4.0, mlat=0.0, mlt=None, b_local=None, flux_er
     )
 
 
-def make_telescope_ds(flux, look_deg, half_deg, *, L=4.0, mlat=0.0):
-    """Return a telescope dataset: flux (time, energy, look), look pitch angles (time, look)."""
+def make_telescope_ds(flux, look_deg, half_deg, *, L=4.0, mlat=0.0, flux_err=None,
+                      energy_kev=None, start="2026-06-01T00:00:00"):
+    """Return a telescope dataset: flux (time, energy, look), look pitch angles (time, look).
+
+    Energies are `energy_kev` (default 100, 200, ... keV) with bounds 0.9 and
+    1.1 times each; times run from `start` every second.
+    """
     flux = np.asarray(flux, dtype=float)
     n_t, n_e, n_k = flux.shape
-    energy_kev = 100.0 * (1 + np.arange(n_e))
-    time = np.datetime64("2026-06-01T00:00:00", "ns") + np.arange(n_t) * np.timedelta64(1, "s")
+    if energy_kev is None:
+        energy_kev = 100.0 * (1 + np.arange(n_e))
+    energy_kev = np.asarray(energy_kev, dtype=float)
+    time = _times(n_t, start, 1.0)
+    extra = {}
+    if flux_err is not None:
+        extra["flux_err"] = (("time", "energy", "look"), np.asarray(flux_err, dtype=float),
+                             {"units": FLUX_UNITS})
     return xr.Dataset(
         {
             "flux": (("time", "energy", "look"), flux, {"units": FLUX_UNITS}),
+            **extra,
             "look_pitch_angle": (("time", "look"),
                                  np.broadcast_to(np.asarray(look_deg, float), (n_t, n_k)).copy(),
                                  {"units": "degree"}),

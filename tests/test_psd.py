@@ -10,40 +10,28 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 import xarray as xr
+from _flux_factory import make_ds
 
 from beltkit import dipole, psd
 from beltkit.constants import R_E_KM
 from beltkit.errors import PhysicsError
 from beltkit.particles import PSD_UNITS
 
-FLUX_UNITS = "cm-2 s-1 sr-1 keV-1"
 E0_KEV = sc.m_e * sc.c**2 / (1e3 * sc.e)  # electron rest energy from CODATA
 
 
 def _analytic_dataset(L, mlat=None, n_energy=16, rel_err=0.1):
     """Equatorial samples with j = 1e7 (E/100 keV)^-3 sin^2(alpha) at bin centres (1 deg bins)."""
     n = L.size
-    time = np.datetime64("2026-03-01T00:00:00", "ns") + np.arange(n) * np.timedelta64(1, "s")
     e_edges = np.geomspace(50.0, 3000.0, n_energy + 1)
     energy = np.sqrt(e_edges[:-1] * e_edges[1:])
     a_edges = np.linspace(0.0, 180.0, 181)
     alpha = 0.5 * (a_edges[:-1] + a_edges[1:])
     j = 1e7 * (energy / 100.0)[None, :, None] ** -3 * np.sin(np.radians(alpha))[None, None, :] ** 2
     j = np.broadcast_to(j, (n, energy.size, alpha.size))
-    return xr.Dataset(
-        {"flux": (("time", "energy", "pitch_angle"), j.copy(), {"units": FLUX_UNITS}),
-         "flux_err": (("time", "energy", "pitch_angle"), rel_err * j, {"units": FLUX_UNITS}),
-         "energy_bnds": (("energy", "nv"), np.stack([e_edges[:-1], e_edges[1:]], -1),
-                         {"units": "keV"}),
-         "pitch_angle_bnds": (("pitch_angle", "nv"), np.stack([a_edges[:-1], a_edges[1:]], -1),
-                              {"units": "degree"}),
-         "L": ("time", L, {"units": "1"}),
-         "mlat": ("time", np.zeros(n) if mlat is None else mlat, {"units": "degree"}),
-         "mlt": ("time", np.zeros(n), {"units": "hour"})},
-        coords={"time": time,
-                "energy": ("energy", energy, {"units": "keV", "bounds": "energy_bnds"}),
-                "pitch_angle": ("pitch_angle", alpha, {"units": "degree",
-                                                       "bounds": "pitch_angle_bnds"})})
+    return make_ds(j.copy(), a_edges, L=L, mlat=np.zeros(n) if mlat is None else mlat,
+                   mlt=0.0, flux_err=rel_err * j, energy_edges_kev=e_edges,
+                   start="2026-03-01T00:00:00")
 
 
 def _expected_f(mu, k, L, constant=1e3 / (sc.c * 100)):

@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 import xarray as xr
 from _cf_check import assert_cf_clean
+from _flux_factory import make_ds
 
 from beltkit import batch, diffusion, dipole
 from beltkit.cli import main
@@ -24,7 +25,6 @@ DIFFUSION_VARS = ("diffusion_ratio", "diffusion_ratio_err", "z0", "z0_lower", "z
                   "diffusion_coefficient_upper", "loss_time", "strong_diffusion_lifetime",
                   "lifetime", "lifetime_lower", "lifetime_upper", "diffusion_regime",
                   "diffusion_flag", "diffusion_loss_cone", "diffusion_field_ratio")
-UNITS = "cm-2 s-1 sr-1 keV-1"
 
 
 def event_dataset(n=300, seed=4, dead=None):
@@ -54,22 +54,8 @@ def event_dataset(n=300, seed=4, dead=None):
     if dead is not None:
         flux[dead[1], dead[0], :] = np.nan
         sig[dead[1], dead[0], :] = np.nan
-    t = np.datetime64("2026-03-05T00:00", "ns") + np.arange(n) * np.timedelta64(20, "s")
-    return xr.Dataset(
-        {"flux": (("time", "energy", "pitch_angle"), flux, {"units": UNITS}),
-         "flux_err": (("time", "energy", "pitch_angle"), sig, {"units": UNITS}),
-         "pitch_angle_bnds": (("pitch_angle", "nv"), np.stack([edges[:-1], edges[1:]], 1),
-                              {"units": "degree"}),
-         "energy_bnds": (("energy", "nv"), np.stack([energies * 0.9, energies * 1.1], 1),
-                         {"units": "keV"}),
-         "L": ("time", L, {"units": "1"}),
-         "mlat": ("time", mlat, {"units": "degree"}),
-         "mlt": ("time", mlt, {"units": "h"})},
-        coords={"time": ("time", t, {"standard_name": "time"}),
-                "energy": ("energy", energies, {"units": "keV", "bounds": "energy_bnds"}),
-                "pitch_angle": ("pitch_angle", centre, {"units": "degree",
-                                                        "bounds": "pitch_angle_bnds"})},
-        attrs={"title": "invented test flux"})
+    return make_ds(flux, edges, L=L, mlat=mlat, mlt=mlt, flux_err=sig, energy_kev=energies,
+                   start="2026-03-05T00:00", cadence_s=20.0)
 
 
 def _write(ds, path):
