@@ -72,12 +72,12 @@ from __future__ import annotations
 import numpy as np
 import scipy.constants as _sc
 
-from ._wrap import array_api, check_range
+from ._wrap import array_api
 from .constants import B0_NT, KEV_J, R_E_M
 from .dipole.checks import check_b0, check_L, check_pitch, check_sine_pitch
 from .dipole.mirror import fold_pitch_angle, over_mirror_points
 from .errors import PhysicsError
-from .particles import get_species
+from .particles import check_energy_kev, get_species
 
 __all__ = [
     "BOUNCE_METHODS",
@@ -252,11 +252,6 @@ def _y_from_alpha(alpha_eq_deg):
     return np.sin(np.deg2rad(folded))
 
 
-def _energy(energy_kev):
-    return check_range(energy_kev, "energy_kev", lo=0.0, hi=np.inf, hi_open=True,
-                       hint="Kinetic energy is in keV, finite and not negative")
-
-
 def _method(method, allowed, what):
     key = str(method).strip().lower()
     if key not in allowed:
@@ -387,7 +382,7 @@ def bounce_period(energy_kev, L, alpha_eq_deg, species="electron", method="exact
     """
     m = _method(method, BOUNCE_METHODS, "bounce_period")
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     L = check_L(L)
     y = _y_from_alpha(alpha_eq_deg)
     e0 = sp.rest_energy_kev
@@ -406,7 +401,7 @@ def _drift_ratio(y, method):
 def _omega(energy_kev, L, alpha_eq_deg, species, b0_nt, method):
     m = _method(method, DRIFT_METHODS, "drift_period/drift_rate")
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     L = check_L(L)
     b0 = check_b0(b0_nt)
     y = _y_from_alpha(alpha_eq_deg)

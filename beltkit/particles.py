@@ -48,6 +48,7 @@ __all__ = [
     "SPECIES",
     "Species",
     "beta",
+    "check_energy_kev",
     "first_invariant",
     "first_invariant_si",
     "flux_from_phase_space_density",
@@ -161,7 +162,8 @@ def get_species(name) -> Species:
     )
 
 
-def _energy(energy_kev):
+def check_energy_kev(energy_kev):
+    """Return kinetic energies (keV) as an array, refusing negative or infinite values."""
     return check_range(energy_kev, "energy_kev", lo=0.0, hi=np.inf, hi_open=True,
                        hint="Kinetic energy is in keV, finite and not negative")
 
@@ -209,7 +211,7 @@ def lorentz_factor(energy_kev, species="electron"):
     1.001066
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return 1.0 + e / sp.rest_energy_kev
 
 
@@ -244,7 +246,7 @@ def beta(energy_kev, species="electron"):
     0.9411
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return _pc_kev(e, sp.rest_energy_kev) / (e + sp.rest_energy_kev)
 
 
@@ -276,7 +278,7 @@ def speed(energy_kev, species="electron"):
     '4.3769e+05'
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return _pc_kev(e, sp.rest_energy_kev) / (e + sp.rest_energy_kev) * _sc.speed_of_light
 
 
@@ -308,7 +310,7 @@ def momentum(energy_kev, species="electron"):
     '7.5994e-22'
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return _pc_kev(e, sp.rest_energy_kev) * KEV_J / _sc.speed_of_light
 
 
@@ -340,12 +342,12 @@ def pv(energy_kev, species="electron"):
     766.5
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return e * (e + 2.0 * sp.rest_energy_kev) / (e + sp.rest_energy_kev)
 
 
 def _gyrofrequency(b_nt, energy_kev, sp):
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     b = _field(b_nt)
     gamma = 1.0 + e / sp.rest_energy_kev
     return abs(sp.charge_c) * b * NT / (2.0 * np.pi * gamma * sp.mass_kg)
@@ -447,7 +449,7 @@ def gyroradius(b_nt, energy_kev, pitch_angle_deg=90.0, species="electron"):
     47.43
     """
     sp = get_species(species)
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     b = _field(b_nt)
     a = _pitch(pitch_angle_deg)
     p = _pc_kev(e, sp.rest_energy_kev) * KEV_J / _sc.speed_of_light
@@ -455,7 +457,7 @@ def gyroradius(b_nt, energy_kev, pitch_angle_deg=90.0, species="electron"):
 
 
 def _mu_mev_per_gauss(energy_kev, pitch_angle_deg, b_nt, sp):
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     a = _pitch(pitch_angle_deg)
     b = _field(b_nt)
     pc_mev = _pc_kev(e, sp.rest_energy_kev) * 1e-3
@@ -545,7 +547,7 @@ PSD_UNITS = "(299792458 m s-1)3 cm-3 MeV-3"
 
 def _p2_mev2(energy_kev, sp):
     """Return (p c)^2 in MeV^2."""
-    e = _energy(energy_kev)
+    e = check_energy_kev(energy_kev)
     return e * (e + 2.0 * sp.rest_energy_kev) * 1e-6
 
 
