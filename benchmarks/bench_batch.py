@@ -30,6 +30,7 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
+from _common import row
 
 from beltkit import batch
 
@@ -121,12 +122,6 @@ def _peak_memory_mb(file: Path, out_dir: Path) -> float:
     return int(proc.stdout.split()[-1]) / 1024.0  # kB
 
 
-def _row(figure, value, unit, baseline=None, target=None, passed=None):
-    ratio = value / baseline if baseline else None
-    return {"figure": figure, "value": value, "unit": unit, "baseline": baseline,
-            "ratio": ratio, "target": target, "passed": passed}
-
-
 def run(quick=False) -> list[dict]:
     """Run the batch benchmark; return the result rows."""
     n_files, n_time = (4, 8640) if quick else (20, 86400)
@@ -147,26 +142,26 @@ def run(quick=False) -> list[dict]:
                 ours_.append(_summarize(files, work / f"out{level}", compress=level))
             base, ours = float(np.median(bases)), float(np.median(ours_))
             ratio = ours / base
-            rows.append(_row(f"summarize {n_files} files of {n_time}x8x12 vs xarray "
-                             f"open-load-rewrite ({label})", ours, "s", base, "<= 1.5x",
-                             ratio <= 1.5))
+            rows.append(row(f"summarize {n_files} files of {n_time}x8x12 vs xarray "
+                            f"open-load-rewrite ({label})", ours, "s", base, "<= 1.5x",
+                            ratio <= 1.5))
         one = _summarize(files, work / "w1", workers=1)
         two = _summarize(files, work / "w2", workers=2)
         # on the quick files the pool's start-up dominates: informative only there
-        rows.append(_row(f"speed-up of --workers 2 over 1 ({n_files} files)", one / two, "x",
-                         None, "> 1 (full size)" if quick else "> 1",
-                         None if quick else one / two > 1.0))
+        rows.append(row(f"speed-up of --workers 2 over 1 ({n_files} files)", one / two, "x",
+                        None, "> 1 (full size)" if quick else "> 1",
+                        None if quick else one / two > 1.0))
         rows[-1]["baseline"] = one
         rows[-1]["ratio"] = one / two
         peak = _peak_memory_mb(files[0], work / "mem")
-        rows.append(_row(f"peak memory of one worker ({n_time}x8x12 file)", peak, "MB",
-                         None, "< 1024 MB", peak < 1024.0))
+        rows.append(row(f"peak memory of one worker ({n_time}x8x12 file)", peak, "MB",
+                        None, "< 1024 MB", peak < 1024.0))
         # streaming: a file three times as long must not need three times the memory
         (work / "long").mkdir()
         long_file = _day_file(work / "long" / "three_days.nc", 3 * n_time, 99)
         peak3 = _peak_memory_mb(long_file, work / "mem3")
-        rows.append(_row(f"peak memory, {3 * n_time}-sample file over {n_time}-sample file",
-                         peak3, "MB", peak, "< 1.5x", peak3 < 1.5 * peak))
+        rows.append(row(f"peak memory, {3 * n_time}-sample file over {n_time}-sample file",
+                        peak3, "MB", peak, "< 1.5x", peak3 < 1.5 * peak))
         return rows
     finally:
         shutil.rmtree(work, ignore_errors=True)

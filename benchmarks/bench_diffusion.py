@@ -22,26 +22,13 @@ target, which is stated for one day). The baseline of every row is
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
-import time
 
 import numpy as np
+from _common import median_wall_cpu
 
 N_DAY = 86_400
 N_ENERGY = 8
-
-
-def _median_seconds(func, repeats):
-    """Return the median wall-clock and process CPU seconds of `func()`."""
-    func()  # warm-up (imports, tables, page faults)
-    wall, cpu = [], []
-    for _ in range(repeats):
-        c0, t0 = time.process_time(), time.perf_counter()
-        func()
-        wall.append(time.perf_counter() - t0)
-        cpu.append(time.process_time() - c0)
-    return statistics.median(wall), statistics.median(cpu)
 
 
 def _day_dataset(n):
@@ -103,7 +90,7 @@ def run(repeats=3, quick=False):
     z0 = np.exp(rng.uniform(np.log(0.01), np.log(50.0), size)).reshape(n, N_ENERGY)
     r_cone = diffusion.cone_mean_ratio(z0)
     r_two = diffusion.two_angle_ratio(z0, 4.0, 1.0, 6.0)
-    t_base, _ = _median_seconds(lambda: np.log(r_cone), repeats)
+    t_base, _ = median_wall_cpu(lambda: np.log(r_cone), repeats)
     rows = []
     what = f"{n} x {N_ENERGY}"
     cases = [
@@ -116,7 +103,7 @@ def run(repeats=3, quick=False):
     cases.append((f"diffusion.from_pitch_angle_data, {what} x {ds.sizes['pitch_angle']} bins",
                   lambda: diffusion.from_pitch_angle_data(ds), None))
     for name, func, target in cases:
-        seconds, cpu = _median_seconds(func, repeats)
+        seconds, cpu = median_wall_cpu(func, repeats)
         rows.append({
             "figure": f"{name} (CPU {cpu:.3f} s)",
             "value": seconds,

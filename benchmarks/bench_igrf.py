@@ -20,11 +20,10 @@ Figures
 from __future__ import annotations
 
 import datetime as dt
-import statistics
 import sys
-import time
 
 import numpy as np
+from _common import median_time
 
 TARGET_RATE = 1e6
 
@@ -35,15 +34,6 @@ def _points(n, seed=2026):
     colat = np.degrees(np.arccos(rng.uniform(-1.0, 1.0, n)))
     lon = rng.uniform(-180.0, 180.0, n)
     return r, colat, lon
-
-
-def _median_time(fn, repeats):
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
 
 
 def _ppigrf_datetime(t):
@@ -74,8 +64,8 @@ def run(quick=False):
     igrf.synth_geo(xyz[:100], g, h)
 
     when = _ppigrf_datetime(date)
-    t_ref = _median_time(lambda: ppigrf.igrf_gc(r[:n_ref], colat[:n_ref], lon[:n_ref], when),
-                         repeats)
+    t_ref = median_time(lambda: ppigrf.igrf_gc(r[:n_ref], colat[:n_ref], lon[:n_ref], when),
+                        repeats)
     ref_rate = n_ref / t_ref
 
     rows = []
@@ -85,18 +75,18 @@ def run(quick=False):
         rows.append({"figure": figure, "value": value, "unit": unit, "baseline": baseline,
                      "ratio": ratio, "target": target, "passed": passed})
 
-    t = _median_time(lambda: igrf.synth_spherical(r, colat, lon, g, h), repeats)
+    t = median_time(lambda: igrf.synth_spherical(r, colat, lon, g, h), repeats)
     rate = n / t
     row(f"IGRF synthesis, numba engine ({n:.0e} points; baseline ppigrf)", rate, "points/s",
         ref_rate, f">= {TARGET_RATE:.0e} points/s", rate >= TARGET_RATE)
 
     model = IGRF()
-    t = _median_time(lambda: model.field_geo(xyz, date), repeats)
+    t = median_time(lambda: model.field_geo(xyz, date), repeats)
     row(f"IGRF().field_geo, Cartesian GEO ({n:.0e} points, one time)", n / t, "points/s",
         ref_rate, f">= {TARGET_RATE:.0e} points/s", n / t >= TARGET_RATE)
 
     times = np.linspace(2015.0, 2029.0, n)
-    t = _median_time(lambda: model.field_geo(xyz, times), repeats)
+    t = median_time(lambda: model.field_geo(xyz, times), repeats)
     row(f"IGRF().field_geo, a time per point ({n:.0e} points)", n / t, "points/s", ref_rate)
 
     worst = 0.0

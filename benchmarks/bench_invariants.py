@@ -31,8 +31,7 @@ import sys
 import time
 
 import numpy as np
-
-R_E_KM = 6371.2
+from _common import invented_orbit_geo_km
 
 
 def _best(func, repeats=3):
@@ -43,24 +42,6 @@ def _best(func, repeats=3):
         func()
         best = min(best, time.perf_counter() - t0)
     return best
-
-
-def _orbit(n, cadence_s=60.0, seed=3):
-    """GEO positions (km) of an invented elliptical orbit (perigee 1.2, apogee 6.5 R_E)."""
-    t = np.arange(n) * cadence_s
-    period = 10.0 * 3600.0
-    a = 0.5 * (1.2 + 6.5)
-    e = (6.5 - 1.2) / (6.5 + 1.2)
-    mean = 2 * np.pi * t / period
-    ecc = mean.copy()
-    for _ in range(30):
-        ecc = mean + e * np.sin(ecc)
-    nu = 2 * np.arctan2(np.sqrt(1 + e) * np.sin(ecc / 2), np.sqrt(1 - e) * np.cos(ecc / 2))
-    r = a * (1 - e * np.cos(ecc)) * R_E_KM
-    inc = np.radians(20.0)
-    lon = nu  # orbital plane fixed in GEO (a simplification of the invented orbit)
-    return np.stack([r * np.cos(lon), r * np.sin(lon) * np.cos(inc),
-                     r * np.sin(lon) * np.sin(inc)], -1)
 
 
 def _day_dataset(n, cadence_s=1.0, positions=False):
@@ -85,7 +66,7 @@ def _day_dataset(n, cadence_s=1.0, positions=False):
                              {"units": "degree"}),
     }
     if positions:
-        xyz = _orbit(n, cadence_s)
+        xyz = invented_orbit_geo_km(n, cadence_s)
         data["position_geo"] = (("time", "xyz"), xyz, {"units": "km"})
     else:
         phase = np.arange(n) / n * 2 * np.pi * 2.4
@@ -130,7 +111,7 @@ def run(quick=False, n_lstar=None):
     # L* in IGRF: all samples together vs single-sample calls
     m = IGRF()
     n_l = n_lstar or (20 if quick else 10_000)
-    xyz = _orbit(n_l)
+    xyz = invented_orbit_geo_km(n_l)
     t = np.datetime64("2024-03-01T00:00", "ns") + np.arange(n_l) * np.timedelta64(60, "s")
     a = rng.uniform(40.0, 90.0, n_l)
     lstar(m, xyz[:2], t[:2], a[:2])  # warm-up

@@ -19,14 +19,12 @@ Run ``python benchmarks/bench_pad.py [--quick]`` or through ``benchmarks/run.py`
 from __future__ import annotations
 
 import os
-import statistics
 import sys
 import tempfile
-import time
-import tracemalloc
 
 import numpy as np
 import xarray as xr
+from _common import interleaved_medians, median_time, traced_peak_bytes
 
 from beltkit.pad import partition
 
@@ -54,41 +52,6 @@ def _dataset(n_t, n_e=8, n_p=12, *, with_err=False, seed=0):
         "pitch_angle": ("pitch_angle", 0.5 * (edges[:-1] + edges[1:]), {"units": "degree"})})
 
 
-def _median_time(func, repeats):
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
-
-
-def _interleaved_medians(funcs, repeats):
-    """Median time of each function, run in turn ``repeats`` times.
-
-    Alternating the runs (rather than timing each one in a block) keeps a
-    change of the machine's speed during the benchmark (a shared virtual
-    machine) from falling on one side of a ratio only.
-    """
-    times = [[] for _ in funcs]
-    for _ in range(repeats):
-        for k, func in enumerate(funcs):
-            t0 = time.perf_counter()
-            func()
-            times[k].append(time.perf_counter() - t0)
-    return [statistics.median(t) for t in times]
-
-
-def _peak(func):
-    tracemalloc.start()
-    try:
-        func()
-        _, peak = tracemalloc.get_traced_memory()
-    finally:
-        tracemalloc.stop()
-    return peak
-
-
 def _dask_peak(path, n_t, chunk):
     """Peak traced memory of partitioning a chunked file and writing the result chunk-wise."""
     import dask
@@ -105,7 +68,7 @@ def _dask_peak(path, n_t, chunk):
 
     with dask.config.set(scheduler="synchronous"):
         work()  # warm-up (file cache, kernels)
-        peak = _peak(work)
+        peak = traced_peak_bytes(work)
     os.remove(out_path)
     return peak
 
@@ -119,10 +82,10 @@ def run(quick=False):
     w = np.linspace(0.5, 1.5, flux.shape[-1]).astype(np.float32)
     partition(_dataset(64))  # compile / load the numba kernel outside the timing
     partition(_dataset(64, with_err=True))
-    t_einsum, t_mulsum, t_part = _interleaved_medians(
+    t_einsum, t_mulsum, t_part = interleaved_medians(
         [lambda: np.einsum("tep,p->te", flux, w), lambda: (flux * w).sum(-1),
          lambda: partition(ds)], repeats)
-    peak = _peak(lambda: partition(ds))
+    peak = traced_peak_bytes(lambda: partition(ds))
     size = f"{n_t:.0e} x 8 x 12 float32"
     rows = [
         {"figure": f"partition {size} vs einsum reduction", "value": t_part, "unit": "s",
@@ -136,8 +99,8 @@ def run(quick=False):
          "target": "ratio < 2.5", "passed": peak / flux.nbytes < 2.5},
     ]
     ds_err = _dataset(n_t, with_err=True)
-    t_err = _median_time(lambda: partition(ds_err), 5)
-    peak_err = _peak(lambda: partition(ds_err))
+    t_err = median_time(lambda: partition(ds_err), 5)
+    peak_err = traced_peak_bytes(lambda: partition(ds_err))
     in_bytes = flux.nbytes * 2
     rows.append({"figure": f"partition with flux_err {size} vs einsum", "value": t_err,
                  "unit": "s", "baseline": t_einsum, "ratio": t_err / t_einsum,

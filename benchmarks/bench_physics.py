@@ -23,11 +23,10 @@ given one second per 10^6 (1e6 evaluations per second).
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
-import time
 
 import numpy as np
+from _common import median_wall_cpu
 
 
 def _inputs(n, seed=2):
@@ -36,18 +35,6 @@ def _inputs(n, seed=2):
     L = rng.uniform(1.5, 8.0, n)
     energy = 10.0 ** rng.uniform(1.0, np.log10(5000.0), n)
     return alpha, L, energy
-
-
-def _median_seconds(func, repeats):
-    """Return the median wall-clock and process CPU seconds of `func()`."""
-    func()  # warm-up (imports, node tables, page faults)
-    wall, cpu = [], []
-    for _ in range(repeats):
-        c0, t0 = time.process_time(), time.perf_counter()
-        func()
-        wall.append(time.perf_counter() - t0)
-        cpu.append(time.process_time() - c0)
-    return statistics.median(wall), statistics.median(cpu)
 
 
 def run(n=10**6, repeats=5, quick=False):
@@ -78,7 +65,7 @@ def run(n=10**6, repeats=5, quick=False):
         n, repeats = min(n, 10**5), min(repeats, 3)
     alpha, L, energy = _inputs(n)
 
-    t_sqrt, _ = _median_seconds(lambda: np.sqrt(alpha), repeats)
+    t_sqrt, _ = median_wall_cpu(lambda: np.sqrt(alpha), repeats)
     sqrt_rate = n / t_sqrt
     cases = [
         ("dipole.mirror_mlat", lambda: dipole.mirror_mlat(alpha), 2e6),
@@ -92,7 +79,7 @@ def run(n=10**6, repeats=5, quick=False):
              "unit": "evaluations/s", "baseline": sqrt_rate, "ratio": 1.0, "target": None,
              "passed": None}]
     for name, func, target in cases:
-        seconds, cpu = _median_seconds(func, repeats)
+        seconds, cpu = median_wall_cpu(func, repeats)
         rate = n / seconds
         rows.append({
             "figure": f"{name} over {n} elements ({seconds:.3f} s, CPU {cpu:.3f} s)",

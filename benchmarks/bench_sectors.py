@@ -21,13 +21,11 @@ Run ``python benchmarks/bench_sectors.py [--quick]`` or through ``benchmarks/run
 from __future__ import annotations
 
 import os
-import statistics
 import sys
-import time
-import tracemalloc
 
 import numpy as np
 import xarray as xr
+from _common import interleaved_medians, traced_peak_bytes
 
 from beltkit.pad import bin_sectors
 
@@ -60,27 +58,6 @@ def _dataset(n_t, n_e=8, n_s=16, n_d=2, seed=0):
                                                           "bounds": "energy_bnds"})})
 
 
-def _interleaved_medians(funcs, repeats):
-    """Median time of each function, run in turn (see bench_pad)."""
-    times = [[] for _ in funcs]
-    for _ in range(repeats):
-        for k, func in enumerate(funcs):
-            t0 = time.perf_counter()
-            func()
-            times[k].append(time.perf_counter() - t0)
-    return [statistics.median(t) for t in times]
-
-
-def _peak(func):
-    tracemalloc.start()
-    try:
-        func()
-        _, peak = tracemalloc.get_traced_memory()
-    finally:
-        tracemalloc.stop()
-    return peak
-
-
 def run(quick=False):
     """Return the benchmark rows (figure, value, unit, baseline, ratio, target, passed)."""
     n_t = 8_640 if quick else 86_400
@@ -88,10 +65,10 @@ def run(quick=False):
     counts = ds["counts"].values
     w = np.linspace(0.5, 1.5, 32).astype(np.float32).reshape(16, 2)
     bin_sectors(_dataset(16), EDGES)  # compile / load the numba kernel outside the timing
-    t_einsum, t_mulsum, t_bin = _interleaved_medians(
+    t_einsum, t_mulsum, t_bin = interleaved_medians(
         [lambda: np.einsum("tesd,sd->te", counts, w), lambda: (counts * w).sum((-2, -1)),
          lambda: bin_sectors(ds, EDGES)], 5)
-    peak = _peak(lambda: bin_sectors(ds, EDGES))
+    peak = traced_peak_bytes(lambda: bin_sectors(ds, EDGES))
     size = f"{n_t:,} x 8 x 16 x 2 int32"
     rows = [
         {"figure": f"bin_sectors {size} vs einsum reduction", "value": t_bin, "unit": "s",
@@ -106,7 +83,7 @@ def run(quick=False):
     ]
     ds = counts = None
     longer = _dataset(n_t * 3 // 2)
-    peak_long = _peak(lambda: bin_sectors(longer, EDGES))
+    peak_long = traced_peak_bytes(lambda: bin_sectors(longer, EDGES))
     ratio_long = peak_long / longer["counts"].nbytes
     rows.append({"figure": "bin_sectors 1.5x longer: (peak / input) over the day's",
                  "value": ratio_long, "unit": "1", "baseline": peak / (n_t * 8 * 16 * 2 * 4),

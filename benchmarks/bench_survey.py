@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
+from _common import row
 
 N_DISTINCT = 4
 
@@ -144,12 +145,6 @@ def _measure(files, out: Path, workers: int) -> dict:
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
-def _row(figure, value, unit, baseline=None, target=None, passed=None):
-    ratio = value / baseline if baseline else None
-    return {"figure": figure, "value": value, "unit": unit, "baseline": baseline,
-            "ratio": ratio, "target": target, "passed": passed}
-
-
 def _load() -> str:
     try:
         return "load average {:.1f} {:.1f} {:.1f}".format(*os.getloadavg())
@@ -168,23 +163,23 @@ def run(quick=False) -> list[dict]:
         rows = []
         label = f"{n_year} days of {n_time}x8 summaries"
         two = _measure(year, work / "two.nc", 2)
-        rows.append(_row(f"survey {label}, workers=2 ({_load()})", two["seconds"], "s", None,
-                         "< 600 s", None if quick else two["seconds"] < 600))
+        rows.append(row(f"survey {label}, workers=2 ({_load()})", two["seconds"], "s", None,
+                        "< 600 s", None if quick else two["seconds"] < 600))
         one = _measure(year, work / "one.nc", 1)
-        rows.append(_row(f"survey {label}, workers=1", one["seconds"], "s", None, None, None))
+        rows.append(row(f"survey {label}, workers=1", one["seconds"], "s", None, None, None))
         speed = one["seconds"] / two["seconds"]
-        rows.append(_row(f"speed-up of workers=2 over 1 ({label})", speed, "x", None,
-                         ">= 1.7 (full size)" if quick else ">= 1.7",
-                         None if quick else speed >= 1.7))
+        rows.append(row(f"speed-up of workers=2 over 1 ({label})", speed, "x", None,
+                        ">= 1.7 (full size)" if quick else ">= 1.7",
+                        None if quick else speed >= 1.7))
         peak = max(two["peak_mb"], two["worker_peak_mb"], one["peak_mb"])
-        rows.append(_row(f"peak memory of the survey or a worker ({label}; workers=2: "
-                         f"parent {two['peak_mb']:.0f} MB, worker "
-                         f"{two['worker_peak_mb']:.0f} MB)", peak, "MB", None, "< 1024 MB",
-                         peak < 1024.0))
+        rows.append(row(f"peak memory of the survey or a worker ({label}; workers=2: "
+                        f"parent {two['peak_mb']:.0f} MB, worker "
+                        f"{two['worker_peak_mb']:.0f} MB)", peak, "MB", None, "< 1024 MB",
+                        peak < 1024.0))
         month = _measure(year[:n_month], work / "month.nc", 1)
-        rows.append(_row(f"peak memory, {n_year}-day over {n_month}-day survey (workers=1)",
-                         one["peak_mb"], "MB", month["peak_mb"], "within 20 %",
-                         abs(one["peak_mb"] / month["peak_mb"] - 1) < 0.2))
+        rows.append(row(f"peak memory, {n_year}-day over {n_month}-day survey (workers=1)",
+                        one["peak_mb"], "MB", month["peak_mb"], "within 20 %",
+                        abs(one["peak_mb"] / month["peak_mb"] - 1) < 0.2))
         return rows
     finally:
         shutil.rmtree(work, ignore_errors=True)

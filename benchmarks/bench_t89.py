@@ -27,26 +27,16 @@ Figures
 
 from __future__ import annotations
 
-import statistics
 import sys
 import time
 
 import numpy as np
+from _common import invented_orbit_geo_km, median_time
 
 TARGET_RATE = 1e6
 TARGET_TRACE_S = 10.0
 TARGET_LSTAR_S = 120.0
-R_E_KM = 6371.2
 TIME = np.datetime64("2020-03-20T03:00")
-
-
-def _median_time(fn, repeats):
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
 
 
 def _points(n, seed=2026):
@@ -57,30 +47,13 @@ def _points(n, seed=2026):
     return x
 
 
-def _orbit(n, cadence_s=60.0):
-    """GEO positions (km) of the invented elliptical orbit of bench_invariants.py (synthetic)."""
-    t = np.arange(n) * cadence_s
-    period = 10.0 * 3600.0
-    a = 0.5 * (1.2 + 6.5)
-    e = (6.5 - 1.2) / (6.5 + 1.2)
-    mean = 2 * np.pi * t / period
-    ecc = mean.copy()
-    for _ in range(30):  # Kepler's equation by fixed-point iteration
-        ecc = mean + e * np.sin(ecc)
-    nu = 2 * np.arctan2(np.sqrt(1 + e) * np.sin(ecc / 2), np.sqrt(1 - e) * np.cos(ecc / 2))
-    r = a * (1 - e * np.cos(ecc)) * R_E_KM
-    inc = np.radians(20.0)
-    return np.stack([r * np.cos(nu), r * np.sin(nu) * np.cos(inc),
-                     r * np.sin(nu) * np.sin(inc)], -1)
-
-
 def lstar_row(quick=False, n=None):
     """Time L* for `n` orbit samples (10,000; 20 when quick) in IGRF + T89; return one row."""
     from beltkit.field import T89, lstar
 
     n = n or (20 if quick else 10_000)
     t = np.datetime64("2024-03-01T00:00", "ns") + np.arange(n) * np.timedelta64(60, "s")
-    xyz = _orbit(n)
+    xyz = invented_orbit_geo_km(n)
     alpha = np.random.default_rng(5).uniform(40.0, 90.0, n)
     kp_time = t[0] + np.arange(0, n // 180 + 2) * np.timedelta64(3, "h")
     kp = 1.0 + (np.arange(kp_time.size) % 6)  # invented: Kp 1, 2, ... 6, 1, ...
@@ -126,17 +99,17 @@ def run(quick=False):
         for p in gsm:
             reference_t89(4, ps, p[0], p[1], p[2])
 
-    ref_rate = n_ref / _median_time(reference, 1)
+    ref_rate = n_ref / median_time(reference, 1)
 
-    t = _median_time(lambda: model.field_geo(xyz, TIME), repeats)
+    t = median_time(lambda: model.field_geo(xyz, TIME), repeats)
     row(f"IGRF + T89 field_geo ({n:.0e} points, one time; baseline geopack t89 external only)",
         n / t, "points/s", ref_rate, f">= {TARGET_RATE:.0e} points/s", n / t >= TARGET_RATE)
 
-    t = _median_time(lambda: model.external_geo(xyz, TIME), repeats)
+    t = median_time(lambda: model.external_geo(xyz, TIME), repeats)
     row(f"T89 external_geo alone ({n:.0e} points, one time)", n / t, "points/s", ref_rate)
 
     times = TIME + (np.arange(n) % 86_400).astype("timedelta64[s]")
-    t = _median_time(lambda: model.field_geo(xyz, times), 1 if not quick else repeats)
+    t = median_time(lambda: model.field_geo(xyz, times), 1 if not quick else repeats)
     row(f"IGRF + T89 field_geo, a time per point ({n:.0e} points)", n / t, "points/s", ref_rate)
 
     rng = np.random.default_rng(7)
@@ -145,13 +118,13 @@ def run(quick=False):
     sm = np.column_stack([l_shell * np.cos(phi), l_shell * np.sin(phi), np.zeros(n_lines)])
     starts = np.asarray(convert(sm * 6371.2, TIME, "SM", "GEO", model=IGRF()))
     trace_lines(model, starts[:20], TIME)  # warm-up
-    t_igrf = _median_time(lambda: trace_lines(IGRF(), starts, TIME), 1)
+    t_igrf = median_time(lambda: trace_lines(IGRF(), starts, TIME), 1)
     holder = {}
 
     def traced():
         holder["lines"] = trace_lines(model, starts, TIME)
 
-    t_t89 = _median_time(traced, 1)
+    t_t89 = median_time(traced, 1)
     closed = int(np.sum(holder["lines"].closed))
     scaled = t_t89 * 10_000 / n_lines
     row(f"trace {n_lines} lines L 1.5-8 to both footpoints, IGRF + T89 Kp 3 "
