@@ -182,24 +182,16 @@ def _partition_block_py(x, s, has_s, wpre, use_pre, cos_a1, cos_a2, fold, blc, d
                 s6 = colsum[6] > TOL_SR
                 for e in range(n_e):
                     a0 = a1 = a2 = a3 = a4 = a5 = a6 = 0.0
-                    if hemi:  # one read of the values for all seven sums
-                        for p in range(n_p):
-                            v = np.float64(x[t, e, p])
-                            a0 += v * wt[0, p]
-                            a1 += v * wt[1, p]
-                            a2 += v * wt[2, p]
-                            a3 += v * wt[3, p]
-                            a4 += v * wt[4, p]
+                    for p in range(n_p):  # one read of the values for all the sums
+                        v = np.float64(x[t, e, p])
+                        a0 += v * wt[0, p]
+                        a1 += v * wt[1, p]
+                        a2 += v * wt[2, p]
+                        a3 += v * wt[3, p]
+                        a4 += v * wt[4, p]
+                        if hemi:
                             a5 += v * wt[5, p]
                             a6 += v * wt[6, p]
-                    else:
-                        for p in range(n_p):
-                            v = np.float64(x[t, e, p])
-                            a0 += v * wt[0, p]
-                            a1 += v * wt[1, p]
-                            a2 += v * wt[2, p]
-                            a3 += v * wt[3, p]
-                            a4 += v * wt[4, p]
                     pops0 = (a0 if s0 else nan) if e0 else 0.0
                     pops1 = (a1 if s1 else nan) if e1 else 0.0
                     pops2 = (a2 if s2 else nan) if e2 else 0.0
