@@ -103,6 +103,7 @@ from . import __version__
 from . import argtypes as T
 from .commands import COMMANDS, error_line, say
 from .errors import OptionError
+from .io.write import DEFAULT_COMPLEVEL
 
 __all__ = ["build_parser", "main"]
 
@@ -230,8 +231,8 @@ def build_parser() -> argparse.ArgumentParser:
                    metavar=("LOW", "HIGH", "STEP"), help="MLT bins in hours (default: 0 24 1)")
     p.add_argument("--window", type=T.duration, default=None, metavar="DURATION",
                    help="time windows such as 1D, 6h, 27D (default: one window)")
-    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
-                   help="zlib level, 0 = none (default: 4)")
+    p.add_argument("--compression", type=T.zlib_level, default=DEFAULT_COMPLEVEL,
+                   metavar="LEVEL", help=f"zlib level, 0 = none (default: {DEFAULT_COMPLEVEL})")
     p.add_argument("--binning", default="L-MLT", metavar="NAME",
                    help="L-MLT (default), lon-lat (geographic, needs position_geo in the "
                         "summaries), L-B (L and local field strength), L-time, or X,Y: two "
@@ -326,8 +327,9 @@ def _file_options(p):
     """Add the per-file options of a batch command (mapping, compression, rerun, failures)."""
     p.add_argument("--mapping", metavar="TOML", default=None,
                    help="variable-name mapping file for files with other names")
-    p.add_argument("--compression", type=T.zlib_level, default=4, metavar="LEVEL",
-                   help="zlib level of the outputs, 0 = none (default: 4)")
+    p.add_argument("--compression", type=T.zlib_level, default=DEFAULT_COMPLEVEL,
+                   metavar="LEVEL",
+                   help=f"zlib level of the outputs, 0 = none (default: {DEFAULT_COMPLEVEL})")
     p.add_argument("--overwrite", action="store_true", help="redo outputs even if up to date")
     p.add_argument("--fail-fast", action="store_true", help="stop at the first failed file")
 

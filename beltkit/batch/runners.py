@@ -88,7 +88,8 @@ def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
     mapping : str, path or dict, optional
         Variable-name mapping for non-conventional files (see :mod:`beltkit.io`).
     compress : bool or int
-        zlib compression of the outputs (True = level 4, 0/False = none).
+        zlib compression of the outputs (True = level 1, 0/False = none, or a
+        level 1-9).
     overwrite : bool
         Redo every output even if up to date.
     fail_fast : bool

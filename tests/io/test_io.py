@@ -162,6 +162,19 @@ def test_writer_writes_cf_compressed_time_chunks(tmp_path):
     assert [p.name for p in target.parent.iterdir()] == ["w.nc"]  # no temporary left
 
 
+def test_default_compression_is_level_one_with_shuffle(tmp_path):
+    # compress=True and the commands' --compression default both mean level 1 with the
+    # shuffle filter: for float32 outputs higher levels save about 1 % for 3x the time
+    ds = flux_dataset(n_time=500)
+    bio.write_dataset(ds, tmp_path / "d.nc", compress=True)
+    _, filters, _, _ = _nc_info(tmp_path / "d.nc", "flux")
+    assert filters["zlib"] is True and filters["complevel"] == 1 and filters["shuffle"]
+    from beltkit.cli import build_parser
+
+    args = build_parser().parse_args(["summarize", "x.nc", "--out", "o"])
+    assert args.compression == 1 == bio.write.DEFAULT_COMPLEVEL
+
+
 def test_writer_is_atomic_when_writing_fails(tmp_path, monkeypatch):
     target = tmp_path / "keep.nc"
     target.write_bytes(b"previous content")
