@@ -12,7 +12,7 @@ def test_ruff_passes_on_package_tests_and_benchmarks():
     ruff = shutil.which("ruff") or str(Path(sys.executable).with_name("ruff"))
     assert Path(ruff).exists(), "ruff is part of the test extra: pip install '.[test]'"
     proc = subprocess.run(
-        [ruff, "check", "beltkit", "tests", "benchmarks"],
+        [ruff, "check", "--no-cache", "beltkit", "tests", "benchmarks"],
         cwd=ROOT, capture_output=True, text=True,
     )
     assert proc.returncode == 0, proc.stdout + proc.stderr
