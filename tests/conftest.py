@@ -34,7 +34,8 @@ os.environ["HYPOTHESIS_STORAGE_DIRECTORY"] = os.path.join(_SESSION_DIR, "hypothe
 os.environ["IPYTHONDIR"] = os.path.join(_SESSION_DIR, "ipython")
 os.environ["JUPYTER_RUNTIME_DIR"] = os.path.join(_SESSION_DIR, "jupyter-runtime")
 
-_TOOL_DIRS = {".git", "__pycache__", ".pytest_cache"}
+# tool folders, and a virtual environment kept inside the checkout (not the project's files)
+_TOOL_DIRS = {".git", "__pycache__", ".pytest_cache", ".venv", "venv", ".tox", ".nox"}
 _TOOL_SUFFIXES = (".pyc", ".nbi", ".nbc")  # bytecode and numba's cache index and data
 
 
