@@ -57,6 +57,7 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     uhi = np.empty(n_k)
     blo = np.empty(n_k)
     bhi = np.empty(n_k)
+    inv = np.empty(n_k)
     fed = np.zeros(n_k, np.bool_)
     # the non-zero weights of a sample as one list (look, bin, weight), in look order
     ek = np.zeros(n_k * n_i, np.int64)
@@ -70,16 +71,27 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     pa = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     pb = np.zeros(n_k * (n_k - 1) // 2 + 1, np.int64)
     nnb = np.zeros(n_i, np.int64)
+    wsum = np.zeros(n_i)
+    # per look: its first bin at the previous sample (the search for the next starts there)
+    first = np.zeros(n_k, np.int64)
     # the sample's values with energies innermost (look, energy)
+    xm = np.zeros((n_k, n_e))
+    an = np.zeros((n_i, n_e))
+    av = np.zeros((n_i, n_e))
+    ad = np.zeros((n_i, n_e))
+    ge = np.zeros(n_e)
+    n_ie = n_i * n_e
+    an_f = an.reshape(n_ie)
+    av_f = av.reshape(n_ie)
+    ad_f = ad.reshape(n_ie)
+    fo = np.zeros(n_ie)
+    eo = np.zeros(n_ie)
     xt = np.zeros((n_k, n_e))
     vt = np.zeros((n_k, n_e))
     gt = np.zeros((n_k, n_e))
     ct = np.zeros((n_k, n_e))
     gv = np.zeros((n_k, n_e))
     mt = np.zeros((n_k, n_e), np.int64)
-    xin = np.zeros((n_k, 3 * n_e))
-    acc = np.zeros((n_i, 3 * n_e))
-    uns = np.zeros(n_e, np.int64)
     num = np.zeros((n_i, n_e))
     den = np.zeros((n_i, n_e))
     var = np.zeros((n_i, n_e))
@@ -89,6 +101,14 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     nv = np.zeros(n_e, np.int64)
     g_time = g.shape[0] > 1
     g_energy = g.shape[1] > 1
+    # exposure the same for every look (per time and energy at most): the denominator is
+    # G_e sum_k w_ki, one sum of weights per bin instead of one per bin and energy
+    g_flat = True
+    for a in range(g.shape[0]):
+        for b in range(g.shape[1]):
+            for k in range(1, n_k):
+                if g[a, b, k] != g[a, b, 0]:
+                    g_flat = False
     have_g = False
     has_err = has_v or is_counts
     n_neg = 0
@@ -117,27 +137,21 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     lo = -rho
                 ulo[k] = -(sth[k] * hi + cth[k] * bs)
                 uhi[k] = -(sth[k] * lo + cth[k] * bs)
-        for k in range(n_k):
+        for k in range(n_k):  # no branch: one vector loop over the looks
             umin = ulo[k]
             umax = uhi[k]
-            if not (umin == umin and umax == umax):  # NaN geometry: the look samples nothing
-                fed[k] = False
-                blo[k] = nan
-                bhi[k] = nan
-                continue
+            # NaN geometry: the look samples nothing
+            nanu = 0.0 if umin == umin else nan
+            nanu = nanu if umax == umax else nan
             umin = min(max(umin, -1.0), 1.0)
             umax = min(max(umax, -1.0), 1.0)
             # band edges as cosines: cos(alpha_min - delta) and cos(alpha_max + delta)
-            if umax >= cdel[k]:
-                clo = 1.0
-            else:
-                clo = umax * cdel[k] + math.sqrt(1.0 - umax * umax) * sdel[k]
-            if umin <= -cdel[k]:
-                chi_ = -1.0
-            else:
-                chi_ = umin * cdel[k] - math.sqrt(1.0 - umin * umin) * sdel[k]
-            blo[k] = clo
-            bhi[k] = chi_
+            cd = cdel[k]
+            clo = 1.0 if umax >= cd else umax * cd + math.sqrt(1.0 - umax * umax) * sdel[k]
+            chi_ = -1.0 if umin <= -cd else umin * cd - math.sqrt(1.0 - umin * umin) * sdel[k]
+            blo[k] = clo + nanu
+            bhi[k] = chi_ + nanu
+            inv[k] = 1.0 / (clo - chi_)
         if bands.shape[1] == n_k:
             for k in range(n_k):
                 bands[t, k, 0] = blo[k]
@@ -147,22 +161,29 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
         n_fed = 0
         for i in range(n_i):
             nnb[i] = 0
+            wsum[i] = 0.0
         for k in range(n_k):
             clo = blo[k]
             chi_ = bhi[k]
             om = clo - chi_
             f = False
             if om > 0.0:
-                inv_om = 1.0 / om
-                i = 0
-                while i < n_i and cedges[i + 1] >= clo:  # bins wholly above the band
+                inv_om = inv[k]
+                # first bin not wholly above the band (the edge cosines fall with i, so
+                # this is the first i with cedges[i + 1] < clo, found from last sample's)
+                i = first[k]
+                while i < n_i and cedges[i + 1] >= clo:
                     i += 1
+                while i > 0 and cedges[i] < clo:
+                    i -= 1
+                first[k] = i
                 while i < n_i and cedges[i] > chi_:
                     ov = min(clo, cedges[i]) - max(chi_, cedges[i + 1])
                     if ov > 0.0:
                         ek[n_nz] = k
                         ei[n_nz] = i
                         ew[n_nz] = ov * inv_om
+                        wsum[i] += ov * inv_om
                         nnb[i] += 1
                         n_nz += 1
                         f = True
@@ -252,43 +273,57 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             continue
         # ---- the sample's values, energies innermost ----------------------------------
         te = t if g_time else 0
-        fresh = g_time or not have_g
-        have_g = True
-        clean = is_counts and not has_v
-        for e in range(n_e):
-            ee = e if g_energy else 0
-            for k in range(n_k):
-                xv = x[t, e, k]
-                if xv < 0:
-                    n_neg += 1
-                if not (xv == xv):
-                    clean = False
-                xt[k, e] = xv
-                if fresh:  # exposure and its inverse (flux per count)
+        if g_time or not have_g:  # exposure and its inverse (flux per count)
+            for e in range(n_e):
+                ee = e if g_energy else 0
+                ge[e] = g[te, ee, 0]
+                for k in range(n_k):
                     gt[k, e] = g[te, ee, k]
                     ct[k, e] = 1.0 / g[te, ee, k]
-        bits0 = 16 if partial else 0
-        if clean:
-            # every value valid: one pass over the weight list, energies innermost, on
-            # rows (counts, exposure, max(counts, 1)) of each look
-            n2 = 2 * n_e
-            n3 = 3 * n_e
+        have_g = True
+        n_nan = 0
+        for e in range(n_e):
             for k in range(n_k):
-                for e in range(n_e):
-                    xv = xt[k, e]
-                    xin[k, e] = xv
-                    xin[k, n_e + e] = gt[k, e]
-                    xin[k, n2 + e] = max(xv, 1.0)
+                xv = x[t, e, k]
+                n_neg += 1 if xv < 0 else 0
+                n_nan += 0 if xv == xv else 1
+        for e in range(n_e):
+            for k in range(n_k):
+                xv = x[t, e, k]
+                xt[k, e] = xv
+                xm[k, e] = max(xv, 1.0)
+        bits0 = 16 if partial else 0
+        if is_counts and not has_v and n_nan == 0:
+            # every value valid: sums over the weight list (looks ascending), energies
+            # innermost, of counts, max(counts, 1) and (unless it is the same for every
+            # look) exposure
             for i in range(n_i):
-                for j in range(n3):
-                    acc[i, j] = 0.0
+                for e in range(n_e):
+                    an[i, e] = 0.0
+                    av[i, e] = 0.0
             for q in range(n_nz):
                 k = ek[q]
                 i = ei[q]
                 wi = ew[q]
                 w2 = wi * wi
-                for j in range(n3):
-                    acc[i, j] += (w2 if j >= n2 else wi) * xin[k, j]
+                for e in range(n_e):
+                    an[i, e] += wi * xt[k, e]
+                for e in range(n_e):
+                    av[i, e] += w2 * xm[k, e]
+            if g_flat:
+                for i in range(n_i):
+                    for e in range(n_e):
+                        ad[i, e] = ge[e] * wsum[i]
+            else:
+                for i in range(n_i):
+                    for e in range(n_e):
+                        ad[i, e] = 0.0
+                for q in range(n_nz):
+                    k = ek[q]
+                    i = ei[q]
+                    wi = ew[q]
+                    for e in range(n_e):
+                        ad[i, e] += wi * gt[k, e]
             for e in range(n_e):
                 c2[e] = 0.0
             for q in range(n_pair):
@@ -299,30 +334,30 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     cb = ct[kb, e]
                     ra = xt[ka, e] * ca
                     rb = xt[kb, e] * cb
-                    sd = (xin[ka, n2 + e] * ca * ca + xin[kb, n2 + e] * cb * cb
-                          + (tol * 0.5 * (ra + rb)) ** 2)
+                    sd = xm[ka, e] * ca * ca + xm[kb, e] * cb * cb + (tol * 0.5 * (ra + rb)) ** 2
                     c2[e] += (ra - rb) ** 2 / sd
+            # flux and error of every (bin, energy) in one vector pass (no test in it: the
+            # bins with no look, zero denominator, are set NaN when written energy-major)
+            for j in range(n_ie):
+                inv_d = 1.0 / ad_f[j]
+                fo[j] = an_f[j] * inv_d
+                eo[j] = math.sqrt(av_f[j]) * inv_d
+            mm = n_pair
             for e in range(n_e):
-                uns[e] = 0
-            for i in range(n_i):
-                nb = nnb[i]
-                for e in range(n_e):
-                    d = acc[i, n_e + e]
-                    good = nb > 0 and d > 0.0
-                    fl = acc[i, e] / d
-                    er = math.sqrt(acc[i, n2 + e]) / d
-                    flux[t, e, i] = fl if good else nan
-                    err[t, e, i] = er if good else nan
-                    cnt[t, e, i] = acc[i, e] if good else nan
-                    nlook[t, e, i] = nb
-                    uns[e] += 0 if good else 1
-            for e in range(n_e):
+                n_uns = 0
+                for i in range(n_i):
+                    j = i * n_e + e
+                    d = ad_f[j]
+                    flux[t, e, i] = fo[j] if d > 0.0 else nan
+                    err[t, e, i] = eo[j] if d > 0.0 else nan
+                    cnt[t, e, i] = an_f[j] if d > 0.0 else nan
+                    nlook[t, e, i] = nnb[i]
+                    n_uns += 0 if d > 0.0 else 1
                 bits = bits0
-                if uns[e] > 0:
+                if n_uns > 0:
                     bits |= 1
                 if n_fed == 0:
                     bits |= 8
-                mm = n_pair
                 if mm > 0:
                     chi[t, e] = c2[e] / mm
                     dof[t, e] = mm
