@@ -37,7 +37,10 @@ def unit_vectors(v):
     norm = np.sqrt(np.einsum("...i,...i->...", v, v))
     ok = np.isfinite(norm) & (norm > 0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(ok[..., None], v / np.where(ok, norm, 1.0)[..., None], np.nan)
+        out = v / norm[..., None]
+    if not ok.all():
+        out[~ok] = np.nan
+    return out
 
 
 def _deg_values(ds, name, problems, dims_ok, *, lo=None, hi=None, lo_open=False):
@@ -310,10 +313,14 @@ def look_geometry(s):
         z = np.zeros(s.n_k)
         return (bvec, look, dummy2, dummy2, dummy2, dummy2, dummy2, dummy2, z, z, cdel, sdel,
                 None)
-    spin = unit_vectors(np.broadcast_to(np.asarray(s.spin.values, float), (s.n_t, 3)))
+    spin = np.asarray(s.spin.values, float)
     ref = s.ref
+    if spin.ndim == 1 and ref.strides[0] == 0:  # one spin frame for all times: one row
+        spin, ref = spin[None], ref[:1]
+    spin = unit_vectors(np.broadcast_to(spin, (ref.shape[0], 3)))
     e1 = unit_vectors(ref - np.einsum("ti,ti->t", ref, spin)[:, None] * spin)
     e2 = np.cross(spin, e1)
+    spin, e1, e2 = (np.broadcast_to(a, (s.n_t, 3)) for a in (spin, e1, e2))
     bh = s.bhat
     bvec = np.ascontiguousarray(np.stack([np.einsum("ti,ti->t", bh, spin),
                                           np.einsum("ti,ti->t", bh, e1),
