@@ -75,7 +75,6 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
     # per look: its first bin at the previous sample (the search for the next starts there)
     first = np.zeros(n_k, np.int64)
     # the sample's values with energies innermost (look, energy)
-    xm = np.zeros((n_k, n_e))
     an = np.zeros((n_i, n_e))
     av = np.zeros((n_i, n_e))
     ad = np.zeros((n_i, n_e))
@@ -291,7 +290,6 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
             for k in range(n_k):
                 xv = x[t, e, k]
                 xt[k, e] = xv
-                xm[k, e] = max(xv, 1.0)
         bits0 = 16 if partial else 0
         if is_counts and not has_v and n_nan == 0:
             # every value valid: sums over the weight list (looks ascending), energies
@@ -309,7 +307,7 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                 for e in range(n_e):
                     an[i, e] += wi * xt[k, e]
                 for e in range(n_e):
-                    av[i, e] += w2 * xm[k, e]
+                    av[i, e] += w2 * max(xt[k, e], 1.0)
             if g_flat:
                 for i in range(n_i):
                     for e in range(n_e):
@@ -334,7 +332,8 @@ def _bin_block_py(x, g, v, has_v, is_counts, mode, bvec, look, cp0, sp0, cp1, sp
                     cb = ct[kb, e]
                     ra = xt[ka, e] * ca
                     rb = xt[kb, e] * cb
-                    sd = xm[ka, e] * ca * ca + xm[kb, e] * cb * cb + (tol * 0.5 * (ra + rb)) ** 2
+                    sd = (max(xt[ka, e], 1.0) * ca * ca + max(xt[kb, e], 1.0) * cb * cb
+                          + (tol * 0.5 * (ra + rb)) ** 2)
                     c2[e] += (ra - rb) ** 2 / sd
             # flux and error of every (bin, energy) in one vector pass (no test in it: the
             # bins with no look, zero denominator, are set NaN when written energy-major)
