@@ -197,22 +197,32 @@ def dipole_low_altitude_note(ds, prep: Prepared, model) -> str:
         return ""
     scale = prep.other_scale
     if "L" in ds.variables and "mlat" in ds.variables:
-        # r / R_E = L cos^2(mlat), in place (a few passes over the time axis only)
-        c = np.cos(np.radians(np.asarray(ds["mlat"].values, dtype=float)
-                              * scale.get("mlat", 1.0)))
-        r = np.asarray(ds["L"].values, dtype=float) * scale.get("L", 1.0) * c
-        r *= c
+        mv = np.asarray(ds["mlat"].values, dtype=float)
+        lv = np.asarray(ds["L"].values, dtype=float)
+        fm, fl = scale.get("mlat", 1.0), scale.get("L", 1.0)
         r_limit = 1.0 + LOW_ALTITUDE_KM / R_E_KM
+
+        def count(sl):
+            # r / R_E = L cos^2(mlat), in place (a few passes over the block only)
+            c = np.cos(np.radians(mv[sl] * fm))
+            r = lv[sl] * fl * c
+            r *= c
+            return np.count_nonzero(r < r_limit), np.count_nonzero(np.isfinite(r))
+
+        # numpy's loops release the GIL: two blocks per core at once
+        parts = map_slices(count, lv.size, max(_CONE_BLOCK, -(-lv.size // (2 * cores()))),
+                           parallel=True)
+        low = int(sum(p[0] for p in parts))  # NaN compares False
+        total = int(sum(p[1] for p in parts))
     elif "position_geo" in ds.variables:
         xyz = np.asarray(ds["position_geo"].values, dtype=float)
         r = np.linalg.norm(xyz, axis=-1) * scale.get("position_geo", 1.0)
-        r_limit = R_E_KM + LOW_ALTITUDE_KM
+        low = int(np.count_nonzero(r < R_E_KM + LOW_ALTITUDE_KM))  # NaN compares False
+        total = int(np.count_nonzero(np.isfinite(r)))
     else:
         return ""
-    low = int(np.count_nonzero(r < r_limit))  # NaN compares False
     if low == 0:
         return ""
-    total = int(np.count_nonzero(np.isfinite(r)))
     return (f"{low} of {total} samples lie below {LOW_ALTITUDE_KM:g} km altitude, where the "
             "centred dipole has no quasi-trapped population (its drift loss cone equals the "
             "bounce loss cone); the real field's drift loss cone is wider there. Use the IGRF "

@@ -186,7 +186,12 @@ def flag_counts(partition_flag):
     f = np.asarray(values)
     if not np.issubdtype(f.dtype, np.integer):
         f = f.astype(np.int64)
-    # reduced in the flags' own dtype: no full-size copy
-    per_time = (np.bitwise_or.reduce(f, axis=1) if f.ndim == 2 and f.shape[1]
-                else np.zeros(f.shape[:1], dtype=f.dtype)).astype(np.int64)
+    # OR of the energy columns in the flags' own dtype, one column at a time (a
+    # reduction along the short last axis costs about 3x as much): no full-size copy
+    if f.ndim == 2 and f.shape[1]:
+        per_time = f[:, 0].astype(np.int64)
+        for j in range(1, f.shape[1]):
+            per_time |= f[:, j]
+    else:
+        per_time = np.zeros(f.shape[:1], dtype=np.int64)
     return {name: int(np.count_nonzero(per_time & bit)) for bit, name in SAMPLE_FLAGS.items()}
