@@ -16,6 +16,7 @@ import numpy as np
 from .. import __version__
 from ..errors import ConventionError
 from ..io import MAPPING_SECTIONS, sha256
+from ..io.write import compress_level
 
 __all__ = [
     "DIFFUSION_DEFAULTS",
@@ -238,7 +239,7 @@ def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
         "altitude_km": float(altitude_km),
         "epoch": None if epoch is None else str(epoch),
         "mapping": mapping_key(mapping),
-        "compress": int(4 if compress is True else 0 if not compress else compress),
+        "compress": compress_level(compress),
         "beltkit_version": __version__,
     }
     if diffusion is not None:  # only then: summaries made without it stay up to date

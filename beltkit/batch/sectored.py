@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
+from ..io.write import compress_level
 from .options import mapping_key, settings_text
 from .products import STREAM_SLAB, Product
 
@@ -34,7 +35,7 @@ def sectors_settings(edges_deg, model, gyrotropy_level, gyrotropy_tolerance, deg
         "gyrotropy_tolerance": float(gyrotropy_tolerance),
         "degenerate_deg": float(degenerate_deg),
         "mapping": mapping_key(mapping),
-        "compress": compress if isinstance(compress, bool) else int(compress),
+        "compress": compress_level(compress),
     }
 
 

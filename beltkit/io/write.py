@@ -30,6 +30,7 @@ from ..atomic import atomic_file
 
 __all__ = [
     "DEFAULT_COMPLEVEL",
+    "compress_level",
     "WRITE_CHUNK_CACHE_BYTES",
     "read_attributes",
     "sha256",
@@ -148,7 +149,30 @@ def _small_chunk_cache():
         netCDF4.set_chunk_cache(*old)
 
 
-def _complevel(compress) -> int:
+def compress_level(compress) -> int:
+    """Return the zlib level that a ``compress`` argument means.
+
+    Parameters
+    ----------
+    compress : bool, int or None
+        True (:data:`DEFAULT_COMPLEVEL`), False, None or 0 (no compression),
+        or a level 0-9.
+
+    Returns
+    -------
+    int
+        The level, 0-9.
+
+    Raises
+    ------
+    ValueError
+        For a level outside 0-9.
+
+    Examples
+    --------
+    >>> compress_level(True), compress_level(False), compress_level(6)
+    (1, 0, 6)
+    """
     if compress is True:
         return DEFAULT_COMPLEVEL
     if compress is False or compress is None:
@@ -238,7 +262,7 @@ def write_dataset(ds: xr.Dataset, path, *, compress=True, history=None, attrs=No
         The written file.
     """
     path = Path(path)
-    out, encoding = _prepared(ds, _complevel(compress), history, attrs, time_chunk)
+    out, encoding = _prepared(ds, compress_level(compress), history, attrs, time_chunk)
 
     def fill(tmp):
         out.to_netcdf(tmp, mode="w", format="NETCDF4", engine="netcdf4", encoding=encoding)
@@ -291,7 +315,7 @@ def write_stream(slabs, path, *, count=None, compress=True, history=None, attrs=
         in place and returns its path (and removes the temporary on failure).
     """
     path = Path(path)
-    complevel = _complevel(compress)
+    complevel = compress_level(compress)
 
     def fill(tmp):
         import netCDF4
