@@ -210,7 +210,7 @@ def dipole_low_altitude_note(ds, prep: Prepared, model) -> str:
             return np.count_nonzero(r < r_limit), np.count_nonzero(np.isfinite(r))
 
         # numpy's loops release the GIL: two blocks per core at once
-        parts = map_slices(count, lv.size, max(_CONE_BLOCK, -(-lv.size // (2 * cores()))),
+        parts = map_slices(count, lv.size, _cone_block(lv.size),
                            parallel=True)
         low = int(sum(p[0] for p in parts))  # NaN compares False
         total = int(sum(p[1] for p in parts))
@@ -289,6 +289,11 @@ def _dipole_cones(L, mlat, b_loc, altitude_km):
 _CONE_BLOCK = 16384
 
 
+def _cone_block(n):
+    """Return the block length of the eager dipole passes: two blocks per core."""
+    return max(_CONE_BLOCK, -(-n // (2 * cores())))
+
+
 def _dipole_cones_blocks(L, mlat, b_loc, altitude_km):
     """:func:`_dipole_cones` on eager DataArrays, in blocks on the worker threads.
 
@@ -310,7 +315,7 @@ def _dipole_cones_blocks(L, mlat, b_loc, altitude_km):
             o[sl] = v
 
     try:
-        map_slices(one, lv.size, max(_CONE_BLOCK, -(-lv.size // (2 * cores()))),
+        map_slices(one, lv.size, _cone_block(lv.size),
                    parallel=True)
     except Exception:
         _dipole_cones(lv, mv, bv, altitude_km)  # raises with the whole arrays' message
