@@ -13,6 +13,8 @@ Commands
     file that carries ``position_geo`` and the centred dipole for one that
     carries only ``L`` and ``mlat``; ``--field dipole`` or ``igrf`` forces
     one model. Each summary names the model it used (``field_model``).
+    ``--hemispheres`` adds the losses per hemisphere (``flux_lost_north``,
+    ``flux_lost_south``, their fractions and uncertainties).
     ``--diffusion`` adds the pitch-angle diffusion outputs (``z0``,
     ``diffusion_coefficient``, ``lifetime``, intervals, regime, flags; see
     ``docs/diffusion.md``), with ``--loss-time half_bounce|quarter_bounce``,
@@ -148,6 +150,10 @@ def build_parser() -> argparse.ArgumentParser:
                         "position, values masked when read); default: mask and flag those "
                         "samples, count them in the report and summarise the rest")
     _worker_options(p, example="tcp://10.0.0.5:8786")
+    p.add_argument("--hemispheres", action="store_true",
+                   help="add the losses per hemisphere (flux_lost_north, flux_lost_south, "
+                        "their fractions and uncertainties): worth it at low orbit, where the "
+                        "two footpoints' loss cones differ")
     p.add_argument("--diffusion", action="store_true",
                    help="add pitch-angle diffusion outputs (z0, diffusion coefficient, "
                         "lifetime with their intervals, regime, flags) from the loss-cone "

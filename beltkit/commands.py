@@ -169,7 +169,7 @@ def _cmd_summarize(args, command) -> int:
         epoch=args.epoch, mapping=args.mapping, compress=args.compression,
         overwrite=args.overwrite, fail_fast=args.fail_fast, workers=args.workers,
         scheduler=args.scheduler, command=command, log=say, debug=args.debug,
-        diffusion=diffusion, kp=kp, strict=args.strict,
+        diffusion=diffusion, kp=kp, strict=args.strict, hemispheres=args.hemispheres,
     )
     return _batch_exit(results, args, "summarize")
 

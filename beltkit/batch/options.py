@@ -226,7 +226,7 @@ def mapping_key(mapping):
 
 
 def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
-                 strict=False) -> dict:
+                 strict=False, hemispheres=False) -> dict:
     """Return the settings of a summarize run, as recorded in each output.
 
     The field model is recorded under the key ``"field"`` (the name of the
@@ -246,6 +246,8 @@ def run_settings(model, altitude_km, epoch, mapping, compress, diffusion=None,
         settings["diffusion"] = dict(diffusion)
     if strict:  # whole-file refusal of per-sample problems (pad.samples); default: flagged
         settings["strict"] = True
+    if hemispheres:  # only then, as for the diffusion outputs
+        settings["hemispheres"] = True
     return settings
 
 

@@ -90,7 +90,7 @@ class Product:
 
 @renamed_keyword("field", "model")
 def summarize_dataset(ds: xr.Dataset, *, model="auto", altitude_km=100.0,
-                      epoch=None, diffusion=None) -> xr.Dataset:
+                      epoch=None, diffusion=None, hemispheres=False) -> xr.Dataset:
     """Partition one flux dataset and keep the position for the survey.
 
     Parameters
@@ -116,6 +116,9 @@ def summarize_dataset(ds: xr.Dataset, *, model="auto", altitude_km=100.0,
         :data:`beltkit.batch.DIFFUSION_DEFAULTS`; a dict sets some of
         ``loss_time`` (``"half_bounce"`` or ``"quarter_bounce"``), ``species``
         and ``interval_sigma``.
+    hemispheres : bool
+        Add the losses per hemisphere (``flux_lost_north``, ``flux_lost_south``,
+        their fractions and ``_err``), as ``partition(..., hemispheres=True)``.
 
     Returns
     -------
@@ -125,11 +128,11 @@ def summarize_dataset(ds: xr.Dataset, *, model="auto", altitude_km=100.0,
         (and, with ``diffusion``, the diffusion conventions as ``beltkit_*``).
     """
     return _summary(ds, model=model, altitude_km=altitude_km, epoch=epoch,
-                    diffusion=diffusion_options(diffusion))[0]
+                    diffusion=diffusion_options(diffusion), hemispheres=hemispheres)[0]
 
 
 def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=None,
-             diffusion=None, prepared=None, strict=True):
+             diffusion=None, prepared=None, strict=True, hemispheres=False):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
     With ``defer_value_check`` (eager data: one slab of a file) the flux
@@ -144,7 +147,8 @@ def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=
     model = field_model(model, epoch, ds)
     out, pending = partition_slab(ds, model=model, altitude_km=altitude_km,
                                   defer_value_check=defer_value_check, buffers=buffers,
-                                  prepared=prepared, strict=strict)
+                                  prepared=prepared, strict=strict,
+                                  hemispheres=bool(hemispheres))
     if diffusion is not None:
         counts = None if pending is None else pending[0]
         valid = None if counts is None else np.asarray(counts)[0]
@@ -281,6 +285,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
             out, (counts, verify) = _summary(
                 piece, model=model, altitude_km=altitude_km, epoch=None,
                 defer_value_check=True, diffusion=diffusion, prepared=prep,
+                hemispheres=settings.get("hemispheres", False),
                 buffers=buffers if buffers is not None else _slab_buffers())
             state["totals"] = counts if state["totals"] is None else state["totals"] + counts
             state["verify"] = verify

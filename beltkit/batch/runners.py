@@ -57,7 +57,8 @@ def _default_command(inputs, out_dir, **options) -> str:
 def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
               mapping=None, compress=True, overwrite=False, fail_fast=False, workers=1,
               scheduler=None, command=None, log=None, progress=None,
-              debug=False, diffusion=None, kp=None, strict=False) -> list[FileResult]:
+              debug=False, diffusion=None, kp=None, strict=False,
+              hemispheres=False) -> list[FileResult]:
     """Summarize flux files into loss-cone summary files, safely and resumably.
 
     Parameters
@@ -134,6 +135,13 @@ def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
         attributes. True: any such problem refuses the whole file. Structural
         problems (no flux, wrong dimensions, unknown units, an unreadable
         file) refuse the file either way.
+    hemispheres : bool
+        Add the losses per hemisphere (``flux_lost_north``,
+        ``flux_lost_south``, ``fraction_lost_north``, ``fraction_lost_south``
+        and their ``_err``; see :func:`beltkit.pad.partition`) to every
+        summary: eight more (time, energy) variables, worth asking for at low
+        orbit, where the two footpoints' loss cones differ. Part of the
+        settings that decide whether an output is up to date.
 
     Returns
     -------
@@ -156,9 +164,12 @@ def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
     model = storm_field(model, kp)
     diffusion = diffusion_options(diffusion)
     mapping_checked, files, out_dir = _start_run(inputs, out_dir, mapping)
-    settings = run_settings(model, altitude_km, epoch, mapping, compress, diffusion, strict)
+    settings = run_settings(model, altitude_km, epoch, mapping, compress, diffusion, strict,
+                            bool(hemispheres))
     if command is None:
         extra = {} if diffusion is None else {"diffusion": diffusion}
+        if hemispheres:
+            extra["hemispheres"] = True
         command = _default_command(files, out_dir, model=model, altitude_km=altitude_km,
                                    epoch=epoch, overwrite=overwrite, **extra)
     return _run_batch(files, out_dir, _job(None, settings, model, epoch, mapping_checked,

@@ -282,12 +282,13 @@ def run_demo(out_dir, *, n_days=None) -> list[Path]:
     results = []
     # Tern's truth (the recovery target) is defined in the centred dipole; Dunlin's files
     # carry position_geo, so model="auto" partitions them in the IGRF at each sample's time
-    # Dunlin's summaries add the pitch-angle diffusion outputs (its scattering event)
-    for craft, model, diff in (("tern", "dipole", None), ("dunlin", "auto", True)):
+    # Dunlin's summaries add the pitch-angle diffusion outputs (its scattering event) and,
+    # at its low orbit, the losses per hemisphere (down-going and up-going)
+    for craft, model, extra in (("tern", "dipole", False), ("dunlin", "auto", True)):
         files = [d for d in data_files if f"_{craft}_" in Path(d).name]
         if files:
             results += batch.summarize(files, out / "summaries", model=model, overwrite=True,
-                                       diffusion=diff)
+                                       diffusion=extra or None, hemispheres=extra)
     order = {str(d): k for k, d in enumerate(data_files)}
     results.sort(key=lambda r: order.get(r.input, len(order)))
     bad = [r for r in results if r.status == "failed"]

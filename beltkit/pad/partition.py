@@ -198,7 +198,7 @@ def _run_block(flux_blk, err_blk, c2f_blk, cones, look, *, prep, geom, opts, dty
     x, s, err_bad, err_inf = _block_inputs(flux_blk, err_blk, c2f_blk, prep, dtype, stats,
                                            mask_err=opts.get("mask_err", False))
     n, n_e = x.shape[:2]
-    hemi = opts.get("hemispheres", True)
+    hemi = opts["hemispheres"]
     n_data = n_outputs(s is not None, hemi)
     rows = None
     if geom["kind"] == "telescope":
@@ -305,7 +305,7 @@ def _compute(flux, err, c2f, cones, look, prep, geom, opts, dtype, stats=None,
     ``read_flag`` (DataArray (time, energy, angle) or None) and ``pos_bad``
     (bool (time,) or None) add the bits of masked input samples.
     """
-    nout = n_outputs(err is not None, opts.get("hemispheres", True))
+    nout = n_outputs(err is not None, opts["hemispheres"])
     lazy = any(getattr(a, "chunks", None) is not None
                for a in (flux, err, c2f, look) + tuple(cones) if a is not None)
     if lazy:
@@ -579,7 +579,7 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
 
 def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
-               buffers=None, hemispheres=True, prepared=None, strict=True):
+               buffers=None, hemispheres=False, prepared=None, strict=True):
     """Partition a dataset or a slab of a file, optionally leaving the value checks to the caller.
 
     The entry of callers that partition a file slab by slab (``beltkit
@@ -596,8 +596,8 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     the checks have been made (dask data: by the validator, before the
     partition).
     ``buffers`` (an :class:`OutputBuffers`) gives eager data the memory of
-    the previous call's outputs, which are overwritten. ``hemispheres``
-    defaults to True here: the summaries include the losses per hemisphere.
+    the previous call's outputs, which are overwritten. ``hemispheres`` is
+    as for :func:`partition` (summaries ask for it with ``hemispheres=True``).
     ``strict`` is as for :func:`partition` (with ``prepared``, the strictness
     it was made with applies).
     ``prepared``, the :class:`Prepared` result of
@@ -655,7 +655,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
         else:
             verify(stats.T)
     with_err = err is not None
-    names = output_names(with_err, opts.get("hemispheres", True))
+    names = output_names(with_err, opts["hemispheres"])
     dims = ("time", "energy")
     out_vars = {}
     for k, name in enumerate(names):

@@ -66,7 +66,7 @@ def rows_kernel(xs, ss, ti, cones, look, geom, opts):
     Returns the outputs (n_out, r), the flags (row 14) as numbers.
     """
     r = xs.shape[0]
-    hemi = opts.get("hemispheres", True)
+    hemi = opts["hemispheres"]
     with_err = ss is not None
     blc, dlc, lcn, lcs = (np.asarray(c, dtype=float)[ti] for c in cones)
     x = np.ascontiguousarray(xs[:, None, :])
