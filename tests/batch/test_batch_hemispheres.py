@@ -13,7 +13,7 @@ add up to the precipitating flux).
 import numpy as np
 import pytest
 import xarray as xr
-from _flux_factory import flux_dataset
+from _flux_factory import flux_dataset, write_flux_file
 
 from beltkit import batch, pad
 from beltkit.cli import main
@@ -25,15 +25,11 @@ HEMI_VARS = tuple(HEMI_NAMES) + tuple(HEMI_ERR_NAMES)
 @pytest.fixture
 def flux_file(tmp_path):
     ds = flux_dataset(n_time=300, n_energy=3)
-    path = tmp_path / "in" / "craft_a_day1.nc"
-    path.parent.mkdir()
-    ds.to_netcdf(path)
-    return path, ds
+    return write_flux_file(tmp_path / "craft_a_day1.nc", ds), ds
 
 
 def _load(path):
-    with xr.open_dataset(path) as f:
-        return f.load()
+    return xr.load_dataset(path)
 
 
 def test_summaries_carry_the_losses_per_hemisphere_only_when_asked(flux_file, tmp_path):
