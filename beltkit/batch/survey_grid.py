@@ -33,7 +33,7 @@ __all__ = [
     "window_length_ns",
 ]
 
-#: Variables of a summary that :func:`beltkit.batch.survey` bins (those in every summary).
+#: Variables of a summary that :func:`beltkit.batch.survey` bins (each where every summary has it).
 SURVEY_VARIABLES = (
     "fraction_precipitating",
     "fraction_quasi_trapped",
