@@ -37,6 +37,17 @@ for negative values in a pass of their own; the denominator is :math:`G_e \sum_k
 w_{ki}` when the exposure is the same for every look; flux and error of all
 (bin, energy) are computed in one pass without a branch and written
 energy-major.
+
+Measured and not kept (one-thread CPU time unchanged within the noise, about
++-3 %, or worse): the energies padded to lanes of 8 (fixed-length inner
+loops, all loads written out before the stores, unsigned indices), max(counts,
+1) stored once per sample, min/max written as conditional expressions, the
+NaN selection moved into the flux pass, blocks of 1,024-8,192 samples (4,096
+is fastest). On its own the counts sum over the weight list (86,400 samples
+x 98 weights x 8 energies) takes 26 ms, about one clock cycle per
+multiply-add-store: the loop is limited by its loads and stores, not by the
+arithmetic. Outside the kernel, bin_sectors spends about 11 ms (reading the
+input 2.4, look geometry 3.2, the output dataset about 5).
 """
 
 from __future__ import annotations
