@@ -46,8 +46,8 @@ NaN selection moved into the flux pass, blocks of 1,024-8,192 samples (4,096
 is fastest). On its own the counts sum over the weight list (86,400 samples
 x 98 weights x 8 energies) takes 26 ms, about one clock cycle per
 multiply-add-store: the loop is limited by its loads and stores, not by the
-arithmetic. Outside the kernel, bin_sectors spends about 11 ms (reading the
-input 2.4, look geometry 3.2, the output dataset about 5).
+arithmetic. Outside the kernel, bin_sectors spends about 9 ms (reading the
+input 2.4, look geometry 3.2, the output dataset 3.1).
 """
 
 from __future__ import annotations
