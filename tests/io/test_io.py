@@ -37,6 +37,29 @@ def test_open_flux_is_lazy_along_time_and_leaves_file_untouched(tmp_path):
     assert bio.sha256(path) == before
 
 
+def test_open_indexed_gives_every_dimension_coordinate_its_index(tmp_path):
+    """The reader skips the raw file's default indexes and builds them once at the end."""
+    path = write_flux_file(tmp_path / "a.nc", n_time=40)
+    ds = bio.open_indexed(path)
+    assert set(ds.xindexes) == {"time", "energy", "pitch_angle"}
+    assert ds.indexes["time"].dtype == np.dtype("datetime64[ns]")
+    ref = xr.open_dataset(path)  # xarray's own decoding (reference library)
+    xr.testing.assert_equal(ds["time"], ref["time"])
+    t = ref["time"].values[7]
+    np.testing.assert_array_equal(ds["flux"].sel(time=t).values, ref["flux"].sel(time=t).values)
+    e = float(ref["energy"].values[2])
+    np.testing.assert_array_equal(ds["flux"].sel(energy=e).values,
+                                  ref["flux"].sel(energy=e).values)
+    ref.close()
+    ds.close()
+    # open_raw keeps xarray's default indexes unless asked not to
+    from beltkit.io.read import open_raw
+
+    raw = open_raw(path)
+    assert "time" in raw.xindexes
+    raw.close()
+
+
 def test_open_flux_auto_chunks_only_time(tmp_path):
     path = write_flux_file(tmp_path / "a.nc", n_time=50)
     ds = bio.open_flux(path)
