@@ -132,7 +132,7 @@ def summarize_dataset(ds: xr.Dataset, *, model="auto", altitude_km=100.0,
 
 
 def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=None,
-             diffusion=None, prepared=None, strict=True, hemispheres=False):
+             diffusion=None, prepared=None, strict=True, hemispheres=False, model_note=None):
     """:func:`summarize_dataset`, returning ``(summary, pending value check or None)``.
 
     With ``defer_value_check`` (eager data: one slab of a file) the flux
@@ -140,7 +140,7 @@ def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=
     pending check is returned, to be made once on the counts summed over the
     slabs (see ``beltkit.pad.partition.partition_slab``), instead of in a
     separate pass over the file before it. ``prepared`` is the file's
-    validation, trusted.
+    validation, trusted, and ``model_note`` its field-model note.
     """
     from ..pad.partition import partition_slab
 
@@ -148,7 +148,7 @@ def _summary(ds, *, model, altitude_km, epoch, defer_value_check=False, buffers=
     out, pending = partition_slab(ds, model=model, altitude_km=altitude_km,
                                   defer_value_check=defer_value_check, buffers=buffers,
                                   prepared=prepared, strict=strict,
-                                  hemispheres=bool(hemispheres))
+                                  hemispheres=bool(hemispheres), model_note=model_note)
     if diffusion is not None:
         counts = None if pending is None else pending[0]
         valid = None if counts is None else np.asarray(counts)[0]
@@ -285,7 +285,7 @@ def summary_product(ds, src: Path, task: dict, *, load=False, buffers=None,
             out, (counts, verify) = _summary(
                 piece, model=model, altitude_km=altitude_km, epoch=None,
                 defer_value_check=True, diffusion=diffusion, prepared=prep,
-                hemispheres=settings.get("hemispheres", False),
+                hemispheres=settings.get("hemispheres", False), model_note=record[1],
                 buffers=buffers if buffers is not None else _slab_buffers())
             state["totals"] = counts if state["totals"] is None else state["totals"] + counts
             state["verify"] = verify

@@ -579,7 +579,7 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
 
 def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
                allow_negative=False, engine="auto", fill=None, defer_value_check=False,
-               buffers=None, hemispheres=False, prepared=None, strict=True):
+               buffers=None, hemispheres=False, prepared=None, strict=True, model_note=None):
     """Partition a dataset or a slab of a file, optionally leaving the value checks to the caller.
 
     The entry of callers that partition a file slab by slab (``beltkit
@@ -603,7 +603,10 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     ``prepared``, the :class:`Prepared` result of
     :func:`beltkit.pad.conventions.check` on the whole file (with the same
     model), is trusted instead of validating ``ds`` again: a file summarized
-    slab by slab is validated once.
+    slab by slab is validated once. ``model_note``, the whole file's
+    :func:`~beltkit.pad.losscones.dipole_low_altitude_note` (a string,
+    possibly empty), likewise replaces the slab's own (default: computed
+    from ``ds``).
     """
     _check_engine(engine)  # the cheap option checks first
     model = resolve_model(ds, model)
@@ -690,7 +693,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
         "beltkit_uncertainty_source": prep.error_source or "none",
         "beltkit_fill": fill or "none",
     }
-    note = dipole_low_altitude_note(ds, prep, model)
+    note = dipole_low_altitude_note(ds, prep, model) if model_note is None else model_note
     if note:
         out.attrs["beltkit_field_model_note"] = note
     if fill == "sine_power":

@@ -86,6 +86,24 @@ def test_auto_uses_the_dipole_with_only_L_and_mlat_and_notes_low_orbits():
     assert pad.partition(ds, model="igrf").attrs["beltkit_field_model"] == "igrf"
 
 
+def test_a_slab_carries_the_note_its_caller_gives():
+    """A file partitioned slab by slab gets the whole file's note (counted once)."""
+    from beltkit.pad.partition import partition_slab
+
+    ds = _isotropic(3)
+    # r = L R_E cos^2(mlat) (textbook): altitudes 1990 km, then L = 3 and 4 (high)
+    L = np.array([1 + 1990.0 / R_E_KM, 3.0, 4.0])
+    ds["L"] = ("time", L, {"units": "1"})
+    ds["mlat"] = ("time", np.zeros(3), {"units": "degree"})
+    whole = pad.partition(ds).attrs["beltkit_field_model_note"]
+    assert whole.startswith("1 of 3 samples lie below 2000 km")
+    high = ds.isel(time=[1, 2])
+    # a slab with no low sample carries the file's note when given it, and none of its own
+    assert partition_slab(high, model_note=whole)[0].attrs["beltkit_field_model_note"] == whole
+    assert "beltkit_field_model_note" not in partition_slab(high)[0].attrs
+    assert "beltkit_field_model_note" not in partition_slab(ds, model_note="")[0].attrs
+
+
 @pytest.mark.parametrize("declared", ["mcilwain", "McIlwain (IGRF + T89)", "roederer"])
 def test_a_declared_non_dipole_L_is_refused_on_the_dipole_path(declared):
     ds = flux_dataset(n_time=5)
