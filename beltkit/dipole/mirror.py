@@ -14,11 +14,14 @@ __all__ = ["asin_deg", "b_ratio", "b_ratio_cos2", "fold_pitch_angle", "mirror_la
 
 
 def b_ratio(mlat_rad):
-    """Return b(lambda) = B(lambda) / B_eq on a dipole line."""
-    s = np.sin(mlat_rad)
+    r"""Return b(lambda) = B(lambda) / B_eq on a dipole line.
+
+    One cosine: :math:`1 + 3\sin^2\lambda = 4 - 3\cos^2\lambda`
+    (:func:`b_ratio_cos2`).
+    """
     c2 = np.cos(mlat_rad)
     c2 *= c2
-    return np.sqrt(1.0 + 3.0 * s * s) / (c2 * c2 * c2)
+    return b_ratio_cos2(c2)
 
 
 def b_ratio_cos2(c2):
