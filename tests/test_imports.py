@@ -2,8 +2,8 @@
 
 These are the structural rules of the code base (docs: README, Development):
 a module uses only the public names of another; no two modules import each
-other, directly or through others; and importing one part does not load
-the heavy pitch-angle engine.
+other, directly or through others; importing one part does not load
+the heavy pitch-angle engine; and no module is over 700 lines.
 """
 
 import ast
@@ -56,6 +56,15 @@ def test_no_module_imports_another_modules_private_names():
                 if private and submodule not in modules:  # a name, not a module
                     leaks.append(f"{name} imports {target}.{n}")
     assert leaks == []
+
+
+def test_no_module_is_over_700_lines_and_each_names_its_concept():
+    """One concept per module: at most 700 lines, and a first docstring line naming it."""
+    for name, path in _modules():
+        lines = path.read_text().splitlines()
+        assert len(lines) <= 700, f"{name}: {len(lines)} lines"
+        doc = ast.get_docstring(ast.parse(path.read_text()))
+        assert doc and doc.splitlines()[0].strip(), f"{name}: no first docstring line"
 
 
 def test_the_import_graph_has_no_circle():

@@ -603,10 +603,8 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     ``prepared``, the :class:`Prepared` result of
     :func:`beltkit.pad.conventions.check` on the whole file (with the same
     model), is trusted instead of validating ``ds`` again: a file summarized
-    slab by slab is validated once. ``model_note``, the whole file's
-    :func:`~beltkit.pad.losscones.dipole_low_altitude_note` (a string,
-    possibly empty), likewise replaces the slab's own (default: computed
-    from ``ds``).
+    slab by slab is validated once. ``model_note`` (str), the whole file's
+    :func:`~beltkit.pad.losscones.dipole_low_altitude_note`, replaces the slab's.
     """
     _check_engine(engine)  # the cheap option checks first
     model = resolve_model(ds, model)
