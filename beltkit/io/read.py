@@ -40,7 +40,7 @@ from .timeaxis import resolve_time
 
 __all__ = ["is_cdf", "open_flux", "open_indexed", "open_raw"]
 
-#: open_dataset can skip the default indexes (xarray 2025.07 and later)
+#: whether this xarray's open_dataset can skip the default indexes (newer releases only)
 _NO_INDEX_OPTION = "create_default_indexes" in inspect.signature(xr.open_dataset).parameters
 _CDF_MAGIC = (b"\xcd\xf3\x00\x01", b"\xcd\xf2\x60\x02", b"\x00\x00\xff\xff")
 #: Variables the flux step reads as stored (the others are decoded in step 4).
@@ -66,7 +66,7 @@ def open_raw(path, *, engine=None, indexes=True) -> xr.Dataset:
     With ``indexes=False`` a netCDF file's dimension coordinates get no
     index (:func:`open_indexed` makes them once its names and time are
     final: building the index of a raw time axis that is then decoded
-    and replaced is about a quarter of the opening).
+    and replaced is about a fifth of the opening).
 
     Raises
     ------
