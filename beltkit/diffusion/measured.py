@@ -36,7 +36,7 @@ FLAG_MEANINGS = {
 
 # ---------------------------------------------------------------- from data
 
-# cells in u = alpha_eq / alpha0: 50 uniform inside the cone, geometric outside to 64
+# cells in u = alpha_eq / alpha0: 100 uniform inside the cone, geometric outside to 64
 _U_EDGES = np.concatenate([np.linspace(0.0, 1.0, 101), np.linspace(1.0, 1.5, 101)[1:],
                            1.5 * 1.03 ** np.arange(1, 129)])
 _N_INSIDE = 100

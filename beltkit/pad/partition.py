@@ -504,7 +504,7 @@ def partition(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0,
         ``flux_lost_south``, ``fraction_lost_north``, ``fraction_lost_south``
         (and their ``_err``), in the same pass. False (default) leaves them
         out: they add a quarter to the output memory and about as much to
-        the time of a large partition. Summaries always include them.
+        the time of a large partition. Summaries include them on request.
     strict : bool, keyword-only
         True (default): any per-sample problem refuses the dataset. False:
         only structural problems refuse it; negative flux values (unless
