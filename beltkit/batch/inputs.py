@@ -49,9 +49,10 @@ class FileResult:
         Wall time spent on the file.
     flagged : dict
         Of a written summary: the number of time samples carrying each bit
-        of :data:`beltkit.pad.samples.SAMPLE_FLAGS` (masked input samples:
+        of :data:`beltkit.pad.samples.COUNTED_FLAGS` (masked input samples:
         fill, out of range, quality-rejected, negative flux or uncertainty,
-        impossible position), by meaning; empty otherwise.
+        impossible position; and a given ``b_local`` below the model's
+        ``b_min``, kept), by meaning; empty otherwise.
     """
 
     input: str

@@ -132,7 +132,9 @@ def summarize(inputs, out_dir, *, model="auto", altitude_km=100.0, epoch=None,
         (:data:`beltkit.pad.samples.SAMPLE_FLAGS`), and the number of time
         samples per flag is in each result's ``flagged``, its report line, the
         run report and the summary's ``beltkit_samples_<meaning>``
-        attributes. True: any such problem refuses the whole file. Structural
+        attributes (with the count of samples whose given ``b_local`` lies
+        below the model's ``b_min``: kept, flagged, never refused). True: any
+        problem that masks refuses the whole file. Structural
         problems (no flux, wrong dimensions, unknown units, an unreadable
         file) refuse the file either way.
     hemispheres : bool

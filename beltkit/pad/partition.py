@@ -88,8 +88,9 @@ from .outputs import (
 )
 from .rows import mask_bad_rows, or_bits, overlap_rows, repartition_rows, sample_bits
 from .samples import (
+    COUNTED_FLAGS,
     INFINITE_VALUE_BIT,
-    SAMPLE_FLAGS,
+    flag_b_local,
     flag_counts,
     mask_positions,
     position_mask,
@@ -111,7 +112,7 @@ FLAG_MEANINGS = {
     32: "no_valid_flux",
     64: "loss_cone_unknown",
     128: "fitted_fill_applied",
-    **SAMPLE_FLAGS,
+    **COUNTED_FLAGS,
 }
 
 #: samples per block of the compiled kernel (a few blocks per core: the threads stay busy
@@ -662,7 +663,7 @@ def partition_slab(ds, model="auto", altitude_km=100.0, *, filling_band_deg=10.0
     for k, name in enumerate(names):
         values = data[k]
         if name == "partition_flag":
-            values = flags if flags is not None else values.astype(np.int16)
+            values = flag_b_local(flags if flags is not None else values.astype(np.int16), ds, lc)
         attrs = {}
         if name.endswith("_err"):
             base = name[:-4]

@@ -15,6 +15,11 @@ and keeps the rest of the file:
 * positions outside their physical range (:data:`POSITION_RANGES`): the
   whole time sample is then unusable (no loss cone can be computed).
 
+One bit marks samples that are kept, not masked: a ``b_local`` given with
+the data that lies below the field model's minimum along the sample's line
+(:func:`local_field_below_minimum`, :data:`B_LOCAL_BELOW_MIN_BIT`); it is
+counted with the others but refuses nothing, also with ``strict=True``.
+
 Masked values are NaN inputs; the outputs they touch carry the bits of
 :data:`SAMPLE_FLAGS` in ``partition_flag`` (CF ``flag_masks``), and
 :func:`flag_counts` counts them per reason. With ``strict=True`` the same
@@ -32,10 +37,15 @@ __all__ = [
     "READ_FLAG_MEANINGS",
     "READ_FLAG_SHIFT",
     "SAMPLE_FLAGS",
+    "COUNTED_FLAGS",
+    "B_LOCAL_BELOW_MIN_BIT",
+    "B_LOCAL_TOLERANCE",
     "MIN_GEOCENTRIC_KM",
     "INFINITE_VALUE_BIT",
+    "flag_b_local",
     "flag_counts",
     "inside_earth",
+    "local_field_below_minimum",
     "mask_positions",
     "position_mask",
     "read_flag_bits",
@@ -58,6 +68,16 @@ SAMPLE_FLAGS = {
 #: values outside the valid range, where a declared ``valid_range`` or ``VALIDMAX`` puts them
 #: already; with or without one, the value is masked and its outputs flagged alike.
 INFINITE_VALUE_BIT = 512
+#: ``partition_flag`` bit of samples whose given ``b_local`` lies below the field model's
+#: ``b_min``: the field magnitude along a line is never below its minimum, so the data's
+#: local field and the model disagree there (a storm-time field below an internal model's,
+#: or a model that does not describe the line); the values are kept and flagged.
+B_LOCAL_BELOW_MIN_BIT = 16384
+#: Relative margin below ``b_min`` before a ``b_local`` is flagged (0.2 nT in 20,000 nT:
+#: ``b_local`` and ``L`` stored as float32 differ from the float64 model by ~2e-7).
+B_LOCAL_TOLERANCE = 1e-5
+#: The bits :func:`flag_counts` counts: the masked input samples and the kept ones above.
+COUNTED_FLAGS = {**SAMPLE_FLAGS, B_LOCAL_BELOW_MIN_BIT: "b_local_below_b_min"}
 #: Physical range of each position variable, in the canonical unit (None: open).
 #: L < 1 is inside the Earth and |mlat| > 90 deg does not exist (McIlwain's
 #: and the dipole's definitions); MLT is an hour of the day; a field strength
@@ -163,8 +183,53 @@ def read_flag_bits(read_flag):
     return np.bitwise_or.reduce(rf, axis=-1).astype(np.int16) << READ_FLAG_SHIFT
 
 
+def local_field_below_minimum(ds, cones):
+    r"""Return the time samples whose given ``b_local`` lies below the model's ``b_min``.
+
+    .. math:: B_\mathrm{local} < B_\mathrm{min} (1 - \epsilon)
+
+    with :math:`\epsilon` = :data:`B_LOCAL_TOLERANCE`. On a field line
+    :math:`B \ge B_\mathrm{min}` everywhere (the equatorial minimum; common
+    practice), so such a sample's local field and the field model disagree.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Flux dataset; only a ``b_local`` of its own is checked (a model's
+        local field is consistent with its minimum by construction).
+    cones : xarray.Dataset
+        Its :func:`beltkit.pad.losscones.sample_loss_cones` (``b_local``,
+        ``b_min`` in nT).
+
+    Returns
+    -------
+    numpy.ndarray or dask.array.Array of bool, or None
+        Per time sample (NaN fields compare False); None when ``ds`` has no
+        ``b_local`` or, for eager data, no sample is below.
+    """
+    if "b_local" not in ds.variables:
+        return None
+    low = (cones["b_local"] < cones["b_min"] * (1.0 - B_LOCAL_TOLERANCE)).data
+    if hasattr(low, "dask"):
+        return low
+    low = np.asarray(low, dtype=bool)
+    return low if low.any() else None
+
+
+def flag_b_local(flags, ds, cones):
+    """Return ``partition_flag`` (time, energy) with :data:`B_LOCAL_BELOW_MIN_BIT` set.
+
+    On the samples of :func:`local_field_below_minimum` (`ds`, `cones`); the
+    values are kept. `flags` itself is returned when no sample is below.
+    """
+    low = local_field_below_minimum(ds, cones)
+    if low is None:
+        return flags
+    return flags | (low[:, None] * np.int16(B_LOCAL_BELOW_MIN_BIT)).astype(np.int16)
+
+
 def flag_counts(partition_flag):
-    """Count the time samples that carry each masked-sample bit.
+    """Count the time samples that carry each counted bit (:data:`COUNTED_FLAGS`).
 
     Parameters
     ----------
@@ -175,7 +240,7 @@ def flag_counts(partition_flag):
     -------
     dict
         ``{meaning: number of time samples with that bit at any energy}``
-        for every bit of :data:`SAMPLE_FLAGS` (zeros included).
+        for every bit of :data:`COUNTED_FLAGS` (zeros included).
 
     Examples
     --------
@@ -194,4 +259,4 @@ def flag_counts(partition_flag):
             per_time |= f[:, j]
     else:
         per_time = np.zeros(f.shape[:1], dtype=np.int64)
-    return {name: int(np.count_nonzero(per_time & bit)) for bit, name in SAMPLE_FLAGS.items()}
+    return {name: int(np.count_nonzero(per_time & bit)) for bit, name in COUNTED_FLAGS.items()}
